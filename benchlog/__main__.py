@@ -1,0 +1,3 @@
+from benchlog.views.cli import main
+
+raise SystemExit(main())

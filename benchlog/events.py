@@ -1,0 +1,121 @@
+"""Time-resolved data that flows from the clock stage up to analysis, store and views.
+
+This module sits at the bottom of the package (it imports only numpy) so that every stage can share
+these shapes. Times are integer nanoseconds:
+
+- `t_ns` is *run time*: sampler ticks unwrapped and converted to ns, monotonic across counter wraps and
+  across sampler resets (the clock stage bridges a reset with the host clock and reports it as an
+  incident), starting near zero at the first record of a run.
+- `host_ns` is the host's wall clock (`time.time_ns()`) when the bytes were received.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+# Incident kinds (docs/protocol.md and DESIGN: disconnect, reset, decode fault, sequence gap, overflow).
+DISCONNECT = "disconnect"
+RESET = "reset"
+DECODE_FAULT = "decode_fault"
+SEQUENCE_GAP = "sequence_gap"
+OVERFLOW = "overflow"
+LOST_EDGES = "lost_edges"
+CLOCK = "clock"
+INCIDENT_KINDS = (DISCONNECT, RESET, DECODE_FAULT, SEQUENCE_GAP, OVERFLOW, LOST_EDGES, CLOCK)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class TimedEdges:
+    """Edges in run time. `t_ns` int64 (non-decreasing per channel), `channel` uint8, `level` uint8."""
+
+    t_ns: np.ndarray
+    channel: np.ndarray
+    level: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.t_ns)
+
+    @classmethod
+    def empty(cls) -> TimedEdges:
+        return cls(np.zeros(0, np.int64), np.zeros(0, np.uint8), np.zeros(0, np.uint8))
+
+    @classmethod
+    def of(cls, rows: list[tuple[int, int, int]]) -> TimedEdges:
+        """From (t_ns, channel, level) rows."""
+        if not rows:
+            return cls.empty()
+        t, ch, lv = zip(*rows, strict=True)
+        return cls(np.asarray(t, np.int64), np.asarray(ch, np.uint8), np.asarray(lv, np.uint8))
+
+    def select(self, mask: np.ndarray) -> TimedEdges:
+        return TimedEdges(self.t_ns[mask], self.channel[mask], self.level[mask])
+
+    @staticmethod
+    def concat(parts: list[TimedEdges]) -> TimedEdges:
+        if not parts:
+            return TimedEdges.empty()
+        return TimedEdges(
+            np.concatenate([p.t_ns for p in parts]),
+            np.concatenate([p.channel for p in parts]),
+            np.concatenate([p.level for p in parts]),
+        )
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class TimedDrives:
+    """Actuator switchings in run time: `t_ns` int64, `channel` uint8, `level` uint8 (1 = energised)."""
+
+    t_ns: np.ndarray
+    channel: np.ndarray
+    level: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.t_ns)
+
+    @classmethod
+    def empty(cls) -> TimedDrives:
+        return cls(np.zeros(0, np.int64), np.zeros(0, np.uint8), np.zeros(0, np.uint8))
+
+    @classmethod
+    def of(cls, rows: list[tuple[int, int, int]]) -> TimedDrives:
+        """From (t_ns, channel, level) rows."""
+        if not rows:
+            return cls.empty()
+        t, ch, lv = zip(*rows, strict=True)
+        return cls(np.asarray(t, np.int64), np.asarray(ch, np.uint8), np.asarray(lv, np.uint8))
+
+
+@dataclass(frozen=True, slots=True)
+class Incident:
+    """Something that happened to the data rather than to the parts.
+
+    `t_start_ns`/`t_end_ns` bound, in run time, the stretch whose data is missing or doubtful (equal
+    when it is a point). `edges_lost` is how many edges are known lost (None when unknown). `channel` is
+    None when the incident concerns the whole bench.
+    """
+
+    kind: str
+    t_start_ns: int
+    t_end_ns: int
+    host_start_ns: int
+    host_end_ns: int
+    edges_lost: int | None = None
+    channel: int | None = None
+    detail: str = ""
+
+
+__all__ = [
+    "TimedEdges",
+    "TimedDrives",
+    "Incident",
+    "INCIDENT_KINDS",
+    "DISCONNECT",
+    "RESET",
+    "DECODE_FAULT",
+    "SEQUENCE_GAP",
+    "OVERFLOW",
+    "LOST_EDGES",
+    "CLOCK",
+]

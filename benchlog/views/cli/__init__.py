@@ -1,0 +1,77 @@
+"""The `benchlog` command line.
+
+Every command is a module `cmd_<name>.py` in this package exposing:
+
+- `NAME` (the subcommand), `HELP` (one line), `add_arguments(parser)`;
+- `run(args) -> int` (the exit code).
+
+Commands import heavy libraries inside `run`, so `benchlog --help` stays fast. Errors from the tree in
+`benchlog.errors` become one line on stderr and their exit code; nothing prints a traceback unless
+`BENCHLOG_DEBUG=1` is set.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import os
+import pkgutil
+import sys
+from collections.abc import Sequence
+from types import ModuleType
+
+from benchlog import __version__
+from benchlog.errors import BenchlogError
+
+__all__ = ["main", "build_parser"]
+
+
+def _command_modules() -> list[ModuleType]:
+    names = sorted(m.name for m in pkgutil.iter_modules(__path__) if m.name.startswith("cmd_"))
+    return [importlib.import_module(f"{__name__}.{n}") for n in names]
+
+
+class _OneLineParser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.print_usage(sys.stderr)
+        self.exit(2, f"benchlog: error: {message}\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _OneLineParser(
+        prog="benchlog",
+        description="Record, measure and qualify mechanical switches and relays on a sampler bench.",
+    )
+    parser.add_argument("--version", action="version", version=f"benchlog {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_OneLineParser)
+    for mod in _command_modules():
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except BenchlogError as exc:
+        print(f"benchlog: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("benchlog: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # last line of defence: one line, never a traceback
+        if os.environ.get("BENCHLOG_DEBUG"):
+            raise
+        print(
+            f"benchlog: internal error: {type(exc).__name__}: {exc} (set BENCHLOG_DEBUG=1 for details)",
+            file=sys.stderr,
+        )
+        return 70

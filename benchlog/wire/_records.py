@@ -1,0 +1,115 @@
+"""Typed records the decoder yields (and the encoders accept). See docs/protocol.md."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+PROTOCOL_VERSION = 1
+
+
+@dataclass(frozen=True, slots=True)
+class Announce:
+    version: int
+    clock_hz: int
+    counter_bits: int
+    channels: int
+    board_id: str
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Edges:
+    """A batch of edges in stream order. Ticks are raw counter values (modulo 2**counter_bits).
+
+    `channel` uint8, `level` uint8 (1 = contact closed), `tick` uint64, all the same length.
+    """
+
+    channel: np.ndarray
+    level: np.ndarray
+    tick: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.tick)
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Edges):
+            return NotImplemented
+        return (
+            np.array_equal(self.channel, other.channel)
+            and np.array_equal(self.level, other.level)
+            and np.array_equal(self.tick, other.tick)
+        )
+
+    @classmethod
+    def of(cls, rows: list[tuple[int, int, int]]) -> Edges:
+        """Build a batch from (channel, level, tick) rows; convenient in tests and examples."""
+        if not rows:
+            return cls(np.zeros(0, np.uint8), np.zeros(0, np.uint8), np.zeros(0, np.uint64))
+        ch, lv, tk = zip(*rows, strict=True)
+        return cls(np.asarray(ch, np.uint8), np.asarray(lv, np.uint8), np.asarray(tk, np.uint64))
+
+
+@dataclass(frozen=True, slots=True)
+class Drive:
+    channel: int
+    level: int
+    tick: int
+
+
+@dataclass(frozen=True, slots=True)
+class Beat:
+    tick: int
+    captured: int
+    dropped: int
+
+
+@dataclass(frozen=True, slots=True)
+class Notice:
+    text: str
+
+
+@dataclass(frozen=True, slots=True)
+class Pong:
+    token: int
+
+
+@dataclass(frozen=True, slots=True)
+class Unknown:
+    """A well-formed record of a type this host does not know (skipped and counted)."""
+
+    type_code: str
+
+
+@dataclass(frozen=True, slots=True)
+class Fault:
+    """Damaged input: `count` bytes or records that could not be decoded, and why."""
+
+    reason: str
+    nbytes: int = 0
+
+
+@dataclass(frozen=True, slots=True)
+class SequenceGap:
+    """Packed form only: `frames_lost` frames never arrived between two good frames."""
+
+    expected: int
+    received: int
+    frames_lost: int
+
+
+Record = Announce | Edges | Drive | Beat | Notice | Pong | Unknown | Fault | SequenceGap
+
+
+@dataclass(slots=True)
+class DecodeCounters:
+    """Running totals a decoder keeps; never reset by the decoder itself."""
+
+    bytes_in: int = 0
+    records: int = 0
+    edges: int = 0
+    faults: int = 0
+    fault_bytes: int = 0
+    unknown: int = 0
+    frames_lost: int = 0
+    by_reason: dict[str, int] = field(default_factory=dict)

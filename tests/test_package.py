@@ -1,0 +1,14 @@
+import subprocess
+import sys
+
+import benchlog
+from benchlog.views.cli import main
+
+
+def test_public_surface():
+    assert benchlog.__all__ == ["__version__"]
+
+
+def test_help_runs_for_every_command(capsys):
+    assert main([]) == 2
+    assert subprocess.run([sys.executable, "-m", "benchlog", "--help"], capture_output=True).returncode == 0
