@@ -1,1 +1,62 @@
-"""(to be filled by its issue)"""
+"""Sans-I/O wire stage: bytes in, typed records out; records and host commands to bytes.
+
+Nothing here does I/O or imports pyserial. See docs/protocol.md for the contract.
+"""
+
+from benchlog.wire._commands import (
+    Command,
+    Go,
+    Halt,
+    Ping,
+    Plan,
+    SetForm,
+    Who,
+    encode_command,
+    parse_command,
+)
+from benchlog.wire._encoders import LineEncoder, PackedEncoder
+from benchlog.wire._framing import DecodeError, cobs_decode, cobs_encode, crc32
+from benchlog.wire._records import (
+    PROTOCOL_VERSION,
+    Announce,
+    Beat,
+    DecodeCounters,
+    Drive,
+    Edges,
+    Fault,
+    Notice,
+    Pong,
+    Record,
+    SequenceGap,
+    Unknown,
+)
+
+__all__ = [
+    "PROTOCOL_VERSION",
+    "Announce",
+    "Beat",
+    "DecodeCounters",
+    "Drive",
+    "Edges",
+    "Fault",
+    "Notice",
+    "Pong",
+    "Record",
+    "SequenceGap",
+    "Unknown",
+    "LineEncoder",
+    "PackedEncoder",
+    "cobs_encode",
+    "cobs_decode",
+    "crc32",
+    "DecodeError",
+    "Command",
+    "Who",
+    "Ping",
+    "SetForm",
+    "Plan",
+    "Go",
+    "Halt",
+    "encode_command",
+    "parse_command",
+]
