@@ -14,6 +14,7 @@ from benchlog.wire._commands import (
     encode_command,
     parse_command,
 )
+from benchlog.wire._decoder import MAX_FRAME, MAX_LINE, Decoder
 from benchlog.wire._encoders import LineEncoder, PackedEncoder
 from benchlog.wire._framing import DecodeError, cobs_decode, cobs_encode, crc32
 from benchlog.wire._records import (
@@ -44,6 +45,9 @@ __all__ = [
     "Record",
     "SequenceGap",
     "Unknown",
+    "Decoder",
+    "MAX_FRAME",
+    "MAX_LINE",
     "LineEncoder",
     "PackedEncoder",
     "cobs_encode",

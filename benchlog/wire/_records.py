@@ -87,6 +87,7 @@ class Fault:
 
     reason: str
     nbytes: int = 0
+    units: int = 1  # how many lines or frames (consecutive faults of one reason are merged)
 
 
 @dataclass(frozen=True, slots=True)

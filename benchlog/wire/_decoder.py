@@ -1,0 +1,442 @@
+"""The sans-I/O decoder: bytes in, records out, for either form, telling the forms apart by itself.
+
+How this works
+--------------
+The decoder holds the bytes of one unfinished line or frame and a state, `form`:
+
+- `None` (undecided): scan terminators (`\\n` and `0x00`) in stream order; the first unit that is a
+  CRC-checked packed frame or a line that parses (with a correct checksum where given) decides the form.
+  Bytes before it are one fault ("before first record").
+- `"line"`: every whole line in the buffer is classified at once with numpy (`_lineform`); well-formed
+  edge lines become `Edges` batches, the rest go through the one-line parser.
+- `"packed"`: the buffer is split at `0x00`; each frame is COBS-decoded and CRC-checked in a short
+  loop of C calls; the payloads of consecutive edge frames are decoded together with numpy.
+
+In a decided form, 64 consecutive faults or 4 KiB of faulty input send the decoder back to undecided.
+A unit that grows past the longest possible line (160 bytes) or frame (1,024 bytes decoded) is a fault;
+the decoder skips to the next terminator, so memory stays bounded whatever arrives.
+"""
+
+from __future__ import annotations
+
+import re
+import zlib
+
+import numpy as np
+
+from benchlog.wire._encoders import (
+    MAX_BOARD_ID,
+    MAX_EDGES_PER_FRAME,
+    MAX_NOTICE,
+    TYPE_ANNOUNCE,
+    TYPE_BEAT,
+    TYPE_DRIVE,
+    TYPE_EDGES,
+    TYPE_NOTICE,
+    TYPE_PONG,
+    check_board_id,
+)
+from benchlog.wire._framing import DecodeError, cobs_decode
+from benchlog.wire._lineform import MAX_LINE, TOO_LONG, LineContext, fast_edge_lines, parse_line
+from benchlog.wire._records import (
+    Announce,
+    Beat,
+    DecodeCounters,
+    Drive,
+    Edges,
+    Fault,
+    Notice,
+    Pong,
+    Record,
+    SequenceGap,
+    Unknown,
+)
+
+MAX_FRAME = 1024
+MAX_ENCODED = MAX_FRAME + MAX_FRAME // 254 + 2  # COBS adds at most one byte per 254
+REDETECT_FAULTS = 64
+REDETECT_BYTES = 4096
+
+BEFORE_FIRST = "before first record"
+COBS = "COBS"
+CRC = "CRC"
+SHORT_FRAME = "frame too short"
+LONG_FRAME = "frame too long"
+PAYLOAD = "payload length"
+RANGE = "value out of range"
+
+_EDGE_HEAD = np.dtype([("base", "<u8"), ("count", "u1")])
+_TERMINATOR = re.compile(rb"[\n\x00]")
+_FIXED_PAYLOAD = {TYPE_DRIVE: 10, TYPE_BEAT: 16, TYPE_PONG: 2}
+
+
+def _edges_empty() -> Edges:
+    return Edges(np.zeros(0, np.uint8), np.zeros(0, np.uint8), np.zeros(0, np.uint64))
+
+
+def _merge(records: list[Record]) -> list[Record]:
+    """Join consecutive `Edges` into one batch and consecutive faults of one reason into one."""
+    out: list[Record] = []
+    run: list[Edges] = []
+
+    def flush() -> None:
+        if run:
+            if len(run) == 1:
+                out.append(run[0])
+            else:
+                out.append(
+                    Edges(
+                        np.concatenate([r.channel for r in run]),
+                        np.concatenate([r.level for r in run]),
+                        np.concatenate([r.tick for r in run]),
+                    )
+                )
+            run.clear()
+
+    for rec in records:
+        if isinstance(rec, Edges):
+            if len(rec):
+                run.append(rec)
+            continue
+        flush()
+        if isinstance(rec, Fault) and out and isinstance(out[-1], Fault) and out[-1].reason == rec.reason:
+            prev = out[-1]
+            out[-1] = Fault(rec.reason, prev.nbytes + rec.nbytes, prev.units + rec.units)
+        else:
+            out.append(rec)
+    flush()
+    return out
+
+
+class Decoder:
+    """Turns sampler bytes into records. `feed` never raises and keeps at most one unit buffered."""
+
+    def __init__(self) -> None:
+        self.counters = DecodeCounters()
+        self.form: str | None = None
+        self._ctx = LineContext()
+        self._buf = b""
+        self._skipping = False  # inside an over-long unit: drop up to the next terminator
+        self._skipped = 0
+        self._bad_units = 0  # consecutive faults since the last good record
+        self._bad_bytes = 0
+        self._expected_seq: int | None = None
+        self._out: list[Record] = []
+
+    # -- public ---------------------------------------------------------------------------------------
+
+    def feed(self, data: bytes) -> list[Record]:
+        """Decode `data` (any chunk of the stream) and return the records completed by it."""
+        self.counters.bytes_in += len(data)
+        buf = self._buf + bytes(data) if self._buf else bytes(data)
+        self._out = []
+        for _ in range(1000):  # each pass consumes input or changes state; the bound is a safety net
+            form = self.form
+            if form is None:
+                buf = self._detect(buf)
+            elif form == "line":
+                buf = self._lines(buf)
+            else:
+                buf = self._frames(buf)
+            if self.form == form or not buf:
+                break
+        self._buf = buf
+        out = _merge(self._out)
+        self._out = []
+        return out
+
+    # -- bookkeeping ----------------------------------------------------------------------------------
+
+    def _fault(self, reason: str, nbytes: int) -> bool:
+        """Record a fault; True when the fault run now sends the decoder back to undecided."""
+        c = self.counters
+        c.faults += 1
+        c.fault_bytes += nbytes
+        c.by_reason[reason] = c.by_reason.get(reason, 0) + 1
+        self._out.append(Fault(reason, nbytes))
+        if self.form is None:
+            return False
+        self._bad_units += 1
+        self._bad_bytes += nbytes
+        if self._bad_units >= REDETECT_FAULTS or self._bad_bytes >= REDETECT_BYTES:
+            self.form = None
+            self._expected_seq = None
+            self._bad_units = self._bad_bytes = 0
+            return True
+        return False
+
+    def _good(self, rec: Record) -> None:
+        self._bad_units = self._bad_bytes = 0
+        c = self.counters
+        c.records += 1
+        if isinstance(rec, Unknown):
+            c.unknown += 1
+        elif isinstance(rec, Edges):
+            c.edges += len(rec)
+        elif isinstance(rec, Announce):
+            self._ctx.version = rec.version
+            self._ctx.counter_bits = rec.counter_bits
+            self._ctx.channels = rec.channels
+        self._out.append(rec)
+
+    def _skip_to(self, buf: bytes, terminator: bytes) -> bytes | None:
+        """While skipping an over-long unit: the bytes after it, or None when it has not ended yet.
+
+        A unit that runs on for 4 KiB is given up at once (a sampler now speaking the other form may
+        never send this form's terminator).
+        """
+        reason = TOO_LONG if terminator == b"\n" else LONG_FRAME
+        end = buf.find(terminator)
+        if end < 0:
+            self._skipped += len(buf)
+            if self._skipped + self._bad_bytes < REDETECT_BYTES:
+                return None
+            nbytes, rest = self._skipped, b""
+        else:
+            nbytes, rest = self._skipped + end + 1, buf[end + 1 :]
+        self._skipping = False
+        self._skipped = 0
+        self._fault(reason, nbytes)
+        return rest
+
+    # -- undecided ------------------------------------------------------------------------------------
+
+    def _valid_frame(self, seg: bytes) -> bool:
+        if not 0 < len(seg) <= MAX_ENCODED:
+            return False
+        try:
+            frame = cobs_decode(seg)
+        except DecodeError:
+            return False
+        return 7 <= len(frame) <= MAX_FRAME and zlib.crc32(frame[:-4]) == int.from_bytes(frame[-4:], "little")
+
+    def _detect(self, buf: bytes) -> bytes:
+        frame_start = line_start = 0
+        found: tuple[str, int] | None = None
+        for m in _TERMINATOR.finditer(buf):
+            p = m.start()
+            if buf[p] == 0:
+                if self._valid_frame(buf[frame_start:p]):
+                    found = ("packed", frame_start)
+                    break
+                frame_start = line_start = p + 1
+            else:
+                line = buf[line_start : p - 1 if p > line_start and buf[p - 1] == 13 else p]
+                rec = parse_line(line, self._ctx)
+                if not isinstance(rec, str | Unknown):
+                    found = ("line", line_start)
+                    break
+                line_start = p + 1
+        if found is None:
+            keep = max(frame_start, len(buf) - MAX_ENCODED)
+            if keep > 0:
+                self._fault(BEFORE_FIRST, keep)
+            return buf[keep:]
+        self.form, start = found
+        if start:
+            self._fault(BEFORE_FIRST, start)
+        self._bad_units = self._bad_bytes = 0
+        return buf[start:]
+
+    # -- line form ------------------------------------------------------------------------------------
+
+    def _lines(self, buf: bytes) -> bytes:
+        if self._skipping:
+            rest = self._skip_to(buf, b"\n")
+            if rest is None or self.form != "line":
+                return rest or b""
+            buf = rest
+        last = buf.rfind(b"\n")
+        if last < 0:
+            return self._hold(buf, MAX_LINE + 1)
+        body, tail = buf[: last + 1], buf[last + 1 :]
+        a = np.frombuffer(body, np.uint8)
+        nl = np.flatnonzero(a == 0x0A)
+        starts = np.empty_like(nl)
+        starts[0] = 0
+        starts[1:] = nl[:-1] + 1
+        ends = nl - ((nl > starts) & (a[nl - 1] == 0x0D))
+        prefix = np.empty(len(a) + 1, np.uint8)
+        prefix[0] = 0
+        np.bitwise_xor.accumulate(a, out=prefix[1:])
+        fast, channel, level, tick = fast_edge_lines(a, prefix, starts, ends, self._ctx)
+        n_lines = len(nl)
+        is_fast = np.zeros(n_lines + 1, bool)
+        is_fast[fast] = True
+        slow = np.flatnonzero(~is_fast)  # ends with the sentinel n_lines
+        taken = 0  # edges of the fast arrays already emitted
+        prev = 0
+        starts_l, ends_l, nl_l = starts.tolist(), ends.tolist(), nl.tolist()
+        for j in slow.tolist():
+            if j > prev:
+                k = j - prev
+                run = slice(taken, taken + k)
+                self._good(Edges(channel[run], level[run], tick[run]))
+                self.counters.records += k - 1
+                taken += k
+            if j == n_lines:
+                break
+            prev = j + 1
+            rec = parse_line(body[starts_l[j] : ends_l[j]], self._ctx)
+            if isinstance(rec, str):
+                if self._fault(rec, nl_l[j] + 1 - starts_l[j]):
+                    return body[nl_l[j] + 1 :] + tail
+            else:
+                self._good(rec)
+        return self._hold(tail, MAX_LINE + 1)
+
+    def _hold(self, tail: bytes, limit: int) -> bytes:
+        """Keep an unfinished unit, or start skipping it when it is already too long."""
+        if len(tail) <= limit:
+            return tail
+        self._skipping = True
+        self._skipped = len(tail)  # counted by `_fault` when the unit ends
+        return b""
+
+    # -- packed form ----------------------------------------------------------------------------------
+
+    def _frames(self, buf: bytes) -> bytes:
+        if self._skipping:
+            rest = self._skip_to(buf, b"\0")
+            if rest is None or self.form != "packed":
+                return rest or b""
+            buf = rest
+        last = buf.rfind(b"\0")
+        if last < 0:
+            return self._hold(buf, MAX_ENCODED)
+        segments = buf[:last].split(b"\0")
+        tail = buf[last + 1 :]
+        heads: list[bytes] = []
+        bodies: list[bytes] = []
+        version = self._ctx.version
+        crc32, from_bytes = zlib.crc32, int.from_bytes
+        for i, seg in enumerate(segments):
+            if not seg:
+                continue  # a bare 0x00 is an idle delimiter
+            reason = None
+            if len(seg) > MAX_ENCODED:
+                reason = LONG_FRAME
+            else:
+                try:
+                    frame = cobs_decode(seg)
+                except DecodeError:
+                    reason = COBS
+                else:
+                    n = len(frame)
+                    if n < 7:
+                        reason = SHORT_FRAME
+                    elif n > MAX_FRAME:
+                        reason = LONG_FRAME
+                    elif crc32(memoryview(frame)[:-4]) != from_bytes(frame[-4:], "little"):
+                        reason = CRC
+            if reason is None:
+                kind = frame[0]
+                seq = frame[1] | (frame[2] << 8)
+                expected = self._expected_seq
+                self._expected_seq = (seq + 1) & 0xFFFF
+                if expected is not None and seq != expected and kind != TYPE_ANNOUNCE:
+                    self._flush_edges(heads, bodies)
+                    lost = (seq - expected) & 0xFFFF
+                    self.counters.frames_lost += lost
+                    self._out.append(SequenceGap(expected, seq, lost))
+                if kind == TYPE_EDGES:
+                    count = frame[11] if n >= 12 else 0
+                    size = 16 + 3 * count
+                    if count and (n == size or (version > 1 and n > size)):
+                        heads.append(frame[3:12])
+                        bodies.append(frame[12 : 12 + 3 * count])
+                        continue
+                    reason = PAYLOAD
+                else:
+                    self._flush_edges(heads, bodies)
+                    rec = self._record(kind, frame[3:-4], version)
+                    if isinstance(rec, str):
+                        reason = rec
+                    else:
+                        self._good(rec)
+                        continue
+            self._flush_edges(heads, bodies)
+            if self._fault(reason, len(seg) + 1):
+                return b"\0".join(segments[i + 1 :]) + b"\0" + tail
+        self._flush_edges(heads, bodies)
+        return self._hold(tail, MAX_ENCODED)
+
+    def _record(self, kind: int, payload: bytes, version: int) -> Record | str:
+        n = len(payload)
+        fixed = _FIXED_PAYLOAD.get(kind)
+        if fixed is not None and (n < fixed or (n > fixed and version <= 1)):
+            return PAYLOAD
+        ctx = self._ctx
+        if kind == TYPE_DRIVE:
+            channel, level, tick = payload[0], payload[1], int.from_bytes(payload[2:10], "little")
+            if channel >= ctx.channels or level > 1 or tick >> ctx.counter_bits:
+                return RANGE
+            return Drive(channel, level, tick)
+        if kind == TYPE_BEAT:
+            tick = int.from_bytes(payload[0:8], "little")
+            if tick >> ctx.counter_bits:
+                return RANGE
+            captured = int.from_bytes(payload[8:12], "little")
+            return Beat(tick, captured, int.from_bytes(payload[12:16], "little"))
+        if kind == TYPE_PONG:
+            return Pong(int.from_bytes(payload[0:2], "little"))
+        if kind == TYPE_NOTICE:
+            if n > MAX_NOTICE:
+                return PAYLOAD
+            return Notice(payload.decode("utf-8", errors="replace"))
+        if kind == TYPE_ANNOUNCE:
+            if not 8 <= n <= 7 + MAX_BOARD_ID:
+                return PAYLOAD
+            version, clock_hz, bits, channels = (
+                payload[0],
+                int.from_bytes(payload[1:5], "little"),
+                payload[5],
+                payload[6],
+            )
+            board = payload[7:].decode("latin-1")
+            if not (version >= 1 and clock_hz >= 1 and 16 <= bits <= 64 and 1 <= channels <= 16):
+                return RANGE
+            if not check_board_id(board):
+                return PAYLOAD
+            return Announce(version, clock_hz, bits, channels, board)
+        return Unknown(f"0x{kind:02x}")
+
+    def _flush_edges(self, heads: list[bytes], bodies: list[bytes]) -> None:
+        """Decode the edge frames gathered so far, all at once, and clear the lists."""
+        if not heads:
+            return
+        head = np.frombuffer(b"".join(heads), _EDGE_HEAD)
+        entries = np.frombuffer(b"".join(bodies), np.uint8).reshape(-1, 3)
+        heads.clear()
+        bodies.clear()
+        counts = head["count"].astype(np.intp)
+        base = head["base"]
+        ctx = self._ctx
+        chan_level = entries[:, 0]
+        channel = chan_level & np.uint8(0x0F)
+        level = chan_level >> np.uint8(7)
+        delta = entries[:, 1].astype(np.uint64) | (entries[:, 2].astype(np.uint64) << np.uint64(8))
+        total = np.cumsum(delta, dtype=np.uint64)
+        first = np.zeros(len(counts), np.intp)
+        np.cumsum(counts[:-1], out=first[1:])
+        before = total[first] - delta[first]
+        tick = np.repeat(base - before, counts) + total
+        bad_entry = ((chan_level & np.uint8(0x70)) != 0) | (channel >= ctx.channels)
+        bad_frame = np.add.reduceat(bad_entry, first) > 0
+        if ctx.counter_bits < 64:
+            tick &= np.uint64((1 << ctx.counter_bits) - 1)
+            bad_frame |= (base >> np.uint64(ctx.counter_bits)) != 0
+        if not bad_frame.any():
+            self._good(Edges(channel, level, tick))
+            self.counters.records += len(counts) - 1
+            return
+        # rare: a CRC-valid frame with impossible content from a faulty sampler; keep frame order
+        for f in range(len(counts)):
+            s, e = first[f], first[f] + counts[f]
+            if bad_frame[f]:
+                self._fault(RANGE, 16 + 3 * int(counts[f]))
+            else:
+                self._good(Edges(channel[s:e], level[s:e], tick[s:e]))
+
+
+__all__ = ["Decoder", "MAX_FRAME", "MAX_LINE", "MAX_EDGES_PER_FRAME"]
