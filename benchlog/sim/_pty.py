@@ -1,0 +1,247 @@
+"""Serve a simulated sampler on a pseudo-terminal, in a background thread.
+
+The port users open is a symbolic link to the current pty slave (`PtySampler.path`), the way a
+`/dev/serial/by-id/...` link names a USB serial board. A pulled cable is modelled as closely as a pty
+allows: the master side closes (the reader's next read fails, as when a USB device node vanishes), the
+link disappears (reopening fails, as with an absent device), bytes the sampler sends meanwhile are lost,
+and after the outage a new pty appears under the same link. A bus-powered board (`pull_powers_off`)
+comes back reset: a new announcement and a counter from zero.
+"""
+
+from __future__ import annotations
+
+import errno
+import os
+import select
+import shutil
+import tempfile
+import threading
+import time
+import tty
+from pathlib import Path
+
+from benchlog.errors import ConfigError, PortError
+from benchlog.sim._bench import Bench
+from benchlog.sim._config import SimConfig
+
+BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
+STEP_WALL_S = 0.02  # sampler time advances in steps of this much wall time (times speed)
+MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated time instead
+
+
+class PtySampler:
+    """A `Bench` speaking the protocol on a pty. Use as a context manager; `.path` is the port.
+
+    `speed` runs sampler time that many times faster than the wall clock. `link` chooses the port's
+    path (default: `port` in a new temporary directory, removed on close).
+    """
+
+    def __init__(
+        self,
+        config: SimConfig,
+        seed: int = 0,
+        speed: float = 1.0,
+        link: str | os.PathLike[str] | None = None,
+        keep_truth: bool = True,
+    ) -> None:
+        if not speed > 0:
+            raise ConfigError(f"speed must be > 0, got {speed}")
+        self.bench = Bench(config, seed, keep_truth=keep_truth)
+        self.speed = float(speed)
+        self._tmpdir: str | None = None
+        if link is None:
+            self._tmpdir = tempfile.mkdtemp(prefix="benchlog-sim-")
+            link = Path(self._tmpdir) / "port"
+        self.path = str(link)
+        self._lock = threading.Lock()
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+        self._master = -1
+        self._slave = -1
+        self.slave_name = ""
+        self._backlog = bytearray()
+        self._cmd_buf = bytearray()
+        self._pull_request: float | None = None
+        self.bytes_written = 0
+        self.bytes_lost_unplugged = 0
+        self.outages: list[tuple[float, float]] = []  # wall-clock (time.time) start/end of each pull
+        self.commands_seen: list[bytes] = []
+        self.error: BaseException | None = None
+        self.connected = threading.Event()
+
+    # -- lifecycle ---------------------------------------------------------------------------------
+    def __enter__(self) -> PtySampler:
+        self.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()
+
+    def start(self) -> None:
+        self._open_pty()
+        self._thread = threading.Thread(target=self._serve, name="benchlog-sim", daemon=True)
+        self._thread.start()
+
+    def stop(self) -> None:
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join(5)
+        self._close_pty()
+        if self._tmpdir:
+            shutil.rmtree(self._tmpdir, ignore_errors=True)
+
+    def pull_cable(self, seconds: float) -> None:
+        """Pull the cable now (from any thread) for `seconds` of wall time."""
+        self._pull_request = float(seconds)
+
+    @property
+    def running(self) -> bool:
+        return self._thread is not None and self._thread.is_alive()
+
+    # -- pty ---------------------------------------------------------------------------------------
+    def _open_pty(self) -> None:
+        try:
+            master, slave = os.openpty()
+        except OSError as exc:
+            raise PortError(f"cannot open a pseudo-terminal: {exc.strerror}") from exc
+        tty.setraw(slave)
+        os.set_blocking(master, False)
+        self._master, self._slave = master, slave
+        self.slave_name = os.ttyname(slave)
+        tmp = self.path + ".new"
+        try:
+            if os.path.lexists(tmp):
+                os.unlink(tmp)
+            os.symlink(self.slave_name, tmp)
+            os.replace(tmp, self.path)
+        except OSError as exc:
+            self._close_pty()
+            raise PortError(f"cannot create the port link {self.path}: {exc.strerror}") from exc
+        self.connected.set()
+
+    def _close_pty(self) -> None:
+        self.connected.clear()
+        try:
+            if os.path.islink(self.path):
+                os.unlink(self.path)
+        except OSError:
+            pass
+        for fd in (self._master, self._slave):
+            if fd >= 0:
+                try:
+                    os.close(fd)
+                except OSError:
+                    pass
+        self._master = self._slave = -1
+
+    # -- the loop ----------------------------------------------------------------------------------
+    def _serve(self) -> None:
+        try:
+            self._loop()
+        except BaseException as exc:  # reported to the owner, never a traceback on a thread
+            self.error = exc
+
+    def _loop(self) -> None:
+        bench = self.bench
+        faults = bench.config.faults
+        pull_at_ns = int(faults.pull_at_s * 1e9) if faults.pull_at_s >= 0 else None
+        wall0 = time.monotonic()
+        sim0 = bench.now_ns
+        self._send(bench.encode(bench.advance_to(bench.now_ns)))
+        while not self._stop.is_set():
+            if self._pull_request is not None:
+                seconds, self._pull_request = self._pull_request, None
+                wall0, sim0 = self._unplugged(seconds, faults.pull_powers_off)
+                continue
+            if pull_at_ns is not None and bench.now_ns >= pull_at_ns:
+                pull_at_ns = None
+                wall0, sim0 = self._unplugged(faults.pull_for_s, faults.pull_powers_off)
+                continue
+            self._read_commands()
+            now = time.monotonic()
+            target = sim0 + int((now - wall0) * self.speed * 1e9)
+            if target - bench.now_ns > MAX_LAG_WALL_S * self.speed * 1e9:
+                # the reader cannot keep up: slow simulated time rather than pile up bytes
+                wall0, sim0 = now, bench.now_ns
+                target = bench.now_ns
+            if len(self._backlog) < BACKLOG_LIMIT and target > bench.now_ns:
+                step = min(target, bench.now_ns + int(STEP_WALL_S * self.speed * 1e9))
+                if pull_at_ns is not None:
+                    step = min(step, max(pull_at_ns, bench.now_ns + 1))
+                data = bench.step_bytes(step)
+                self._send(data)
+            self._flush()
+            self._wait()
+
+    def _wait(self) -> None:
+        if self._master < 0:
+            time.sleep(0.002)
+            return
+        wr = [self._master] if self._backlog else []
+        try:
+            select.select([self._master], wr, [], 0.002 if not self._backlog else 0.001)
+        except (OSError, ValueError):
+            time.sleep(0.002)
+
+    def _send(self, data: bytes) -> None:
+        if data:
+            self._backlog += data
+
+    def _flush(self) -> None:
+        while self._backlog and self._master >= 0:
+            try:
+                n = os.write(self._master, self._backlog[: 1 << 16])
+            except BlockingIOError:
+                return
+            except OSError as exc:
+                if exc.errno in (errno.EIO, errno.EAGAIN):
+                    return
+                raise
+            self.bytes_written += n
+            del self._backlog[:n]
+
+    def _read_commands(self) -> None:
+        if self._master < 0:
+            return
+        try:
+            chunk = os.read(self._master, 4096)
+        except (BlockingIOError, InterruptedError):
+            return
+        except OSError as exc:
+            if exc.errno == errno.EIO:
+                return
+            raise
+        self._cmd_buf += chunk
+        while True:
+            nl = self._cmd_buf.find(b"\n")
+            if nl < 0:
+                if len(self._cmd_buf) > 4096:
+                    self._cmd_buf.clear()
+                return
+            line = bytes(self._cmd_buf[:nl])
+            del self._cmd_buf[: nl + 1]
+            self.commands_seen.append(line)
+            self._send(self.bench.encode(self.bench.command_line(line)))
+
+    def _unplugged(self, seconds: float, powers_off: bool) -> tuple[float, int]:
+        """The cable is out for `seconds` of wall time: the pty goes, the sampler runs on unheard."""
+        bench = self.bench
+        start = time.time()
+        self.bytes_lost_unplugged += len(self._backlog)
+        self._backlog.clear()
+        self._cmd_buf.clear()
+        self._close_pty()
+        wall0, sim0 = time.monotonic(), bench.now_ns
+        end_wall = wall0 + seconds
+        while not self._stop.is_set() and time.monotonic() < end_wall:
+            if not powers_off:
+                target = sim0 + int((time.monotonic() - wall0) * self.speed * 1e9)
+                step = min(target, bench.now_ns + int(STEP_WALL_S * self.speed * 1e9))
+                if step > bench.now_ns:
+                    self.bytes_lost_unplugged += len(bench.step_bytes(step))
+            time.sleep(0.005)
+        if powers_off:
+            self._send(bench.encode(bench.power_cycle(int((time.monotonic() - wall0) * self.speed * 1e9))))
+        self._open_pty()
+        self.outages.append((start, time.time()))
+        return time.monotonic(), bench.now_ns
