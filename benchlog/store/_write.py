@@ -1,0 +1,430 @@
+"""The recorder's write path: batched, one transaction per flush, driver-level bulk inserts.
+
+Actuations go in through the DBAPI driver directly: SQLite's `executemany` on the raw `sqlite3`
+connection, PostgreSQL's `COPY ... FROM STDIN` through psycopg, with rows made by numpy `.tolist()`.
+Everything one flush holds (actuations, edge chunks, incidents, rollups, progress, life status and the
+bench lease heartbeat) commits together, so a crash loses at most what arrived since the last flush.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+from sqlalchemy import func, insert, select, update
+from sqlalchemy.exc import SQLAlchemyError
+
+from benchlog.analysis._types import ACTUATION_DTYPE
+from benchlog.errors import StoreBusyError, StoreError
+from benchlog.events import Incident, TimedEdges
+
+from . import _schema as s
+from ._codec import encode_edges
+from ._engine import _one_line
+from ._rollup import RollupKeeper
+
+# unit_id, run_id, then the store's actuation columns with ACTUATION_DTYPE's own numpy types (a column
+# the analysis adds later and the store does not know yet fails tests/store/test_schema.py).
+STORED_ACTUATION_DTYPE = np.dtype(
+    [("unit_id", np.int64), ("run_id", np.int64)]
+    + [
+        (name, ACTUATION_DTYPE.fields[name][0])
+        for name, _ in s.ACTUATION_COLUMNS
+        if name in ACTUATION_DTYPE.names
+    ]
+)
+ACT_FIELDS = STORED_ACTUATION_DTYPE.names
+_ACT_COLS = ", ".join(ACT_FIELDS)
+_SQLITE_ACT_INSERT = f"INSERT INTO actuations ({_ACT_COLS}) VALUES ({', '.join('?' * len(ACT_FIELDS))})"
+_ROLLUP_COLS = (
+    "unit_id",
+    "metric",
+    "kind",
+    "run_id",
+    "window_no",
+    "cycle_lo",
+    "cycle_hi",
+    "count",
+    "p50",
+    "p95",
+    "max",
+)
+_SQLITE_ROLLUP_INSERT = (
+    f"INSERT INTO rollups ({', '.join(_ROLLUP_COLS)}) VALUES ({', '.join('?' * len(_ROLLUP_COLS))})"
+)
+CHUNK_MAX_EDGES = 65_536
+_TIME_FIELDS = tuple(n for n in ("t_start_ns", "t_first_ns", "t_settle_ns", "t_end_ns") if n in ACT_FIELDS)
+LEASE_SECONDS = 15.0
+
+
+def _store_error(action: str, exc: BaseException) -> StoreError:
+    text = _one_line(exc)
+    low = text.lower()
+    if "disk is full" in low or "no space" in low or "disk full" in low:
+        return StoreError(f"cannot {action}: the disk is full ({text})")
+    if "readonly" in low or "read-only" in low or "read only" in low:
+        return StoreError(f"cannot {action}: the database is read-only ({text})")
+    return StoreError(f"cannot {action}: {text}")
+
+
+def bulk_insert_actuations(conn, rows: list[tuple]) -> None:
+    """Insert stored-form actuation tuples (STORED_ACTUATION_DTYPE order) through the driver."""
+    if not rows:
+        return
+    raw = conn.connection.driver_connection
+    if conn.dialect.name == "sqlite":
+        raw.cursor().executemany(_SQLITE_ACT_INSERT, rows)
+    else:
+        with raw.cursor() as cur, cur.copy(f"COPY actuations ({_ACT_COLS}) FROM STDIN") as copy:
+            for row in rows:
+                copy.write_row(row)
+
+
+def bulk_insert_rollups(conn, rows: list[tuple]) -> None:
+    if not rows:
+        return
+    raw = conn.connection.driver_connection
+    if conn.dialect.name == "sqlite":
+        raw.cursor().executemany(_SQLITE_ROLLUP_INSERT, rows)
+    else:
+        with raw.cursor() as cur, cur.copy(f"COPY rollups ({', '.join(_ROLLUP_COLS)}) FROM STDIN") as copy:
+            for row in rows:
+                copy.write_row(row)
+
+
+def to_stored(acts: np.ndarray, unit_ids: np.ndarray, run_id: int) -> np.ndarray:
+    out = np.empty(len(acts), STORED_ACTUATION_DTYPE)
+    for name in STORED_ACTUATION_DTYPE.names[2:]:
+        out[name] = acts[name]
+    out["unit_id"] = unit_ids
+    out["run_id"] = run_id
+    return out
+
+
+@dataclass(slots=True)
+class FlushStats:
+    actuations: int = 0
+    edges: int = 0
+    incidents: int = 0
+    rollups: int = 0
+    seconds: float = 0.0
+
+
+class RunWriter:
+    """Writes one run (segment) of a bench. Made by `Store.start_run` / `Store.resume_run`.
+
+    Feed it with `add(actuations=..., edges=..., incidents=...)` in *segment* time and run cycles as the
+    analysis reports them (cycle 0 = first cycle of this segment); the writer shifts them to run time
+    and to each unit's life cycle. `flush()` commits; call it at least once a second. `close(reason)`
+    flushes the partial rollup windows, ends the run and releases the bench.
+    """
+
+    def __init__(self, store, run_id: int, lease_token: str) -> None:
+        self.store = store
+        self.run_id = run_id
+        self.lease_token = lease_token
+        self.closed = False
+        self.dropped_unassigned = 0
+        engine = store.engine
+        with engine.connect() as c:
+            run = c.execute(select(s.Run).where(s.Run.id == run_id)).mappings().one()
+            self.bench_id = run["bench_id"]
+            self.t_offset_ns = int(run["t_offset_ns"])
+            self.target_cycles = int(run["target_cycles"])
+            self.window = int(run["rollup_window"])
+            assign = c.execute(
+                select(
+                    s.RunUnit.channel, s.RunUnit.unit_id, s.RunUnit.cycle_base, s.RunUnit.cycles_done
+                ).where(s.RunUnit.run_id == run_id)
+            ).all()
+            life = dict(
+                c.execute(
+                    select(s.UnitLife.unit_id, s.UnitLife.status).where(
+                        s.UnitLife.unit_id.in_([a.unit_id for a in assign])
+                    )
+                ).all()
+            )
+        self.units = {a.channel: a.unit_id for a in assign}
+        self.channel_of = {a.unit_id: a.channel for a in assign}
+        self._lut = np.full(256, -1, np.int64)
+        self._base = np.zeros(256, np.int64)  # life cycles of the unit before this segment
+        self.seg_start = {}  # channel -> run cycles done before this segment
+        self.cycles_done = {}  # channel -> run cycles done so far
+        self.cycle_base = {}
+        for a in assign:
+            self._lut[a.channel] = a.unit_id
+            self._base[a.channel] = a.cycle_base + a.cycles_done
+            self.seg_start[a.channel] = int(a.cycles_done)
+            self.cycles_done[a.channel] = int(a.cycles_done)
+            self.cycle_base[a.channel] = int(a.cycle_base)
+        self.status = {a.unit_id: life.get(a.unit_id, s.ALIVE) for a in assign}
+        self._rollups = RollupKeeper(self.window)
+        self._acts: list[np.ndarray] = []
+        self._edges: list[TimedEdges] = []
+        self._incidents: list[Incident] = []
+        self._life: dict[int, dict] = {}
+        self._rate = 0.0
+        self._last_flush = time.monotonic()
+        self._last_done = self.run_cycles_done()
+        self._conn = engine.connect()
+        self._seed_open_windows()
+
+    # -- feeding ------------------------------------------------------------------------------------
+    def add(
+        self,
+        *,
+        actuations: np.ndarray | None = None,
+        edges: TimedEdges | None = None,
+        incidents: list[Incident] | tuple[Incident, ...] = (),
+    ) -> None:
+        if actuations is not None and len(actuations):
+            self._add_actuations(actuations)
+        if edges is not None and len(edges):
+            self._edges.append(edges)
+        self._incidents.extend(incidents)
+
+    def _add_actuations(self, acts: np.ndarray) -> None:
+        ch = acts["channel"].astype(np.intp)
+        unit = self._lut[ch]
+        keep = unit >= 0
+        if not keep.all():
+            self.dropped_unassigned += int((~keep).sum())
+            acts, ch, unit = acts[keep], ch[keep], unit[keep]
+            if not len(acts):
+                return
+        rows = to_stored(acts, unit, self.run_id)
+        rows["cycle"] += self._base[ch]
+        off = np.int64(self.t_offset_ns)
+        if off:
+            for name in _TIME_FIELDS:
+                col = rows[name]
+                col[col >= 0] += off
+        self._acts.append(rows)
+        # progress per channel: run cycles = segment start + analysis cycle + 1
+        order = np.argsort(ch, kind="stable")
+        chs, first = np.unique(ch[order], return_index=True)
+        top = np.maximum.reduceat(acts["cycle"][order], first)
+        for c, t in zip(chs.tolist(), top.tolist(), strict=True):
+            done = self.seg_start[c] + int(t) + 1
+            if done > self.cycles_done[c]:
+                self.cycles_done[c] = done
+
+    def life_cycle(self, channel: int, analysis_cycle: int) -> int:
+        """The unit's life cycle for an analysis cycle of this segment."""
+        return int(self._base[channel]) + int(analysis_cycle)
+
+    def mark_failed(self, unit_id: int, cycle: int, mode: str, detail: str = "") -> None:
+        """Record the unit as failed at life cycle `cycle` with `mode` (committed with the next flush)."""
+        self.status[unit_id] = s.FAILED
+        self._life[unit_id] = {
+            "status": s.FAILED,
+            "failed_at_cycle": int(cycle),
+            "failure_mode": mode,
+            "cycles": int(cycle),
+            "detail": detail,
+        }
+
+    def mark_removed(self, unit_id: int, detail: str = "") -> None:
+        self.status[unit_id] = s.REMOVED
+        ch = self.channel_of[unit_id]
+        self._life[unit_id] = {
+            "status": s.REMOVED,
+            "detail": detail,
+            "cycles": self.cycle_base[ch] + self.cycles_done[ch],
+        }
+
+    def run_cycles_done(self) -> int:
+        alive = [self.cycles_done[c] for c, u in self.units.items() if self.status.get(u) == s.ALIVE]
+        pool = alive or list(self.cycles_done.values())
+        return min(pool) if pool else 0
+
+    def alive_units(self) -> list[int]:
+        return [u for u, st in self.status.items() if st == s.ALIVE]
+
+    # -- committing ---------------------------------------------------------------------------------
+    def flush(self, *, final: bool = False) -> FlushStats:
+        t0 = time.perf_counter()
+        stats = FlushStats()
+        acts = np.concatenate(self._acts) if self._acts else np.zeros(0, STORED_ACTUATION_DTYPE)
+        rollups = self._rollups.add(acts, final=final)
+        chunks = self._chunks()
+        now = time.time()
+        elapsed = max(time.monotonic() - self._last_flush, 1e-6)
+        done = self.run_cycles_done()
+        inst = (done - self._last_done) / elapsed
+        self._rate = inst if self._rate == 0.0 else 0.8 * self._rate + 0.2 * inst
+        conn = self._conn
+        try:
+            with conn.begin():
+                bulk_insert_actuations(conn, acts.tolist())
+                if chunks:
+                    conn.execute(insert(s.EdgeChunk), chunks)
+                if self._incidents:
+                    conn.execute(insert(s.Incident), [self._incident_row(i) for i in self._incidents])
+                bulk_insert_rollups(conn, [r[:3] + (self.run_id,) + r[4:] for r in rollups])
+                self._write_progress(conn, now, done)
+        except SQLAlchemyError as exc:
+            raise _store_error("write to the database", exc) from exc
+        stats.actuations = len(acts)
+        stats.edges = sum(c["count"] for c in chunks)
+        stats.incidents = len(self._incidents)
+        stats.rollups = len(rollups)
+        self._acts.clear()
+        self._edges.clear()
+        self._incidents.clear()
+        self._life.clear()
+        self._last_flush = time.monotonic()
+        self._last_done = done
+        stats.seconds = time.perf_counter() - t0
+        return stats
+
+    def _write_progress(self, conn, now: float, done: int) -> None:
+        renewed = conn.execute(
+            update(s.Bench)
+            .where(s.Bench.id == self.bench_id, s.Bench.lease_token == self.lease_token)
+            .values(lease_until=now + LEASE_SECONDS)
+        ).rowcount
+        if renewed != 1:
+            raise StoreBusyError(f"lost the lease on bench {self.bench_id}: another recorder took it over")
+        stamp = self.store.now()
+        conn.execute(
+            update(s.Run)
+            .where(s.Run.id == self.run_id)
+            .values(heartbeat_at=stamp, cycles_done=done, rate_cps=max(self._rate, 0.0))
+        )
+        for ch, cyc in self.cycles_done.items():
+            conn.execute(
+                update(s.RunUnit)
+                .where(s.RunUnit.run_id == self.run_id, s.RunUnit.channel == ch)
+                .values(cycles_done=cyc)
+            )
+            unit = self.units[ch]
+            values = self._life.get(unit)
+            if values is None and self.status.get(unit) == s.ALIVE:
+                values = {"cycles": self.cycle_base[ch] + cyc}
+            if values is not None:
+                conn.execute(
+                    update(s.UnitLife)
+                    .where(s.UnitLife.unit_id == unit)
+                    .values(run_id=self.run_id, updated_at=stamp, **values)
+                )
+
+    def _incident_row(self, inc: Incident) -> dict:
+        off = self.t_offset_ns
+        return {
+            "run_id": self.run_id,
+            "kind": inc.kind,
+            "t_start_ns": int(inc.t_start_ns) + off,
+            "t_end_ns": int(inc.t_end_ns) + off,
+            "host_start_ns": int(inc.host_start_ns),
+            "host_end_ns": int(inc.host_end_ns),
+            "edges_lost": None if inc.edges_lost is None else int(inc.edges_lost),
+            "channel": inc.channel,
+            "detail": inc.detail,
+        }
+
+    def _chunks(self) -> list[dict]:
+        if not self._edges:
+            return []
+        e = TimedEdges.concat(self._edges)
+        order = np.argsort(e.channel, kind="stable")
+        ch_sorted = e.channel[order]
+        chans, starts = np.unique(ch_sorted, return_index=True)
+        ends = np.append(starts[1:], len(order))
+        rows: list[dict] = []
+        for ch, a, b in zip(chans.tolist(), starts.tolist(), ends.tolist(), strict=True):
+            unit = int(self._lut[ch])
+            if unit < 0:
+                self.dropped_unassigned += b - a
+                continue
+            idx = order[a:b]
+            t = e.t_ns[idx] + np.int64(self.t_offset_ns)
+            lv = e.level[idx]
+            for c0 in range(0, len(t), CHUNK_MAX_EDGES):
+                tt, ll = t[c0 : c0 + CHUNK_MAX_EDGES], lv[c0 : c0 + CHUNK_MAX_EDGES]
+                lo, hi, t_data, l_data = encode_edges(tt, ll)
+                rows.append(
+                    {
+                        "run_id": self.run_id,
+                        "unit_id": unit,
+                        "channel": ch,
+                        "t_lo_ns": lo,
+                        "t_hi_ns": hi,
+                        "count": len(tt),
+                        "t_data": t_data,
+                        "level_data": l_data,
+                    }
+                )
+        return rows
+
+    def _seed_open_windows(self) -> None:
+        """On resume: the last window of each unit was written partial at the end of the previous
+        segment; delete it and take its actuations back, so it is finished with the new ones."""
+        from sqlalchemy import delete
+
+        try:
+            with self._conn.begin():
+                for ch, unit in self.units.items():
+                    if self.seg_start[ch] == 0:
+                        continue
+                    last = self._conn.execute(
+                        select(func.max(s.Actuation.cycle)).where(
+                            s.Actuation.unit_id == unit, s.Actuation.run_id == self.run_id
+                        )
+                    ).scalar()
+                    if last is None:
+                        continue
+                    w = int(last) // self.window
+                    self._conn.execute(
+                        delete(s.Rollup).where(
+                            s.Rollup.unit_id == unit, s.Rollup.run_id == self.run_id, s.Rollup.window_no >= w
+                        )
+                    )
+                    rows = self.store._fetch_actuations(
+                        self._conn,
+                        [
+                            s.Actuation.unit_id == unit,
+                            s.Actuation.run_id == self.run_id,
+                            s.Actuation.cycle >= w * self.window,
+                        ],
+                    )
+                    for kind in (0, 1):
+                        self._rollups.seed(unit, kind, rows[rows["kind"] == kind])
+        except SQLAlchemyError as exc:
+            raise _store_error("reopen the run", exc) from exc
+
+    def close(self, end_reason: str, detail: str = "") -> None:
+        """Final flush (partial rollup windows too), end the run, release the bench lease."""
+        if self.closed:
+            return
+        try:
+            self.flush(final=True)
+            with self._conn.begin():
+                self._conn.execute(
+                    update(s.Run)
+                    .where(s.Run.id == self.run_id)
+                    .values(ended_at=self.store.now(), end_reason=end_reason, end_detail=detail)
+                )
+                self._conn.execute(
+                    update(s.Bench)
+                    .where(s.Bench.id == self.bench_id, s.Bench.lease_token == self.lease_token)
+                    .values(lease_token=None, lease_host=None, lease_pid=None, lease_until=None)
+                )
+        except SQLAlchemyError as exc:
+            raise _store_error("end the run", exc) from exc
+        finally:
+            self.closed = True
+            self._conn.close()
+
+    def abandon(self) -> None:
+        """Drop the connection without writing (after a store error); the lease runs out by itself."""
+        self.closed = True
+        try:
+            self._conn.rollback()
+        except SQLAlchemyError:
+            pass
+        try:
+            self._conn.close()
+        except SQLAlchemyError:
+            pass

@@ -1,0 +1,37 @@
+"""Alembic environment for benchlog. benchlog passes its own engine in `config.attributes["engine"]`;
+run standalone (`alembic -x url=...`) it builds one from the given URL."""
+
+from __future__ import annotations
+
+from alembic import context
+
+from benchlog.store._schema import metadata
+
+config = context.config
+target_metadata = metadata
+
+
+def _run(connection) -> None:
+    context.configure(
+        connection=connection,
+        target_metadata=target_metadata,
+        render_as_batch=connection.dialect.name == "sqlite",
+    )
+    with context.begin_transaction():
+        context.run_migrations()
+
+
+engine = config.attributes.get("engine")
+if engine is None:
+    from benchlog.store._engine import make_engine, resolve_url
+
+    engine = make_engine(resolve_url(context.get_x_argument(as_dictionary=True).get("url")))
+
+if context.is_offline_mode():
+    context.configure(url=engine.url, target_metadata=target_metadata, literal_binds=True)
+    with context.begin_transaction():
+        context.run_migrations()
+else:
+    with engine.connect() as connection:
+        _run(connection)
+        connection.commit()
