@@ -113,7 +113,9 @@ class SimConfig:
     source: str = "<options>"
 
     def with_faults(self, **changes: Any) -> SimConfig:
-        return replace(self, faults=replace(self.faults, **changes))
+        cfg = replace(self, faults=replace(self.faults, **changes))
+        _validate(cfg)
+        return cfg
 
     def with_sampler(self, **changes: Any) -> SimConfig:
         cfg = replace(self, sampler=replace(self.sampler, **changes))

@@ -1,0 +1,239 @@
+"""A serial link that survives a pulled cable.
+
+pyserial does the work: `serial.serial_for_url` opens the port (device path, pty path, `socket://`,
+`rfc2217://`, ...) and `serial.threaded.ReaderThread` runs the read loop, calling our `Protocol`. Each
+chunk is stamped with the host's receive time and put on a queue the moment it arrives, so nothing
+received before a failure is lost. When the port fails, a supervisor thread records the outage and
+reopens the port with exponential backoff; the outage goes into the same queue, in order, once the
+port is back (or the link closes).
+"""
+
+from __future__ import annotations
+
+import queue
+import threading
+import time
+from dataclasses import dataclass
+
+import serial
+import serial.threaded
+
+from benchlog.errors import PortError
+
+
+@dataclass(frozen=True, slots=True)
+class Chunk:
+    """Bytes as read from the port, and the host's wall clock (`time.time_ns()`) when they arrived."""
+
+    data: bytes
+    host_ns: int
+
+
+@dataclass(frozen=True, slots=True)
+class Outage:
+    """The port was gone from `host_start_ns` until `host_end_ns` (host wall clock)."""
+
+    host_start_ns: int
+    host_end_ns: int
+    reason: str
+    attempts: int  # reopen attempts it took
+
+
+@dataclass(frozen=True, slots=True)
+class PortInfo:
+    device: str
+    description: str
+    hwid: str
+
+
+def list_ports() -> list[PortInfo]:
+    """Serial ports this machine has (pyserial's `serial.tools.list_ports`)."""
+    from serial.tools import list_ports as lp
+
+    return [PortInfo(p.device, p.description or "", p.hwid or "") for p in sorted(lp.comports())]
+
+
+def _reason(exc: BaseException | None) -> str:
+    if exc is None:
+        return "port closed"
+    inner = exc.__context__
+    if isinstance(inner, OSError) and inner.strerror:
+        return inner.strerror
+    text = " ".join(str(exc).split())
+    return text or type(exc).__name__
+
+
+class _Receiver(serial.threaded.Protocol):
+    """Stamps and queues every chunk; on loss, tells the link instead of raising."""
+
+    def __init__(self, link: Link) -> None:
+        self.link = link
+
+    def data_received(self, data: bytes) -> None:
+        self.link._received(data)
+
+    def connection_lost(self, exc: BaseException | None) -> None:  # base class re-raises
+        self.link._lost(exc)
+
+
+class Link:
+    """Reads a pyserial URL in the background; use as a context manager.
+
+    `get(timeout)` returns the next `Chunk` or `Outage` (None on timeout). `write(data)` sends bytes
+    to the sampler. `wait_s` is how long the first open keeps retrying before `PortError`.
+    """
+
+    def __init__(
+        self,
+        url: str,
+        *,
+        baudrate: int = 115200,
+        wait_s: float = 0.0,
+        backoff_s: tuple[float, float] = (0.02, 1.0),
+    ) -> None:
+        self.url = url
+        self.baudrate = baudrate
+        self.wait_s = wait_s
+        self.backoff_s = backoff_s
+        self._queue: queue.SimpleQueue[Chunk | Outage] = queue.SimpleQueue()
+        self._reader: serial.threaded.ReaderThread | None = None
+        self._lost_event = threading.Event()
+        self._lost_at = 0
+        self._lost_reason = ""
+        self._closing = threading.Event()
+        self._supervisor: threading.Thread | None = None
+        self._write_lock = threading.Lock()
+        self.bytes_in = 0
+        self.chunks_in = 0
+        self.bytes_out = 0
+        self.outages: list[Outage] = []
+        self.down_since_ns: int | None = None
+
+    # -- lifecycle ---------------------------------------------------------------------------------
+    def __enter__(self) -> Link:
+        self.open()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def _open_port(self) -> serial.SerialBase:
+        try:
+            port = serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=1, do_not_open=True)
+            port.open()
+        except (serial.SerialException, OSError, ValueError) as exc:
+            raise PortError(f"cannot open {self.url}: {_reason(exc)}") from exc
+        return port
+
+    def open(self) -> None:
+        deadline = time.monotonic() + self.wait_s
+        delay = self.backoff_s[0]
+        while True:
+            try:
+                port = self._open_port()
+                break
+            except PortError:
+                if time.monotonic() + delay > deadline:
+                    raise
+                time.sleep(delay)
+                delay = min(delay * 2, self.backoff_s[1])
+        self._start_reader(port)
+        self._supervisor = threading.Thread(target=self._supervise, name="benchlog-link", daemon=True)
+        self._supervisor.start()
+
+    def close(self) -> None:
+        self._closing.set()
+        self._lost_event.set()
+        reader = self._reader
+        if reader is not None:
+            try:
+                reader.close()
+            except Exception:  # the port may already be gone
+                pass
+        if self._supervisor is not None:
+            self._supervisor.join(5)
+
+    @property
+    def connected(self) -> bool:
+        return self._reader is not None and self._reader.alive and self.down_since_ns is None
+
+    # -- reader callbacks (reader thread) ----------------------------------------------------------
+    def _received(self, data: bytes) -> None:
+        self._queue.put(Chunk(bytes(data), time.time_ns()))
+        self.bytes_in += len(data)
+        self.chunks_in += 1
+
+    def _lost(self, exc: BaseException | None) -> None:
+        self._lost_at = time.time_ns()
+        self._lost_reason = _reason(exc)
+        self._lost_event.set()
+
+    # -- supervisor --------------------------------------------------------------------------------
+    def _start_reader(self, port: serial.SerialBase) -> None:
+        self._lost_event.clear()
+        reader = serial.threaded.ReaderThread(port, lambda: _Receiver(self))
+        reader.name = "benchlog-link-reader"
+        self._reader = reader
+        reader.start()
+        reader.connect()
+
+    def _supervise(self) -> None:
+        while not self._closing.is_set():
+            self._lost_event.wait()
+            if self._closing.is_set():
+                return
+            start, reason = self._lost_at, self._lost_reason
+            self.down_since_ns = start
+            old = self._reader
+            if old is not None:
+                try:
+                    old.serial.close()
+                except Exception:
+                    pass
+            attempts, delay = 0, self.backoff_s[0]
+            while not self._closing.is_set():
+                attempts += 1
+                try:
+                    port = self._open_port()
+                except PortError:
+                    self._closing.wait(delay)
+                    delay = min(delay * 2, self.backoff_s[1])
+                    continue
+                self._start_reader(port)
+                break
+            outage = Outage(start, time.time_ns(), reason, attempts)
+            self.outages.append(outage)
+            self._queue.put(outage)
+            self.down_since_ns = None
+
+    # -- consumer side -----------------------------------------------------------------------------
+    def get(self, timeout: float | None = None) -> Chunk | Outage | None:
+        try:
+            return self._queue.get(timeout=timeout) if timeout else self._queue.get_nowait()
+        except queue.Empty:
+            return None
+
+    def drain(self, timeout: float | None = None, max_items: int = 100_000) -> list[Chunk | Outage]:
+        """Everything queued now (waiting up to `timeout` for the first item)."""
+        first = self.get(timeout)
+        if first is None:
+            return []
+        items = [first]
+        while len(items) < max_items:
+            try:
+                items.append(self._queue.get_nowait())
+            except queue.Empty:
+                break
+        return items
+
+    def write(self, data: bytes) -> None:
+        """Send bytes to the sampler; `PortError` while the port is down."""
+        reader = self._reader
+        if reader is None or not self.connected:
+            raise PortError(f"cannot send to {self.url}: the port is not connected")
+        try:
+            with self._write_lock:
+                reader.write(data)
+        except (serial.SerialException, OSError) as exc:
+            raise PortError(f"cannot send to {self.url}: {_reason(exc)}") from exc
+        self.bytes_out += len(data)
