@@ -1,1 +1,111 @@
-"""(to be filled by its issue)"""
+"""Actuation analysis: edges -> measured makes and breaks -> spec verdicts -> drift flags.
+
+```python
+from benchlog.analysis import AnalysisSettings, Analyzer, measure, load_spec, judge, unit_verdict
+
+rows = measure(edges, drives, settings=AnalysisSettings(settle_ns=5_000_000))   # ACTUATION_DTYPE
+spec = load_spec("AG-MS5.toml")
+judge(rows, spec)
+verdict, reason = unit_verdict(rows[rows["channel"] == 0], spec)
+```
+Definitions of every metric: docs/metrics.md; the spec file format: docs/spec.md.
+"""
+
+from benchlog.analysis._analyzer import Analyzer, AnalyzerCounters, blank_incomplete, measure
+from benchlog.analysis._drift import (
+    WINDOW_DTYPE,
+    Baseline,
+    DriftMonitor,
+    DriftReport,
+    Projection,
+    baseline,
+    cusum,
+    drift,
+    ewma,
+    project,
+    window_stats,
+)
+from benchlog.analysis._settings import DEFAULT_CHATTER_THRESHOLD_NS, AnalysisSettings
+from benchlog.analysis._spec import (
+    METRICS,
+    VERDICT_NAMES,
+    ChatterLimit,
+    LifeRequirement,
+    Limit,
+    PartSpec,
+    judge,
+    load_spec,
+    parse_spec,
+    unit_verdict,
+    unit_verdicts,
+)
+from benchlog.analysis._summary import summarize
+from benchlog.analysis._types import (
+    ACTUATION_DTYPE,
+    BREAK,
+    CHATTER,
+    FAIL,
+    FREE,
+    FREE_RUNNING,
+    GLITCHY,
+    INCOMPLETE,
+    MAKE,
+    MARGINAL,
+    MISSED,
+    NO_CHANGE,
+    NO_VERDICT,
+    PASS,
+    STUCK,
+    empty_actuations,
+)
+
+Segmenter = Analyzer  # the same object: it segments and measures in one pass
+
+__all__ = [
+    "ACTUATION_DTYPE",
+    "AnalysisSettings",
+    "Analyzer",
+    "AnalyzerCounters",
+    "BREAK",
+    "Baseline",
+    "CHATTER",
+    "ChatterLimit",
+    "DEFAULT_CHATTER_THRESHOLD_NS",
+    "DriftMonitor",
+    "DriftReport",
+    "FAIL",
+    "FREE",
+    "FREE_RUNNING",
+    "GLITCHY",
+    "INCOMPLETE",
+    "LifeRequirement",
+    "Limit",
+    "MAKE",
+    "MARGINAL",
+    "METRICS",
+    "MISSED",
+    "NO_CHANGE",
+    "NO_VERDICT",
+    "PASS",
+    "PartSpec",
+    "Projection",
+    "STUCK",
+    "Segmenter",
+    "VERDICT_NAMES",
+    "WINDOW_DTYPE",
+    "baseline",
+    "blank_incomplete",
+    "cusum",
+    "drift",
+    "empty_actuations",
+    "ewma",
+    "judge",
+    "load_spec",
+    "measure",
+    "parse_spec",
+    "project",
+    "summarize",
+    "unit_verdict",
+    "unit_verdicts",
+    "window_stats",
+]

@@ -18,6 +18,9 @@ STUCK = 1 << 2  # the contact never left its state at all (welded / stuck)
 FREE_RUNNING = 1 << 3  # no drive record anchors it: transit time not available
 GLITCHY = 1 << 4  # contains pulses below the glitch floor (counted in `glitches`)
 CHATTER = 1 << 5  # the stable period after it had chatter events
+NO_CHANGE = 1 << 6  # driven, but the contact already sat in the expected state (nothing to measure)
+
+FREE = 255  # drive_level of a free-running actuation
 
 PASS = 0
 MARGINAL = 1
@@ -42,6 +45,8 @@ ACTUATION_DTYPE = np.dtype(
         ("transfer_us", np.float64),  # form C pair: break-before-make gap (+) or overlap (-)
         ("flags", np.uint16),
         ("verdict", np.uint8),  # PASS / MARGINAL / FAIL / NO_VERDICT
+        ("t_end_ns", np.int64),  # end of the stable period that follows (next actuation or end of data)
+        ("drive_level", np.uint8),  # the drive that started it: 1 on (operate), 0 off (release), 255 none
     ]
 )
 

@@ -1,0 +1,453 @@
+"""Streaming segmentation: chunks of edges and drives in, finished actuations out.
+
+Each channel keeps only what an unfinished actuation still needs: its raw (deduplicated) edges from the
+start of the first actuation not yet emitted, and the drive records from there on. On every push the
+pending part is measured again with the pure functions of `_measure`, and the actuations whose whole
+window lies before the horizon are emitted and cut away. The horizon is the newest time seen minus
+`lateness_ns` (or what the caller vouches for with `until_ns`): an actuation is final when no record
+that could change it can still arrive. Memory is the chunk plus one actuation per channel.
+
+Because emission only ever happens for windows the later data cannot touch, and the cut always falls on
+a glitch-run boundary, the result does not depend on how the stream was chunked.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from benchlog.analysis._measure import dedupe, filter_glitches, measure_windows
+from benchlog.analysis._settings import AnalysisSettings
+from benchlog.analysis._types import (
+    ACTUATION_DTYPE,
+    BREAK,
+    FREE,
+    FREE_RUNNING,
+    INCOMPLETE,
+    MAKE,
+    empty_actuations,
+)
+from benchlog.events import Incident, TimedDrives, TimedEdges
+
+_FAR = np.iinfo(np.int64).max // 4
+_I64 = np.zeros(0, np.int64)
+_U8 = np.zeros(0, np.uint8)
+
+
+@dataclass(slots=True)
+class _Channel:
+    channel: int
+    normally_closed: bool
+    t: np.ndarray = field(default_factory=lambda: _I64)
+    lv: np.ndarray = field(default_factory=lambda: _U8)
+    level_before: int | None = None
+    dt: np.ndarray = field(default_factory=lambda: _I64)
+    dl: np.ndarray = field(default_factory=lambda: _U8)
+    last_drive_level: int | None = None
+    driven: bool = False  # a drive record was ever seen: drive-anchored from the first drive on
+    cycle_base: int = 0
+    done_until: int = -_FAR  # every actuation starting before this has been emitted
+    late_edges: int = 0
+
+
+@dataclass(slots=True)
+class AnalyzerCounters:
+    """What the analyzer saw besides actuations (for the run log)."""
+
+    edges_in: int = 0
+    drives_in: int = 0
+    repeated_levels: int = 0  # edges that did not change the level (lost edges upstream)
+    late_edges: int = 0  # arrived after their stretch was already measured; not used
+    stray_pulses: int = 0  # free-running disturbances before any actuation of their channel
+
+
+class Analyzer:
+    """Edges and drives in (in chunks), actuations out (ACTUATION_DTYPE arrays).
+
+    ```python
+    an = Analyzer(AnalysisSettings(settle_ns=5_000_000))
+    for timed in chunks:
+        rows = an.push(timed.edges, timed.drives, timed.incidents)
+    rows = an.flush()
+    ```
+    `push` returns the actuations finished so far, `flush` the rest at the end of data. The optional
+    `spec` (a PartSpec) judges each emitted actuation (sets `verdict`).
+    """
+
+    def __init__(self, settings: AnalysisSettings | None = None, spec: object | None = None) -> None:
+        self.settings = settings or AnalysisSettings()
+        self.spec = spec
+        self.counters = AnalyzerCounters()
+        self._channels: dict[int, _Channel] = {}
+        self._incidents: list[Incident] = []
+        self._max_t = -_FAR
+        self._held: dict[int, np.ndarray] = {}  # form C rows waiting for their partner's row
+        self._window_end: dict[int, np.ndarray] = {}
+
+    # -- public -------------------------------------------------------------------------------------
+
+    def push(
+        self,
+        edges: TimedEdges | None = None,
+        drives: TimedDrives | None = None,
+        incidents: Iterable[Incident] = (),
+        until_ns: int | None = None,
+    ) -> np.ndarray:
+        """Take one chunk; return the actuations finished by it (sorted by start time)."""
+        edges = edges if edges is not None else TimedEdges.empty()
+        drives = drives if drives is not None else TimedDrives.empty()
+        self._incidents.extend(incidents)
+        for arr in (edges.t_ns, drives.t_ns):
+            if len(arr):
+                self._max_t = max(self._max_t, int(arr.max()))
+        for inc in self._incidents:
+            self._max_t = max(self._max_t, int(inc.t_end_ns))
+        self._take(edges, drives)
+        horizon = self._max_t - self.settings.lateness_ns
+        if until_ns is not None:
+            horizon = max(horizon, int(until_ns))
+        return self._emit(horizon, final=False)
+
+    def flush(self, until_ns: int | None = None) -> np.ndarray:
+        """End of data (at the newest time seen, or `until_ns`): finish every channel."""
+        end = self._max_t if until_ns is None else max(self._max_t, int(until_ns))
+        return self._emit(end, final=True)
+
+    # -- intake -------------------------------------------------------------------------------------
+
+    def _chan(self, c: int) -> _Channel:
+        ch = self._channels.get(c)
+        if ch is None:
+            ch = _Channel(c, self.settings.is_normally_closed(c))
+            self._channels[c] = ch
+        return ch
+
+    def _take(self, edges: TimedEdges, drives: TimedDrives) -> None:
+        self.counters.edges_in += len(edges)
+        self.counters.drives_in += len(drives)
+        if len(edges):
+            order = np.argsort(edges.channel, kind="stable")
+            chans = edges.channel[order]
+            bounds = np.flatnonzero(np.diff(chans)) + 1
+            for part in np.split(order, bounds):
+                self._take_edges(self._chan(int(edges.channel[part[0]])), edges.t_ns[part], edges.level[part])
+        if len(drives) and self.settings.mode != "free":
+            for c in np.unique(drives.channel):
+                c = int(c)
+                sel = drives.channel == c
+                targets = [c]
+                partner = self.settings.partner(c)
+                if partner is not None:
+                    targets.append(partner)
+                for target in targets:
+                    self._take_drives(self._chan(target), drives.t_ns[sel], drives.level[sel])
+
+    def _take_edges(self, ch: _Channel, t: np.ndarray, lv: np.ndarray) -> None:
+        t = t.astype(np.int64, copy=False)
+        lv = (lv != 0).astype(np.uint8)
+        late = t < ch.done_until
+        if late.any():
+            n = int(late.sum())
+            ch.late_edges += n
+            self.counters.late_edges += n
+            t, lv = t[~late], lv[~late]
+        if not len(t):
+            return
+        if ch.level_before is None:
+            ch.level_before = 1 - int(lv[0]) if not len(ch.t) else ch.level_before
+        t_all = np.concatenate((ch.t, t))
+        lv_all = np.concatenate((ch.lv, lv))
+        if len(t_all) > 1 and (np.diff(t_all) < 0).any():
+            order = np.argsort(t_all, kind="stable")
+            t_all, lv_all = t_all[order], lv_all[order]
+            ch.level_before = 1 - int(lv_all[0]) if ch.done_until == -_FAR else ch.level_before
+        before = len(t_all)
+        ch.t, ch.lv = dedupe(t_all, lv_all, int(ch.level_before))
+        self.counters.repeated_levels += before - len(ch.t)
+
+    def _take_drives(self, ch: _Channel, t: np.ndarray, lv: np.ndarray) -> None:
+        t = t.astype(np.int64, copy=False)
+        lv = (lv != 0).astype(np.uint8)
+        keep = t >= ch.done_until
+        t, lv = t[keep], lv[keep]
+        if not len(t):
+            return
+        t_all = np.concatenate((ch.dt, t))
+        lv_all = np.concatenate((ch.dl, lv))
+        if len(t_all) > 1 and (np.diff(t_all) < 0).any():
+            order = np.argsort(t_all, kind="stable")
+            t_all, lv_all = t_all[order], lv_all[order]
+        # A drive repeating the previous drive's level switches nothing: it neither ends nor starts one.
+        prev = np.empty_like(lv_all)
+        prev[0] = 255 if ch.last_drive_level is None else ch.last_drive_level
+        prev[1:] = lv_all[:-1]
+        keep = lv_all != prev
+        ch.dt, ch.dl = t_all[keep], lv_all[keep]
+        ch.driven = ch.driven or bool(len(ch.dt))
+
+    # -- emission -----------------------------------------------------------------------------------
+
+    def _emit(self, horizon: int, final: bool) -> np.ndarray:
+        parts = []
+        for c in sorted(self._channels):
+            rows = self._process(self._channels[c], horizon, final)
+            if len(rows):
+                parts.append(rows)
+        rows = np.concatenate(parts) if parts else empty_actuations()
+        rows = self._mark_incomplete(rows)
+        rows = self._pair_form_c(rows, final)
+        if len(rows) > 1:
+            rows = rows[np.lexsort((rows["channel"], rows["t_start_ns"]))]
+        if self.spec is not None and len(rows):
+            from benchlog.analysis._spec import judge
+
+            judge(rows, self.spec)
+        self._prune_incidents()
+        return rows
+
+    def _process(self, ch: _Channel, horizon: int, final: bool) -> np.ndarray:
+        s = self.settings
+        if ch.level_before is None:
+            if not (final and len(ch.dt)):
+                return empty_actuations()
+            # No edge ever: the contact sat at rest (open for a normally-open contact).
+            ch.level_before = 1 if ch.normally_closed else 0
+        floor = s.floor
+        kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
+        ft, flv = ch.t[kept], ch.lv[kept]
+        if final:
+            eff = _FAR
+        elif len(ch.t) and horizon - int(ch.t[-1]) < floor:
+            eff = min(horizon, int(ch.t[group_start[-1]]))  # the last glitch run may still grow
+        else:
+            eff = horizon
+        out = []
+        if len(ch.dt) and ch.done_until < int(ch.dt[0]):
+            # Free-running stretch before the first drive of a channel that became driven.
+            cap = int(ch.dt[0])
+            rows = self._free(ch, ft, flv, kept, glitch_t, glitch_n, eff, horizon, final, cap=cap)
+            if len(rows):
+                out.append(rows)
+            if not (final or cap <= eff):
+                return np.concatenate(out) if out else empty_actuations()
+            _, group_start, _, _ = filter_glitches(ch.t, floor)
+            self._cut(ch, cap, group_start)
+            ch.done_until = cap
+            kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
+            ft, flv = ch.t[kept], ch.lv[kept]
+        if len(ch.dt):
+            rows = self._driven(ch, ft, flv, glitch_t, glitch_n, group_start, eff, horizon, final)
+        elif not ch.driven:
+            rows = self._free(ch, ft, flv, kept, glitch_t, glitch_n, eff, horizon, final, cap=None)
+        else:
+            rows = empty_actuations()
+        if len(rows):
+            out.append(rows)
+        return np.concatenate(out) if out else empty_actuations()
+
+    def _cut(self, ch: _Channel, t_cut: int, group_start: np.ndarray) -> None:
+        """Forget raw edges before the glitch run holding the first edge at or after `t_cut`."""
+        i = int(np.searchsorted(ch.t, t_cut, "left"))
+        if i < len(ch.t):
+            i = int(group_start[i])
+        if i > 0:
+            ch.level_before = int(ch.lv[i - 1])
+            ch.t, ch.lv = ch.t[i:], ch.lv[i:]
+
+    def _driven(self, ch, ft, flv, glitch_t, glitch_n, group_start, eff, horizon, final) -> np.ndarray:
+        s = self.settings
+        d, dl = ch.dt, ch.dl
+        m = len(d)
+        w_end = np.empty(m, np.int64)
+        w_end[:-1] = d[1:]
+        w_end[-1] = max(horizon, int(d[-1]))
+        n_final = m if final else int(np.searchsorted(d[1:], eff, "right"))
+        if n_final == 0:
+            return empty_actuations()
+        expected = (1 - dl) if ch.normally_closed else dl
+        rows = measure_windows(
+            ft,
+            flv,
+            int(ch.level_before),
+            d[:n_final],
+            w_end[:n_final],
+            expected[:n_final],
+            s.settle_ns,
+            s.chatter_threshold_ns,
+            glitch_t,
+            glitch_n,
+        )
+        rows["channel"] = ch.channel
+        rows["drive_level"] = dl[:n_final]
+        on = (dl[:n_final] == 1).astype(np.int64)
+        rows["cycle"] = np.maximum(ch.cycle_base + np.cumsum(on) - 1, 0)
+        transit = (rows["t_first_ns"] - rows["t_start_ns"]) / 1e3
+        rows["transit_us"] = np.where(rows["t_first_ns"] >= 0, transit, np.nan)
+        if final:
+            self._mark_cut_short(rows[-1:])
+        ch.cycle_base += int(on.sum())
+        ch.last_drive_level = int(dl[n_final - 1])
+        ch.dt, ch.dl = d[n_final:], dl[n_final:]
+        cut_at = int(w_end[n_final - 1])
+        self._cut(ch, cut_at, group_start)
+        ch.done_until = cut_at
+        return rows
+
+    def _free(self, ch, ft, flv, kept, glitch_t, glitch_n, eff, horizon, final, cap) -> np.ndarray:
+        """Free-running groups (only those before `cap`, the channel's first drive, when given)."""
+        s = self.settings
+        if cap is not None:
+            sel = ft < cap
+            ft, flv, kept = ft[sel], flv[sel], kept[sel]
+        closed_end = final or (cap is not None and cap <= eff)
+        n = len(ft)
+        if n == 0:
+            return empty_actuations()
+        start = np.ones(n, bool)
+        start[1:] = np.diff(ft) >= s.quiet
+        starts = np.flatnonzero(start)
+        sizes = np.diff(np.append(starts, n))
+        # The next filtered edge cannot come before `eff` (the horizon, or an unfinished glitch run).
+        last_closed = closed_end or (eff - int(ft[-1]) >= s.quiet)
+        n_closed = len(starts) if last_closed else len(starts) - 1
+        real = np.flatnonzero((sizes[:n_closed] & 1) == 1)
+        end_of_data = cap if cap is not None else max(horizon, int(ft[-1]))
+        if len(real) == 0:
+            if n_closed and not closed_end:
+                # Closed disturbances before any actuation: nothing to attach them to.
+                self.counters.stray_pulses += n_closed
+                drop_to = int(kept[starts[n_closed]]) if n_closed < len(starts) else len(ch.t)
+                self._drop_raw(ch, drop_to)
+            return empty_actuations()
+        n_emit = len(real) if closed_end else len(real) - 1
+        if n_emit <= 0:
+            return empty_actuations()
+        w_start = ft[starts[real]]
+        w_end = np.append(w_start[1:], end_of_data)
+        expected = flv[starts[real]]
+        rows = measure_windows(
+            ft,
+            flv,
+            int(ch.level_before),
+            w_start[:n_emit],
+            w_end[:n_emit],
+            expected[:n_emit],
+            s.settle_ns,
+            s.chatter_threshold_ns,
+            glitch_t,
+            glitch_n,
+        )
+        rows["channel"] = ch.channel
+        rows["flags"] |= FREE_RUNNING
+        rows["drive_level"] = FREE
+        makes = (rows["kind"] == MAKE).astype(np.int64)
+        rows["cycle"] = np.maximum(ch.cycle_base + np.cumsum(makes) - 1, 0)
+        ch.cycle_base += int(makes.sum())
+        if closed_end and cap is None:
+            self._mark_cut_short(rows[-1:])
+        if n_emit < len(real):
+            self._drop_raw(ch, int(kept[starts[real[n_emit]]]))
+        ch.done_until = int(w_end[n_emit - 1])
+        return rows
+
+    def _drop_raw(self, ch: _Channel, i: int) -> None:
+        if i > 0:
+            ch.level_before = int(ch.lv[i - 1])
+            ch.t, ch.lv = ch.t[i:], ch.lv[i:]
+
+    def _mark_cut_short(self, last: np.ndarray) -> None:
+        """The last actuation at the end of data: incomplete unless it had settled a settle window before."""
+        if not len(last):
+            return
+        settle_from = np.where(last["t_settle_ns"] >= 0, last["t_settle_ns"], last["t_start_ns"])
+        short = (last["t_end_ns"] - settle_from) < self.settings.settle_ns
+        last["flags"] |= np.where(short, INCOMPLETE, 0).astype(np.uint16)
+
+    def _mark_incomplete(self, rows: np.ndarray) -> np.ndarray:
+        if len(rows) and self._incidents:
+            mask = np.zeros(len(rows), bool)
+            for inc in self._incidents:
+                hit = (rows["t_start_ns"] <= inc.t_end_ns) & (rows["t_end_ns"] > inc.t_start_ns)
+                if inc.channel is not None:
+                    hit &= rows["channel"] == inc.channel
+                mask |= hit
+            rows["flags"] |= np.where(mask, INCOMPLETE, 0).astype(np.uint16)
+        return blank_incomplete(rows)
+
+    def _prune_incidents(self) -> None:
+        if not self._incidents or not self._channels:
+            return
+        oldest = min(ch.done_until for ch in self._channels.values())
+        self._incidents = [i for i in self._incidents if i.t_end_ns >= oldest]
+
+    # -- form C -------------------------------------------------------------------------------------
+
+    def _pair_form_c(self, rows: np.ndarray, final: bool) -> np.ndarray:
+        if not self.settings.form_c:
+            return rows
+        tol = self.settings.quiet
+        paired = np.isin(rows["channel"], [c for pair in self.settings.form_c for c in pair])
+        out = [rows[~paired]]
+        for a, b in self.settings.form_c:
+            ra = np.concatenate((self._held.pop(a, empty_actuations()), rows[rows["channel"] == a]))
+            rb = np.concatenate((self._held.pop(b, empty_actuations()), rows[rows["channel"] == b]))
+            _transfer(ra, rb, tol)
+            _transfer(rb, ra, tol)
+            for mine, c_mine, c_other in ((ra, a, b), (rb, b, a)):
+                if final:
+                    out.append(mine)
+                    continue
+                done_other = self._channels[c_other].done_until if c_other in self._channels else -_FAR
+                release = ~np.isnan(mine["transfer_us"]) | (mine["t_start_ns"] + tol < done_other)
+                release |= (mine["flags"] & INCOMPLETE) != 0
+                out.append(mine[release])
+                if (~release).any():
+                    self._held[c_mine] = mine[~release]
+        return np.concatenate(out)
+
+
+def _transfer(mine: np.ndarray, other: np.ndarray, tol: int) -> None:
+    """Fill `transfer_us` of `mine` from the nearest opposite actuation of the other contact."""
+    if not len(mine) or not len(other):
+        return
+    ts = other["t_start_ns"]
+    i = np.clip(np.searchsorted(ts, mine["t_start_ns"]), 0, len(ts) - 1)
+    i_left = np.maximum(i - 1, 0)
+    closer_left = np.abs(ts[i_left] - mine["t_start_ns"]) < np.abs(ts[i] - mine["t_start_ns"])
+    i = np.where(closer_left, i_left, i)
+    o = other[i]
+    ok = (np.abs(o["t_start_ns"] - mine["t_start_ns"]) <= tol) & (o["kind"] != mine["kind"])
+    make_first = np.where(mine["kind"] == MAKE, mine["t_first_ns"], o["t_first_ns"])
+    break_settle = np.where(mine["kind"] == BREAK, mine["t_settle_ns"], o["t_settle_ns"])
+    ok &= (make_first >= 0) & (break_settle >= 0)
+    mine["transfer_us"] = np.where(ok, (make_first - break_settle) / 1e3, mine["transfer_us"])
+
+
+def blank_incomplete(rows: np.ndarray) -> np.ndarray:
+    """Incomplete actuations are not measured: their durations become NaN and their counts -1."""
+    inc = (rows["flags"] & INCOMPLETE) != 0
+    if inc.any():
+        for name in ("transit_us", "bounce_us", "longest_gap_us", "wrong_state_us", "transfer_us"):
+            rows[name][inc] = np.nan
+        for name in ("bounce_count", "glitches", "chatter"):
+            rows[name][inc] = -1
+    return rows
+
+
+def measure(
+    edges: TimedEdges,
+    drives: TimedDrives | None = None,
+    incidents: Iterable[Incident] = (),
+    settings: AnalysisSettings | None = None,
+    spec: object | None = None,
+) -> np.ndarray:
+    """One shot: every actuation in a whole recording (the stream's end is the end of data)."""
+    an = Analyzer(settings, spec)
+    first = an.push(edges, drives, incidents)
+    rest = an.flush()
+    rows = np.concatenate((first, rest))
+    if len(rows) > 1:
+        rows = rows[np.lexsort((rows["channel"], rows["t_start_ns"]))]
+    return rows.astype(ACTUATION_DTYPE, copy=False)

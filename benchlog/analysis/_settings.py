@@ -1,0 +1,119 @@
+"""What the segmenter needs to know about the bench and the part: windows, thresholds, contact wiring."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from dataclasses import dataclass, field, replace
+
+from benchlog.errors import ConfigError
+
+MODES = ("auto", "drive", "free")
+
+# A chatter event is an opening of a closed contact (or closing of an open one) longer than this.
+# 10 us is the detection threshold several military relay specifications use for contact chatter
+# (MIL-PRF-39016 and the chatter monitoring of MIL-STD-202 method 310; from memory). Others use longer.
+DEFAULT_CHATTER_THRESHOLD_NS = 10_000
+
+
+@dataclass(frozen=True, slots=True)
+class AnalysisSettings:
+    """Everything that decides how edges become actuations. Times are integer nanoseconds.
+
+    - `settle_ns`: a contact that stays in the new state this long has settled; excursions after that
+      are chatter, not bounce.
+    - `quiet_ns`: free-running channels start an actuation at the first edge after this long without
+      edges (None: the settle window).
+    - `chatter_threshold_ns`: an excursion in a stable period at least this long is a chatter event.
+    - `glitch_floor_ns` / `resolution_ns`: pulses shorter than the larger of the two are glitches,
+      counted apart and removed before measuring (resolution: one sampler tick).
+    - `normally_closed`: channels whose contact is closed at rest (drive on -> break).
+    - `form_c`: (normally-open channel, normally-closed channel) pairs that are one changeover switch;
+      the normally-closed member is normally closed without listing it, and a drive on either member
+      anchors both.
+    - `mode`: "auto" (drive-anchored on a channel with drive records, free-running otherwise), "drive"
+      or "free" (drive records ignored).
+    - `lateness_ns`: how far behind the newest record an older record may still arrive (the sampler
+      sends edges in batches); actuations are final once their data is older than this.
+    """
+
+    settle_ns: int = 10_000_000
+    quiet_ns: int | None = None
+    chatter_threshold_ns: int = DEFAULT_CHATTER_THRESHOLD_NS
+    glitch_floor_ns: int = 0
+    resolution_ns: int = 1
+    normally_closed: frozenset[int] = field(default_factory=frozenset)
+    form_c: tuple[tuple[int, int], ...] = ()
+    mode: str = "auto"
+    lateness_ns: int = 200_000_000
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "normally_closed", frozenset(int(c) for c in self.normally_closed))
+        object.__setattr__(self, "form_c", tuple((int(a), int(b)) for a, b in self.form_c))
+        for name in ("settle_ns", "chatter_threshold_ns", "resolution_ns"):
+            if int(getattr(self, name)) <= 0:
+                raise ConfigError(f"analysis setting {name} must be > 0, got {getattr(self, name)}")
+        for name in ("glitch_floor_ns", "lateness_ns"):
+            if int(getattr(self, name)) < 0:
+                raise ConfigError(f"analysis setting {name} must be >= 0, got {getattr(self, name)}")
+        if self.quiet_ns is not None and int(self.quiet_ns) <= 0:
+            raise ConfigError(f"analysis setting quiet_ns must be > 0, got {self.quiet_ns}")
+        if self.mode not in MODES:
+            raise ConfigError(f"analysis setting mode must be one of {', '.join(MODES)}, got {self.mode!r}")
+        seen: set[int] = set()
+        for a, b in self.form_c:
+            if a == b or a in seen or b in seen:
+                raise ConfigError(f"form C pair ({a}, {b}) repeats a channel")
+            seen.update((a, b))
+            if a in self.normally_closed:
+                raise ConfigError(f"form C pair ({a}, {b}): channel {a} is the normally-open member")
+        for c in seen | set(self.normally_closed):
+            if not 0 <= c <= 15:
+                raise ConfigError(f"channel {c} out of range 0-15")
+
+    @property
+    def quiet(self) -> int:
+        return int(self.quiet_ns if self.quiet_ns is not None else self.settle_ns)
+
+    @property
+    def floor(self) -> int:
+        """Pulses shorter than this are glitches."""
+        return max(int(self.resolution_ns), int(self.glitch_floor_ns))
+
+    def is_normally_closed(self, channel: int) -> bool:
+        return channel in self.normally_closed or any(b == channel for _, b in self.form_c)
+
+    def partner(self, channel: int) -> int | None:
+        for a, b in self.form_c:
+            if channel == a:
+                return b
+            if channel == b:
+                return a
+        return None
+
+    def with_(self, **changes: object) -> AnalysisSettings:
+        return replace(self, **changes)
+
+    @classmethod
+    def from_us(
+        cls,
+        *,
+        settle_us: float = 10_000.0,
+        quiet_us: float | None = None,
+        chatter_threshold_us: float = DEFAULT_CHATTER_THRESHOLD_NS / 1000,
+        glitch_floor_us: float = 0.0,
+        resolution_us: float = 0.001,
+        normally_closed: Iterable[int] = (),
+        form_c: Iterable[tuple[int, int]] = (),
+        mode: str = "auto",
+    ) -> AnalysisSettings:
+        """The same settings in microseconds, which is how people think of them in a notebook."""
+        return cls(
+            settle_ns=round(settle_us * 1000),
+            quiet_ns=None if quiet_us is None else round(quiet_us * 1000),
+            chatter_threshold_ns=round(chatter_threshold_us * 1000),
+            glitch_floor_ns=round(glitch_floor_us * 1000),
+            resolution_ns=max(1, round(resolution_us * 1000)),
+            normally_closed=frozenset(normally_closed),
+            form_c=tuple(form_c),
+            mode=mode,
+        )

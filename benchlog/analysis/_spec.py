@@ -1,0 +1,406 @@
+"""Part specs (TOML, docs/spec.md) and verdicts against them, per actuation and per unit."""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchlog.analysis._settings import AnalysisSettings
+from benchlog.analysis._types import (
+    BREAK,
+    FAIL,
+    INCOMPLETE,
+    MAKE,
+    MARGINAL,
+    MISSED,
+    NO_CHANGE,
+    NO_VERDICT,
+    PASS,
+    STUCK,
+)
+from benchlog.errors import SpecError
+
+VERDICT_NAMES = {PASS: "pass", MARGINAL: "marginal", FAIL: "fail", NO_VERDICT: "none"}
+
+# limit name -> (column, selector, words). Selectors pick the rows a limit applies to.
+METRICS: dict[str, tuple[str, str, str]] = {
+    "make_bounce": ("bounce_us", "make", "make bounce"),
+    "break_bounce": ("bounce_us", "break", "break bounce"),
+    "operate_time": ("transit_us", "operate", "operate time"),
+    "release_time": ("transit_us", "release", "release time"),
+    "make_longest_gap": ("longest_gap_us", "make", "make longest bounce gap"),
+    "break_longest_gap": ("longest_gap_us", "break", "break longest bounce gap"),
+    "make_bounce_count": ("bounce_count", "make", "make bounce count"),
+    "break_bounce_count": ("bounce_count", "break", "break bounce count"),
+}
+_COUNT_METRICS = {"make_bounce_count", "break_bounce_count"}
+
+
+@dataclass(frozen=True, slots=True)
+class Limit:
+    """Upper limit on one metric: `max_value` in us (or a count), judged at `percentile` per unit."""
+
+    metric: str
+    max_value: float
+    percentile: float = 100.0
+    marginal_band: float | None = None  # None: the spec's band
+
+    @property
+    def words(self) -> str:
+        return METRICS[self.metric][2]
+
+
+@dataclass(frozen=True, slots=True)
+class ChatterLimit:
+    max_events: int
+    per_cycles: int
+
+
+@dataclass(frozen=True, slots=True)
+class LifeRequirement:
+    min_cycles: int
+    confidence: float
+
+
+@dataclass(frozen=True, slots=True)
+class PartSpec:
+    number: str
+    supplier: str = ""
+    description: str = ""
+    settle_ns: int = AnalysisSettings().settle_ns
+    chatter_threshold_ns: int = AnalysisSettings().chatter_threshold_ns
+    glitch_floor_ns: int = 0
+    marginal_band: float = 0.1
+    limits: tuple[Limit, ...] = ()
+    chatter: ChatterLimit | None = None
+    max_missed: int = 0
+    life: LifeRequirement | None = None
+    source: str = ""
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    def limit(self, metric: str) -> Limit | None:
+        return next((lim for lim in self.limits if lim.metric == metric), None)
+
+    def settings(self, base: AnalysisSettings | None = None) -> AnalysisSettings:
+        """Analysis settings with the spec's settle window, chatter threshold and glitch floor."""
+        base = base or AnalysisSettings()
+        return base.with_(
+            settle_ns=self.settle_ns,
+            chatter_threshold_ns=self.chatter_threshold_ns,
+            glitch_floor_ns=self.glitch_floor_ns,
+        )
+
+
+# -- loading ----------------------------------------------------------------------------------------
+
+
+class _Reader:
+    def __init__(self, path: str) -> None:
+        self.path = path
+
+    def fail(self, key: str, expected: str, got: object) -> SpecError:
+        shown = repr(got)
+        shown = shown if len(shown) <= 40 else shown[:37] + "..."
+        return SpecError(f"{self.path}: {key}: expected {expected}, got {shown}")
+
+    def table(self, doc: dict, key: str, allowed: set[str], required: bool = False) -> dict | None:
+        value = doc.get(key.split(".")[-1])
+        if value is None:
+            if required:
+                raise SpecError(f"{self.path}: [{key}]: expected a table, but it is missing")
+            return None
+        if not isinstance(value, dict):
+            raise self.fail(key, "a table", value)
+        unknown = sorted(set(value) - allowed)
+        if unknown:
+            raise SpecError(
+                f"{self.path}: {key}.{unknown[0]}: unknown key (expected one of {', '.join(sorted(allowed))})"
+            )
+        return value
+
+    def number(self, tbl: dict, prefix: str, key: str, lo: float, hi: float = math.inf, lo_open=True):
+        value = tbl[key]
+        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+            raise self.fail(f"{prefix}.{key}", "a number", value)
+        if (value <= lo if lo_open else value < lo) or value > hi:
+            bound = f"> {lo}" if lo_open else f">= {lo}"
+            rng = bound if hi == math.inf else f"{bound} and <= {hi}"
+            raise self.fail(f"{prefix}.{key}", f"a number {rng}", value)
+        return float(value)
+
+    def integer(self, tbl: dict, prefix: str, key: str, lo: int) -> int:
+        value = tbl[key]
+        if isinstance(value, bool) or not isinstance(value, int) or value < lo:
+            raise self.fail(f"{prefix}.{key}", f"a whole number >= {lo}", value)
+        return int(value)
+
+    def text(self, tbl: dict, prefix: str, key: str) -> str:
+        value = tbl.get(key, "")
+        if not isinstance(value, str):
+            raise self.fail(f"{prefix}.{key}", "a string", value)
+        return value
+
+    def duration_us(self, tbl: dict, prefix: str, stem: str, required: bool) -> float | None:
+        """`<stem>_ms` or `<stem>_us` (exactly one), in microseconds."""
+        keys = [k for k in (f"{stem}_ms", f"{stem}_us") if k in tbl]
+        if len(keys) > 1:
+            raise SpecError(f"{self.path}: {prefix}: expected one of {stem}_ms or {stem}_us, not both")
+        if not keys:
+            if required:
+                raise SpecError(f"{self.path}: {prefix}.{stem}_ms: expected a duration, but it is missing")
+            return None
+        value = self.number(tbl, prefix, keys[0], 0.0)
+        return value * 1000.0 if keys[0].endswith("_ms") else value
+
+
+def load_spec(path: str | Path) -> PartSpec:
+    """Read a part spec TOML file. Any problem is a SpecError naming the file, the key and the expectation."""
+    path = Path(path)
+    name = str(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise SpecError(f"{name}: cannot read the spec file ({exc.strerror or exc})") from exc
+    try:
+        doc = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError as exc:
+        raise SpecError(f"{name}: expected UTF-8 TOML text ({exc.reason} at byte {exc.start})") from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{name}: not valid TOML: {exc}") from exc
+    return parse_spec(doc, name)
+
+
+def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
+    r = _Reader(name)
+    top = {"part", "measure", "verdict", "limits", "life"}
+    unknown = sorted(set(doc) - top)
+    if unknown:
+        raise SpecError(f"{name}: [{unknown[0]}]: unknown table (expected one of {', '.join(sorted(top))})")
+    part = r.table(doc, "part", {"number", "supplier", "description"}, required=True)
+    assert part is not None
+    if "number" not in part:
+        raise SpecError(f"{name}: part.number: expected the part number (a string), but it is missing")
+    number = r.text(part, "part", "number")
+    if not number.strip():
+        raise r.fail("part.number", "a non-empty string", number)
+
+    defaults = AnalysisSettings()
+    settle_ns = defaults.settle_ns
+    chatter_ns = defaults.chatter_threshold_ns
+    floor_ns = 0
+    measure = r.table(
+        doc,
+        "measure",
+        {
+            "settle_ms",
+            "settle_us",
+            "chatter_threshold_us",
+            "chatter_threshold_ms",
+            "glitch_floor_us",
+            "glitch_floor_ms",
+        },
+    )
+    if measure:
+        v = r.duration_us(measure, "measure", "settle", False)
+        settle_ns = settle_ns if v is None else round(v * 1000)
+        v = r.duration_us(measure, "measure", "chatter_threshold", False)
+        chatter_ns = chatter_ns if v is None else round(v * 1000)
+        if any(k.startswith("glitch_floor") for k in measure):
+            keys = [k for k in measure if k.startswith("glitch_floor")]
+            if len(keys) > 1:
+                raise SpecError(
+                    f"{name}: measure: expected one of glitch_floor_ms or glitch_floor_us, not both"
+                )
+            v = r.number(measure, "measure", keys[0], 0.0, lo_open=False)
+            floor_ns = round(v * (1e6 if keys[0].endswith("_ms") else 1e3))
+
+    band = 0.1
+    verdict = r.table(doc, "verdict", {"marginal_band", "max_missed"})
+    max_missed = 0
+    if verdict:
+        if "marginal_band" in verdict:
+            band = r.number(verdict, "verdict", "marginal_band", 0.0, 0.9, lo_open=False)
+        if "max_missed" in verdict:
+            max_missed = r.integer(verdict, "verdict", "max_missed", 0)
+
+    limits: list[Limit] = []
+    chatter = None
+    lim_tbl = r.table(doc, "limits", set(METRICS) | {"chatter"})
+    for metric, tbl in (lim_tbl or {}).items():
+        prefix = f"limits.{metric}"
+        if not isinstance(tbl, dict):
+            raise r.fail(prefix, "a table", tbl)
+        if metric == "chatter":
+            bad = sorted(set(tbl) - {"max_events", "per_cycles"})
+            if bad:
+                raise SpecError(f"{name}: {prefix}.{bad[0]}: unknown key (expected max_events, per_cycles)")
+            for k in ("max_events", "per_cycles"):
+                if k not in tbl:
+                    raise SpecError(f"{name}: {prefix}.{k}: expected a whole number, but it is missing")
+            chatter = ChatterLimit(
+                r.integer(tbl, prefix, "max_events", 0), r.integer(tbl, prefix, "per_cycles", 1)
+            )
+            continue
+        allowed = {"percentile", "marginal_band"} | (
+            {"max"} if metric in _COUNT_METRICS else {"max_ms", "max_us"}
+        )
+        bad = sorted(set(tbl) - allowed)
+        if bad:
+            raise SpecError(
+                f"{name}: {prefix}.{bad[0]}: unknown key (expected one of {', '.join(sorted(allowed))})"
+            )
+        if metric in _COUNT_METRICS:
+            if "max" not in tbl:
+                raise SpecError(f"{name}: {prefix}.max: expected a whole number, but it is missing")
+            max_value = float(r.integer(tbl, prefix, "max", 0))
+        else:
+            max_value = r.duration_us(tbl, prefix, "max", True)
+        pct = r.number(tbl, prefix, "percentile", 0.0, 100.0) if "percentile" in tbl else 100.0
+        own_band = (
+            r.number(tbl, prefix, "marginal_band", 0.0, 0.9, lo_open=False)
+            if "marginal_band" in tbl
+            else None
+        )
+        limits.append(Limit(metric, float(max_value), pct, own_band))
+
+    life = None
+    life_tbl = r.table(doc, "life", {"min_cycles", "confidence"})
+    if life_tbl:
+        for k in ("min_cycles", "confidence"):
+            if k not in life_tbl:
+                raise SpecError(f"{name}: life.{k}: expected a value, but it is missing")
+        life = LifeRequirement(
+            r.integer(life_tbl, "life", "min_cycles", 1), r.number(life_tbl, "life", "confidence", 0.0, 1.0)
+        )
+        if life.confidence >= 1.0:
+            raise r.fail("life.confidence", "a fraction > 0 and < 1 (0.90 for 90 %)", life_tbl["confidence"])
+
+    return PartSpec(
+        number=number,
+        supplier=r.text(part, "part", "supplier"),
+        description=r.text(part, "part", "description"),
+        settle_ns=settle_ns,
+        chatter_threshold_ns=chatter_ns,
+        glitch_floor_ns=floor_ns,
+        marginal_band=band,
+        limits=tuple(limits),
+        chatter=chatter,
+        max_missed=max_missed,
+        life=life,
+        source=name,
+    )
+
+
+# -- verdicts ---------------------------------------------------------------------------------------
+
+
+def _selector(rows: np.ndarray, which: str) -> np.ndarray:
+    if which == "make":
+        return rows["kind"] == MAKE
+    if which == "break":
+        return rows["kind"] == BREAK
+    if which == "operate":
+        return rows["drive_level"] == 1
+    return rows["drive_level"] == 0
+
+
+def _grade(values: np.ndarray, limit: float, band: float) -> np.ndarray:
+    """PASS / MARGINAL / FAIL per value (NaN values pass: the metric does not apply)."""
+    g = np.full(values.shape, PASS, np.uint8)
+    g[values > limit * (1.0 - band)] = MARGINAL
+    g[values > limit] = FAIL
+    return g
+
+
+def judge(actuations: np.ndarray, spec: PartSpec) -> np.ndarray:
+    """Set `verdict` of every actuation in place (and return the array).
+
+    A missed make or stuck contact fails; an incomplete actuation, or one driven while the contact
+    already sat in the expected state, gets no verdict; otherwise the worst of its limited metrics.
+    """
+    rows = actuations
+    verdict = np.full(len(rows), PASS, np.uint8)
+    for lim in spec.limits:
+        column, which, _ = METRICS[lim.metric]
+        sel = _selector(rows, which)
+        band = spec.marginal_band if lim.marginal_band is None else lim.marginal_band
+        values = rows[column].astype(np.float64)
+        g = np.where(sel, _grade(values, lim.max_value, band), PASS)
+        verdict = np.maximum(verdict, g)
+    flags = rows["flags"]
+    verdict[(flags & (MISSED | STUCK)) != 0] = FAIL
+    verdict[(flags & (INCOMPLETE | NO_CHANGE)) != 0] = NO_VERDICT
+    rows["verdict"] = verdict
+    return rows
+
+
+def _fmt(value_us: float, metric: str) -> str:
+    if metric in _COUNT_METRICS:
+        return f"{value_us:g}"
+    return f"{value_us / 1000:.3g} ms" if value_us >= 1000 else f"{value_us:.3g} us"
+
+
+def unit_verdict(actuations: np.ndarray, spec: PartSpec) -> tuple[int, str]:
+    """One unit's verdict (PASS / MARGINAL / FAIL, or NO_VERDICT without data) and the reason, in words.
+
+    Each limit is applied to its percentile of the unit's complete actuations; chatter to the events per
+    `per_cycles` cycles; missed makes and stuck contacts to `max_missed`; a unit that stopped working
+    before `life.min_cycles` fails. The population's life at its confidence is a matter for the
+    qualification statistics, not for one unit.
+    """
+    rows = actuations
+    ok = (rows["flags"] & (INCOMPLETE | NO_CHANGE)) == 0
+    good = rows[ok]
+    if not len(good):
+        return NO_VERDICT, "no complete actuations"
+    fails: list[str] = []
+    marginals: list[str] = []
+    for lim in spec.limits:
+        column, which, _ = METRICS[lim.metric]
+        values = good[column][_selector(good, which)].astype(np.float64)
+        values = values[~np.isnan(values)]
+        if not len(values):
+            continue
+        stat = float(np.percentile(values, lim.percentile))
+        band = spec.marginal_band if lim.marginal_band is None else lim.marginal_band
+        label = "max" if lim.percentile >= 100 else f"p{lim.percentile:g}"
+        text = f"{lim.words} {label} {_fmt(stat, lim.metric)}"
+        if stat > lim.max_value:
+            fails.append(f"{text} > {_fmt(lim.max_value, lim.metric)} limit")
+        elif stat > lim.max_value * (1.0 - band):
+            marginals.append(f"{text} within {band:.0%} of the {_fmt(lim.max_value, lim.metric)} limit")
+    missed = good[(good["flags"] & (MISSED | STUCK)) != 0]
+    if len(missed) > spec.max_missed:
+        what = "stuck contact" if (missed["flags"][0] & STUCK) else "missed transition"
+        fails.append(f"{len(missed)} missed/stuck (first: {what} at cycle {int(missed['cycle'][0])})")
+    if spec.chatter is not None:
+        cycles = int(good["cycle"].max() - good["cycle"].min() + 1)
+        events = int(good["chatter"].clip(min=0).sum())
+        allowed = spec.chatter.max_events * max(cycles, 1) / spec.chatter.per_cycles
+        if events > allowed:
+            fails.append(
+                f"{events} chatter events in {cycles} cycles > {spec.chatter.max_events} per "
+                f"{spec.chatter.per_cycles}"
+            )
+    if spec.life is not None and len(missed):
+        first = int(missed["cycle"][0])
+        if first < spec.life.min_cycles:
+            fails.append(f"stopped working at cycle {first} < {spec.life.min_cycles} required life")
+    if fails:
+        return FAIL, "; ".join(fails)
+    if marginals:
+        return MARGINAL, "; ".join(marginals)
+    return PASS, f"within all limits of {spec.number} ({len(good)} actuations)"
+
+
+def unit_verdicts(actuations: np.ndarray, spec: PartSpec) -> dict[int, tuple[int, str]]:
+    """`unit_verdict` for each channel of a bench."""
+    return {
+        int(c): unit_verdict(actuations[actuations["channel"] == c], spec)
+        for c in np.unique(actuations["channel"])
+    }
