@@ -1,1 +1,20 @@
-"""(to be filled by its issue)"""
+"""Clock stage: sampler ticks -> run time (unwrapped, bridged across resets, in ns) and clock drift.
+
+See docs/clock.md.
+"""
+
+from benchlog.clock._convert import signed_delta, ticks_to_ns, ticks_to_ns_array
+from benchlog.clock._drift import DriftEstimator
+from benchlog.clock._timeline import Timed, TimedBeats, TimedNotice, TimedPong, Timeline
+
+__all__ = [
+    "Timeline",
+    "Timed",
+    "TimedBeats",
+    "TimedNotice",
+    "TimedPong",
+    "DriftEstimator",
+    "ticks_to_ns",
+    "ticks_to_ns_array",
+    "signed_delta",
+]
