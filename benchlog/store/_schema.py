@@ -48,6 +48,7 @@ ACTUATION_COLUMNS: tuple[tuple[str, str], ...] = (
     ("flags", "int"),
     ("verdict", "small"),
     ("t_end_ns", "big"),
+    ("drive_level", "small"),
 )
 
 # Unit life status values.
@@ -197,6 +198,7 @@ class Actuation(Base):
     flags: Mapped[int] = mapped_column(Integer)
     verdict: Mapped[int] = mapped_column(SmallInteger)
     t_end_ns: Mapped[int] = mapped_column(BigInteger)
+    drive_level: Mapped[int] = mapped_column(SmallInteger)
 
 
 class Incident(Base):

@@ -144,6 +144,7 @@ def upgrade() -> None:
         sa.Column("flags", sa.Integer(), nullable=False),
         sa.Column("verdict", sa.SmallInteger(), nullable=False),
         sa.Column("t_end_ns", sa.BigInteger(), nullable=False),
+        sa.Column("drive_level", sa.SmallInteger(), nullable=False),
         sa.ForeignKeyConstraint(
             ["run_id"],
             ["runs.id"],
