@@ -1,1 +1,102 @@
-"""(to be filled by its issue)"""
+"""Qualification statistics on plain arrays: life (Weibull with suspensions), comparisons of
+populations with the unit as the experimental unit, capability, test planning and verdicts.
+
+Everything here takes numpy arrays (the actuation table of `benchlog.analysis`, life tables) and
+returns dataclasses; nothing reads a database. See docs/qualification.md.
+"""
+
+from benchlog.stats._compare import (
+    PERCENTILE_INDEX_TAIL,
+    Capability,
+    Interval,
+    Share,
+    UnitSample,
+    UnitTests,
+    capability,
+    mean_ratio,
+    percentile_ratio,
+    pooled_mean,
+    pooled_percentile,
+    share_beyond,
+    unit_tests,
+)
+from benchlog.stats._life import (
+    LifeTable,
+    RateEstimate,
+    WeibullFit,
+    failure_rate,
+    fit_by_mode,
+    fit_weibull,
+    plot_positions,
+    same_life_test,
+    weibayes_bx_lower,
+)
+from benchlog.stats._metrics import METRICS, Metric, metric_samples
+from benchlog.stats._planning import (
+    LifeTopUp,
+    life_top_up,
+    success_run_units,
+    units_to_settle,
+    weibayes_test_cycles,
+    weibayes_units,
+)
+from benchlog.stats._verdict import (
+    EXIT_CODES,
+    FAIL,
+    PASS,
+    UNDECIDED,
+    Criterion,
+    Limit,
+    Population,
+    Qualification,
+    Requirements,
+    decide_at_least,
+    decide_at_most,
+    qualify,
+)
+
+__all__ = [
+    "PERCENTILE_INDEX_TAIL",
+    "Capability",
+    "Interval",
+    "Share",
+    "UnitSample",
+    "UnitTests",
+    "capability",
+    "mean_ratio",
+    "percentile_ratio",
+    "pooled_mean",
+    "pooled_percentile",
+    "share_beyond",
+    "unit_tests",
+    "LifeTable",
+    "RateEstimate",
+    "WeibullFit",
+    "failure_rate",
+    "fit_by_mode",
+    "fit_weibull",
+    "plot_positions",
+    "same_life_test",
+    "weibayes_bx_lower",
+    "METRICS",
+    "Metric",
+    "metric_samples",
+    "LifeTopUp",
+    "life_top_up",
+    "success_run_units",
+    "units_to_settle",
+    "weibayes_test_cycles",
+    "weibayes_units",
+    "EXIT_CODES",
+    "FAIL",
+    "PASS",
+    "UNDECIDED",
+    "Criterion",
+    "Limit",
+    "Population",
+    "Qualification",
+    "Requirements",
+    "decide_at_least",
+    "decide_at_most",
+    "qualify",
+]

@@ -1,0 +1,410 @@
+"""Comparing populations of units on one metric, with the *unit* as the experimental unit.
+
+A million actuations of 16 units are 16 independent draws of "a unit from this supplier", each seen a
+great many times, not a million independent draws: actuations of one unit share its build, its
+adjustment and its wear. So:
+
+- tests between populations (Mann-Whitney, Kolmogorov-Smirnov, Anderson-Darling k-sample) compare
+  one summary per unit (its p95, say), so their sample size is the number of units;
+- intervals for a population's pooled percentile, mean, share beyond a limit or capability index come
+  from a cluster bootstrap: scipy's `bootstrap` resamples the *units* with replacement and each
+  resample pools all actuations of the units drawn, so between-unit spread is in the interval.
+
+The pooled statistics are computed from per-unit cumulative counts on a common grid of values, so a
+resample is one matrix product, not a concatenation of millions of values.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from benchlog.errors import DataError
+
+__all__ = [
+    "UnitSample",
+    "Interval",
+    "UnitTests",
+    "Capability",
+    "Share",
+    "pooled_percentile",
+    "percentile_ratio",
+    "pooled_mean",
+    "mean_ratio",
+    "unit_tests",
+    "capability",
+    "share_beyond",
+    "PERCENTILE_INDEX_TAIL",
+]
+
+PERCENTILE_INDEX_TAIL = 99.865  # the normal distribution's mean + 3 sigma, as a percentile
+_MAX_GRID = 6000
+_METHOD = "cluster bootstrap over units, expanded percentile interval"
+_BATCH = 250
+
+
+@dataclass(frozen=True, eq=False)
+class UnitSample:
+    """Values of one metric in one population, each tagged with the unit it came from."""
+
+    values: np.ndarray  # float64
+    unit: np.ndarray  # int64 codes 0 .. n_units - 1
+    unit_names: tuple[str, ...]
+
+    @classmethod
+    def of(cls, values, units) -> UnitSample:
+        v = np.asarray(values, dtype=np.float64)
+        u = np.asarray(units)
+        if v.shape != u.shape or v.ndim != 1:
+            raise DataError("values and unit labels must be one-dimensional and of equal length")
+        keep = np.isfinite(v)
+        v, u = v[keep], u[keep]
+        names, codes = np.unique(u.astype(str), return_inverse=True)
+        return cls(v, codes.astype(np.int64), tuple(str(n) for n in names))
+
+    @property
+    def n_units(self) -> int:
+        return len(self.unit_names)
+
+    def __len__(self) -> int:
+        return len(self.values)
+
+    def per_unit(self, percentile: float) -> np.ndarray:
+        """Each unit's own percentile (one summary value per unit)."""
+        order = np.lexsort((self.values, self.unit))
+        v = self.values[order]
+        bounds = np.searchsorted(self.unit[order], np.arange(self.n_units + 1))
+        return np.array(
+            [np.percentile(v[a:b], percentile) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+        )
+
+    def per_unit_mean(self) -> np.ndarray:
+        return np.bincount(self.unit, self.values, self.n_units) / np.bincount(self.unit, None, self.n_units)
+
+
+@dataclass(frozen=True)
+class Interval:
+    """A point estimate with bounds: `low` and `high` are each one-sided at `confidence` (so together a
+    two-sided interval at 2 * confidence - 1)."""
+
+    estimate: float
+    low: float
+    high: float
+    confidence: float
+    units: int
+    method: str
+
+
+class _PooledCdf:
+    """Per-unit cumulative counts on a grid of values: pooled quantiles for any unit weights."""
+
+    def __init__(self, sample: UnitSample) -> None:
+        if sample.n_units == 0:
+            raise DataError("no measured values")
+        pooled = np.unique(sample.values)
+        if len(pooled) > _MAX_GRID:
+            p = np.unique(
+                np.concatenate([np.linspace(0, 1, _MAX_GRID // 2), 1 - np.logspace(-6, -1, _MAX_GRID // 2)])
+            )
+            pooled = np.unique(np.quantile(sample.values, p, method="inverted_cdf"))
+        self.grid = pooled
+        order = np.lexsort((sample.values, sample.unit))
+        v = sample.values[order]
+        bounds = np.searchsorted(sample.unit[order], np.arange(sample.n_units + 1))
+        self.counts = np.stack(
+            [
+                np.searchsorted(v[a:b], self.grid, side="right")
+                for a, b in zip(bounds[:-1], bounds[1:], strict=True)
+            ]
+        ).astype(np.float64)
+        self.n = np.diff(bounds).astype(np.float64)
+
+    def quantile(self, weights: np.ndarray, percentile: float) -> np.ndarray:
+        cum = weights @ self.counts  # (..., grid)
+        target = (weights @ self.n) * (percentile / 100.0)
+        idx = np.minimum((cum < target[..., None]).sum(axis=-1), len(self.grid) - 1)
+        hi = self.grid[idx]
+        lo = self.grid[np.maximum(idx - 1, 0)]
+        c_hi = np.take_along_axis(cum, idx[..., None], -1)[..., 0]
+        c_lo = np.take_along_axis(cum, np.maximum(idx - 1, 0)[..., None], -1)[..., 0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frac = np.where(c_hi > c_lo, (target - c_lo) / (c_hi - c_lo), 1.0)
+        return np.where(idx == 0, hi, lo + np.clip(frac, 0.0, 1.0) * (hi - lo))
+
+
+def _weights(idx: np.ndarray, n_units: int) -> np.ndarray:
+    """Resampled unit indices (..., n) -> how many times each unit was drawn (..., n_units)."""
+    return (idx[..., :, None] == np.arange(n_units)).sum(axis=-2).astype(np.float64)
+
+
+def _check_units(*samples: UnitSample, min_units: int = 3) -> None:
+    for s in samples:
+        if s.n_units < min_units:
+            raise DataError(f"{s.n_units} unit(s) measured: a population claim needs at least {min_units}")
+
+
+def _expanded_level(two_sided: float, n: int) -> float:
+    """Hesterberg's expanded percentile interval: widen the level so that its normal quantile is
+    sqrt(n / (n - 1)) * t(n - 1), correcting the percentile bootstrap's narrowness with few clusters
+    (Hesterberg, The American Statistician 69(4), 2015; from memory)."""
+    alpha = 1.0 - two_sided
+    z = math.sqrt(n / (n - 1)) * stats.t.ppf(1.0 - alpha / 2.0, n - 1)
+    return float(2.0 * stats.norm.cdf(z) - 1.0)
+
+
+def _bootstrap(samples, statistic, confidence, n_resamples, seed) -> tuple[float, float]:
+    data = tuple(np.arange(s.n_units) for s in samples)
+    level = _expanded_level(2.0 * confidence - 1.0, min(s.n_units for s in samples))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", stats.DegenerateDataWarning)
+        res = stats.bootstrap(
+            data,
+            statistic,
+            vectorized=True,
+            n_resamples=n_resamples,
+            batch=_BATCH,
+            confidence_level=level,
+            method="percentile",
+            rng=np.random.default_rng(seed),
+        )
+    return float(res.confidence_interval.low), float(res.confidence_interval.high)
+
+
+def pooled_percentile(
+    sample: UnitSample, percentile: float, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+) -> Interval:
+    """The population's pooled percentile with cluster-bootstrap bounds (units resampled)."""
+    _check_units(sample)
+    cdf = _PooledCdf(sample)
+    est = float(cdf.quantile(np.ones(sample.n_units), percentile))
+
+    def stat(idx, axis=-1):
+        return cdf.quantile(_weights(np.moveaxis(idx, axis, -1), sample.n_units), percentile)
+
+    low, high = _bootstrap((sample,), stat, confidence, n_resamples, seed)
+    return Interval(est, low, high, confidence, sample.n_units, _METHOD)
+
+
+def percentile_ratio(
+    candidate: UnitSample,
+    reference: UnitSample,
+    percentile: float,
+    *,
+    confidence: float = 0.9,
+    n_resamples: int = 2000,
+    seed: int = 0,
+) -> Interval:
+    """Ratio of two populations' pooled percentiles (candidate / reference), cluster bootstrap."""
+    _check_units(candidate, reference)
+    ca, cb = _PooledCdf(candidate), _PooledCdf(reference)
+
+    def ratio(wa, wb):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return ca.quantile(wa, percentile) / cb.quantile(wb, percentile)
+
+    est = float(ratio(np.ones(candidate.n_units), np.ones(reference.n_units)))
+
+    def stat(ia, ib, axis=-1):
+        return ratio(
+            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
+            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
+        )
+
+    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
+    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+
+
+def pooled_mean(
+    sample: UnitSample, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+) -> Interval:
+    """Pooled mean over all values (a rate when values are per-cycle counts), cluster bootstrap."""
+    _check_units(sample)
+    sums = np.bincount(sample.unit, sample.values, sample.n_units)
+    n = np.bincount(sample.unit, None, sample.n_units).astype(np.float64)
+
+    def stat(idx, axis=-1):
+        w = _weights(np.moveaxis(idx, axis, -1), sample.n_units)
+        return (w @ sums) / (w @ n)
+
+    low, high = _bootstrap((sample,), stat, confidence, n_resamples, seed)
+    return Interval(float(sums.sum() / n.sum()), low, high, confidence, sample.n_units, _METHOD)
+
+
+def mean_ratio(
+    candidate: UnitSample,
+    reference: UnitSample,
+    *,
+    confidence: float = 0.9,
+    n_resamples: int = 2000,
+    seed: int = 0,
+) -> Interval:
+    _check_units(candidate, reference)
+    parts = []
+    for s in (candidate, reference):
+        parts.append(
+            (
+                np.bincount(s.unit, s.values, s.n_units),
+                np.bincount(s.unit, None, s.n_units).astype(np.float64),
+            )
+        )
+
+    def ratio(wa, wb):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return ((wa @ parts[0][0]) / (wa @ parts[0][1])) / ((wb @ parts[1][0]) / (wb @ parts[1][1]))
+
+    est = float(ratio(np.ones(candidate.n_units), np.ones(reference.n_units)))
+
+    def stat(ia, ib, axis=-1):
+        return ratio(
+            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
+            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
+        )
+
+    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
+    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+
+
+@dataclass(frozen=True)
+class UnitTests:
+    """Distribution-free tests on one summary value per unit (the sample size is the unit count)."""
+
+    summary: str  # what each unit contributes, e.g. "per-unit p95"
+    units: tuple[int, ...]
+    mann_whitney_p: float  # two-sided; NaN for more than two populations
+    mann_whitney_worse_p: float  # one-sided: first population stochastically greater (worse)
+    ks_p: float  # two-sample Kolmogorov-Smirnov, two-sided; NaN for more than two
+    anderson_p: float  # Anderson-Darling k-sample (midrank variant)
+    anderson_capped: bool  # scipy caps the tabulated p-value to [0.001, 0.25]
+    kruskal_p: float  # Kruskal-Wallis, for any number of populations
+
+
+def unit_tests(per_unit: list[np.ndarray], summary: str) -> UnitTests:
+    """Compare populations through their per-unit summaries; the first one is the candidate."""
+    if len(per_unit) < 2 or any(len(x) < 2 for x in per_unit):
+        raise DataError("comparing populations needs at least two units in each of two populations")
+    nan = float("nan")
+    mw = mw_worse = ks = nan
+    if len(per_unit) == 2:
+        a, b = per_unit
+        mw = float(stats.mannwhitneyu(a, b, alternative="two-sided").pvalue)
+        mw_worse = float(stats.mannwhitneyu(a, b, alternative="greater").pvalue)
+        ks = float(stats.ks_2samp(a, b).pvalue)
+    capped = False
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            ad = float(stats.anderson_ksamp(per_unit, variant="midrank").pvalue)
+        capped = any("capped" in str(w.message) for w in caught)
+    except ValueError:  # all values identical
+        ad = nan
+    try:
+        kw = float(stats.kruskal(*per_unit).pvalue)
+    except ValueError:
+        kw = nan
+    return UnitTests(summary, tuple(len(x) for x in per_unit), mw, mw_worse, ks, ad, capped, kw)
+
+
+@dataclass(frozen=True)
+class Capability:
+    """Capability against a one-sided upper limit (pooled actuations; bounds by unit bootstrap).
+
+    `ppk` is (USL - mean) / (3 s); `percentile_index` is (USL - median) / (p99.865 - median), the
+    quantile form for non-normal data (Clements, Quality Progress 22(9), 1989; the percentile method of
+    ISO 22514-2; both from memory). NaN when there are too few values to place p99.865.
+    """
+
+    limit: float
+    ppk: Interval
+    percentile_index: Interval
+
+
+def capability(
+    sample: UnitSample, upper_limit: float, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+) -> Capability:
+    _check_units(sample)
+    u = sample.n_units
+    s1 = np.bincount(sample.unit, sample.values, u)
+    s2 = np.bincount(sample.unit, sample.values**2, u)
+    n = np.bincount(sample.unit, None, u).astype(np.float64)
+
+    def ppk(w):
+        m = (w @ s1) / (w @ n)
+        var = ((w @ s2) - (w @ n) * m**2) / np.maximum((w @ n) - 1, 1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (upper_limit - m) / (3.0 * np.sqrt(np.maximum(var, 0.0)))
+
+    cdf = _PooledCdf(sample)
+
+    def pindex(w):
+        med = cdf.quantile(w, 50.0)
+        tail = cdf.quantile(w, PERCENTILE_INDEX_TAIL)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (upper_limit - med) / (tail - med)
+
+    ones = np.ones(u)
+    method = _METHOD
+    lo, hi = _bootstrap(
+        (sample,),
+        lambda i, axis=-1: ppk(_weights(np.moveaxis(i, axis, -1), u)),
+        confidence,
+        n_resamples,
+        seed,
+    )
+    ppk_i = Interval(float(ppk(ones)), lo, hi, confidence, u, method)
+    if len(sample) * (1 - PERCENTILE_INDEX_TAIL / 100) < 1:
+        nan = float("nan")
+        pidx = Interval(nan, nan, nan, confidence, u, "too few values to place p99.865")
+    else:
+        lo, hi = _bootstrap(
+            (sample,),
+            lambda i, axis=-1: pindex(_weights(np.moveaxis(i, axis, -1), u)),
+            confidence,
+            n_resamples,
+            seed,
+        )
+        pidx = Interval(float(pindex(ones)), lo, hi, confidence, u, method)
+    return Capability(upper_limit, ppk_i, pidx)
+
+
+@dataclass(frozen=True)
+class Share:
+    """Share of actuations beyond a limit.
+
+    `cp_low`/`cp_high`: two-sided Clopper-Pearson interval at `confidence` treating the actuations as
+    independent trials (true of *these* units' recorded actuations, too narrow for the population).
+    `unit_low`/`unit_high`: one-sided cluster-bootstrap bounds at `confidence`, for the population.
+    """
+
+    beyond: int
+    total: int
+    share: float
+    cp_low: float
+    cp_high: float
+    unit_low: float
+    unit_high: float
+    confidence: float
+
+
+def share_beyond(
+    sample: UnitSample, limit: float, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+) -> Share:
+    if len(sample) == 0:
+        raise DataError("no measured values")
+    over = sample.values > limit
+    k, n = int(over.sum()), len(sample)
+    ci = stats.binomtest(k, n).proportion_ci(confidence_level=confidence, method="exact")
+    if sample.n_units >= 3:
+        iv = pooled_mean(
+            UnitSample(over.astype(np.float64), sample.unit, sample.unit_names),
+            confidence=confidence,
+            n_resamples=n_resamples,
+            seed=seed,
+        )
+        ulo, uhi = iv.low, iv.high
+    else:
+        ulo = uhi = math.nan
+    return Share(k, n, k / n, float(ci.low), float(ci.high), ulo, uhi, confidence)

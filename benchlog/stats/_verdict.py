@@ -1,0 +1,517 @@
+"""The qualification verdict: may the candidate population replace the incumbent?
+
+Every criterion ends in one of three outcomes, decided by one-sided bounds at the stated confidence:
+
+- pass: the bound on the unfavourable side is already on the right side of the requirement;
+- fail: the bound on the favourable side is already on the wrong side;
+- not yet decidable: the requirement lies inside the interval (more units or cycles would settle it).
+
+The verdict is fail if any criterion fails, else not yet decidable if any is undecided, else pass.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from benchlog.errors import DataError
+from benchlog.stats._compare import (
+    Interval,
+    UnitSample,
+    capability,
+    mean_ratio,
+    percentile_ratio,
+    pooled_mean,
+    pooled_percentile,
+    share_beyond,
+    unit_tests,
+)
+from benchlog.stats._life import (
+    LifeTable,
+    WeibullFit,
+    failure_rate,
+    fit_by_mode,
+    fit_weibull,
+    same_life_test,
+    weibayes_bx_lower,
+)
+from benchlog.stats._metrics import METRICS, metric_samples
+from benchlog.stats._planning import life_top_up, units_to_settle
+
+__all__ = [
+    "PASS",
+    "FAIL",
+    "UNDECIDED",
+    "EXIT_CODES",
+    "Limit",
+    "Requirements",
+    "Population",
+    "Criterion",
+    "Qualification",
+    "qualify",
+    "decide_at_most",
+    "decide_at_least",
+]
+
+PASS = "pass"
+FAIL = "fail"
+UNDECIDED = "not yet decidable"
+EXIT_CODES = {PASS: 0, FAIL: 1, UNDECIDED: 2}
+
+
+@dataclass(frozen=True)
+class Limit:
+    """An upper limit on a metric, in the metric's stored unit (us for times; events per cycle for
+    chatter), applying to the population's `percentile` (times) or mean rate (chatter)."""
+
+    metric: str
+    value: float
+    percentile: float = 95.0
+
+    def __post_init__(self) -> None:
+        if self.metric not in METRICS:
+            raise DataError(f"unknown metric {self.metric!r}; known: {', '.join(METRICS)}")
+
+
+@dataclass(frozen=True)
+class Requirements:
+    """What the candidate must show. Life: the Bx life (x = 100 * (1 - life_reliability)) must be at
+    least `life_cycles`, shown at `confidence`."""
+
+    limits: tuple[Limit, ...] = ()
+    life_cycles: float | None = None
+    life_reliability: float = 0.9
+    confidence: float = 0.9
+    part: str = ""
+
+    @property
+    def life_percent(self) -> float:
+        return round(100.0 * (1.0 - self.life_reliability), 6)
+
+
+@dataclass(frozen=True, eq=False)
+class Population:
+    """One lot (or part, or supplier): per-metric unit-tagged samples and the life table."""
+
+    name: str
+    samples: dict[str, UnitSample]
+    life: LifeTable | None = None
+    operation: str = "coil cycle"
+
+    @classmethod
+    def from_actuations(
+        cls, name: str, actuations: np.ndarray, unit: np.ndarray, life: LifeTable | None = None
+    ) -> Population:
+        return cls(name, metric_samples(actuations, unit), life)
+
+    @property
+    def units(self) -> int:
+        names: set[str] = set()
+        for s in self.samples.values():
+            names.update(s.unit_names)
+        return max(len(names), len(self.life) if self.life is not None else 0)
+
+
+@dataclass
+class Criterion:
+    name: str
+    measured: str
+    required: str
+    confidence: float
+    outcome: str
+    estimate: float = math.nan
+    low: float = math.nan
+    high: float = math.nan
+    threshold: float = math.nan
+    method: str = ""
+    note: str = ""
+    to_settle: str = ""
+
+
+def decide_at_most(low: float, high: float, limit: float) -> str:
+    if high <= limit:
+        return PASS
+    if low > limit:
+        return FAIL
+    return UNDECIDED
+
+
+def decide_at_least(low: float, high: float, limit: float) -> str:
+    if low >= limit:
+        return PASS
+    if high < limit:
+        return FAIL
+    return UNDECIDED
+
+
+@dataclass
+class Qualification:
+    incumbent: str
+    candidate: str
+    requirements: Requirements
+    margin: float
+    criteria: list[Criterion]
+    comparisons: dict[str, dict] = field(default_factory=dict)
+    life: dict[str, dict] = field(default_factory=dict)
+
+    @property
+    def outcome(self) -> str:
+        outcomes = {c.outcome for c in self.criteria}
+        if FAIL in outcomes:
+            return FAIL
+        if UNDECIDED in outcomes or not self.criteria:
+            return UNDECIDED
+        return PASS
+
+    @property
+    def exit_code(self) -> int:
+        return EXIT_CODES[self.outcome]
+
+    def to_dict(self) -> dict:
+        return _jsonable(
+            {
+                "incumbent": self.incumbent,
+                "candidate": self.candidate,
+                "outcome": self.outcome,
+                "exit_code": self.exit_code,
+                "confidence": self.requirements.confidence,
+                "margin": self.margin,
+                "requirements": asdict(self.requirements),
+                "criteria": [asdict(c) for c in self.criteria],
+                "comparisons": self.comparisons,
+                "life": self.life,
+            }
+        )
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None if math.isnan(obj) else ("inf" if obj > 0 else "-inf")
+    return obj
+
+
+def _fmt(metric: str, value: float) -> str:
+    m = METRICS[metric]
+    if not math.isfinite(value):
+        return "-"
+    return f"{value * m.display_scale:.3g} {m.display_unit}"
+
+
+def _fmt_cycles(value: float) -> str:
+    if not math.isfinite(value):
+        return "unbounded" if value > 0 else "-"
+    return f"{value:,.0f} cycles"
+
+
+def _stat_name(limit: Limit) -> str:
+    m = METRICS[limit.metric]
+    return m.label if m.kind == "rate" else f"{m.label} p{limit.percentile:g}"
+
+
+def _pooled(sample: UnitSample, limit: Limit, conf: float, n_resamples: int, seed: int) -> Interval:
+    if METRICS[limit.metric].kind == "rate":
+        return pooled_mean(sample, confidence=conf, n_resamples=n_resamples, seed=seed)
+    return pooled_percentile(sample, limit.percentile, confidence=conf, n_resamples=n_resamples, seed=seed)
+
+
+def _ratio(a: UnitSample, b: UnitSample, limit: Limit, conf: float, n_resamples: int, seed: int) -> Interval:
+    if METRICS[limit.metric].kind == "rate":
+        return mean_ratio(a, b, confidence=conf, n_resamples=n_resamples, seed=seed)
+    return percentile_ratio(a, b, limit.percentile, confidence=conf, n_resamples=n_resamples, seed=seed)
+
+
+def _metric_criteria(
+    inc: Population,
+    cand: Population,
+    limit: Limit,
+    req: Requirements,
+    margin: float,
+    n_resamples: int,
+    seed: int,
+) -> list[Criterion]:
+    conf = req.confidence
+    name = _stat_name(limit)
+    out: list[Criterion] = []
+    sample = cand.samples.get(limit.metric)
+    required = f"<= {_fmt(limit.metric, limit.value)}"
+    try:
+        if sample is None:
+            raise DataError("not measured")
+        iv = _pooled(sample, limit, conf, n_resamples, seed)
+        outcome = decide_at_most(iv.low, iv.high, limit.value)
+        crit = Criterion(
+            f"{name} (candidate)",
+            f"{_fmt(limit.metric, iv.estimate)} "
+            f"[{_fmt(limit.metric, iv.low)}, {_fmt(limit.metric, iv.high)}]",
+            required,
+            conf,
+            outcome,
+            iv.estimate,
+            iv.low,
+            iv.high,
+            limit.value,
+            iv.method + f", {iv.units} units",
+        )
+        if outcome == UNDECIDED:
+            n = units_to_settle(iv.estimate, iv.low, iv.high, limit.value, iv.units)
+            crit.to_settle = (
+                (f"about {n} units in all (now {iv.units}); more cycles on the same units narrow it little")
+                if n
+                else "the estimate sits on the limit"
+            )
+        out.append(crit)
+    except DataError as exc:
+        out.append(Criterion(f"{name} (candidate)", "-", required, conf, UNDECIDED, note=str(exc)))
+    if margin is not None and margin >= 0:
+        bound = 1.0 + margin
+        rname = f"{name}: candidate / incumbent"
+        req_txt = f"<= {bound:.2f} (no more than {margin:.0%} worse)"
+        try:
+            a, b = cand.samples.get(limit.metric), inc.samples.get(limit.metric)
+            if a is None or b is None:
+                raise DataError("not measured in both lots")
+            iv = _ratio(a, b, limit, conf, n_resamples, seed + 1)
+            outcome = decide_at_most(iv.low, iv.high, bound)
+            crit = Criterion(
+                rname,
+                f"{iv.estimate:.3f} [{iv.low:.3f}, {iv.high:.3f}]",
+                req_txt,
+                conf,
+                outcome,
+                iv.estimate,
+                iv.low,
+                iv.high,
+                bound,
+                iv.method,
+            )
+            if outcome == UNDECIDED:
+                n = units_to_settle(iv.estimate, iv.low, iv.high, bound, iv.units)
+                crit.to_settle = f"about {n} units per lot" if n else "the ratio sits on the margin"
+            out.append(crit)
+        except DataError as exc:
+            out.append(Criterion(rname, "-", req_txt, conf, UNDECIDED, note=str(exc)))
+    return out
+
+
+def _life_criterion(
+    cand: Population, req: Requirements, assumed_shape: float | None, min_failures: int
+) -> Criterion:
+    conf = req.confidence
+    x = req.life_percent
+    life_req = float(req.life_cycles or 0.0)
+    name = f"B{x:g} life (candidate)"
+    required = f">= {_fmt_cycles(life_req)}"
+    table = cand.life
+    if table is None or len(table) == 0:
+        return Criterion(name, "-", required, conf, UNDECIDED, note="no life data")
+    try:
+        fit = fit_weibull(table, min_failures=min_failures)
+    except DataError as exc:
+        fit = None
+        why = str(exc)
+    if fit is not None:
+        low, high = fit.bx_bounds(x, conf)
+        est = fit.bx(x)
+        outcome = decide_at_least(low, high, life_req)
+        crit = Criterion(
+            name,
+            f"{_fmt_cycles(est)} [{_fmt_cycles(low)}, {_fmt_cycles(high)}]",
+            required,
+            conf,
+            outcome,
+            est,
+            low,
+            high,
+            life_req,
+            f"Weibull MLE with suspensions (shape {fit.shape:.3g}, {fit.failures} failures "
+            f"of {fit.units}), likelihood-ratio bounds",
+        )
+        shape = fit.shape
+    elif assumed_shape:
+        low = weibayes_bx_lower(table, assumed_shape, x, conf)
+        # with so few failures nothing can show the life is short; only pass or undecided
+        outcome = PASS if low >= life_req else UNDECIDED
+        crit = Criterion(
+            name,
+            f">= {_fmt_cycles(low)} (lower bound)",
+            required,
+            conf,
+            outcome,
+            math.nan,
+            low,
+            math.inf,
+            life_req,
+            f"Weibayes, assumed shape {assumed_shape:g}, {table.failures} failures of {len(table)}",
+            note=why,
+        )
+        shape = assumed_shape
+    else:
+        return Criterion(
+            name, "-", required, conf, UNDECIDED, note=f"{why}; give an assumed shape for a Weibayes bound"
+        )
+    if crit.outcome == UNDECIDED:
+        top = life_top_up(table.cycles, table.failed, life_req, req.life_reliability, conf, shape)
+        if math.isfinite(top.more_cycles) and top.survivors:
+            crit.to_settle = (
+                f"{top.more_cycles:,.0f} more cycles on each of the {top.survivors} running "
+                f"units with no further failure (Weibayes, shape {shape:.3g})"
+            )
+        else:
+            crit.to_settle = "no unit is still running: more units are needed"
+    return crit
+
+
+def _comparisons(
+    inc: Population, cand: Population, conf: float, n_resamples: int, seed: int, limits: dict[str, Limit]
+) -> dict[str, dict]:
+    out: dict[str, dict] = {}
+    for key, metric in METRICS.items():
+        a, b = cand.samples.get(key), inc.samples.get(key)
+        if a is None or b is None or a.n_units == 0 or b.n_units == 0:
+            continue
+        entry: dict = {
+            "label": metric.label,
+            "units": {cand.name: a.n_units, inc.name: b.n_units},
+            "values": {cand.name: len(a), inc.name: len(b)},
+        }
+        pct = limits[key].percentile if key in limits else 95.0
+        try:
+            if metric.kind == "rate":
+                summary = "per-unit mean rate"
+                per = [a.per_unit_mean(), b.per_unit_mean()]
+            else:
+                summary = f"per-unit p{pct:g}"
+                per = [a.per_unit(pct), b.per_unit(pct)]
+            entry["tests"] = asdict(unit_tests(per, summary))
+        except DataError as exc:
+            entry["tests"] = {"note": str(exc)}
+        for who, s in ((cand.name, a), (inc.name, b)):
+            stats_: dict = {}
+            try:
+                if metric.kind == "rate":
+                    stats_["mean"] = asdict(
+                        pooled_mean(s, confidence=conf, n_resamples=n_resamples, seed=seed)
+                    )
+                else:
+                    for q in (95.0, 99.0):
+                        stats_[f"p{q:g}"] = asdict(
+                            pooled_percentile(s, q, confidence=conf, n_resamples=n_resamples, seed=seed)
+                        )
+                    if key in limits:
+                        cap = capability(
+                            s, limits[key].value, confidence=conf, n_resamples=n_resamples, seed=seed
+                        )
+                        stats_["ppk"] = asdict(cap.ppk)
+                        stats_["percentile_index"] = asdict(cap.percentile_index)
+                if key in limits:
+                    stats_["beyond_limit"] = asdict(
+                        share_beyond(
+                            s, limits[key].value, confidence=conf, n_resamples=n_resamples, seed=seed
+                        )
+                    )
+            except DataError as exc:
+                stats_["note"] = str(exc)
+            entry[who] = stats_
+        out[key] = entry
+    return out
+
+
+def _life_summary(pop: Population, req: Requirements, min_failures: int) -> dict:
+    table = pop.life
+    if table is None or len(table) == 0:
+        return {"units": 0}
+    conf = req.confidence
+    out: dict = {
+        "units": len(table),
+        "failures": table.failures,
+        "suspensions": len(table) - table.failures,
+        "cycles": float(table.cycles.sum()),
+    }
+    try:
+        fit = fit_weibull(table, min_failures=min_failures)
+        out["fit"] = _fit_dict(fit, req.life_percent, conf)
+    except DataError as exc:
+        out["fit"] = {"note": str(exc)}
+    modes = {}
+    for mode, res in fit_by_mode(table).items():
+        modes[mode] = (
+            _fit_dict(res, req.life_percent, conf)
+            if isinstance(res, WeibullFit)
+            else {"failures": res, "note": "too few failures of this mode to fit"}
+        )
+    out["modes"] = modes
+    ops = int(round(table.cycles.sum()))
+    if ops > 0:
+        out["rate_per_10k"] = asdict(
+            failure_rate(table.failures, ops, confidence=conf, operation=pop.operation)
+        )
+    return out
+
+
+def _fit_dict(fit: WeibullFit, x: float, conf: float) -> dict:
+    return {
+        "shape": fit.shape,
+        "scale": fit.scale,
+        "failures": fit.failures,
+        "units": fit.units,
+        "shape_bounds": fit.shape_bounds(conf),
+        "scale_bounds": fit.scale_bounds(conf),
+        "bx_percent": x,
+        "bx": fit.bx(x),
+        "bx_bounds": fit.bx_bounds(x, conf),
+        "bounds": "likelihood ratio, one-sided each at the confidence",
+    }
+
+
+def qualify(
+    incumbent: Population,
+    candidate: Population,
+    requirements: Requirements,
+    *,
+    margin: float | None = 0.2,
+    assumed_shape: float | None = None,
+    min_failures: int = 2,
+    n_resamples: int = 2000,
+    seed: int = 0,
+) -> Qualification:
+    """Judge the candidate against the requirements and against the incumbent.
+
+    `margin`: how much worse than the incumbent a candidate's percentile (or chatter rate) may be, as a
+    fraction (0.2: at most 20 % higher); None leaves the comparison with the incumbent out of the
+    verdict. `assumed_shape`: the Weibull shape for a Weibayes life bound when too few units failed.
+    """
+    criteria: list[Criterion] = []
+    for limit in requirements.limits:
+        criteria += _metric_criteria(incumbent, candidate, limit, requirements, margin, n_resamples, seed)
+    if requirements.life_cycles:
+        criteria.append(_life_criterion(candidate, requirements, assumed_shape, min_failures))
+    limits = {lim.metric: lim for lim in requirements.limits}
+    q = Qualification(
+        incumbent.name, candidate.name, requirements, margin if margin is not None else -1.0, criteria
+    )
+    q.comparisons = _comparisons(incumbent, candidate, requirements.confidence, n_resamples, seed, limits)
+    q.life = {p.name: _life_summary(p, requirements, min_failures) for p in (candidate, incumbent)}
+    fits = []
+    for p in (candidate, incumbent):
+        try:
+            if p.life is not None:
+                fits.append(fit_weibull(p.life, min_failures=min_failures))
+        except DataError:
+            pass
+    if len(fits) == 2:
+        stat, p_value, dof = same_life_test(fits)
+        q.life["same_weibull_test"] = {
+            "statistic": stat,
+            "p_value": p_value,
+            "dof": dof,
+            "method": "likelihood ratio, chi-square",
+        }
+    return q
