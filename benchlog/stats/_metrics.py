@@ -1,4 +1,5 @@
-"""From the actuation table (benchlog.analysis ACTUATION_DTYPE) to per-metric, unit-tagged samples."""
+"""From the actuation table (benchlog.analysis ACTUATION_DTYPE, or the store's rows with unit ids)
+to per-metric, unit-tagged samples. Metric names are the part spec's (docs/spec.md)."""
 
 from __future__ import annotations
 
@@ -6,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from benchlog.analysis._types import BREAK, FREE_RUNNING, INCOMPLETE, MAKE, MISSED, STUCK
+from benchlog.analysis import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE, STUCK
 from benchlog.errors import DataError
 from benchlog.stats._compare import UnitSample
 
@@ -17,8 +18,9 @@ __all__ = ["Metric", "METRICS", "metric_samples"]
 class Metric:
     key: str
     label: str
-    unit: str  # of the stored values
-    kind: str  # "percentile" (a time) or "rate" (events per cycle)
+    column: str  # ACTUATION_DTYPE column ("" for chatter, which is per cycle)
+    rows: str  # which actuations: make, break, operate (drive on), release (drive off)
+    kind: str  # "percentile" (a time or count) or "rate" (events per cycle)
     display_scale: float  # stored value * scale = shown value
     display_unit: str
 
@@ -26,38 +28,63 @@ class Metric:
 METRICS: dict[str, Metric] = {
     m.key: m
     for m in (
-        Metric("make_bounce", "make bounce", "us", "percentile", 1e-3, "ms"),
-        Metric("break_bounce", "break bounce", "us", "percentile", 1e-3, "ms"),
-        Metric("operate", "operate time", "us", "percentile", 1e-3, "ms"),
-        Metric("release", "release time", "us", "percentile", 1e-3, "ms"),
-        Metric("chatter", "chatter rate", "events/cycle", "rate", 1000.0, "per 1,000 cycles"),
+        Metric("make_bounce", "make bounce", "bounce_us", "make", "percentile", 1e-3, "ms"),
+        Metric("break_bounce", "break bounce", "bounce_us", "break", "percentile", 1e-3, "ms"),
+        Metric("operate_time", "operate time", "transit_us", "operate", "percentile", 1e-3, "ms"),
+        Metric("release_time", "release time", "transit_us", "release", "percentile", 1e-3, "ms"),
+        Metric(
+            "make_longest_gap", "make longest bounce gap", "longest_gap_us", "make", "percentile", 1.0, "us"
+        ),
+        Metric(
+            "break_longest_gap",
+            "break longest bounce gap",
+            "longest_gap_us",
+            "break",
+            "percentile",
+            1.0,
+            "us",
+        ),
+        Metric("make_bounce_count", "make bounce count", "bounce_count", "make", "percentile", 1.0, ""),
+        Metric("break_bounce_count", "break bounce count", "bounce_count", "break", "percentile", 1.0, ""),
+        Metric("chatter", "chatter rate", "", "cycle", "rate", 1000.0, "per 1,000 cycles"),
     )
 }
 
-_NOT_MEASURED = INCOMPLETE | MISSED | STUCK
+_NOT_MEASURED = INCOMPLETE | MISSED | STUCK | NO_CHANGE
 
 
-def metric_samples(actuations: np.ndarray, unit: np.ndarray) -> dict[str, UnitSample]:
+def _rows(actuations: np.ndarray, which: str) -> np.ndarray:
+    if which == "make":
+        return actuations["kind"] == MAKE
+    if which == "break":
+        return actuations["kind"] == BREAK
+    level = 1 if which == "operate" else 0
+    return actuations["drive_level"] == level
+
+
+def metric_samples(actuations: np.ndarray, unit: np.ndarray | None = None) -> dict[str, UnitSample]:
     """Split actuations into one unit-tagged sample per metric.
 
-    Actuations flagged incomplete (a data gap), missed or stuck (a failure, counted in the life table)
-    are left out; operate and release times need a drive record, so free-running actuations give only
-    bounce. Chatter becomes events per cycle per unit: the chatter after the make and after the break
-    of one cycle added together, one value per (unit, cycle).
+    `unit` defaults to the rows' own `unit_id` column (the store's rows carry it). Actuations flagged
+    incomplete (a data gap), missed or stuck (a failure, counted in the life table) or no-change are
+    left out, and NaN values (a metric that does not apply) are dropped. Operate time is the transit of
+    the actuation a drive-on started, release time of the one a drive-off started, as the spec judges
+    them. Chatter becomes events per cycle: the chatter after both actuations of one cycle added
+    together, one value per (unit, cycle).
     """
+    if unit is None:
+        if "unit_id" not in (actuations.dtype.names or ()):
+            raise DataError("actuations without unit ids: pass one unit id per actuation")
+        unit = actuations["unit_id"]
     unit = np.asarray(unit)
     if len(unit) != len(actuations):
         raise DataError("one unit id per actuation is needed")
     ok = (actuations["flags"] & _NOT_MEASURED) == 0
-    make = ok & (actuations["kind"] == MAKE)
-    brk = ok & (actuations["kind"] == BREAK)
-    anchored = (actuations["flags"] & FREE_RUNNING) == 0
-    out = {
-        "make_bounce": UnitSample.of(actuations["bounce_us"][make], unit[make]),
-        "break_bounce": UnitSample.of(actuations["bounce_us"][brk], unit[brk]),
-        "operate": UnitSample.of(actuations["transit_us"][make & anchored], unit[make & anchored]),
-        "release": UnitSample.of(actuations["transit_us"][brk & anchored], unit[brk & anchored]),
-    }
+    out: dict[str, UnitSample] = {}
+    for key, m in METRICS.items():
+        if m.kind == "percentile":
+            sel = ok & _rows(actuations, m.rows)
+            out[key] = UnitSample.of(actuations[m.column][sel].astype(np.float64), unit[sel])
     names, codes = np.unique(unit[ok].astype(str), return_inverse=True)
     cycles = actuations["cycle"][ok].astype(np.int64)
     lo = int(cycles.min(initial=0))

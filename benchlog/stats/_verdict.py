@@ -90,6 +90,28 @@ class Requirements:
     def life_percent(self) -> float:
         return round(100.0 * (1.0 - self.life_reliability), 6)
 
+    @classmethod
+    def from_spec(cls, spec, *, reliability: float = 0.9, confidence: float | None = None) -> Requirements:
+        """From a `benchlog.analysis.PartSpec`: its limits (us, at their percentile), its chatter limit
+        (events per N cycles, as a mean rate), its life (min cycles, confidence). The spec gives no
+        reliability for the life, so `reliability` (default 0.9: the B10 life) says which Bx is meant."""
+        limits = [
+            Limit(lim.metric, float(lim.max_value), float(lim.percentile))
+            for lim in spec.limits
+            if lim.metric in METRICS
+        ]
+        if spec.chatter is not None:
+            limits.append(Limit("chatter", spec.chatter.max_events / spec.chatter.per_cycles, 100.0))
+        life = spec.life
+        conf = confidence if confidence is not None else (life.confidence if life is not None else 0.9)
+        return cls(
+            tuple(limits),
+            float(life.min_cycles) if life is not None else None,
+            reliability,
+            conf,
+            spec.number,
+        )
+
 
 @dataclass(frozen=True, eq=False)
 class Population:
@@ -233,52 +255,67 @@ def _metric_criteria(
     cand: Population,
     limit: Limit,
     req: Requirements,
-    margin: float,
+    margin: float | None,
     n_resamples: int,
     seed: int,
+    min_units: int,
 ) -> list[Criterion]:
     conf = req.confidence
     name = _stat_name(limit)
     out: list[Criterion] = []
     sample = cand.samples.get(limit.metric)
     required = f"<= {_fmt(limit.metric, limit.value)}"
+    every = METRICS[limit.metric].kind != "rate" and limit.percentile >= 100.0
     try:
-        if sample is None:
+        if sample is None or len(sample) == 0:
             raise DataError("not measured")
-        iv = _pooled(sample, limit, conf, n_resamples, seed)
-        outcome = decide_at_most(iv.low, iv.high, limit.value)
-        crit = Criterion(
-            f"{name} (candidate)",
-            f"{_fmt(limit.metric, iv.estimate)} "
-            f"[{_fmt(limit.metric, iv.low)}, {_fmt(limit.metric, iv.high)}]",
-            required,
-            conf,
-            outcome,
-            iv.estimate,
-            iv.low,
-            iv.high,
-            limit.value,
-            iv.method + f", {iv.units} units",
-        )
-        if outcome == UNDECIDED:
-            n = units_to_settle(iv.estimate, iv.low, iv.high, limit.value, iv.units)
-            crit.to_settle = (
-                (f"about {n} units in all (now {iv.units}); more cycles on the same units narrow it little")
-                if n
-                else "the estimate sits on the limit"
+        if sample.n_units < min_units:
+            raise DataError(f"{sample.n_units} unit(s) measured; a population claim needs {min_units}")
+        if every:
+            out.append(_every_actuation(sample, limit, conf))
+        else:
+            iv = _pooled(sample, limit, conf, n_resamples, seed)
+            outcome = decide_at_most(iv.low, iv.high, limit.value)
+            crit = Criterion(
+                f"{name} (candidate)",
+                f"{_fmt(limit.metric, iv.estimate)} "
+                f"[{_fmt(limit.metric, iv.low)}, {_fmt(limit.metric, iv.high)}]",
+                required,
+                conf,
+                outcome,
+                iv.estimate,
+                iv.low,
+                iv.high,
+                limit.value,
+                iv.method + f", {iv.units} units",
             )
-        out.append(crit)
+            if outcome == UNDECIDED:
+                n = units_to_settle(iv.estimate, iv.low, iv.high, limit.value, iv.units)
+                crit.to_settle = (
+                    (
+                        f"about {n} units in all (now {iv.units}); more cycles on the same units "
+                        "narrow it little"
+                    )
+                    if n
+                    else "the estimate sits on the limit"
+                )
+            out.append(crit)
     except DataError as exc:
         out.append(Criterion(f"{name} (candidate)", "-", required, conf, UNDECIDED, note=str(exc)))
     if margin is not None and margin >= 0:
         bound = 1.0 + margin
-        rname = f"{name}: candidate / incumbent"
-        req_txt = f"<= {bound:.2f} (no more than {margin:.0%} worse)"
+        cmp_limit = limit if not every else Limit(limit.metric, limit.value, 99.0)
+        rname = f"{_stat_name(cmp_limit)}: candidate / incumbent"
+        req_txt = f"<= {bound:.2f} (at most {margin:.0%} worse)"
         try:
             a, b = cand.samples.get(limit.metric), inc.samples.get(limit.metric)
-            if a is None or b is None:
+            if a is None or b is None or not len(a) or not len(b):
                 raise DataError("not measured in both lots")
-            iv = _ratio(a, b, limit, conf, n_resamples, seed + 1)
+            if min(a.n_units, b.n_units) < min_units:
+                raise DataError(
+                    f"{min(a.n_units, b.n_units)} unit(s) in a lot; a comparison needs {min_units}"
+                )
+            iv = _ratio(a, b, cmp_limit, conf, n_resamples, seed + 1)
             outcome = decide_at_most(iv.low, iv.high, bound)
             crit = Criterion(
                 rname,
@@ -299,6 +336,45 @@ def _metric_criteria(
         except DataError as exc:
             out.append(Criterion(rname, "-", req_txt, conf, UNDECIDED, note=str(exc)))
     return out
+
+
+def _every_actuation(sample: UnitSample, limit: Limit, conf: float) -> Criterion:
+    """A limit on every actuation (percentile 100): any unit beyond it is a failed unit, as the part's
+    spec judges units, so one such unit fails the lot; none beyond passes, and the success-run bound
+    on the share of units that would go beyond is reported with it."""
+    over = np.bincount(sample.unit, sample.values > limit.value, sample.n_units) > 0
+    n, k = sample.n_units, int(over.sum())
+    worst = float(sample.values.max())
+    name = f"{METRICS[limit.metric].label} max (candidate)"
+    required = f"<= {_fmt(limit.metric, limit.value)} on every actuation"
+    if k:
+        return Criterion(
+            name,
+            f"{_fmt(limit.metric, worst)}; {k} of {n} units beyond",
+            required,
+            conf,
+            FAIL,
+            worst,
+            worst,
+            worst,
+            limit.value,
+            "observed maximum per unit",
+            note="the limit applies to every actuation",
+        )
+    share = 1.0 - (1.0 - conf) ** (1.0 / n)
+    return Criterion(
+        name,
+        f"{_fmt(limit.metric, worst)}; no unit beyond",
+        required,
+        conf,
+        PASS,
+        worst,
+        worst,
+        worst,
+        limit.value,
+        "observed maximum per unit",
+        note=f"0 of {n} units beyond: at most {share:.0%} of units would be (success run)",
+    )
 
 
 def _life_criterion(
@@ -382,7 +458,7 @@ def _comparisons(
             "units": {cand.name: a.n_units, inc.name: b.n_units},
             "values": {cand.name: len(a), inc.name: len(b)},
         }
-        pct = limits[key].percentile if key in limits else 95.0
+        pct = min(limits[key].percentile, 99.0) if key in limits else 95.0
         try:
             if metric.kind == "rate":
                 summary = "per-unit mean rate"
@@ -479,6 +555,7 @@ def qualify(
     margin: float | None = 0.2,
     assumed_shape: float | None = None,
     min_failures: int = 2,
+    min_units: int = 5,
     n_resamples: int = 2000,
     seed: int = 0,
 ) -> Qualification:
@@ -487,10 +564,14 @@ def qualify(
     `margin`: how much worse than the incumbent a candidate's percentile (or chatter rate) may be, as a
     fraction (0.2: at most 20 % higher); None leaves the comparison with the incumbent out of the
     verdict. `assumed_shape`: the Weibull shape for a Weibayes life bound when too few units failed.
+    `min_units`: below this many units in a lot a metric criterion stays undecided (the percentile
+    bootstrap says little with three or four clusters).
     """
     criteria: list[Criterion] = []
     for limit in requirements.limits:
-        criteria += _metric_criteria(incumbent, candidate, limit, requirements, margin, n_resamples, seed)
+        criteria += _metric_criteria(
+            incumbent, candidate, limit, requirements, margin, n_resamples, seed, min_units
+        )
     if requirements.life_cycles:
         criteria.append(_life_criterion(candidate, requirements, assumed_shape, min_failures))
     limits = {lim.metric: lim for lim in requirements.limits}

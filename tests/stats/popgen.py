@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from benchlog.analysis._types import BREAK, MAKE, empty_actuations
+from benchlog.analysis import BREAK, MAKE, empty_actuations
 from benchlog.stats import LifeTable
 
 
@@ -57,6 +57,7 @@ def draw(truth: Truth, units: int, cycles: int, test_end: float, seed: int, pref
         per = np.repeat(unit_med, cycles)
         a[key][rows] = np.exp(per + rng.normal(0, truth.within_sigma, units * cycles))
     a["transit_us"][a["kind"] == BREAK] = np.nan
+    a["drive_level"] = np.where(a["kind"] == MAKE, 1, 0)  # normally open contact: drive on -> make
     rate = rng.gamma(4.0, truth.chatter_per_cycle / 4.0, units) / 2
     a["chatter"] = rng.poisson(np.repeat(rate, 2 * cycles))
     life = truth.weibull_scale * rng.weibull(truth.weibull_shape, units)
