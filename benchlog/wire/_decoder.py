@@ -121,6 +121,7 @@ class Decoder:
         self._bad_units = 0  # consecutive faults since the last good record
         self._bad_bytes = 0
         self._expected_seq: int | None = None
+        self._undecided = 0  # bytes dropped while undecided, reported as one fault at the decision
         self._out: list[Record] = []
 
     # -- public ---------------------------------------------------------------------------------------
@@ -182,18 +183,19 @@ class Decoder:
     def _skip_to(self, buf: bytes, terminator: bytes) -> bytes | None:
         """While skipping an over-long unit: the bytes after it, or None when it has not ended yet.
 
-        A unit that runs on for 4 KiB is given up at once (a sampler now speaking the other form may
-        never send this form's terminator).
+        A unit that runs on past the 4 KiB fault budget is given up at that point (a sampler now speaking
+        the other form may never send this form's terminator), and what follows is looked at afresh.
         """
         reason = TOO_LONG if terminator == b"\n" else LONG_FRAME
+        budget = max(1, REDETECT_BYTES - self._bad_bytes - self._skipped)
         end = buf.find(terminator)
-        if end < 0:
-            self._skipped += len(buf)
-            if self._skipped + self._bad_bytes < REDETECT_BYTES:
-                return None
-            nbytes, rest = self._skipped, b""
-        else:
+        if 0 <= end < budget:
             nbytes, rest = self._skipped + end + 1, buf[end + 1 :]
+        elif len(buf) < budget:
+            self._skipped += len(buf)
+            return None
+        else:
+            nbytes, rest = self._skipped + budget, buf[budget:]
         self._skipping = False
         self._skipped = 0
         self._fault(reason, nbytes)
@@ -229,12 +231,16 @@ class Decoder:
                 line_start = p + 1
         if found is None:
             keep = max(frame_start, len(buf) - MAX_ENCODED)
-            if keep > 0:
-                self._fault(BEFORE_FIRST, keep)
+            self._undecided += keep
+            if self._undecided >= REDETECT_BYTES:  # report long noise now, not only once it ends
+                self._fault(BEFORE_FIRST, self._undecided)
+                self._undecided = 0
             return buf[keep:]
         self.form, start = found
-        if start:
-            self._fault(BEFORE_FIRST, start)
+        self._undecided += start
+        if self._undecided:
+            self._fault(BEFORE_FIRST, self._undecided)
+            self._undecided = 0
         self._bad_units = self._bad_bytes = 0
         return buf[start:]
 
@@ -248,7 +254,7 @@ class Decoder:
             buf = rest
         last = buf.rfind(b"\n")
         if last < 0:
-            return self._hold(buf, MAX_LINE + 1)
+            return self._hold(buf, MAX_LINE + 1, b"\n")
         body, tail = buf[: last + 1], buf[last + 1 :]
         a = np.frombuffer(body, np.uint8)
         nl = np.flatnonzero(a == 0x0A)
@@ -283,15 +289,15 @@ class Decoder:
                     return body[nl_l[j] + 1 :] + tail
             else:
                 self._good(rec)
-        return self._hold(tail, MAX_LINE + 1)
+        return self._hold(tail, MAX_LINE + 1, b"\n")
 
-    def _hold(self, tail: bytes, limit: int) -> bytes:
+    def _hold(self, tail: bytes, limit: int, terminator: bytes) -> bytes:
         """Keep an unfinished unit, or start skipping it when it is already too long."""
         if len(tail) <= limit:
             return tail
         self._skipping = True
-        self._skipped = len(tail)  # counted by `_fault` when the unit ends
-        return b""
+        self._skipped = 0
+        return self._skip_to(tail, terminator) or b""
 
     # -- packed form ----------------------------------------------------------------------------------
 
@@ -303,12 +309,12 @@ class Decoder:
             buf = rest
         last = buf.rfind(b"\0")
         if last < 0:
-            return self._hold(buf, MAX_ENCODED)
+            return self._hold(buf, MAX_ENCODED, b"\0")
         segments = buf[:last].split(b"\0")
         tail = buf[last + 1 :]
         heads: list[bytes] = []
         bodies: list[bytes] = []
-        version = self._ctx.version
+        ctx = self._ctx
         crc32, from_bytes = zlib.crc32, int.from_bytes
         for i, seg in enumerate(segments):
             if not seg:
@@ -342,14 +348,14 @@ class Decoder:
                 if kind == TYPE_EDGES:
                     count = frame[11] if n >= 12 else 0
                     size = 16 + 3 * count
-                    if count and (n == size or (version > 1 and n > size)):
+                    if count and (n == size or (ctx.version > 1 and n > size)):
                         heads.append(frame[3:12])
                         bodies.append(frame[12 : 12 + 3 * count])
                         continue
                     reason = PAYLOAD
                 else:
                     self._flush_edges(heads, bodies)
-                    rec = self._record(kind, frame[3:-4], version)
+                    rec = self._record(kind, frame[3:-4], ctx.version)
                     if isinstance(rec, str):
                         reason = rec
                     else:
@@ -359,7 +365,7 @@ class Decoder:
             if self._fault(reason, len(seg) + 1):
                 return b"\0".join(segments[i + 1 :]) + b"\0" + tail
         self._flush_edges(heads, bodies)
-        return self._hold(tail, MAX_ENCODED)
+        return self._hold(tail, MAX_ENCODED, b"\0")
 
     def _record(self, kind: int, payload: bytes, version: int) -> Record | str:
         n = len(payload)

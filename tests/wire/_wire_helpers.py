@@ -1,0 +1,86 @@
+"""Shared helpers for the wire tests: record (de)serialisation for vectors and stream comparison."""
+
+from __future__ import annotations
+
+from benchlog.wire import (
+    Announce,
+    Beat,
+    Drive,
+    Edges,
+    Fault,
+    Notice,
+    Pong,
+    SequenceGap,
+    Unknown,
+)
+
+
+def flatten(records: list, keep_gaps: bool = False) -> list[tuple]:
+    """Records as comparable rows, edges one per row, faults (and gaps unless asked) left out.
+
+    Batching of edges and merging of faults depend on how the bytes were chunked; the rows do not.
+    """
+    rows: list[tuple] = []
+    for r in records:
+        if isinstance(r, Edges):
+            rows.extend(
+                ("E", int(c), int(v), int(t)) for c, v, t in zip(r.channel, r.level, r.tick, strict=True)
+            )
+        elif isinstance(r, Fault):
+            continue
+        elif isinstance(r, SequenceGap):
+            if keep_gaps:
+                rows.append(("gap", r.expected, r.received, r.frames_lost))
+        else:
+            rows.append((type(r).__name__, *(getattr(r, f) for f in r.__slots__)))
+    return rows
+
+
+def record_to_json(r) -> dict:
+    match r:
+        case Announce():
+            return {
+                "type": "announce",
+                "version": r.version,
+                "clock_hz": r.clock_hz,
+                "counter_bits": r.counter_bits,
+                "channels": r.channels,
+                "board_id": r.board_id,
+            }
+        case Edges():
+            return {
+                "type": "edges",
+                "edges": [
+                    [int(c), int(v), int(t)] for c, v, t in zip(r.channel, r.level, r.tick, strict=True)
+                ],
+            }
+        case Drive():
+            return {"type": "drive", "channel": r.channel, "level": r.level, "tick": r.tick}
+        case Beat():
+            return {"type": "beat", "tick": r.tick, "captured": r.captured, "dropped": r.dropped}
+        case Notice():
+            return {"type": "notice", "text": r.text}
+        case Pong():
+            return {"type": "pong", "token": r.token}
+        case Unknown():
+            return {"type": "unknown", "type_code": r.type_code}
+    raise TypeError(r)
+
+
+def record_from_json(d: dict):
+    kind = d["type"]
+    if kind == "announce":
+        return Announce(d["version"], d["clock_hz"], d["counter_bits"], d["channels"], d["board_id"])
+    if kind == "edges":
+        return Edges.of([tuple(e) for e in d["edges"]])
+    if kind == "drive":
+        return Drive(d["channel"], d["level"], d["tick"])
+    if kind == "beat":
+        return Beat(d["tick"], d["captured"], d["dropped"])
+    if kind == "notice":
+        return Notice(d["text"])
+    if kind == "pong":
+        return Pong(d["token"])
+    if kind == "unknown":
+        return Unknown(d["type_code"])
+    raise ValueError(kind)
