@@ -35,6 +35,7 @@ __all__ = [
     "percentile_ratio",
     "pooled_mean",
     "mean_ratio",
+    "mean_difference",
     "unit_tests",
     "capability",
     "share_beyond",
@@ -81,6 +82,14 @@ class UnitSample:
         return np.array(
             [np.percentile(v[a:b], percentile) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
         )
+
+    def pooled_cdf(self) -> _PooledCdf:
+        """The per-unit cumulative counts the bootstrap works on (built once per sample)."""
+        cdf = self.__dict__.get("_cdf")
+        if cdf is None:
+            cdf = _PooledCdf(self)
+            object.__setattr__(self, "_cdf", cdf)
+        return cdf
 
     def per_unit_mean(self) -> np.ndarray:
         return np.bincount(self.unit, self.values, self.n_units) / np.bincount(self.unit, None, self.n_units)
@@ -179,7 +188,7 @@ def pooled_percentile(
 ) -> Interval:
     """The population's pooled percentile with cluster-bootstrap bounds (units resampled)."""
     _check_units(sample)
-    cdf = _PooledCdf(sample)
+    cdf = sample.pooled_cdf()
     est = float(cdf.quantile(np.ones(sample.n_units), percentile))
 
     def stat(idx, axis=-1):
@@ -200,7 +209,7 @@ def percentile_ratio(
 ) -> Interval:
     """Ratio of two populations' pooled percentiles (candidate / reference), cluster bootstrap."""
     _check_units(candidate, reference)
-    ca, cb = _PooledCdf(candidate), _PooledCdf(reference)
+    ca, cb = candidate.pooled_cdf(), reference.pooled_cdf()
 
     def ratio(wa, wb):
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -268,6 +277,36 @@ def mean_ratio(
     return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
 
 
+def mean_difference(
+    candidate: UnitSample,
+    reference: UnitSample,
+    *,
+    confidence: float = 0.9,
+    n_resamples: int = 2000,
+    seed: int = 0,
+) -> Interval:
+    """Difference of pooled means (candidate - reference), cluster bootstrap; for rates that may be 0."""
+    _check_units(candidate, reference)
+    parts = [
+        (np.bincount(s.unit, s.values, s.n_units), np.bincount(s.unit, None, s.n_units).astype(float))
+        for s in (candidate, reference)
+    ]
+
+    def diff(wa, wb):
+        return (wa @ parts[0][0]) / (wa @ parts[0][1]) - (wb @ parts[1][0]) / (wb @ parts[1][1])
+
+    est = float(diff(np.ones(candidate.n_units), np.ones(reference.n_units)))
+
+    def stat(ia, ib, axis=-1):
+        return diff(
+            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
+            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
+        )
+
+    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
+    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+
+
 @dataclass(frozen=True)
 class UnitTests:
     """Distribution-free tests on one summary value per unit (the sample size is the unit count)."""
@@ -287,6 +326,8 @@ def unit_tests(per_unit: list[np.ndarray], summary: str) -> UnitTests:
     if len(per_unit) < 2 or any(len(x) < 2 for x in per_unit):
         raise DataError("comparing populations needs at least two units in each of two populations")
     nan = float("nan")
+    if np.ptp(np.concatenate(per_unit)) == 0:  # every unit alike (e.g. no chatter anywhere): no test
+        return UnitTests(summary, tuple(len(x) for x in per_unit), nan, nan, nan, nan, False, nan)
     mw = mw_worse = ks = nan
     if len(per_unit) == 2:
         a, b = per_unit
@@ -337,7 +378,7 @@ def capability(
         with np.errstate(divide="ignore", invalid="ignore"):
             return (upper_limit - m) / (3.0 * np.sqrt(np.maximum(var, 0.0)))
 
-    cdf = _PooledCdf(sample)
+    cdf = sample.pooled_cdf()
 
     def pindex(w):
         med = cdf.quantile(w, 50.0)

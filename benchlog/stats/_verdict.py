@@ -21,7 +21,7 @@ from benchlog.stats._compare import (
     Interval,
     UnitSample,
     capability,
-    mean_ratio,
+    mean_difference,
     percentile_ratio,
     pooled_mean,
     pooled_percentile,
@@ -245,8 +245,6 @@ def _pooled(sample: UnitSample, limit: Limit, conf: float, n_resamples: int, see
 
 
 def _ratio(a: UnitSample, b: UnitSample, limit: Limit, conf: float, n_resamples: int, seed: int) -> Interval:
-    if METRICS[limit.metric].kind == "rate":
-        return mean_ratio(a, b, confidence=conf, n_resamples=n_resamples, seed=seed)
     return percentile_ratio(a, b, limit.percentile, confidence=conf, n_resamples=n_resamples, seed=seed)
 
 
@@ -303,10 +301,16 @@ def _metric_criteria(
     except DataError as exc:
         out.append(Criterion(f"{name} (candidate)", "-", required, conf, UNDECIDED, note=str(exc)))
     if margin is not None and margin >= 0:
-        bound = 1.0 + margin
+        rate = METRICS[limit.metric].kind == "rate"
         cmp_limit = limit if not every else Limit(limit.metric, limit.value, 99.0)
-        rname = f"{_stat_name(cmp_limit)}: candidate / incumbent"
-        req_txt = f"<= {bound:.2f} (at most {margin:.0%} worse)"
+        if rate:  # rates may be zero: compare the difference, in units of the spec's limit
+            bound = margin * limit.value
+            rname = f"{_stat_name(cmp_limit)}: candidate - incumbent"
+            req_txt = f"<= {_fmt(limit.metric, bound)} ({margin:.0%} of the limit)"
+        else:
+            bound = 1.0 + margin
+            rname = f"{_stat_name(cmp_limit)}: candidate / incumbent"
+            req_txt = f"<= {bound:.2f} (at most {margin:.0%} worse)"
         try:
             a, b = cand.samples.get(limit.metric), inc.samples.get(limit.metric)
             if a is None or b is None or not len(a) or not len(b):
@@ -315,19 +319,18 @@ def _metric_criteria(
                 raise DataError(
                     f"{min(a.n_units, b.n_units)} unit(s) in a lot; a comparison needs {min_units}"
                 )
-            iv = _ratio(a, b, cmp_limit, conf, n_resamples, seed + 1)
+            if rate:
+                iv = mean_difference(a, b, confidence=conf, n_resamples=n_resamples, seed=seed + 1)
+                shown = (
+                    f"{_fmt(limit.metric, iv.estimate)} [{_fmt(limit.metric, iv.low)}, "
+                    f"{_fmt(limit.metric, iv.high)}]"
+                )
+            else:
+                iv = _ratio(a, b, cmp_limit, conf, n_resamples, seed + 1)
+                shown = f"{iv.estimate:.3f} [{iv.low:.3f}, {iv.high:.3f}]"
             outcome = decide_at_most(iv.low, iv.high, bound)
             crit = Criterion(
-                rname,
-                f"{iv.estimate:.3f} [{iv.low:.3f}, {iv.high:.3f}]",
-                req_txt,
-                conf,
-                outcome,
-                iv.estimate,
-                iv.low,
-                iv.high,
-                bound,
-                iv.method,
+                rname, shown, req_txt, conf, outcome, iv.estimate, iv.low, iv.high, bound, iv.method
             )
             if outcome == UNDECIDED:
                 n = units_to_settle(iv.estimate, iv.low, iv.high, bound, iv.units)
