@@ -13,6 +13,7 @@ from __future__ import annotations
 import queue
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import serial
@@ -80,7 +81,9 @@ class Link:
     """Reads a pyserial URL in the background; use as a context manager.
 
     `get(timeout)` returns the next `Chunk` or `Outage` (None on timeout). `write(data)` sends bytes
-    to the sampler. `wait_s` is how long the first open keeps retrying before `PortError`.
+    to the sampler. `wait_s` is how long the first open keeps retrying before `PortError`;
+    `on_connect` is called after the first open and after every reconnection (pyserial discards what
+    the port buffered before it opened, so this is where a host asks the sampler to announce itself).
     """
 
     def __init__(
@@ -90,8 +93,10 @@ class Link:
         baudrate: int = 115200,
         wait_s: float = 0.0,
         backoff_s: tuple[float, float] = (0.02, 1.0),
+        on_connect: Callable[[], None] | None = None,
     ) -> None:
         self.url = url
+        self.on_connect = on_connect
         self.baudrate = baudrate
         self.wait_s = wait_s
         self.backoff_s = backoff_s
@@ -140,6 +145,14 @@ class Link:
         self._start_reader(port)
         self._supervisor = threading.Thread(target=self._supervise, name="benchlog-link", daemon=True)
         self._supervisor.start()
+        self._connected_hook()
+
+    def _connected_hook(self) -> None:
+        if self.on_connect is not None:
+            try:
+                self.on_connect()
+            except Exception:  # a failed greeting must not stop the link; the next reconnect retries
+                pass
 
     def close(self) -> None:
         self._closing.set()
@@ -199,12 +212,18 @@ class Link:
                     self._closing.wait(delay)
                     delay = min(delay * 2, self.backoff_s[1])
                     continue
+                # the outage goes on the queue before any chunk the new reader receives
+                outage = Outage(start, time.time_ns(), reason, attempts)
+                self.outages.append(outage)
+                self._queue.put(outage)
                 self._start_reader(port)
+                self.down_since_ns = None
+                self._connected_hook()
                 break
-            outage = Outage(start, time.time_ns(), reason, attempts)
-            self.outages.append(outage)
-            self._queue.put(outage)
-            self.down_since_ns = None
+            else:
+                outage = Outage(start, time.time_ns(), reason, attempts)
+                self.outages.append(outage)
+                self._queue.put(outage)
 
     # -- consumer side -----------------------------------------------------------------------------
     def get(self, timeout: float | None = None) -> Chunk | Outage | None:

@@ -25,7 +25,7 @@ from benchlog.sim._bench import Bench
 from benchlog.sim._config import SimConfig
 
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
-STEP_WALL_S = 0.02  # sampler time advances in steps of this much wall time (times speed)
+STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
 MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated time instead
 
 
@@ -151,11 +151,11 @@ class PtySampler:
         while not self._stop.is_set():
             if self._pull_request is not None:
                 seconds, self._pull_request = self._pull_request, None
-                wall0, sim0 = self._unplugged(seconds, faults.pull_powers_off)
+                self._unplugged(seconds, faults.pull_powers_off, wall0, sim0)
                 continue
             if pull_at_ns is not None and bench.now_ns >= pull_at_ns:
                 pull_at_ns = None
-                wall0, sim0 = self._unplugged(faults.pull_for_s, faults.pull_powers_off)
+                self._unplugged(faults.pull_for_s, faults.pull_powers_off, wall0, sim0)
                 continue
             self._read_commands()
             now = time.monotonic()
@@ -223,16 +223,16 @@ class PtySampler:
             self.commands_seen.append(line)
             self._send(self.bench.encode(self.bench.command_line(line)))
 
-    def _unplugged(self, seconds: float, powers_off: bool) -> tuple[float, int]:
-        """The cable is out for `seconds` of wall time: the pty goes, the sampler runs on unheard."""
+    def _unplugged(self, seconds: float, powers_off: bool, wall0: float, sim0: int) -> None:
+        """The cable is out for `seconds` of wall time: the pty goes; a self-powered sampler runs on
+        unheard (keeping its pace), a bus-powered one is off and comes back reset."""
         bench = self.bench
         start = time.time()
         self.bytes_lost_unplugged += len(self._backlog)
         self._backlog.clear()
         self._cmd_buf.clear()
         self._close_pty()
-        wall0, sim0 = time.monotonic(), bench.now_ns
-        end_wall = wall0 + seconds
+        end_wall = time.monotonic() + seconds
         while not self._stop.is_set() and time.monotonic() < end_wall:
             if not powers_off:
                 target = sim0 + int((time.monotonic() - wall0) * self.speed * 1e9)
@@ -241,7 +241,7 @@ class PtySampler:
                     self.bytes_lost_unplugged += len(bench.step_bytes(step))
             time.sleep(0.005)
         if powers_off:
-            self._send(bench.encode(bench.power_cycle(int((time.monotonic() - wall0) * self.speed * 1e9))))
+            target = sim0 + int((time.monotonic() - wall0) * self.speed * 1e9)
+            self._send(bench.encode(bench.power_cycle(max(0, target - bench.now_ns))))
         self._open_pty()
         self.outages.append((start, time.time()))
-        return time.monotonic(), bench.now_ns

@@ -1,0 +1,9 @@
+"""Ingest: a sampler's live feed, composing the link (bytes), wire (records) and clock (run time).
+
+`Feed(url)` is what recording and watching read: `poll(timeout) -> Timed`, `batches()`, `send(cmd)`,
+`start_cycling(plans)`, `counters` (`FeedCounters`).
+"""
+
+from benchlog.ingest._feed import Feed, FeedCounters, empty_timed, merge_timed
+
+__all__ = ["Feed", "FeedCounters", "merge_timed", "empty_timed"]
