@@ -19,92 +19,134 @@ ROLLUP_QUANTILES = (0.50, 0.95)
 
 
 def group_stats(group: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """For `values` (float, NaN = missing) labelled by non-decreasing `group` ids, per group:
-    (unique group ids, counts of non-NaN values, matrix [p50, p95, max] with NaN where count is 0)."""
-    if len(group) == 0:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros((0, 3))
-    ids, starts = np.unique(group, return_index=True)
-    # sort within each group; NaN sorts last (numpy sorts NaN to the end)
-    order = np.lexsort((values, group))
-    v = values[order]
-    valid = ~np.isnan(v)
-    counts = np.add.reduceat(valid.astype(np.int64), starts)
-    out = np.full((len(ids), 3), np.nan)
+    """For `values` (n, m) floats (NaN = missing) labelled by non-decreasing `group` ids 0..G-1, per group
+    and column: counts of non-NaN values (G, m) and [p50, p95, max] (G, m, 3), NaN where the count is 0.
+
+    The groups are laid out in a (G, longest group, m) block padded with NaN and sorted along the
+    group axis (numpy sorts NaN last), so every percentile of every group and metric is one gather."""
+    values = np.asarray(values, np.float64)
+    if values.ndim == 1:
+        values = values[:, None]
+    n, m = values.shape
+    if n == 0:
+        return np.zeros((0, m), np.int64), np.zeros((0, m, 3))
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    sizes = np.diff(np.append(starts, n))
+    g = len(starts)
+    pos = np.arange(n) - np.repeat(starts, sizes)
+    block = np.full((g, int(sizes.max()), m), np.nan)
+    block[np.repeat(np.arange(g), sizes), pos] = values
+    block.sort(axis=1)
+    counts = (~np.isnan(block)).sum(axis=1)  # (G, m)
+    out = np.full((g, m, 3), np.nan)
     has = counts > 0
+    last = np.maximum(counts - 1, 0)
     for j, q in enumerate(ROLLUP_QUANTILES):
-        pos = (counts - 1) * q
-        lo = np.floor(pos).astype(np.int64)
-        hi = np.ceil(pos).astype(np.int64)
-        frac = pos - lo
-        s = starts[has]
-        a = v[s + lo[has]]
-        b = v[s + hi[has]]
-        out[has, j] = a + (b - a) * frac[has]
-    out[has, 2] = v[starts[has] + counts[has] - 1]
-    return ids, counts, out
+        at = last * q
+        lo = np.floor(at).astype(np.int64)
+        hi = np.ceil(at).astype(np.int64)
+        a = np.take_along_axis(block, lo[:, None, :], axis=1)[:, 0, :]
+        b = np.take_along_axis(block, hi[:, None, :], axis=1)[:, 0, :]
+        out[..., j] = np.where(has, a + (b - a) * (at - lo), np.nan)
+    out[..., 2] = np.where(has, np.take_along_axis(block, last[:, None, :], axis=1)[:, 0, :], np.nan)
+    return counts, out
 
 
 class RollupKeeper:
-    """Keeps, per (unit, kind), the actuations of the window still open, and emits finished windows."""
+    """Keeps the actuations of each (unit, kind)'s open window and emits finished windows.
+
+    A window of a (unit, kind) is finished once an actuation of a later window of the same (unit,
+    kind) has arrived; at the end (`final`) every open window is emitted as it is. Memory stays
+    bounded by one window per unit and kind.
+    """
 
     def __init__(self, window: int) -> None:
         if window < 1:
             raise ValueError("rollup window must be at least one cycle")
         self.window = window
-        self._open: dict[tuple[int, int], np.ndarray] = {}  # (unit, kind) -> rows of STORE dtype
+        self._open: tuple[np.ndarray, ...] | None = None  # unit, kind, cycle, values (n, m)
 
     def pending(self) -> int:
-        return sum(len(a) for a in self._open.values())
+        return 0 if self._open is None else len(self._open[0])
 
-    def seed(self, unit_id: int, kind: int, rows: np.ndarray) -> None:
-        """Put back the actuations of an open window (on resume)."""
-        if len(rows):
-            self._open[(unit_id, kind)] = rows
+    @staticmethod
+    def _columns(unit: np.ndarray, acts: np.ndarray) -> tuple[np.ndarray, ...]:
+        keep = (acts["flags"] & INCOMPLETE) == 0
+        values = np.empty((int(keep.sum()), len(ROLLUP_METRICS)))
+        sub = acts[keep]
+        for j, metric in enumerate(ROLLUP_METRICS):
+            values[:, j] = sub[metric]
+        return (
+            np.asarray(unit, np.int64)[keep],
+            sub["kind"].astype(np.int64),
+            sub["cycle"].astype(np.int64),
+            values,
+        )
 
-    def add(self, rows: np.ndarray, *, final: bool = False) -> list[tuple]:
-        """Feed stored-form actuations (fields unit_id, kind, cycle, flags and the metrics); returns
-        rollup rows (unit_id, metric, kind, run_id, window_no, cycle_lo, cycle_hi, count, p50, p95, max)
-        for every window that is finished (all open windows when `final`); `run_id` is filled by the
-        caller."""
-        out: list[tuple] = []
-        keys = set(self._open)
-        if len(rows):
-            keys.update(zip(rows["unit_id"].tolist(), rows["kind"].tolist(), strict=True))
-        for key in sorted(keys):
-            unit_id, kind = key
-            new = rows[(rows["unit_id"] == unit_id) & (rows["kind"] == kind)] if len(rows) else rows
-            prev = self._open.pop(key, None)
-            both = new if prev is None else (np.concatenate([prev, new]) if len(new) else prev)
-            if not len(both):
-                continue
-            win = both["cycle"] // self.window
-            if final:
-                done_mask = np.ones(len(both), bool)
-            else:
-                done_mask = win < win.max()
-                self._open[key] = both[~done_mask]
-            done = both[done_mask]
-            if len(done):
-                out.extend(self._stats(unit_id, kind, done))
-        return out
+    def _merge(self, cols: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
+        if self._open is None:
+            return cols
+        return tuple(np.concatenate([a, b]) for a, b in zip(self._open, cols, strict=True))
 
-    def _stats(self, unit_id: int, kind: int, rows: np.ndarray) -> list[tuple]:
-        rows = rows[(rows["flags"] & INCOMPLETE) == 0]
-        if not len(rows):
+    def seed(self, unit: np.ndarray, acts: np.ndarray) -> None:
+        """Put back the actuations of open windows (on resume)."""
+        if len(acts):
+            self._open = self._merge(self._columns(unit, acts))
+
+    def add(self, unit: np.ndarray, acts: np.ndarray, *, final: bool = False) -> list[tuple]:
+        """Feed actuations (any dtype with kind, cycle, flags and the metric fields) of units `unit`;
+        returns rollup rows (unit_id, metric, kind, None, window_no, cycle_lo, cycle_hi, count, p50,
+        p95, max) of every finished window; the caller fills in the run."""
+        unit_a, kind, cycle, values = self._merge(self._columns(unit, acts))
+        self._open = None
+        if not len(unit_a):
             return []
-        order = np.argsort(rows["cycle"], kind="stable")
-        rows = rows[order]
-        win = rows["cycle"] // self.window
-        ids, starts = np.unique(win, return_index=True)
-        ends = np.append(starts[1:], len(win)) - 1
-        cyc_lo = rows["cycle"][starts].tolist()
-        cyc_hi = rows["cycle"][ends].tolist()
+        key = unit_a * 2 + kind
+        win = cycle // self.window
+        if final:
+            done = np.ones(len(key), bool)
+        else:
+            order = np.argsort(key, kind="stable")
+            ks, first = np.unique(key[order], return_index=True)
+            top = np.maximum.reduceat(win[order], first)
+            done = win < top[np.searchsorted(ks, key)]
+            if not done.all():
+                rest = ~done
+                self._open = (unit_a[rest], kind[rest], cycle[rest], values[rest])
+        if not done.any():
+            return []
+        key, win, cycle, values, unit_a, kind = (
+            key[done],
+            win[done],
+            cycle[done],
+            values[done],
+            unit_a[done],
+            kind[done],
+        )
+        order = np.lexsort((cycle, win, key))
+        key, win, cycle, values, unit_a, kind = (
+            key[order],
+            win[order],
+            cycle[order],
+            values[order],
+            unit_a[order],
+            kind[order],
+        )
+        new = np.ones(len(key), bool)
+        new[1:] = (key[1:] != key[:-1]) | (win[1:] != win[:-1])
+        group = np.cumsum(new) - 1
+        starts = np.flatnonzero(new)
+        ends = np.append(starts[1:], len(key)) - 1
+        counts, stats = group_stats(group, values)
+        unit_l, kind_l, win_l = unit_a[starts].tolist(), kind[starts].tolist(), win[starts].tolist()
+        lo_l, hi_l = cycle[starts].tolist(), cycle[ends].tolist()
+        counts_l, stats_l = counts.tolist(), stats.tolist()
         result: list[tuple] = []
-        for metric in ROLLUP_METRICS:
-            _, counts, stats = group_stats(win, rows[metric].astype(np.float64))
-            stats_l = stats.tolist()
-            for i, w in enumerate(ids.tolist()):
-                n = int(counts[i])
-                p50, p95, mx = stats_l[i] if n else (None, None, None)
-                result.append((unit_id, metric, kind, None, w, cyc_lo[i], cyc_hi[i], n, p50, p95, mx))
+        for i in range(len(starts)):
+            for j, metric in enumerate(ROLLUP_METRICS):
+                n = counts_l[i][j]
+                p50, p95, mx = stats_l[i][j] if n else (None, None, None)
+                result.append(
+                    (unit_l[i], metric, kind_l[i], None, win_l[i], lo_l[i], hi_l[i], n, p50, p95, mx)
+                )
         return result

@@ -8,7 +8,9 @@ bench lease heartbeat) commits together, so a crash loses at most what arrived s
 
 from __future__ import annotations
 
+import sqlite3
 import time
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 import numpy as np
@@ -68,13 +70,43 @@ def _store_error(action: str, exc: BaseException) -> StoreError:
     return StoreError(f"cannot {action}: {text}")
 
 
-def bulk_insert_actuations(conn, rows: list[tuple]) -> None:
-    """Insert stored-form actuation tuples (STORED_ACTUATION_DTYPE order) through the driver."""
-    if not rows:
-        return
+def _dbapi_errors() -> tuple[type[BaseException], ...]:
+    errors: list[type[BaseException]] = [SQLAlchemyError, sqlite3.Error]
+    try:
+        import psycopg
+
+        errors.append(psycopg.Error)
+    except ImportError:  # PostgreSQL support not installed
+        pass
+    return tuple(errors)
+
+
+DB_ERRORS = _dbapi_errors()
+
+
+def sqlite_actuation_insert(run_id: int, unit_id: int) -> str:
+    """The INSERT of one unit's actuations in one run, taking rows of ACTUATION_DTYPE exactly as numpy's
+    `tolist` makes them: unit and run are constants of the statement, so no per-row work is left
+    to Python (sqlite3 caches the prepared statement of each unit)."""
+    names = ACTUATION_DTYPE.names
+    known = {name for name, _ in s.ACTUATION_COLUMNS}
+    if not set(names) <= known:
+        raise StoreError(f"the store has no column for {sorted(set(names) - known)}; a migration is missing")
+    cols = ["unit_id", "run_id", *names]
+    vals = [str(int(unit_id)), str(int(run_id)), *("?" * len(names))]
+    for name, _ in s.ACTUATION_COLUMNS:
+        if name not in names:
+            cols.append(name)
+            vals.append("0")
+    return f"INSERT INTO actuations ({', '.join(cols)}) VALUES ({', '.join(vals)})"
+
+
+def bulk_insert_actuations(conn, rows: Iterable[tuple], sql: str | None = None) -> None:
+    """Insert actuation tuples through the driver: SQLite `executemany` (of `sql`, default the
+    STORED_ACTUATION_DTYPE column order), PostgreSQL `COPY` (STORED_ACTUATION_DTYPE order)."""
     raw = conn.connection.driver_connection
     if conn.dialect.name == "sqlite":
-        raw.cursor().executemany(_SQLITE_ACT_INSERT, rows)
+        raw.cursor().executemany(sql or _SQLITE_ACT_INSERT, rows)
     else:
         with raw.cursor() as cur, cur.copy(f"COPY actuations ({_ACT_COLS}) FROM STDIN") as copy:
             for row in rows:
@@ -162,7 +194,9 @@ class RunWriter:
             self.cycle_base[a.channel] = int(a.cycle_base)
         self.status = {a.unit_id: life.get(a.unit_id, s.ALIVE) for a in assign}
         self._rollups = RollupKeeper(self.window)
-        self._acts: list[np.ndarray] = []
+        self._acts: list[np.ndarray] = []  # ACTUATION_DTYPE, shifted to run time and life cycles
+        self._act_units: list[np.ndarray] = []
+        self._sqlite_insert = {ch: sqlite_actuation_insert(run_id, u) for ch, u in self.units.items()}
         self._edges: list[TimedEdges] = []
         self._incidents: list[Incident] = []
         self._life: dict[int, dict] = {}
@@ -195,7 +229,14 @@ class RunWriter:
             acts, ch, unit = acts[keep], ch[keep], unit[keep]
             if not len(acts):
                 return
-        rows = to_stored(acts, unit, self.run_id)
+        if acts.dtype != ACTUATION_DTYPE:
+            conv = np.zeros(len(acts), ACTUATION_DTYPE)
+            for name in ACTUATION_DTYPE.names:
+                if name in acts.dtype.names:
+                    conv[name] = acts[name]
+            rows = conv
+        else:
+            rows = acts.copy()
         rows["cycle"] += self._base[ch]
         off = np.int64(self.t_offset_ns)
         if off:
@@ -203,6 +244,7 @@ class RunWriter:
                 col = rows[name]
                 col[col >= 0] += off
         self._acts.append(rows)
+        self._act_units.append(unit)
         # progress per channel: run cycles = segment start + analysis cycle + 1
         order = np.argsort(ch, kind="stable")
         chs, first = np.unique(ch[order], return_index=True)
@@ -248,8 +290,9 @@ class RunWriter:
     def flush(self, *, final: bool = False) -> FlushStats:
         t0 = time.perf_counter()
         stats = FlushStats()
-        acts = np.concatenate(self._acts) if self._acts else np.zeros(0, STORED_ACTUATION_DTYPE)
-        rollups = self._rollups.add(acts, final=final)
+        acts = np.concatenate(self._acts) if self._acts else np.zeros(0, ACTUATION_DTYPE)
+        units = np.concatenate(self._act_units) if self._act_units else np.zeros(0, np.int64)
+        rollups = self._rollups.add(units, acts, final=final)
         chunks = self._chunks()
         now = time.time()
         elapsed = max(time.monotonic() - self._last_flush, 1e-6)
@@ -259,20 +302,25 @@ class RunWriter:
         conn = self._conn
         try:
             with conn.begin():
-                bulk_insert_actuations(conn, acts.tolist())
+                if len(acts):
+                    if conn.dialect.name == "sqlite":
+                        self._insert_by_channel(conn, acts)
+                    else:
+                        bulk_insert_actuations(conn, to_stored(acts, units, self.run_id).tolist())
                 if chunks:
                     conn.execute(insert(s.EdgeChunk), chunks)
                 if self._incidents:
                     conn.execute(insert(s.Incident), [self._incident_row(i) for i in self._incidents])
                 bulk_insert_rollups(conn, [r[:3] + (self.run_id,) + r[4:] for r in rollups])
                 self._write_progress(conn, now, done)
-        except SQLAlchemyError as exc:
+        except DB_ERRORS as exc:
             raise _store_error("write to the database", exc) from exc
         stats.actuations = len(acts)
         stats.edges = sum(c["count"] for c in chunks)
         stats.incidents = len(self._incidents)
         stats.rollups = len(rollups)
         self._acts.clear()
+        self._act_units.clear()
         self._edges.clear()
         self._incidents.clear()
         self._life.clear()
@@ -280,6 +328,15 @@ class RunWriter:
         self._last_done = done
         stats.seconds = time.perf_counter() - t0
         return stats
+
+    def _insert_by_channel(self, conn, acts: np.ndarray) -> None:
+        ch = acts["channel"]
+        order = np.argsort(ch, kind="stable")
+        acts = acts[order]
+        chans, starts = np.unique(ch[order], return_index=True)
+        ends = np.append(starts[1:], len(acts))
+        for c, a, b in zip(chans.tolist(), starts.tolist(), ends.tolist(), strict=True):
+            bulk_insert_actuations(conn, acts[a:b].tolist(), self._sqlite_insert[c])
 
     def _write_progress(self, conn, now: float, done: int) -> None:
         renewed = conn.execute(
@@ -391,9 +448,8 @@ class RunWriter:
                             s.Actuation.cycle >= w * self.window,
                         ],
                     )
-                    for kind in (0, 1):
-                        self._rollups.seed(unit, kind, rows[rows["kind"] == kind])
-        except SQLAlchemyError as exc:
+                    self._rollups.seed(rows["unit_id"], rows)
+        except DB_ERRORS as exc:
             raise _store_error("reopen the run", exc) from exc
 
     def close(self, end_reason: str, detail: str = "") -> None:
@@ -413,7 +469,7 @@ class RunWriter:
                     .where(s.Bench.id == self.bench_id, s.Bench.lease_token == self.lease_token)
                     .values(lease_token=None, lease_host=None, lease_pid=None, lease_until=None)
                 )
-        except SQLAlchemyError as exc:
+        except DB_ERRORS as exc:
             raise _store_error("end the run", exc) from exc
         finally:
             self.closed = True

@@ -59,12 +59,14 @@ def test_percentiles_match_numpy():
     group = np.sort(rng.integers(0, 40, 2000))
     values = rng.gamma(2.0, 3.0, 2000)
     values[rng.random(2000) < 0.1] = np.nan
-    ids, counts, stats = group_stats(group, values)
-    for i, g in enumerate(ids):
+    _, group = np.unique(group, return_inverse=True)
+    counts, stats = group_stats(group, np.column_stack([values, values * 2]))
+    for g in range(group.max() + 1):
         v = values[group == g]
         v = v[~np.isnan(v)]
-        assert counts[i] == len(v)
-        np.testing.assert_allclose(stats[i], [np.percentile(v, 50), np.percentile(v, 95), v.max()])
+        assert counts[g, 0] == counts[g, 1] == len(v)
+        np.testing.assert_allclose(stats[g, 0], [np.percentile(v, 50), np.percentile(v, 95), v.max()])
+        np.testing.assert_allclose(stats[g, 1], 2 * stats[g, 0])
 
 
 def test_rollups_and_trend(store):
