@@ -36,6 +36,7 @@ from benchlog.analysis._spec import (
     judge,
     load_spec,
     parse_spec,
+    shipped_specs,
     unit_verdict,
     unit_verdicts,
 )
@@ -104,6 +105,7 @@ __all__ = [
     "measure",
     "parse_spec",
     "project",
+    "shipped_specs",
     "summarize",
     "unit_verdict",
     "unit_verdicts",

@@ -112,7 +112,7 @@ class Analyzer:
 
     def flush(self, until_ns: int | None = None) -> np.ndarray:
         """End of data (at the newest time seen, or `until_ns`): finish every channel."""
-        end = self._max_t if until_ns is None else max(self._max_t, int(until_ns))
+        end = self._max_t + 1 if until_ns is None else max(self._max_t + 1, int(until_ns))
         return self._emit(end, final=True)
 
     # -- intake -------------------------------------------------------------------------------------

@@ -158,21 +158,40 @@ class _Reader:
         return value * 1000.0 if keys[0].endswith("_ms") else value
 
 
+def shipped_specs() -> list[str]:
+    """Part numbers of the example specs shipped with benchlog (the demo scenario's parts)."""
+    from importlib import resources
+
+    root = resources.files("benchlog.presets").joinpath("specs")
+    return sorted(p.name[:-5] for p in root.iterdir() if p.name.endswith(".toml"))
+
+
 def load_spec(path: str | Path) -> PartSpec:
-    """Read a part spec TOML file. Any problem is a SpecError naming the file, the key and the expectation."""
-    path = Path(path)
+    """Read a part spec TOML file (or a shipped example by part number, e.g. "AG-MS5").
+
+    Any problem is a SpecError naming the file, the key and the expectation.
+    """
     name = str(path)
+    if not Path(name).exists() and name in shipped_specs():
+        from importlib import resources
+
+        ref = resources.files("benchlog.presets").joinpath("specs", f"{name}.toml")
+        return parse_spec(_parse_toml(ref.read_bytes(), f"shipped spec {name}"), f"shipped spec {name}")
+    path = Path(path)
     try:
         raw = path.read_bytes()
     except OSError as exc:
         raise SpecError(f"{name}: cannot read the spec file ({exc.strerror or exc})") from exc
+    return parse_spec(_parse_toml(raw, name), name)
+
+
+def _parse_toml(raw: bytes, name: str) -> dict:
     try:
-        doc = tomllib.loads(raw.decode("utf-8"))
+        return tomllib.loads(raw.decode("utf-8"))
     except UnicodeDecodeError as exc:
         raise SpecError(f"{name}: expected UTF-8 TOML text ({exc.reason} at byte {exc.start})") from exc
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(f"{name}: not valid TOML: {exc}") from exc
-    return parse_spec(doc, name)
 
 
 def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
