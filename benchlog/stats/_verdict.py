@@ -120,7 +120,7 @@ class Population:
     name: str
     samples: dict[str, UnitSample]
     life: LifeTable | None = None
-    operation: str = "coil cycle"
+    operation: str = "coil cycle"  # what one operation is for failure rates: or "make or break"
 
     @classmethod
     def from_actuations(
@@ -227,6 +227,14 @@ def _fmt(metric: str, value: float) -> str:
     return f"{value * m.display_scale:.3g} {m.display_unit}"
 
 
+def _fmt_interval(metric: str, est: float, low: float, high: float) -> str:
+    m = METRICS[metric]
+    if not math.isfinite(est):
+        return "-"
+    k = m.display_scale
+    return f"{est * k:.3g} [{low * k:.3g}, {high * k:.3g}] {m.display_unit}".rstrip()
+
+
 def _fmt_cycles(value: float) -> str:
     if not math.isfinite(value):
         return "unbounded" if value > 0 else "-"
@@ -276,8 +284,7 @@ def _metric_criteria(
             outcome = decide_at_most(iv.low, iv.high, limit.value)
             crit = Criterion(
                 f"{name} (candidate)",
-                f"{_fmt(limit.metric, iv.estimate)} "
-                f"[{_fmt(limit.metric, iv.low)}, {_fmt(limit.metric, iv.high)}]",
+                _fmt_interval(limit.metric, iv.estimate, iv.low, iv.high),
                 required,
                 conf,
                 outcome,
@@ -321,10 +328,7 @@ def _metric_criteria(
                 )
             if rate:
                 iv = mean_difference(a, b, confidence=conf, n_resamples=n_resamples, seed=seed + 1)
-                shown = (
-                    f"{_fmt(limit.metric, iv.estimate)} [{_fmt(limit.metric, iv.low)}, "
-                    f"{_fmt(limit.metric, iv.high)}]"
-                )
+                shown = _fmt_interval(limit.metric, iv.estimate, iv.low, iv.high)
             else:
                 iv = _ratio(a, b, cmp_limit, conf, n_resamples, seed + 1)
                 shown = f"{iv.estimate:.3f} [{iv.low:.3f}, {iv.high:.3f}]"
@@ -402,7 +406,7 @@ def _life_criterion(
         outcome = decide_at_least(low, high, life_req)
         crit = Criterion(
             name,
-            f"{_fmt_cycles(est)} [{_fmt_cycles(low)}, {_fmt_cycles(high)}]",
+            f"{est:,.0f} [{low:,.0f}, {_fmt_cycles(high).replace(' cycles', '')}] cycles",
             required,
             conf,
             outcome,
@@ -441,7 +445,12 @@ def _life_criterion(
         if math.isfinite(top.more_cycles) and top.survivors:
             crit.to_settle = (
                 f"{top.more_cycles:,.0f} more cycles on each of the {top.survivors} running "
-                f"units with no further failure (Weibayes, shape {shape:.3g})"
+                f"units with no further failure (Weibayes, shape {shape:.3g}"
+                + (
+                    " taken from the fit: optimistic while the shape is uncertain)"
+                    if fit is not None
+                    else ")"
+                )
             )
         else:
             crit.to_settle = "no unit is still running: more units are needed"
@@ -527,7 +536,8 @@ def _life_summary(pop: Population, req: Requirements, min_failures: int) -> dict
             else {"failures": res, "note": "too few failures of this mode to fit"}
         )
     out["modes"] = modes
-    ops = int(round(table.cycles.sum()))
+    per_cycle = 2 if pop.operation == "make or break" else 1  # each make and each break counts
+    ops = int(round(table.cycles.sum())) * per_cycle
     if ops > 0:
         out["rate_per_10k"] = asdict(
             failure_rate(table.failures, ops, confidence=conf, operation=pop.operation)

@@ -1,0 +1,162 @@
+"""`benchlog plan`: units and cycles a zero-failure demonstration needs, and what would settle a
+running life test."""
+
+from __future__ import annotations
+
+import argparse
+
+NAME = "plan"
+HELP = "Plan a life demonstration (success run, Weibayes) or say what would settle a running test."
+
+EPILOG = """\
+Without --lot: how many units must all survive (success run), and with --life and --shape how long
+each must run (Weibayes, shape assumed known). With --lot (and --db): the lot's life so far from the
+store, and how many more cycles on its running units, with no further failure, would show the life.
+"""
+
+
+def _fraction(text: str) -> float:
+    value = float(text)
+    if not 0.0 < value < 1.0:
+        raise argparse.ArgumentTypeError(f"must be between 0 and 1 (exclusive), got {text}")
+    return value
+
+
+def _positive(text: str) -> float:
+    value = float(text)
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
+    return value
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.epilog = EPILOG
+    p.formatter_class = argparse.RawDescriptionHelpFormatter
+    p.add_argument("--spec", help="part spec (file or shipped part number): life and confidence from it")
+    p.add_argument(
+        "--confidence", type=_fraction, help="confidence to demonstrate (default: spec's, else 0.9)"
+    )
+    p.add_argument(
+        "--reliability",
+        type=_fraction,
+        default=0.9,
+        help="reliability to demonstrate at the life (default 0.9, i.e. the B10 life)",
+    )
+    p.add_argument(
+        "--life", type=_positive, metavar="CYCLES", help="the life to demonstrate (default: spec's)"
+    )
+    p.add_argument("--shape", type=_positive, metavar="BETA", help="assumed Weibull shape (Weibayes)")
+    p.add_argument("--units", type=int, help="units available: how long must each run")
+    p.add_argument("--cycles", type=_positive, help="cycles each unit can run: how many units are needed")
+    p.add_argument("--failures", type=int, default=0, help="failures the plan may allow (default 0)")
+    p.add_argument("--lot", help="a running test's lot (PART:LOT, lot code or part number) in the store")
+    p.add_argument("--db", help="store URL or SQLite path (default: $BENCHLOG_DB, then ./benchlog.sqlite)")
+
+
+def run(args: argparse.Namespace) -> int:
+    import math
+
+    from benchlog.errors import ConfigError, DataError
+    from benchlog.stats import (
+        fit_weibull,
+        life_top_up,
+        success_run_units,
+        weibayes_bx_lower,
+        weibayes_test_cycles,
+        weibayes_units,
+    )
+
+    life, conf = args.life, args.confidence
+    if args.spec:
+        from benchlog.analysis import load_spec
+
+        spec = load_spec(args.spec)
+        if spec.life is not None:
+            life = life or float(spec.life.min_cycles)
+            conf = conf or spec.life.confidence
+    conf = conf or 0.9
+    rel = args.reliability
+    if args.failures < 0:
+        raise ConfigError("--failures cannot be negative")
+    if args.units is not None and args.units < 1:
+        raise ConfigError("--units must be at least 1")
+    x = 100 * (1 - rel)
+    print(
+        f"demonstrate: reliability {rel:.4g} (B{x:g} life) at {conf:.0%} confidence, "
+        f"{args.failures} failure(s) allowed"
+    )
+    n = success_run_units(conf, rel, args.failures)
+    print(
+        f"success run: {n} units, each surviving the full life"
+        + (f" of {life:,.0f} cycles" if life else "")
+        + " (n = ln(1 - C) / ln R when no failure is allowed)"
+    )
+    if life and args.shape:
+        beta = args.shape
+        print(
+            f"\nWeibayes, shape {beta:g} assumed, life {life:,.0f} cycles: "
+            "t = L * (ln(1 - C) / (n ln R))^(1/beta)"
+        )
+        if args.units:
+            t = weibayes_test_cycles(args.units, life, rel, conf, beta, args.failures)
+            print(f"  {args.units} units: {math.ceil(t):,} cycles each")
+        if args.cycles:
+            k = weibayes_units(args.cycles, life, rel, conf, beta, args.failures)
+            print(f"  {args.cycles:,.0f} cycles each: {k} units")
+        if not (args.units or args.cycles):
+            print("  units   cycles each")
+            for k in (4, 8, 12, 16, 24, 32, 48):
+                print(
+                    f"  {k:5d}   {math.ceil(weibayes_test_cycles(k, life, rel, conf, beta, args.failures)):,}"
+                )
+    elif life and not args.lot:
+        print(
+            "\n(give --shape for a Weibayes plan: fewer units each running longer than the life, "
+            "or the reverse)"
+        )
+    if args.lot:
+        if not life:
+            raise ConfigError("a running test needs the life to show: --life or --spec")
+        from benchlog.store import Store
+        from benchlog.views.report._data import load_lot
+
+        store = Store.open(args.db, readonly=True)
+        try:
+            lot = load_lot(store, args.lot, with_runs=False)
+        finally:
+            store.close()
+        table = lot.population.life
+        if table is None or not len(table):
+            raise DataError(f"{lot.label}: no unit has cycled yet")
+        alive = int((~table.failed).sum())
+        print(
+            f"\nrunning test {lot.label}: {len(table)} units, {table.failures} failed, {alive} running, "
+            f"{table.cycles.sum():,.0f} unit-cycles"
+        )
+        beta = args.shape
+        try:
+            fit = fit_weibull(table)
+            lo, _ = fit.bx_bounds(x, conf)
+            print(
+                f"  Weibull fit: shape {fit.shape:.3g}, scale {fit.scale:,.0f}; B{x:g} lower bound "
+                f"{lo:,.0f} cycles (likelihood ratio)"
+            )
+            beta = beta or fit.shape
+        except DataError as exc:
+            print(f"  {exc}")
+        if not beta:
+            print("  give --shape: with so few failures the shape must be assumed (Weibayes)")
+            return 0
+        low = weibayes_bx_lower(table, beta, x, conf)
+        print(f"  Weibayes (shape {beta:.3g}): B{x:g} lower bound {low:,.0f} cycles; required {life:,.0f}")
+        top = life_top_up(table.cycles, table.failed, life, rel, conf, beta)
+        if top.more_cycles == 0:
+            print("  already shown")
+        elif math.isfinite(top.more_cycles):
+            print(
+                f"  {top.more_cycles:,.0f} more cycles on each of the {top.survivors} running units, "
+                "with no further failure, would show it"
+            )
+        else:
+            print("  no unit is still running: more units are needed")
+    return 0

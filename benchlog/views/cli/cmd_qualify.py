@@ -1,0 +1,171 @@
+"""`benchlog qualify`: may the candidate lot replace the incumbent? A verdict table and an exit code."""
+
+from __future__ import annotations
+
+import argparse
+
+NAME = "qualify"
+HELP = "Judge a candidate lot against a part spec and the incumbent lot: pass, fail or not yet decidable."
+
+EPILOG = """\
+LOT is PART:LOT (e.g. VS-505:L1), a lot code held by one part, or a part number (all its lots pooled).
+Exit status: 0 pass, 1 fail, 2 not yet decidable (not enough data); other codes are errors.
+"""
+
+
+def _fraction(text: str) -> float:
+    value = float(text)
+    if not 0.5 < value < 1.0:
+        raise argparse.ArgumentTypeError(f"must be between 0.5 and 1 (exclusive), got {text}")
+    return value
+
+
+def _nonneg(text: str) -> float:
+    value = float(text)
+    if not value >= 0:
+        raise argparse.ArgumentTypeError(f"must be >= 0, got {text}")
+    return value
+
+
+def _positive(text: str) -> float:
+    value = float(text)
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
+    return value
+
+
+def add_common(p: argparse.ArgumentParser) -> None:
+    """Options `qualify` and `report` share."""
+    p.add_argument("--incumbent", required=True, metavar="LOT", help="the lot in use today")
+    p.add_argument("--candidate", required=True, metavar="LOT", help="the lot that would replace it")
+    p.add_argument(
+        "--spec", help="part spec file or shipped part number (default: the candidate part's stored spec)"
+    )
+    p.add_argument("--db", help="store URL or SQLite path (default: $BENCHLOG_DB, then ./benchlog.sqlite)")
+    p.add_argument(
+        "--confidence",
+        type=_fraction,
+        help="one-sided confidence of every bound (default: the spec's life confidence, else 0.9)",
+    )
+    p.add_argument(
+        "--reliability",
+        type=_fraction,
+        default=0.9,
+        help="the life requirement is the life at this reliability (default 0.9: B10)",
+    )
+    p.add_argument(
+        "--margin",
+        type=_nonneg,
+        default=0.2,
+        help="how much worse than the incumbent a metric may be, as a fraction (default 0.2)",
+    )
+    p.add_argument("--no-comparison", action="store_true", help="judge the candidate against the spec only")
+    p.add_argument(
+        "--assumed-shape",
+        type=_positive,
+        metavar="BETA",
+        help="Weibull shape for a Weibayes life bound when too few units failed",
+    )
+    p.add_argument(
+        "--min-units", type=int, default=5, help="units a lot needs before a metric claim is made (default 5)"
+    )
+    p.add_argument(
+        "--per",
+        choices=("cycle", "actuation"),
+        default="cycle",
+        help="what one operation is in failure rates: a coil cycle, or each make and each break",
+    )
+    p.add_argument("--resamples", type=int, default=2000, help="bootstrap resamples (default 2000)")
+    p.add_argument("--seed", type=int, default=0, help="bootstrap random seed (default 0)")
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.epilog = EPILOG
+    p.formatter_class = argparse.RawDescriptionHelpFormatter
+    add_common(p)
+    p.add_argument("--json", metavar="FILE", help="also write the full result as JSON ('-' for stdout)")
+
+
+def evaluate(args: argparse.Namespace, *, with_runs: bool = False):
+    """Open the store, load both lots, judge. Returns (qualification, incumbent, candidate, spec, name)."""
+    from benchlog.errors import ConfigError
+    from benchlog.stats import Requirements, qualify
+    from benchlog.store import Store
+    from benchlog.views.report._data import load_lot, spec_for
+
+    if args.min_units < 3:
+        raise ConfigError(f"--min-units must be at least 3, got {args.min_units}")
+    if args.resamples < 100:
+        raise ConfigError(f"--resamples must be at least 100, got {args.resamples}")
+    operation = "coil cycle" if args.per == "cycle" else "make or break"
+    store = Store.open(args.db, readonly=True)
+    try:
+        inc = load_lot(store, args.incumbent, operation=operation, with_runs=with_runs)
+        cand = load_lot(store, args.candidate, operation=operation, with_runs=with_runs)
+    finally:
+        store.close()
+    spec, spec_name = spec_for(args.spec, cand)
+    req = Requirements.from_spec(spec, reliability=args.reliability, confidence=args.confidence)
+    q = qualify(
+        inc.population,
+        cand.population,
+        req,
+        margin=None if args.no_comparison else args.margin,
+        assumed_shape=args.assumed_shape,
+        min_units=args.min_units,
+        n_resamples=args.resamples,
+        seed=args.seed,
+    )
+    return q, inc, cand, spec, spec_name
+
+
+def verdict_table(q) -> str:
+    head = ("criterion", "measured [bounds]", "required", "conf.", "result")
+    rows = [(c.name, c.measured, c.required, f"{c.confidence:.0%}", c.outcome) for c in q.criteria]
+    widths = [max(len(r[i]) for r in [head, *rows]) for i in range(len(head))]
+    line = "  ".join("-" * w for w in widths)
+    out = ["  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)), line]
+    out += ["  ".join(v.ljust(w) for v, w in zip(r, widths, strict=True)) for r in rows]
+    return "\n".join(s.rstrip() for s in out)
+
+
+def run(args: argparse.Namespace) -> int:
+    import json
+    import sys
+
+    q, inc, cand, _spec, spec_name = evaluate(args)
+    conf = q.requirements.confidence
+    print(
+        f"candidate {cand.label}, {cand.population.units} units; incumbent {inc.label}, "
+        f"{inc.population.units} units"
+    )
+    print(f"spec: {spec_name}; every bound one-sided at {conf:.0%}; units are the experimental unit")
+    print()
+    print(verdict_table(q))
+    notes = [(c.name, c.note) for c in q.criteria if c.note]
+    settle = [(c.name, c.to_settle) for c in q.criteria if c.to_settle]
+    if settle:
+        print("\nto settle what is undecided:")
+        for name, text in settle:
+            print(f"  {name}: {text}")
+    if notes:
+        print("\nnotes:")
+        for name, text in notes:
+            print(f"  {name}: {text}")
+    print(f"\nverdict: {q.outcome.upper()} (exit {q.exit_code})")
+    if args.json:
+        doc = q.to_dict()
+        doc["spec"] = spec_name
+        doc["lots"] = {"incumbent": inc.label, "candidate": cand.label}
+        text = json.dumps(doc, indent=2)
+        if args.json == "-":
+            sys.stdout.write(text + "\n")
+        else:
+            from benchlog.errors import ConfigError
+
+            try:
+                with open(args.json, "w", encoding="utf-8") as fh:
+                    fh.write(text + "\n")
+            except OSError as exc:
+                raise ConfigError(f"cannot write {args.json}: {exc.strerror or exc}") from exc
+    return q.exit_code
