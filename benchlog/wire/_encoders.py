@@ -92,11 +92,19 @@ def _check_beat(rec: Beat, counter_bits: int) -> None:
         _fail("beat counts must be 0 to 2**32-1")
 
 
+# two lowercase hex digits per byte value, first digit in the low byte (little-endian uint16)
+_HEX_PAIRS = np.array([ord(f"{b:02x}"[0]) | ord(f"{b:02x}"[1]) << 8 for b in range(256)], "<u2")
+
+
 def _hex_columns(values: np.ndarray, width: int) -> np.ndarray:
-    """(n, width) array of lowercase hex digit bytes of uint64 `values`, most significant first."""
-    shifts = np.arange(width - 1, -1, -1, dtype=np.uint64) * np.uint64(4)
-    nibbles = (values[:, None] >> shifts) & np.uint64(0xF)
-    return HEX_DIGITS[nibbles.astype(np.intp)]
+    """(n, width) array of lowercase hex digit bytes of uint64 `values`, most significant first.
+
+    Works a byte at a time: the big-endian bytes of each value index a table of digit pairs.
+    """
+    nbytes = (width + 1) // 2
+    big_endian = values.astype(">u8").view(np.uint8).reshape(-1, 8)[:, 8 - nbytes :]
+    chars = _HEX_PAIRS[big_endian].view(np.uint8).reshape(-1, 2 * nbytes)
+    return chars[:, 2 * nbytes - width :]
 
 
 def _xor(data: bytes) -> int:

@@ -72,6 +72,11 @@ def main() -> None:
             f"{form:<7} {len(data) / args.edges:>10.2f} {rate:>15,.0f} {TARGETS[form]:>11,} "
             f"{USB_CEILING[form]:>15,} {rate / USB_CEILING[form]:>9.0f}x  {verdict}"
         )
+    # encoding, for the simulator's sake (no target in the issue)
+    for name, make in (("packed", lambda: PackedEncoder(max_edges=32)), ("line", LineEncoder)):
+        t0 = time.perf_counter()
+        make().encode_all(records)
+        print(f"encode {name:<7} {args.edges / (time.perf_counter() - t0):>15,.0f} edges/s")
 
 
 if __name__ == "__main__":
