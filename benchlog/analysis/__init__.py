@@ -25,7 +25,7 @@ from benchlog.analysis._drift import (
     project,
     window_stats,
 )
-from benchlog.analysis._settings import DEFAULT_CHATTER_THRESHOLD_NS, AnalysisSettings
+from benchlog.analysis._settings import DEFAULT_CHATTER_THRESHOLD_NS, AnalysisSettings, load_settings
 from benchlog.analysis._spec import (
     METRICS,
     VERDICT_NAMES,
@@ -101,6 +101,7 @@ __all__ = [
     "empty_actuations",
     "ewma",
     "judge",
+    "load_settings",
     "load_spec",
     "measure",
     "parse_spec",

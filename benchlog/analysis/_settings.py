@@ -117,3 +117,66 @@ class AnalysisSettings:
             form_c=tuple(form_c),
             mode=mode,
         )
+
+
+_SETTINGS_KEYS = {
+    "settle_ms": ("settle_ns", 1e6),
+    "quiet_ms": ("quiet_ns", 1e6),
+    "chatter_threshold_us": ("chatter_threshold_ns", 1e3),
+    "glitch_floor_us": ("glitch_floor_ns", 1e3),
+    "resolution_us": ("resolution_ns", 1e3),
+    "lateness_ms": ("lateness_ns", 1e6),
+}
+
+
+def load_settings(path: str, base: AnalysisSettings | None = None) -> AnalysisSettings:
+    """Analysis settings from a TOML file (keys: see `_SETTINGS_KEYS`, `normally_closed`, `form_c`, `mode`).
+
+    Problems are ConfigErrors naming the file, the key and what was expected.
+    """
+    import tomllib
+
+    try:
+        with open(path, "rb") as fh:
+            doc = tomllib.load(fh)
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read the settings file ({exc.strerror or exc})") from exc
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}") from exc
+    doc = doc.get("analysis", doc)
+    changes: dict[str, object] = {}
+    allowed = set(_SETTINGS_KEYS) | {"normally_closed", "form_c", "mode"}
+    for key, value in doc.items():
+        if key not in allowed:
+            raise ConfigError(f"{path}: {key}: unknown key (expected one of {', '.join(sorted(allowed))})")
+        if key in _SETTINGS_KEYS:
+            field_name, scale = _SETTINGS_KEYS[key]
+            if isinstance(value, bool) or not isinstance(value, int | float) or value < 0:
+                raise ConfigError(f"{path}: {key}: expected a number >= 0, got {value!r}")
+            changes[field_name] = (
+                max(1, round(value * scale)) if field_name == "resolution_ns" else round(value * scale)
+            )
+        elif key == "normally_closed":
+            if not isinstance(value, list) or not all(
+                isinstance(c, int) and not isinstance(c, bool) for c in value
+            ):
+                raise ConfigError(
+                    f"{path}: normally_closed: expected a list of channel numbers, got {value!r}"
+                )
+            changes["normally_closed"] = frozenset(value)
+        elif key == "form_c":
+            ok = isinstance(value, list) and all(
+                isinstance(p, list) and len(p) == 2 and all(isinstance(c, int) for c in p) for p in value
+            )
+            if not ok:
+                raise ConfigError(
+                    f"{path}: form_c: expected a list of [normally_open, normally_closed] channel pairs, "
+                    f"got {value!r}"
+                )
+            changes["form_c"] = tuple((p[0], p[1]) for p in value)
+        else:
+            changes["mode"] = value
+    try:
+        return (base or AnalysisSettings()).with_(**changes)
+    except ConfigError as exc:
+        raise ConfigError(f"{path}: {exc}") from exc

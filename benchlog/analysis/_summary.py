@@ -35,6 +35,7 @@ def summarize(actuations: np.ndarray, spec: PartSpec | None = None) -> list[dict
             "incomplete": int(((flags & INCOMPLETE) != 0).sum()),
             "missed": int(((flags & MISSED) != 0).sum()),
             "stuck": int(((flags & STUCK) != 0).sum()),
+            "no_change": int(((flags & NO_CHANGE) != 0).sum()),
             "glitches": int(good["glitches"].clip(min=0).sum()),
             "chatter_events": int(good["chatter"].clip(min=0).sum()),
             "make_bounce_us": _dist(makes["bounce_us"]),

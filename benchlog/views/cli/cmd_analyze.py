@@ -1,0 +1,232 @@
+"""`benchlog analyze FILE`: measure a recorded sampler stream and summarise each channel."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from typing import Any
+
+NAME = "analyze"
+HELP = "Measure every make and break in a recorded sampler stream and summarise each channel."
+
+EPILOG = """\
+FILE holds bytes as a port delivered them (either wire form, told apart by itself) or line-form text.
+A recording carries no host times: beats pace the replay. With --spec the spec's settle window and
+chatter threshold are used and each channel gets a verdict; --settings and the options below override.
+Exit status: 0 measured (whatever the verdicts), 1 a channel failed its spec (with --strict).
+"""
+
+READ_CHUNK = 1 << 20
+
+
+def _positive(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not value > 0 or not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
+    return value
+
+
+def _channels(text: str) -> frozenset[int]:
+    try:
+        return frozenset(int(c) for c in text.split(",") if c.strip())
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected channel numbers like 2,3, got {text!r}") from None
+
+
+def _pair(text: str) -> tuple[int, int]:
+    try:
+        a, b = text.split(":")
+        return int(a), int(b)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected NO:NC channel numbers like 0:1, got {text!r}") from None
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.formatter_class = argparse.RawDescriptionHelpFormatter
+    p.epilog = EPILOG
+    p.add_argument("file", metavar="FILE", help="recorded sampler bytes or line-form text ('-' for stdin)")
+    p.add_argument("--spec", metavar="SPEC", help="part spec TOML, or a shipped part number (e.g. AG-MS5)")
+    p.add_argument("--settings", metavar="TOML", help="analysis settings file (docs/metrics.md)")
+    p.add_argument("--settle-ms", type=_positive, help="settle window (default 10 ms, or the spec's)")
+    p.add_argument("--chatter-us", type=_positive, help="chatter threshold (default 10 us, or the spec's)")
+    p.add_argument("--normally-closed", type=_channels, metavar="CH,..", help="normally-closed channels")
+    p.add_argument("--changeover", type=_pair, action="append", metavar="NO:NC", help="a form C pair")
+    p.add_argument("--free", action="store_true", help="ignore drive records: every channel free-running")
+    p.add_argument("--tick-hz", type=int, help="sampler clock if the stream has no announcement")
+    p.add_argument("--counter-bits", type=int, help="counter width if the stream has no announcement")
+    p.add_argument("--json", action="store_true", help="print one JSON document instead of a table")
+    p.add_argument("--strict", action="store_true", help="exit 1 when a channel fails its spec")
+
+
+def _settings(args: argparse.Namespace, spec: Any):
+    from benchlog.analysis import AnalysisSettings, load_settings
+
+    s = spec.settings() if spec is not None else AnalysisSettings()
+    if args.settings:
+        s = load_settings(args.settings, s)
+    changes: dict[str, Any] = {}
+    if args.settle_ms:
+        changes["settle_ns"] = round(args.settle_ms * 1e6)
+    if args.chatter_us:
+        changes["chatter_threshold_ns"] = round(args.chatter_us * 1e3)
+    if args.normally_closed:
+        changes["normally_closed"] = args.normally_closed
+    if args.changeover:
+        changes["form_c"] = tuple(args.changeover)
+    if args.free:
+        changes["mode"] = "free"
+    return s.with_(**changes) if changes else s
+
+
+def _read_chunks(path: str):
+    from benchlog.errors import ConfigError
+
+    try:
+        fh = sys.stdin.buffer if path == "-" else open(path, "rb")  # noqa: SIM115
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read ({exc.strerror or exc})") from exc
+    with fh:
+        while True:
+            try:
+                chunk = fh.read(READ_CHUNK)
+            except OSError as exc:
+                raise ConfigError(f"{path}: read failed ({exc.strerror or exc})") from exc
+            if not chunk:
+                return
+            yield chunk
+
+
+def analyze_file(path: str, settings, spec=None, tick_hz=None, counter_bits=None) -> dict[str, Any]:
+    """Decode, time and measure a recording; returns the summary document `--json` prints."""
+    import numpy as np
+
+    from benchlog.analysis import Analyzer, summarize
+    from benchlog.clock import Timeline
+    from benchlog.errors import DataError
+    from benchlog.wire import Beat, Decoder
+
+    decoder = Decoder()
+    timeline = Timeline(tick_hz, counter_bits)
+    analyzer: Analyzer | None = None
+    rows: list[np.ndarray] = []
+    incidents = []
+    host = 0
+    announced = False
+
+    def take(records) -> None:
+        nonlocal analyzer, host, announced
+        if not records:
+            return
+        # Pace the replay's host clock by the sampler's beats (at most a quarter wrap and 1 s apart):
+        # each group of records up to a beat advances it by no more than that.
+        step = 250_000_000
+        if timeline.clock_hz and timeline.counter_bits:
+            quarter = (1 << (timeline.counter_bits - 2)) * 1_000_000_000 // timeline.clock_hz
+            step = max(1, min(step, quarter - 1))
+        host += step
+        timed = timeline.push(records, host)
+        announced = announced or bool(timed.announcements)
+        if analyzer is None and timeline.clock_hz:
+            res = max(1, 1_000_000_000 // int(timeline.clock_hz))
+            analyzer = Analyzer(settings.with_(resolution_ns=max(settings.resolution_ns, res)), spec)
+        incidents.extend(timed.incidents)
+        if analyzer is not None:
+            rows.append(analyzer.push(timed.edges, timed.drives, timed.incidents))
+
+    for chunk in _read_chunks(path):
+        group: list = []
+        for rec in decoder.feed(chunk):
+            group.append(rec)
+            if isinstance(rec, Beat):
+                take(group)
+                group = []
+        take(group)
+    if analyzer is None:
+        if decoder.counters.records == 0:
+            raise DataError(f"{path}: no sampler records found ({decoder.counters.faults} decode faults)")
+        raise DataError(f"{path}: no announcement in the stream: give --tick-hz and --counter-bits")
+    rows.append(analyzer.flush())
+    table = np.concatenate(rows)
+    c = decoder.counters
+    return {
+        "file": path,
+        "part": spec.number if spec is not None else None,
+        "announcement": None if timeline.announcement is None else vars_of(timeline.announcement),
+        "decode": {"bytes": c.bytes_in, "records": c.records, "edges": c.edges, "faults": c.faults},
+        "incidents": [
+            {"kind": i.kind, "t_start_ns": i.t_start_ns, "t_end_ns": i.t_end_ns, "detail": i.detail}
+            for i in incidents
+        ],
+        "settings": {
+            "settle_ms": settings.settle_ns / 1e6,
+            "chatter_threshold_us": settings.chatter_threshold_ns / 1e3,
+            "glitch_floor_us": analyzer.settings.floor / 1e3,
+        },
+        "channels": summarize(table, spec),
+        "_rows": table,
+    }
+
+
+def vars_of(obj: Any) -> dict[str, Any]:
+    return {k: getattr(obj, k) for k in obj.__slots__}
+
+
+def _ms(d: dict[str, Any], key: str) -> str:
+    v = d.get(key)
+    return "-" if v is None else f"{v / 1000:.2f}"
+
+
+def _triple(d: dict[str, Any]) -> str:
+    return f"{_ms(d, 'p50')}/{_ms(d, 'p95')}/{_ms(d, 'max')}"
+
+
+def print_table(doc: dict[str, Any], out=None) -> None:
+    out = out or sys.stdout
+    dec = doc["decode"]
+    part = f"  part {doc['part']}" if doc["part"] else ""
+    print(
+        f"{doc['file']}: {dec['records']} records, {dec['edges']} edges, {dec['faults']} decode faults, "
+        f"{len(doc['incidents'])} incidents{part}",
+        file=out,
+    )
+    print("times in ms as p50/p95/max", file=out)
+    head = (
+        f"{'ch':>2} {'cycles':>7} {'makes':>6} {'breaks':>6} {'incompl':>7} {'missed':>6} {'stuck':>5} "
+        f"{'make bounce':>17} {'break bounce':>17} {'operate':>17} {'release':>17} "
+        f"{'chatter':>7} {'glitch':>6}"
+    )
+    has_verdict = any("verdict" in c for c in doc["channels"])
+    print(head + ("  verdict" if has_verdict else ""), file=out)
+    for c in doc["channels"]:
+        line = (
+            f"{c['channel']:>2} {c['cycles']:>7} {c['makes']:>6} {c['breaks']:>6} {c['incomplete']:>7} "
+            f"{c['missed']:>6} {c['stuck']:>5} {_triple(c['make_bounce_us']):>17} "
+            f"{_triple(c['break_bounce_us']):>17} {_triple(c['operate_us']):>17} "
+            f"{_triple(c['release_us']):>17} "
+            f"{c['chatter_events']:>7} {c['glitches']:>6}"
+        )
+        if has_verdict:
+            line += f"  {c['verdict']}: {c['reason']}"
+        print(line, file=out)
+
+
+def run(args: argparse.Namespace) -> int:
+    from benchlog.analysis import load_spec
+
+    spec = load_spec(args.spec) if args.spec else None
+    settings = _settings(args, spec)
+    doc = analyze_file(args.file, settings, spec, args.tick_hz, args.counter_bits)
+    doc.pop("_rows")
+    if args.json:
+        json.dump(doc, sys.stdout, indent=1, default=str)
+        print()
+    else:
+        print_table(doc)
+    if args.strict and any(c.get("verdict") == "fail" for c in doc["channels"]):
+        return 1
+    return 0

@@ -1,0 +1,111 @@
+"""Drift charts against a published worked example, and the window statistic and projection."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.stats import theilslopes
+
+from benchlog.analysis import MAKE, DriftMonitor, cusum, drift, empty_actuations, ewma, project, window_stats
+
+# Montgomery, Introduction to Statistical Quality Control, tabular CUSUM example (Table 9.1 in the
+# editions I know): 30 observations, the first 20 from N(10, 1), the last 10 after a shift to mean 11.
+# The same data are reproduced in IMSL's documentation of its EWMA chart ("Montgomery 428").
+MONTGOMERY = np.array(
+    [9.45, 7.99, 9.29, 11.66, 12.16, 10.18, 8.04, 11.46, 9.20, 10.34,
+     9.03, 11.47, 10.51, 9.40, 10.08, 9.37, 10.62, 10.31, 8.52, 10.84,
+     10.90, 9.33, 12.29, 11.50, 10.60, 11.08, 10.38, 11.62, 11.31, 10.52]
+)  # fmt: skip
+
+
+def test_cusum_matches_montgomerys_worked_example():
+    # mu0 = 10, sigma = 1, k = 1/2, h = 5 (Montgomery's example). From memory of the book's table:
+    # C+ first exceeds H = 5 at sample 29, with C+_29 = 5.28 and N+ = 7 (shift after sample 22).
+    cp, cm, h = cusum(MONTGOMERY, 10.0, 1.0, k=0.5, h=5.0)
+    assert h == 5.0
+    assert int(np.argmax(cp > h)) + 1 == 29
+    assert cp[28] == pytest.approx(5.28, abs=0.005)
+    assert cp[3] == pytest.approx(1.16, abs=0.005) and cp[4] == pytest.approx(2.82, abs=0.005)
+    last_zero = max(i for i in range(29) if cp[i] == 0.0) + 1  # sample number of the last reset
+    assert 29 - last_zero == 7
+    assert not (cm > h).any()
+
+
+def test_ewma_on_the_same_example():
+    # Montgomery's EWMA example on these data: lambda = 0.1, L = 2.7. Steady-state limits
+    # 10 +/- 2.7 sqrt(0.1 / 1.9) = 9.38 / 10.62 (the book prints these, from memory); the chart
+    # first signals at sample 29 (z_29 = 10.65 > 10.62; computed, consistent with the book from memory).
+    z, lo, hi = ewma(MONTGOMERY, 10.0, 1.0, lam=0.1, width=2.7)
+    assert z[0] == pytest.approx(9.945) and z[1] == pytest.approx(9.7495)
+    assert hi[-1] == pytest.approx(10.62, abs=0.005) and lo[-1] == pytest.approx(9.38, abs=0.005)
+    assert hi[0] == pytest.approx(10.27, abs=0.005)  # first limit: 2.7 * sqrt(0.1/1.9 * (1 - 0.9**2))
+    assert int(np.argmax(z > hi)) + 1 == 29
+
+
+def test_ewma_recursion_against_a_plain_loop():
+    x = np.random.default_rng(1).normal(size=50)
+    z, _, _ = ewma(x, 0.3, 1.0, lam=0.25)
+    prev, ref = 0.3, []
+    for v in x:
+        prev = 0.25 * v + 0.75 * prev  # NIST/SEMATECH e-Handbook 6.3.2.4: EWMA_t = l Y_t + (1 - l) EWMA_t-1
+        ref.append(prev)
+    np.testing.assert_allclose(z, ref)
+
+
+def actuations(n_cycles, bounce):
+    r = empty_actuations(n_cycles)
+    r["kind"] = MAKE
+    r["cycle"] = np.arange(n_cycles)
+    r["bounce_us"] = bounce
+    return r
+
+
+def test_window_stats_equal_numpy_percentiles_per_window():
+    rng = np.random.default_rng(7)
+    vals = rng.lognormal(6, 0.4, 5300)
+    ws = window_stats(actuations(5300, vals), window_cycles=1000, percentile=95)
+    assert len(ws) == 6 and ws["count"].tolist() == [1000] * 5 + [300]
+    for i, w in enumerate(ws):
+        # numpy's default (linear) percentile is the reference
+        assert w["value"] == pytest.approx(np.percentile(vals[i * 1000 : (i + 1) * 1000], 95))
+
+
+def test_drift_signals_before_the_limit_and_projects_the_crossing():
+    rng = np.random.default_rng(3)
+    n = 40_000
+    cyc = np.arange(n)
+    # bounce median 1 ms for 10k cycles, then growing 0.05 ms per 1000 cycles
+    growth = np.where(cyc < 10_000, 0.0, (cyc - 10_000) * 0.05e-3 * 1000 / 1000)
+    vals = (1000.0 + growth * 1000) * rng.lognormal(0, 0.1, n)
+    ws = window_stats(actuations(n, vals), 1000)
+    rep = drift(ws, limit=3000.0, baseline_windows=8)
+    assert rep.signalled and rep.first_signal_cycle < 20_000
+    assert ws["value"].max() < 3000.0  # signalled while still inside the spec
+    p = rep.projection
+    # reference: scipy's Theil-Sen on the same windows gives the same slope
+    after = np.arange(len(ws)) >= 8
+    mid = (ws["cycle_start"] + ws["cycle_end"]) / 2
+    ref = theilslopes(ws["value"][after], mid[after], alpha=0.9)
+    assert p.slope_per_cycle == pytest.approx(ref[0])
+    assert p.crossing_low <= p.crossing_cycle <= p.crossing_high
+    assert 40_000 < p.crossing_cycle < 70_000  # p95 ~ 1.18 x median: crossing near 47k cycles
+    assert rep.flags and "trend" in rep.flags[-1]
+
+
+def test_flat_data_does_not_signal_and_projects_nothing():
+    rng = np.random.default_rng(4)
+    vals = rng.lognormal(7, 0.1, 30_000)
+    rep = drift(window_stats(actuations(30_000, vals), 1000), limit=3000.0, baseline_windows=8)
+    assert project([1, 2, 3, 4], [5, 5, 5, 5], 10).crossing_cycle is None
+    assert rep.projection.crossing_cycle is None or rep.projection.crossing_cycle > 10**6
+    assert rep.cusum_signal.sum() <= 1
+
+
+def test_monitor_fed_in_pieces_agrees_with_the_batch_report():
+    ws = window_stats(actuations(30, MONTGOMERY * 100), window_cycles=1)
+    mon = DriftMonitor(baseline_windows=30, lam=0.1, width=2.7)
+    signals = []
+    for i in range(0, 30, 7):
+        signals += mon.update(ws[i : i + 7])
+    rep = mon.report()
+    assert [c for c, kind in signals if kind == "ewma"] == list(ws["cycle_end"][rep.ewma_signal])
