@@ -1,0 +1,50 @@
+"""`BenchDashboard`: the Textual app behind `benchlog dash`."""
+
+from __future__ import annotations
+
+from textual.app import App
+from textual.binding import Binding
+
+from ._base import DataScreen
+from ._runs import RunsScreen
+from ._source import StoreSource
+
+
+class BenchDashboard(App):
+    """The dashboard over the store at `db` (an URL or SQLite path), read-only.
+
+    Reads run in thread workers about every `refresh_s` seconds. `show_timing=False` leaves read times
+    out of the status line (for fixed screenshots)."""
+
+    CSS_PATH = "_app.tcss"
+    TITLE = "benchlog"
+    BINDINGS = [
+        Binding("q", "quit", "Quit"),
+        Binding("question_mark", "help", "Help"),
+        Binding("r", "refresh_now", "Read now", show=False),
+    ]
+
+    def __init__(self, db: str | None = None, *, refresh_s: float = 1.0, show_timing: bool = True) -> None:
+        super().__init__()
+        self.source = StoreSource(db)
+        self.refresh_s = refresh_s
+        self.show_timing = show_timing
+
+    def on_mount(self) -> None:
+        self.push_screen(RunsScreen())
+        if self.refresh_s > 0:
+            self.set_interval(self.refresh_s, self.action_refresh_now)
+
+    def action_refresh_now(self) -> None:
+        screen = self.screen
+        if isinstance(screen, DataScreen):
+            screen.request()
+
+    def action_help(self) -> None:
+        from ._help import HelpScreen
+
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen())
+
+    def on_unmount(self) -> None:
+        self.source.close()

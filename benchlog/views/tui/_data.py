@@ -1,0 +1,620 @@
+"""What the screens show, read from the store's rollups (never a scan of the actuations).
+
+These functions run in worker threads and return plain frozen dataclasses; nothing here imports
+Textual. Everything a refresh shows comes from `runs()`, `run_units()`, `incidents()`, `units()`,
+`parts()` and `trend()`; only the histogram reads actuations, over a bounded span of cycles.
+
+Statistics made from rollup windows (each window keeps count, p50, p95 and max of a metric):
+
+- **latest**: the last window as stored.
+- **rolling**: the last `ROLLING_WINDOWS` windows: median of their p50, worst of their p95, max of
+  their max. The verdict is judged on the rolling figures (the unit's present condition); the
+  formal verdict over the whole life belongs to the qualification statistics.
+- **chatter events**: a lower bound, the sum over windows of the window's largest per-actuation
+  count (exact while at most one actuation of a window chattered); the rollups keep no sums.
+- **drift**: `benchlog.analysis.drift` over the windows' p95 (coarsened to at most `DRIFT_POINTS`
+  points by taking medians of consecutive windows), baseline from the first windows, projection to
+  the spec limit by Theil-Sen. The baseline is the first quarter of the windows (5 to 20). A unit is
+  flagged DRIFT when a chart signalled *and* the Theil-Sen slope's 90 % interval lies above zero: the
+  charts alone, on 100-cycle windows and a short baseline, signal on steady units too often.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import tomllib
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchlog.analysis import (
+    BREAK,
+    FAIL,
+    MAKE,
+    MARGINAL,
+    METRICS,
+    NO_VERDICT,
+    PASS,
+    WINDOW_DTYPE,
+    PartSpec,
+    drift,
+    parse_spec,
+    project,
+)
+from benchlog.errors import BenchlogError
+from benchlog.store import FAILED, IncidentInfo, PartInfo, RunInfo, RunUnitInfo, Trend, UnitInfo
+
+ROLLING_WINDOWS = 10
+DRIFT_POINTS = 240
+DRIFT_BASELINE = 5
+DRIFT_BASELINE_MAX = 20  # the baseline is the first quarter of the windows, 5 to 20 of them
+LINK_KINDS = ("disconnect",)  # incidents that mean the link to the sampler was down
+
+VERDICT_LABEL = {PASS: "PASS", MARGINAL: "MARGINAL", FAIL: "FAIL", NO_VERDICT: "NO DATA"}
+NO_SPEC = 254
+VERDICT_LABEL[NO_SPEC] = "NO SPEC"
+
+# what the dashboard charts: key -> (words, rollup column, kind)
+CHART_METRICS: dict[str, tuple[str, str, int]] = {
+    "make_bounce": ("make bounce", "bounce_us", MAKE),
+    "break_bounce": ("break bounce", "bounce_us", BREAK),
+    "operate_time": ("operate time", "transit_us", MAKE),
+    "release_time": ("release time", "transit_us", BREAK),
+    "make_longest_gap": ("make longest gap", "longest_gap_us", MAKE),
+    "break_longest_gap": ("break longest gap", "longest_gap_us", BREAK),
+    "make_bounce_count": ("make bounce count", "bounce_count", MAKE),
+    "break_bounce_count": ("break bounce count", "bounce_count", BREAK),
+    "chatter_make": ("chatter after make", "chatter", MAKE),
+    "chatter_break": ("chatter after break", "chatter", BREAK),
+}
+_SELECTOR_KIND = {"make": MAKE, "operate": MAKE, "break": BREAK, "release": BREAK}
+# the per-unit table's metrics (the others are on the history screen)
+TABLE_METRICS = (
+    "make_bounce",
+    "break_bounce",
+    "operate_time",
+    "release_time",
+    "chatter_make",
+    "chatter_break",
+)
+
+
+# -- spec --------------------------------------------------------------------------------------------
+def part_spec(part: PartInfo | None) -> PartSpec | None:
+    """The part's spec as stored with it (TOML text, else its parsed form), or None."""
+    if part is None:
+        return None
+    try:
+        if part.spec_toml:
+            return parse_spec(tomllib.loads(part.spec_toml), f"spec of {part.part_number}")
+        if part.spec:
+            return parse_spec(part.spec, f"spec of {part.part_number}")
+    except (BenchlogError, tomllib.TOMLDecodeError, TypeError, ValueError):
+        return None
+    return None
+
+
+def limit_for(spec: PartSpec | None, metric_key: str):
+    """(max value, rollup statistic name, percentile) of the spec limit on a chart metric, or None."""
+    if spec is None or metric_key not in METRICS:
+        return None
+    lim = spec.limit(metric_key)
+    if lim is None:
+        return None
+    return lim.max_value, _stat_for(lim.percentile), lim.percentile
+
+
+def _stat_for(percentile: float) -> str:
+    if percentile >= 100:
+        return "max"
+    return "p95" if percentile >= 75 else "p50"
+
+
+# -- figures from rollups ----------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class Figures:
+    """One metric of one unit: latest window and rolling span (NaN when no data)."""
+
+    latest_p50: float = math.nan
+    latest_p95: float = math.nan
+    latest_max: float = math.nan
+    p50: float = math.nan  # rolling
+    p95: float = math.nan
+    max: float = math.nan
+    windows: int = 0
+    cycle_hi: int = -1
+
+
+def figures(trend: Trend, rolling: int = ROLLING_WINDOWS) -> Figures:
+    ok = trend.count > 0
+    if not ok.any():
+        return Figures()
+    idx = np.flatnonzero(ok)
+    last = idx[-1]
+    span = idx[-rolling:]
+    return Figures(
+        float(trend.p50[last]),
+        float(trend.p95[last]),
+        float(trend.max[last]),
+        float(np.nanmedian(trend.p50[span])),
+        float(np.nanmax(trend.p95[span])),
+        float(np.nanmax(trend.max[span])),
+        int(len(idx)),
+        int(trend.cycle_hi[last]),
+    )
+
+
+def chatter_events(trend: Trend, rolling: int | None = None) -> int:
+    """Lower bound on chatter events (see the module docstring); over the last `rolling` windows."""
+    mx = np.nan_to_num(trend.max[trend.count > 0], nan=0.0)
+    if rolling is not None:
+        mx = mx[-rolling:]
+    return int(mx.sum())
+
+
+def windows_of(trend: Trend, stat: str = "p95", points: int = DRIFT_POINTS) -> np.ndarray:
+    """The trend as analysis windows (WINDOW_DTYPE), coarsened to at most `points` windows."""
+    ok = trend.count > 0
+    lo, hi = trend.cycle_lo[ok], trend.cycle_hi[ok]
+    val, cnt = getattr(trend, stat)[ok], trend.count[ok]
+    n = len(lo)
+    if n > points:
+        k = math.ceil(n / points)
+        groups = np.arange(n) // k
+        starts = np.flatnonzero(np.r_[True, groups[1:] != groups[:-1]])
+        ends = np.r_[starts[1:], n]
+        lo = lo[starts]
+        hi = hi[ends - 1]
+        cnt = np.add.reduceat(cnt, starts)
+        val = np.array([np.nanmedian(val[a:b]) for a, b in zip(starts, ends, strict=True)])
+    out = np.zeros(len(lo), WINDOW_DTYPE)
+    out["cycle_start"] = lo
+    out["cycle_end"] = hi + 1
+    out["count"] = cnt
+    out["value"] = val
+    return out
+
+
+@dataclass(frozen=True, slots=True)
+class DriftFlag:
+    metric: str  # chart metric key
+    words: str
+    signalled: bool
+    first_signal_cycle: int | None
+    crossing_cycle: float | None  # projected cycle at which the limit is reached (None: not reached)
+    crossing_low: float | None
+    crossing_high: float | None
+    baseline: float
+    limit: float | None
+
+    @property
+    def short(self) -> str:
+        if not self.signalled:
+            return ""
+        head = f"DRIFT {self.words}"
+        if self.crossing_cycle is not None:
+            return f"{head} -> limit ~{cycles_text(self.crossing_cycle)}"
+        return head
+
+
+def drift_of(trend: Trend, metric: str, spec: PartSpec | None) -> tuple[DriftFlag | None, object | None]:
+    """(flag, DriftReport) for one metric's trend, or (None, None) with too few windows."""
+    lim = limit_for(spec, metric)
+    stat = lim[1] if lim else "p95"
+    w = windows_of(trend, stat)
+    if np.count_nonzero(~np.isnan(w["value"])) < DRIFT_BASELINE + 2:
+        return None, None
+    n_base = max(DRIFT_BASELINE, min(DRIFT_BASELINE_MAX, len(w) // 4))
+    try:
+        rep = drift(w, limit=lim[0] if lim else None, baseline_windows=n_base)
+    except BenchlogError:
+        return None, None
+    p = rep.projection
+    trend_p = p
+    if trend_p is None:  # no limit to project to: the slope's interval alone
+        mid = (w["cycle_start"] + w["cycle_end"]) / 2.0
+        trend_p = project(mid[n_base:], w["value"][n_base:], math.inf)
+    rising = trend_p is not None and trend_p.slope_low > 0
+    flag = DriftFlag(
+        metric,
+        CHART_METRICS[metric][0],
+        rep.signalled and rising,
+        rep.first_signal_cycle,
+        None if p is None else p.crossing_cycle,
+        None if p is None else p.crossing_low,
+        None if p is None else p.crossing_high,
+        rep.baseline.mean,
+        lim[0] if lim else None,
+    )
+    return flag, rep
+
+
+# -- the runs list -----------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class Outage:
+    """The link outages of a run: how many, the longest, and whether one is still open."""
+
+    count: int
+    longest_s: float
+    total_s: float
+    last_detail: str
+
+
+@dataclass(frozen=True, slots=True)
+class RunRow:
+    run: RunInfo
+    state: str  # live / interrupted / ended
+    outage: Outage | None
+    incident_kinds: dict[str, int]
+
+    @property
+    def how(self) -> str:
+        if self.state == "live":
+            return "recording"
+        if self.state == "interrupted":
+            return "resumable"
+        return END_WORDS.get(self.run.end_reason or "", self.run.end_reason or "ended")
+
+
+END_WORDS = {
+    "target": "target met",
+    "all_failed": "all failed",
+    "stopped": "stopped",
+    "port_lost": "port lost",
+    "store_error": "db refused",
+    "error": "error",
+}
+
+
+@dataclass(frozen=True, slots=True)
+class Overview:
+    runs: list[RunRow]
+    benches: int
+    read_s: float
+
+
+def outage_of(incidents: list[IncidentInfo]) -> Outage | None:
+    link = [i for i in incidents if i.kind in LINK_KINDS]
+    if not link:
+        return None
+    d = [i.duration_s for i in link]
+    return Outage(len(link), max(d), sum(d), link[-1].detail)
+
+
+def read_overview(store, limit: int = 50) -> Overview:
+    t0 = time.perf_counter()
+    runs = store.runs(limit=limit)
+    rows = []
+    for r in runs:
+        kinds: dict[str, int] = {}
+        outage = None
+        if r.incidents:
+            incs = store.incidents(r.id)
+            for i in incs:
+                kinds[i.kind] = kinds.get(i.kind, 0) + 1
+            outage = outage_of(incs)
+        rows.append(RunRow(r, r.state, outage, kinds))
+    benches = len({r.bench_id for r in runs})
+    return Overview(rows, benches, time.perf_counter() - t0)
+
+
+# -- the units of a run ------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class UnitRow:
+    channel: int
+    unit: UnitInfo
+    run_cycles: int
+    figures: dict[str, Figures]  # chart metric key -> figures
+    chatter: int  # events, lower bound, over the life
+    verdict: int
+    reasons: tuple[str, ...]
+    drift: tuple[DriftFlag, ...]
+
+    @property
+    def verdict_label(self) -> str:
+        return VERDICT_LABEL.get(self.verdict, "?")
+
+    @property
+    def drifting(self) -> bool:
+        return any(d.signalled for d in self.drift)
+
+    @property
+    def life_text(self) -> str:
+        u = self.unit
+        if u.status == FAILED:
+            mode = (u.failure_mode or "failed").replace("_", " ")
+            return f"FAILED {mode} @{cycles_text(u.failed_at_cycle or u.cycles)}"
+        return u.status.upper()
+
+    def search_text(self) -> str:
+        u = self.unit
+        words = [u.serial, u.part_number, u.lot, u.supplier, u.status, self.verdict_label.lower()]
+        if self.drifting:
+            words.append("drift")
+        if u.failure_mode:
+            words.append(u.failure_mode)
+        return " ".join(words).lower()
+
+
+@dataclass(frozen=True, slots=True)
+class RunDetail:
+    run: RunInfo
+    units: list[UnitRow]
+    outage: Outage | None
+    incidents: list[IncidentInfo]
+    read_s: float
+
+
+def judge_unit(unit: UnitInfo, figs: dict[str, Figures], chatter_recent: int, window: int, spec):
+    """(verdict, reasons) from the rolling figures against the spec; a failed unit fails."""
+    reasons: list[str] = []
+    if unit.status == FAILED:
+        mode = (unit.failure_mode or "failure").replace("_", " ")
+        reasons.append(f"failed at cycle {unit.failed_at_cycle:,} ({mode})" if unit.failed_at_cycle else mode)
+    if spec is None:
+        return (FAIL if reasons else NO_SPEC), tuple(reasons or ["the part has no spec in the store"])
+    verdict = FAIL if reasons else PASS
+    any_data = False
+    for lim in spec.limits:
+        key = lim.metric
+        if key not in figs:
+            continue
+        f = figs[key]
+        stat = {"max": f.max, "p95": f.p95, "p50": f.p50}[_stat_for(lim.percentile)]
+        if math.isnan(stat):
+            continue
+        any_data = True
+        band = spec.marginal_band if lim.marginal_band is None else lim.marginal_band
+        label = "max" if lim.percentile >= 100 else f"p{lim.percentile:g}"
+        text = f"{lim.words} {label} {value_text(stat, key)} (limit {value_text(lim.max_value, key)})"
+        if stat > lim.max_value:
+            verdict = FAIL
+            reasons.append(text + " over")
+        elif stat > lim.max_value * (1 - band):
+            verdict = max(verdict, MARGINAL)
+            reasons.append(text + " within the marginal band")
+    if spec.chatter is not None and window > 0:
+        span = ROLLING_WINDOWS * window
+        allowed = spec.chatter.max_events * span / spec.chatter.per_cycles
+        if chatter_recent > allowed:
+            verdict = FAIL
+            reasons.append(
+                f"chatter >= {chatter_recent} events in {span:,} cycles "
+                f"(limit {spec.chatter.max_events} per {spec.chatter.per_cycles:,})"
+            )
+    if not any_data and verdict == PASS:
+        return NO_VERDICT, ("no complete actuations yet",)
+    return verdict, tuple(reasons)
+
+
+class TrendCache:
+    """Trends per (unit, metric) re-read only when the unit's latest rollup window moved on, and at
+    most every `min_age_s` seconds (so a fast run does not re-read whole lives every second)."""
+
+    def __init__(self, min_age_s: float = 5.0) -> None:
+        self.min_age_s = min_age_s
+        self._data: dict[tuple[int, str], tuple[int, float, Trend]] = {}
+
+    def get(self, store, unit_id: int, key: str, latest_hi: int, now: float | None = None) -> Trend:
+        now = time.monotonic() if now is None else now
+        hit = self._data.get((unit_id, key))
+        if hit is not None and (hit[0] == latest_hi or now - hit[1] < self.min_age_s):
+            return hit[2]
+        _, column, kind = CHART_METRICS[key]
+        t = store.trend(unit_id, column, kind=kind)
+        self._data[(unit_id, key)] = (latest_hi, now, t)
+        return t
+
+
+def read_run(store, run_id: int, cache: TrendCache | None = None, specs: dict | None = None) -> RunDetail:
+    t0 = time.perf_counter()
+    cache = cache or TrendCache()
+    run = store.run(run_id)
+    run_units = store.run_units(run_id)
+    incidents = store.incidents(run_id) if run.incidents else []
+    if specs is None:
+        specs = {p.id: part_spec(p) for p in store.parts()}
+    rows = [_unit_row(store, ru, run, cache, specs.get(ru.unit.part_id)) for ru in run_units]
+    return RunDetail(run, rows, outage_of(incidents), incidents, time.perf_counter() - t0)
+
+
+def _latest_hi(ru: RunUnitInfo, column: str, kind: int) -> int:
+    p = ru.latest.get(("make" if kind == MAKE else "break", column))
+    return -1 if p is None else int(p.cycle_hi) * 1_000_003 + int(p.count)
+
+
+def _unit_row(store, ru: RunUnitInfo, run: RunInfo, cache: TrendCache, spec) -> UnitRow:
+    figs: dict[str, Figures] = {}
+    trends: dict[str, Trend] = {}
+    for key in TABLE_METRICS:
+        _, column, kind = CHART_METRICS[key]
+        t = cache.get(store, ru.unit.id, key, _latest_hi(ru, column, kind))
+        trends[key] = t
+        figs[key] = figures(t)
+    chatter = chatter_events(trends["chatter_make"]) + chatter_events(trends["chatter_break"])
+    recent = chatter_events(trends["chatter_make"], ROLLING_WINDOWS) + chatter_events(
+        trends["chatter_break"], ROLLING_WINDOWS
+    )
+    verdict, reasons = judge_unit(ru.unit, figs, recent, run.rollup_window, spec)
+    flags = []
+    for key in ("make_bounce", "break_bounce", "operate_time", "release_time"):
+        flag, _ = drift_of(trends[key], key, spec)
+        if flag is not None:
+            flags.append(flag)
+    return UnitRow(ru.channel, ru.unit, ru.cycles_done, figs, chatter, verdict, reasons, tuple(flags))
+
+
+# -- one unit's history ------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class History:
+    unit: UnitInfo
+    metric: str
+    trend: Trend
+    limit: float | None
+    limit_stat: str
+    flag: DriftFlag | None
+    report: object | None  # DriftReport
+    signal_cycles: np.ndarray  # window end cycles where a chart signalled
+    span: tuple[int, int]  # histogram cycles (inclusive)
+    values: np.ndarray  # metric values of the span's complete actuations
+    read_s: float
+
+
+def read_history(store, unit_id: int, metric: str, span: tuple[int, int] | None, span_cycles: int = 1000):
+    """A unit's trend of `metric`, its drift, and the raw values over `span` (default: the last
+    `span_cycles` cycles) for the histogram."""
+    t0 = time.perf_counter()
+    units = store.units(ids=[unit_id])
+    if not units:
+        from benchlog.errors import DataError
+
+        raise DataError(f"no unit {unit_id} in this database")
+    unit = units[0]
+    spec = part_spec(next((p for p in store.parts() if p.id == unit.part_id), None))
+    words, column, kind = CHART_METRICS[metric]
+    trend = store.trend(unit_id, column, kind=kind)
+    lim = limit_for(spec, metric)
+    flag, rep = drift_of(trend, metric, spec)
+    sig = np.zeros(0, np.int64)
+    if rep is not None:
+        hit = rep.ewma_signal | rep.cusum_signal
+        sig = rep.windows["cycle_end"][hit]
+    last = int(trend.cycle_hi.max()) if len(trend) else -1
+    if span is None:
+        span = (max(0, last - span_cycles + 1), max(last, 0))
+    values = np.zeros(0)
+    if last >= 0:
+        acts = store.actuations(units=[unit_id], kind=kind, cycles=span)
+        from benchlog.analysis import INCOMPLETE, NO_CHANGE
+
+        ok = (acts["flags"] & (INCOMPLETE | NO_CHANGE)) == 0
+        values = acts[column][ok].astype(np.float64)
+        values = values[~np.isnan(values)]
+    return History(
+        unit,
+        metric,
+        trend,
+        lim[0] if lim else None,
+        lim[1] if lim else "p95",
+        flag,
+        rep,
+        sig,
+        span,
+        values,
+        time.perf_counter() - t0,
+    )
+
+
+# -- population ---------------------------------------------------------------------------------------
+@dataclass(frozen=True, slots=True)
+class Group:
+    kind: str  # "part" | "lot"
+    key: int
+    label: str
+
+    @property
+    def title(self) -> str:
+        return f"{self.kind} {self.label}"
+
+
+@dataclass(frozen=True, slots=True)
+class PopUnit:
+    unit: UnitInfo
+    figures: dict[str, Figures]
+    verdict: int
+
+
+@dataclass(frozen=True, slots=True)
+class Population:
+    groups: list[Group]
+    group: Group | None
+    units: list[PopUnit]
+    limits: dict[str, float | None]
+    read_s: float
+
+
+POP_METRICS = ("make_bounce", "break_bounce", "operate_time")
+
+
+def read_population(store, group: Group | None, cache: TrendCache | None = None) -> Population:
+    t0 = time.perf_counter()
+    cache = cache or TrendCache()
+    parts = store.parts()
+    groups = [Group("part", p.id, p.part_number) for p in parts]
+    groups += [Group("lot", lot.id, f"{lot.part_number}/{lot.code}") for lot in store.lots()]
+    if group is None and groups:
+        group = groups[0]
+    units: list[PopUnit] = []
+    limits: dict[str, float | None] = {}
+    if group is not None:
+        found = store.units(part=group.key) if group.kind == "part" else store.units(lot=group.key)
+        specs = {p.id: part_spec(p) for p in parts}
+        for u in found:
+            figs = {}
+            for key in POP_METRICS:
+                _, column, kind = CHART_METRICS[key]
+                t = cache.get(store, u.id, key, u.cycles)
+                figs[key] = figures(t)
+            spec = specs.get(u.part_id)
+            verdict, _ = judge_unit(u, figs, 0, 0, spec)
+            units.append(PopUnit(u, figs, verdict))
+            for key in POP_METRICS:
+                lim = limit_for(spec, key)
+                limits.setdefault(key, lim[0] if lim else None)
+    return Population(groups, group, units, limits, time.perf_counter() - t0)
+
+
+# -- text ---------------------------------------------------------------------------------------------
+def cycles_text(c: float | int | None) -> str:
+    if c is None or (isinstance(c, float) and math.isnan(c)):
+        return "-"
+    c = float(c)
+    if abs(c) >= 10_000_000:
+        return f"{c / 1e6:.0f}M"
+    if abs(c) >= 1_000_000:
+        return f"{c / 1e6:.1f}M"
+    if abs(c) >= 100_000:
+        return f"{c / 1e3:.0f}k"
+    if abs(c) >= 10_000:
+        return f"{c / 1e3:.1f}k"
+    return f"{c:,.0f}"
+
+
+def value_text(v: float, metric: str = "make_bounce") -> str:
+    """A metric value for a table cell: times in ms (they are stored in us), counts as numbers."""
+    if v is None or math.isnan(v):
+        return "-"
+    if "count" in metric or metric.startswith("chatter"):
+        return f"{v:.0f}"
+    return f"{v / 1000:.2f}"
+
+
+def duration_text(s: float | None) -> str:
+    if s is None or math.isnan(s):
+        return "-"
+    s = float(s)
+    if s < 60:
+        return f"{s:.1f} s" if s < 10 else f"{s:.0f} s"
+    if s < 3600:
+        return f"{int(s // 60)} min {int(s % 60):02d} s"
+    if s < 86400 * 2:
+        return f"{int(s // 3600)} h {int(s % 3600 // 60):02d} min"
+    return f"{s / 86400:.1f} d"
+
+
+__all__ = [
+    "CHART_METRICS",
+    "DriftFlag",
+    "Figures",
+    "Group",
+    "History",
+    "Outage",
+    "Overview",
+    "PopUnit",
+    "Population",
+    "RunDetail",
+    "RunRow",
+    "TrendCache",
+    "UnitRow",
+]

@@ -1,0 +1,48 @@
+"""The key reference, over whatever screen is showing."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+HELP = """\
+[b]benchlog dashboard: keys[/b]
+
+[b]Everywhere[/b]
+  q          quit                     ?          this help
+  Escape     back one screen          r          read the store now
+  arrows     move in a list           Tab        next panel
+  Enter      open the highlighted row
+
+[b]Benches and runs[/b]
+  Enter      the run's units          p          populations
+
+[b]Units of a run[/b]
+  /          filter by words (serial, part, lot, pass, marginal, fail, drift, failed)
+  s          next sort: channel, verdict, drift, cycles, bounce, part/lot
+  o          reverse the order        v          verdict: all, FAIL, MARGINAL, PASS
+  d          drifting units only      p / l      population of the unit's part / lot
+  Enter      the unit's history
+
+[b]Unit history[/b]
+  m / M      next / previous metric   e          histogram over the latest cycles
+  [ / ]      histogram span earlier / later    - / +    narrower / wider span
+
+[b]Populations[/b]
+  arrows     choose a part or lot     m          next metric
+
+Every state has a word as well as a colour: PASS, MARGINAL, FAIL, NO DATA,
+NO SPEC, DRIFT, LIVE, ENDED, INTERRUPTED, LINK DOWN.
+Press Escape or ? to close."""
+
+
+class HelpScreen(ModalScreen):
+    CSS_PATH = "_help.tcss"
+    BINDINGS = [Binding("escape", "dismiss", "Close"), Binding("question_mark", "dismiss", "Close")]
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="help-box"):
+            yield Static(HELP, id="help-text")

@@ -1,0 +1,198 @@
+"""Populations: the units of one part or lot side by side, on one scale, against the limit."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from rich.console import Group as RichGroup
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, VerticalScroll
+from textual.widgets import Footer, OptionList, Static
+from textual.widgets.option_list import Option
+
+from ._base import DIM_STYLE, FAIL_STYLE, DataScreen, StatusLine
+from ._data import (
+    CHART_METRICS,
+    FAIL,
+    POP_METRICS,
+    Group,
+    Population,
+    TrendCache,
+    cycles_text,
+    read_population,
+    value_text,
+)
+from ._units import VERDICT_STYLE
+
+NAME_W = 16
+
+
+def strip(p50: float, p95: float, mx: float, limit: float | None, top: float, width: int) -> Text:
+    """One unit on a shared scale: '-' from 0 to p50, '=' p50 to p95, '.' p95 to max, 'x' at the
+    max, '|' at the limit."""
+    cells = [" "] * width
+    styles = [""] * width
+
+    def col(v: float) -> int:
+        return int(min(width - 1, max(0, round(v / top * (width - 1))))) if top > 0 else 0
+
+    if not math.isnan(p50):
+        for i in range(col(p50) + 1):
+            cells[i], styles[i] = "-", "green"
+        if not math.isnan(p95):
+            for i in range(col(p50), col(p95) + 1):
+                cells[i], styles[i] = "=", "yellow"
+        if not math.isnan(mx):
+            for i in range(col(p95 if not math.isnan(p95) else p50), col(mx)):
+                cells[i], styles[i] = ".", "red"
+            cells[col(mx)], styles[col(mx)] = "x", "bold red"
+    if limit is not None:
+        c = col(limit)
+        cells[c], styles[c] = "|", "bold white on red" if cells[c] not in (" ", "|") else "bold red"
+    out = Text()
+    for ch, st in zip(cells, styles, strict=True):
+        out.append(ch, style=st or None)
+    return out
+
+
+class PopulationScreen(DataScreen):
+    CSS_PATH = "_population.tcss"
+    BINDINGS = [
+        Binding("escape", "back", "Back"),
+        Binding("m", "metric", "Metric"),
+        Binding("tab", "focus_next", "Switch", show=False),
+    ]
+
+    def __init__(self, group: Group | None = None) -> None:
+        super().__init__()
+        self.group = group
+        self.metric = POP_METRICS[0]
+        self.cache = TrendCache()
+        self._groups: list[Group] = []
+
+    def compose(self) -> ComposeResult:
+        yield Static("Populations: units side by side", id="pop-title")
+        with Horizontal():
+            yield OptionList(id="groups")
+            with VerticalScroll(id="pop-body"):
+                yield Static("", id="pop-summary")
+                yield Static("", id="pop-chart")
+        yield StatusLine()
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.request()
+
+    def params(self):
+        return self.group
+
+    def load(self, store, group) -> Population:
+        return read_population(store, group, self.cache)
+
+    def show(self, data: Population) -> None:
+        if self.group is None:
+            self.group = data.group
+        ol = self.query_one("#groups", OptionList)
+        if [g for g in data.groups] != self._groups:
+            self._groups = list(data.groups)
+            ol.clear_options()
+            ol.add_options([Option(g.title, id=f"{g.kind}:{g.key}") for g in data.groups])
+        if data.group in self._groups:
+            idx = self._groups.index(data.group)
+            if ol.highlighted != idx:
+                ol.highlighted = idx
+        self._draw(data)
+
+    def _draw(self, data: Population) -> None:
+        words = CHART_METRICS[self.metric][0]
+        title = Text(f"{data.group.title if data.group else 'no parts'}", style="bold")
+        title.append(f"  {words} (ms), rolling last 10 windows   m: next metric", style=DIM_STYLE)
+        self.query_one("#pop-title", Static).update(title)
+        if not data.units:
+            self.query_one("#pop-summary", Static).update(Text("No units in this group.", style=DIM_STYLE))
+            self.query_one("#pop-chart", Static).update("")
+            return
+        # per lot summary
+        lots: dict[str, list] = {}
+        for pu in data.units:
+            lots.setdefault(pu.unit.lot, []).append(pu)
+        summary = Table(box=None, padding=(0, 1), header_style="bold")
+        for col in (
+            "lot",
+            "units",
+            "failed",
+            "fail verdict",
+            "median p95",
+            "worst p95",
+            "worst max",
+            "cycles",
+        ):
+            summary.add_column(col, justify="right" if col != "lot" else "left")
+        for lot, pus in lots.items():
+            p95 = np.array([pu.figures[self.metric].p95 for pu in pus])
+            mx = np.array([pu.figures[self.metric].max for pu in pus])
+            failed = sum(pu.unit.status == "failed" for pu in pus)
+            bad = sum(pu.verdict == FAIL for pu in pus)
+            has = ~np.isnan(p95)
+            summary.add_row(
+                lot,
+                str(len(pus)),
+                Text(str(failed), style=FAIL_STYLE if failed else ""),
+                str(bad),
+                value_text(float(np.median(p95[has]))) if has.any() else "-",
+                value_text(float(np.max(p95[has]))) if has.any() else "-",
+                value_text(float(np.nanmax(mx))) if (~np.isnan(mx)).any() else "-",
+                cycles_text(int(np.median([pu.unit.cycles for pu in pus]))),
+            )
+        self.query_one("#pop-summary", Static).update(summary)
+        limit = data.limits.get(self.metric)
+        vals = [pu.figures[self.metric].max for pu in data.units] + [limit or 0.0]
+        vals = [v for v in vals if v is not None and not math.isnan(v)]
+        top = max(vals) * 1.05 if vals and max(vals) > 0 else 1.0
+        chart = self.query_one("#pop-chart", Static)
+        width = max(20, (chart.size.width or 70) - NAME_W - 22)
+        lines = []
+        prev_lot = None
+        for pu in data.units:
+            lot = f"{pu.unit.part_number}/{pu.unit.lot}"
+            if lot != prev_lot:
+                lines.append(Text(lot, style="bold underline"))
+                prev_lot = lot
+            f = pu.figures[self.metric]
+            row = Text(f"{pu.unit.serial[-NAME_W:]:<{NAME_W}} ")
+            row.append_text(strip(f.p50, f.p95, f.max, limit, top, width))
+            label = {0: "PASS", 1: "MARG", 2: "FAIL"}.get(pu.verdict, "----")
+            row.append(f" {label:<4}", style=VERDICT_STYLE.get(pu.verdict, DIM_STYLE))
+            row.append(f" {value_text(f.p95):>5} {value_text(f.max):>5}")
+            if pu.unit.status == "failed":
+                row.append(" F", style=FAIL_STYLE)
+            lines.append(row)
+        scale = Text(f"{'':<{NAME_W}} 0{'':>{max(0, width - 8)}}{top / 1000:.3g} ms", style=DIM_STYLE)
+        key = Text(
+            f"{'':<{NAME_W}} - to p50  = to p95  . to max  x max  | limit"
+            + (f" {value_text(limit)} ms" if limit is not None else " (none)")
+            + "   columns: p95, max; F failed",
+            style=DIM_STYLE,
+        )
+        chart.update(RichGroup(*lines, scale, key))
+
+    def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
+        if not self._groups or event.option_index >= len(self._groups):
+            return
+        g = self._groups[event.option_index]
+        if g != self.group:
+            self.group = g
+            self.request()
+
+    def action_metric(self) -> None:
+        i = POP_METRICS.index(self.metric)
+        self.metric = POP_METRICS[(i + 1) % len(POP_METRICS)]
+        if isinstance(self.last_data, Population):
+            self._draw(self.last_data)
+
+    def action_back(self) -> None:
+        self.app.pop_screen()
