@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import sqlite3
 import time
+from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass
 
@@ -56,6 +57,7 @@ _SQLITE_ROLLUP_INSERT = (
     f"INSERT INTO rollups ({', '.join(_ROLLUP_COLS)}) VALUES ({', '.join('?' * len(_ROLLUP_COLS))})"
 )
 CHUNK_MAX_EDGES = 65_536
+RATE_WINDOW_S = 10.0
 _TIME_FIELDS = tuple(n for n in ("t_start_ns", "t_first_ns", "t_settle_ns", "t_end_ns") if n in ACT_FIELDS)
 LEASE_SECONDS = 15.0
 
@@ -201,6 +203,7 @@ class RunWriter:
         self._incidents: list[Incident] = []
         self._life: dict[int, dict] = {}
         self._rate = 0.0
+        self._progress: deque[tuple[float, int]] = deque()  # (monotonic time, cycles done)
         self._last_flush = time.monotonic()
         self._last_done = self.run_cycles_done()
         self._conn = engine.connect()
@@ -295,10 +298,8 @@ class RunWriter:
         rollups = self._rollups.add(units, acts, final=final)
         chunks = self._chunks()
         now = time.time()
-        elapsed = max(time.monotonic() - self._last_flush, 1e-6)
         done = self.run_cycles_done()
-        inst = (done - self._last_done) / elapsed
-        self._rate = inst if self._rate == 0.0 else 0.8 * self._rate + 0.2 * inst
+        self._rate = self._update_rate(done)
         conn = self._conn
         try:
             with conn.begin():
@@ -328,6 +329,15 @@ class RunWriter:
         self._last_done = done
         stats.seconds = time.perf_counter() - t0
         return stats
+
+    def _update_rate(self, done: int) -> float:
+        """Cycles per second over the last RATE_WINDOW_S seconds of flushes."""
+        now = time.monotonic()
+        self._progress.append((now, done))
+        while len(self._progress) > 2 and now - self._progress[0][0] > RATE_WINDOW_S:
+            self._progress.popleft()
+        t0, d0 = self._progress[0]
+        return (done - d0) / (now - t0) if now > t0 else 0.0
 
     def _insert_by_channel(self, conn, acts: np.ndarray) -> None:
         ch = acts["channel"]

@@ -1,0 +1,255 @@
+"""The recorder: a live feed through the analysis into the store, committed at least once a second.
+
+```python
+writer = store.start_run(bench_id, {0: unit_a, 1: unit_b}, profile=..., target_cycles=200_000)
+rec = Recorder(writer, settings=AnalysisSettings(), specs={0: spec, 1: spec})
+with Feed(url) as feed:
+    feed.start_cycling(rec.plans(on_us=50_000, off_us=50_000))
+    reason = rec.run(feed, stop=threading.Event())
+```
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchlog.analysis import AnalysisSettings, Analyzer, judge
+from benchlog.errors import PortError, StoreError
+from benchlog.store import (
+    END_ALL_FAILED,
+    END_STOPPED,
+    END_STORE_ERROR,
+    END_TARGET,
+    RunWriter,
+)
+
+from ._life import LifeJudge
+
+FLUSH_EVERY_S = 0.5
+
+
+@dataclass(frozen=True, slots=True)
+class Progress:
+    run_id: int
+    cycles_done: int
+    target_cycles: int
+    rate_cps: float
+    eta_s: float | None
+    incidents: int
+    units: int
+    failed: int
+    actuations: int
+    connected: bool
+
+    def line(self) -> str:
+        target = f"/{self.target_cycles:,}" if self.target_cycles else ""
+        eta = "--" if self.eta_s is None else _hms(self.eta_s)
+        link = "" if self.connected else "  PORT DOWN"
+        return (
+            f"run {self.run_id}: {self.cycles_done:,}{target} cycles  {self.rate_cps:6.1f} cycles/s  "
+            f"ETA {eta}  incidents {self.incidents}  failed {self.failed}/{self.units}{link}"
+        )
+
+
+def _hms(seconds: float) -> str:
+    if seconds > 99 * 86400:
+        return ">99 days"
+    s = int(round(seconds))
+    return f"{s // 3600}:{s % 3600 // 60:02d}:{s % 60:02d}"
+
+
+class Recorder:
+    """Analysis, life status and batched writes for one run segment (see module doc)."""
+
+    def __init__(
+        self,
+        writer: RunWriter,
+        *,
+        settings: AnalysisSettings | None = None,
+        specs: dict[int, object] | None = None,
+        fail_after: int = 5,
+        flush_every_s: float = FLUSH_EVERY_S,
+        keep_edges: bool = True,
+    ) -> None:
+        self.writer = writer
+        self.specs = {c: sp for c, sp in (specs or {}).items() if sp is not None}
+        self.analyzer = Analyzer(settings or AnalysisSettings())
+        chatter = {}
+        for c, sp in self.specs.items():
+            lim = getattr(sp, "chatter", None)
+            chatter[c] = None if lim is None else (int(lim.max_events), int(lim.per_cycles))
+        self.life = LifeJudge(fail_after, chatter)
+        for c, u in writer.units.items():  # units already failed or removed before this segment
+            if writer.status.get(u) != "alive":
+                self.life.retire(c)
+        self.flush_every_s = min(float(flush_every_s), 1.0)
+        self.keep_edges = keep_edges
+        self.incidents = 0
+        self.actuations = 0
+        self._last_flush = time.monotonic()
+        self.failures: list = []
+
+    # -- what to send -------------------------------------------------------------------------------
+    def plans(self, on_us: int, off_us: int):
+        """One PLAN per channel of the run, for the cycles still to do (0 = endless)."""
+        from benchlog.wire import Plan
+
+        out = []
+        target = self.writer.target_cycles
+        for ch in sorted(self.writer.units):
+            left = 0 if not target else max(1, target - self.writer.cycles_done[ch])
+            out.append(Plan(ch, int(on_us), int(off_us), int(left)))
+        return out
+
+    # -- feeding ------------------------------------------------------------------------------------
+    def push(self, timed) -> None:
+        """One `Timed` batch from the feed (edges, drives, incidents)."""
+        until = None
+        beats = getattr(timed, "beats", None)
+        if beats is not None and len(beats):
+            # a beat says the sampler's clock reached its tick: quiet channels can be finished too
+            until = int(beats.t_ns.max()) - self.analyzer.settings.lateness_ns
+        rows = self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
+        self._take(rows, timed.edges if self.keep_edges else None, timed.incidents)
+
+    def _take(self, rows: np.ndarray, edges, incidents) -> None:
+        if len(rows):
+            rows = self._judge(rows)
+            for f in self.life.push(rows):
+                self._fail(f)
+        self.incidents += len(incidents)
+        self.actuations += len(rows)
+        self.writer.add(actuations=rows, edges=edges, incidents=list(incidents))
+
+    def _judge(self, rows: np.ndarray) -> np.ndarray:
+        if not self.specs:
+            return rows
+        rows = rows.copy()
+        for c, sp in self.specs.items():
+            mask = rows["channel"] == c
+            if mask.any():
+                rows[mask] = judge(rows[mask], sp)
+        return rows
+
+    def _fail(self, f) -> None:
+        unit = self.writer.units.get(f.channel)
+        if unit is None or self.writer.status.get(unit) != "alive":
+            return
+        self.writer.mark_failed(unit, self.writer.life_cycle(f.channel, f.cycle), f.mode, f.detail)
+        self.failures.append(f)
+
+    def maybe_flush(self, force: bool = False):
+        now = time.monotonic()
+        if force or now - self._last_flush >= self.flush_every_s:
+            self._last_flush = now
+            return self.writer.flush()
+        return None
+
+    # -- state --------------------------------------------------------------------------------------
+    def target_reached(self) -> bool:
+        target = self.writer.target_cycles
+        if not target:
+            return False
+        alive = [c for c, u in self.writer.units.items() if self.writer.status.get(u) == "alive"]
+        return bool(alive) and all(self.writer.cycles_done[c] >= target for c in alive)
+
+    def all_failed(self) -> bool:
+        return not self.writer.alive_units()
+
+    def progress(self, connected: bool = True) -> Progress:
+        w = self.writer
+        done = w.run_cycles_done()
+        rate = max(w._rate, 0.0)
+        eta = (w.target_cycles - done) / rate if w.target_cycles and rate > 0 else None
+        failed = sum(1 for st in w.status.values() if st == "failed")
+        return Progress(
+            w.run_id,
+            done,
+            w.target_cycles,
+            rate,
+            eta,
+            self.incidents,
+            len(w.units),
+            failed,
+            self.actuations,
+            connected,
+        )
+
+    # -- ending -------------------------------------------------------------------------------------
+    def finish(self, reason: str, detail: str = "") -> None:
+        """End of data: finish the analysis, judge the last cycles, write everything, end the run."""
+        rows = self.analyzer.flush()
+        self._take(rows, None, [])
+        for f in self.life.finish():
+            self._fail(f)
+        self.writer.close(reason, detail)
+
+    def run(
+        self,
+        feed,
+        stop: threading.Event | None = None,
+        on_progress: Callable[[Progress], None] | None = None,
+        progress_every_s: float = 1.0,
+        grace_s: float = 0.5,
+    ) -> str:
+        """Record from `feed` until the target, every unit failing, or `stop`; returns the end reason.
+
+        A StoreError (disk full, read-only database, lost lease) stops the recording: the run is left
+        as it was at its last commit (resumable) and the error is raised again."""
+        stop = stop or threading.Event()
+        last_progress = 0.0
+        ending_at: float | None = None
+        reason = END_STOPPED
+        try:
+            while True:
+                try:
+                    timed = feed.poll(0.05)
+                except PortError:
+                    timed = None
+                if timed is not None:
+                    self.push(timed)
+                self.maybe_flush()
+                now = time.monotonic()
+                if on_progress and now - last_progress >= progress_every_s:
+                    last_progress = now
+                    on_progress(self.progress(getattr(feed, "connected", True)))
+                if ending_at is None:
+                    if self.all_failed():
+                        reason, ending_at = END_ALL_FAILED, now
+                    elif self.target_reached():
+                        reason, ending_at = END_TARGET, now + grace_s  # let the last break arrive
+                    elif stop.is_set():
+                        reason, ending_at = END_STOPPED, now
+                if ending_at is not None and now >= ending_at:
+                    break
+        except KeyboardInterrupt:
+            reason = END_STOPPED
+        except StoreError:
+            self.writer.abandon()
+            raise
+        _halt(feed)
+        try:
+            self.finish(reason)
+        except StoreError:
+            self.writer.abandon()
+            raise
+        if on_progress:
+            on_progress(self.progress(getattr(feed, "connected", True)))
+        return reason
+
+
+def _halt(feed) -> None:
+    from benchlog.wire import Halt
+
+    try:
+        feed.send(Halt())
+    except (PortError, OSError, AttributeError):
+        pass
+
+
+__all__ = ["Recorder", "Progress", "END_STORE_ERROR"]

@@ -1,0 +1,281 @@
+"""`benchlog record`: cycle a bench's units and record every actuation into the store."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+NAME = "record"
+HELP = "Cycle the units on a sampler bench and record every make and break into the database."
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("port", nargs="?", help="the sampler's port: a device, pty path or any pyserial URL")
+    p.add_argument("--sim", metavar="PRESET", help="start the simulated sampler (a preset or TOML file)")
+    p.add_argument("--bench", help="bench name (registered on first use)")
+    p.add_argument("--profile", metavar="ON_MS:OFF_MS:CYCLES", help="cycle profile, e.g. 50:50:200000")
+    p.add_argument(
+        "--units",
+        nargs="+",
+        metavar="CH=UNIT",
+        help="units by channel: CH=SERIAL (with --part/--lot) or CH=PART/LOT/SERIAL",
+    )
+    p.add_argument("--part", help="part number for units given as CH=SERIAL")
+    p.add_argument("--supplier", default="", help="supplier of --part")
+    p.add_argument("--lot", help="lot code for units given as CH=SERIAL")
+    p.add_argument("--spec", help="part spec TOML (default: the shipped spec of the part number, if any)")
+    p.add_argument("--db", help="database URL or SQLite file (default: $BENCHLOG_DB or ./benchlog.sqlite)")
+    p.add_argument("--resume", type=int, metavar="RUN", help="continue an interrupted run on the same units")
+    p.add_argument(
+        "--fail-after",
+        type=int,
+        default=5,
+        metavar="N",
+        help="a unit fails after N consecutive cycles showing the same failure (default 5)",
+    )
+    p.add_argument(
+        "--window", type=int, default=100, metavar="CYCLES", help="cycles per trend window (default 100)"
+    )
+    p.add_argument("--note", default="", help="a note kept with the run")
+    p.add_argument("--quiet", action="store_true", help="no progress line")
+    g = p.add_argument_group("simulated sampler")
+    g.add_argument("--sim-speed", type=float, default=1.0, help="sampler time runs N times the wall clock")
+    g.add_argument("--sim-seed", type=int, default=0, help="random seed of the simulated units")
+    g.add_argument("--sim-pull-at", type=float, metavar="SECONDS", help="pull the cable at this sampler time")
+    g.add_argument("--sim-pull-for", type=float, metavar="SECONDS", help="wall seconds the cable stays out")
+
+
+def run(args: argparse.Namespace) -> int:
+    import signal
+    import threading
+
+    from benchlog.errors import ConfigError, StoreError
+    from benchlog.store import Store
+
+    if not args.port and not args.sim:
+        raise ConfigError("give the sampler's PORT, or --sim PRESET for the simulated sampler")
+    if args.port and args.sim:
+        raise ConfigError("give either PORT or --sim, not both")
+    if args.fail_after < 1:
+        raise ConfigError("--fail-after must be at least 1")
+    if args.window < 1:
+        raise ConfigError("--window must be at least 1 cycle")
+    if not args.sim_speed > 0:
+        raise ConfigError("--sim-speed must be > 0")
+
+    sim_cfg = _sim_config(args) if args.sim else None
+    store = Store.open(args.db)
+    stop = threading.Event()
+    session = _Session(args, store, sim_cfg)
+    old = {}
+
+    def _on_signal(signum, _frame):
+        if stop.is_set():  # a second Ctrl-C: stop now
+            raise KeyboardInterrupt
+        stop.set()
+
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        old[sig] = signal.signal(sig, _on_signal)
+    try:
+        return session.record(stop)
+    except StoreError as exc:
+        if session.writer is None:
+            raise
+        raise StoreError(
+            f"{exc}; recording stopped, run {session.writer.run_id} keeps what was committed "
+            f"(continue with: benchlog record --resume {session.writer.run_id})"
+        ) from exc
+    finally:
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+        session.close()
+        store.close()
+
+
+def _sim_config(args):
+    from pathlib import Path
+
+    from benchlog.sim import load_config, load_preset, preset_names
+
+    cfg = load_config(args.sim) if Path(args.sim).is_file() else None
+    if cfg is None:
+        if args.sim not in preset_names():
+            from benchlog.errors import ConfigError
+
+            raise ConfigError(f"no simulator preset {args.sim!r}: one of {', '.join(preset_names())}")
+        cfg = load_preset(args.sim)
+    faults = {}
+    if args.sim_pull_at is not None:
+        faults["pull_at_s"] = args.sim_pull_at
+    if args.sim_pull_for is not None:
+        faults["pull_for_s"] = args.sim_pull_for
+    return cfg.with_faults(**faults) if faults else cfg
+
+
+class _Session:
+    def __init__(self, args, store, sim_cfg) -> None:
+        self.args = args
+        self.store = store
+        self.sim_cfg = sim_cfg
+        self.sim = None
+        self.feed = None
+        self.writer = None
+
+    def close(self) -> None:
+        if self.writer is not None and not self.writer.closed:
+            self.writer.abandon()
+        if self.feed is not None:
+            self.feed.close()
+        if self.sim is not None:
+            self.sim.stop()
+
+    # -- what to record ------------------------------------------------------------------------------
+    def _units(self):
+        from benchlog.errors import ConfigError
+        from benchlog.recorder import UnitAssignment, parse_units
+
+        a = self.args
+        if a.units:
+            return parse_units(a.units, part=a.part, lot=a.lot, supplier=a.supplier)
+        if self.sim_cfg is not None:
+            cfg = self.sim_cfg
+            return [
+                UnitAssignment(
+                    u.channel,
+                    u.serial,
+                    a.part or u.population,
+                    a.lot or "sim",
+                    a.supplier or cfg.populations[u.population].supplier,
+                )
+                for u in cfg.units
+            ]
+        raise ConfigError("give the units: --units CH=SERIAL ... (with --part) or CH=PART/LOT/SERIAL")
+
+    def _prepare(self):
+        """(writer-to-be parameters) for a new run, or the reopened writer for --resume."""
+        from benchlog.errors import ConfigError
+        from benchlog.recorder import parse_profile, register_units
+        from benchlog.recorder._setup import spec_for
+
+        a = self.args
+        if a.resume is not None:
+            run = self.store.run(a.resume)
+            if a.profile:
+                raise ConfigError("--resume keeps the run's own profile: leave out --profile")
+            prof = run.profile
+            on_ms, off_ms = float(prof["on_ms"]), float(prof["off_ms"])
+            specs = {}
+            for ru in self.store.run_units(a.resume):
+                specs[ru.channel] = spec_for(ru.unit.part_number, a.spec)[0]
+            return None, None, specs, (on_ms, off_ms), run
+        if not a.bench:
+            raise ConfigError("give --bench NAME (or --resume RUN)")
+        if not a.profile:
+            raise ConfigError("give --profile ON_MS:OFF_MS:CYCLES, e.g. 50:50:200000")
+        profile = parse_profile(a.profile)
+        units = self._units()
+        bench_id = self.store.register_bench(a.bench)
+        token = self.store.acquire_bench(bench_id)  # refuse a second recorder before touching the port
+        try:
+            ids, specs = register_units(self.store, units, a.spec)
+        except BaseException:
+            self.store.release_bench(bench_id, token)
+            raise
+        return (bench_id, token, ids, profile), None, specs, (profile.on_ms, profile.off_ms), None
+
+    # -- recording -----------------------------------------------------------------------------------
+    def record(self, stop) -> int:
+        from benchlog.analysis import AnalysisSettings
+        from benchlog.ingest import Feed
+        from benchlog.recorder import Recorder
+
+        a = self.args
+        new, _, specs, (on_ms, off_ms), resumed = self._prepare()
+        if resumed is not None:
+            self.writer = self.store.resume_run(resumed.id)
+        speed = a.sim_speed if self.sim_cfg is not None else 1.0
+        try:
+            url = a.port
+            if self.sim_cfg is not None:
+                from benchlog.sim import PtySampler
+
+                self.sim = PtySampler(self.sim_cfg, seed=a.sim_seed, speed=speed, keep_truth=False)
+                self.sim.start()
+                url = self.sim.path
+            self.feed = Feed(url, speed=speed)
+            self.feed.open()
+            early = self._await_announcement()
+        except BaseException:
+            if new is not None:
+                self.store.release_bench(new[0], new[1])
+            raise
+        ann = self.feed.timeline.announcement
+        if new is not None:
+            bench_id, token, ids, profile = new
+            if ann is not None:
+                self.store.update_bench(
+                    bench_id,
+                    board_id=ann.board_id,
+                    clock_hz=ann.clock_hz,
+                    counter_bits=ann.counter_bits,
+                    channels=ann.channels,
+                )
+            self.writer = self.store.start_run(
+                bench_id,
+                ids,
+                profile=profile.as_dict,
+                target_cycles=profile.cycles,
+                rollup_window=a.window,
+                fail_after=a.fail_after,
+                lease_token=token,
+                note=a.note,
+                protocol_version=getattr(ann, "version", None),
+                board_id=getattr(ann, "board_id", None),
+                clock_hz=getattr(ann, "clock_hz", None),
+            )
+        first = next((sp for sp in specs.values() if sp is not None), None)
+        settings = first.settings() if first is not None else AnalysisSettings()
+        rec = Recorder(self.writer, settings=settings, specs=specs, fail_after=a.fail_after)
+        for timed in early:
+            rec.push(timed)
+        self.feed.start_cycling(rec.plans(int(on_ms * 1000), int(off_ms * 1000)))
+        tty = sys.stderr.isatty()
+        print(
+            f"benchlog: recording run {self.writer.run_id} on {len(self.writer.units)} channels"
+            f" (Ctrl-C stops)",
+            file=sys.stderr,
+        )
+
+        def show(p) -> None:
+            if a.quiet:
+                return
+            if tty:
+                print("\r" + p.line().ljust(100), end="", file=sys.stderr, flush=True)
+            else:
+                print(p.line(), file=sys.stderr, flush=True)
+
+        reason = rec.run(
+            self.feed,
+            stop,
+            on_progress=show,
+            progress_every_s=1.0 if tty else 5.0,
+            grace_s=max(0.3, 2 * (on_ms + off_ms) / 1000 / speed),
+        )
+        if tty and not a.quiet:
+            print(file=sys.stderr)
+        p = rec.progress()
+        print(
+            f"run {p.run_id} ended ({reason}): {p.cycles_done:,} cycles, {p.actuations:,} actuations, "
+            f"{p.failed}/{p.units} units failed, {p.incidents} incidents"
+        )
+        return 0
+
+    def _await_announcement(self, timeout_s: float = 5.0):
+        import time
+
+        got = []
+        t_end = time.monotonic() + timeout_s
+        while self.feed.timeline.announcement is None and time.monotonic() < t_end:
+            timed = self.feed.poll(0.1)
+            got.append(timed)
+        return got
