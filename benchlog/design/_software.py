@@ -249,7 +249,7 @@ def _choose(chans, deb, want, ts, fit_m: Tail, fit_b: Tail, judged_all, n_judged
             None,
             np.nan,
             np.nan,
-            np.nan,
+            zero_event_bound(n_judged),
             FIGURE_TEXT[fig],
             *tails,
             note=f"no clean setting up to {pts[-1].window_ms:.3g} ms",
@@ -265,15 +265,16 @@ def _choose(chans, deb, want, ts, fit_m: Tail, fit_b: Tail, judged_all, n_judged
             point = p
             break
     if point is None:
+        asked = f"{m * ts / 1e6:g} ms" if deb != "confirm" else f"{m * ts / 1e6:g} / {b * ts / 1e6:g} ms"
         return Choice(
             deb,
             None,
             np.nan,
             np.nan,
-            np.nan,
+            zero_event_bound(n_judged),
             FIGURE_TEXT[fig],
             *tails,
-            note="no clean setting near the tail-based requirement",
+            note=f"the tail asks for {asked}, where the replay is not clean (too slow for the cycle?)",
         )
     if extra:
         note = f"stepped up {extra} sample(s) to stay clean"

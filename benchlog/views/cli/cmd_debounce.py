@@ -147,7 +147,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 # -- reading -----------------------------------------------------------------------------------------------
 
 
-def _records_from_edges(edges, actuations, channels, quiet_ns, label=""):
+def _records_from_edges(edges, actuations, channels, quiet_ns, t_end_ns=None, label=""):
     import numpy as np
 
     from benchlog.design import channel_record
@@ -160,9 +160,7 @@ def _records_from_edges(edges, actuations, channels, quiet_ns, label=""):
         m = edges.channel == ch
         try:
             recs.append(
-                channel_record(
-                    edges.t_ns[m], edges.level[m], actuations, int(ch), quiet_ns, int(edges.t_ns.max())
-                )
+                channel_record(edges.t_ns[m], edges.level[m], actuations, int(ch), quiet_ns, t_end_ns)
             )
         except DataError:
             continue
@@ -230,7 +228,7 @@ def _read_capture(path: Path):
     d = TimedDrives(*(np.concatenate([getattr(x, f) for x in drives]) for f in ("t_ns", "channel", "level")))
     if len(e) == 0:
         raise ConfigError(f"capture file {path}: no edges decoded ({dec.counters.faults} decode faults)")
-    return e, d, incidents, measure(e, d, incidents)
+    return e, d, incidents, measure(e, d, incidents), max(tl.run_ns, int(e.t_ns.max()))
 
 
 def _read_store(args):
@@ -284,7 +282,6 @@ def _read_store(args):
                         rows,
                         ch,
                         int(args.quiet_ms * 1e6),
-                        int(edges.t_ns[m].max()),
                     )
                 )
             except DataError:
@@ -307,8 +304,8 @@ def load_records(args):
         )
     quiet = int(args.quiet_ms * 1e6)
     if args.capture is not None:
-        e, _d, _inc, acts = _read_capture(args.capture)
-        recs, names = _records_from_edges(e, acts, set(args.channel), quiet)
+        e, _d, _inc, acts, t_end = _read_capture(args.capture)
+        recs, names = _records_from_edges(e, acts, set(args.channel), quiet, t_end)
     elif args.edges is not None:
         recs, names = _records_from_edges(_read_edge_file(args.edges), None, set(args.channel), quiet)
     else:

@@ -1,0 +1,90 @@
+"""Scoring and recommending firmware debouncers: hand-counted scores, then simulated bouncing contacts
+whose bounce-time distribution is known."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from benchlog.analysis import BREAK, MAKE
+from benchlog.design import Windows, bounce_figures, channel_record, design_software, group_edges, score
+
+from ._bouncing import bouncing
+
+MS = 1_000_000
+
+
+def test_grouping_by_hand():
+    # make at 10 ms with two reopenings, a 0.1 ms disturbance at 30 ms (returns: not an actuation),
+    # break at 50 ms with one reclosing
+    t = np.array([10.0, 10.3, 10.5, 11.0, 11.2, 30.0, 30.1, 50.0, 50.4, 51.0]) * MS
+    lv = np.array([1, 0, 1, 0, 1, 0, 1, 0, 1, 0])
+    rows = group_edges(t.astype(np.int64), lv, 5 * MS)
+    assert rows["kind"].tolist() == [MAKE, BREAK]
+    assert rows["t_first_ns"].tolist() == [10 * MS, 50 * MS]
+    assert rows["t_settle_ns"].tolist() == [int(11.2 * MS), 51 * MS]
+    rec = channel_record(t.astype(np.int64), lv, None, 0, 5 * MS, 80 * MS)
+    figs = bounce_figures(rec)
+    assert figs.bounce_ns.tolist() == [1.2 * MS, 1.0 * MS]
+    # make: open 10.3-10.5 and 11.0-11.2 -> longest 0.2 ms, total 0.4 ms; break: closed 50.4-51.0
+    assert figs.longest_ns.tolist() == pytest.approx([0.2 * MS, 0.6 * MS])
+    assert figs.wrong_ns.tolist() == pytest.approx([0.4 * MS, 0.6 * MS])
+
+
+def test_score_by_hand():
+    win = Windows(
+        np.array([0, 100, 200]),
+        np.array([100, 200, 300]),
+        np.array([1, 0, 1], np.int8),
+        np.array([True, True, True]),
+    )
+    # row 0: clean (one change per window); row 1: window 0 bounces (1, 0, 1), window 1 missed,
+    # window 2 then needs no change and gets none
+    row = np.array([0, 0, 0, 1, 1, 1])
+    t = np.array([5, 105, 205, 5, 7, 9])
+    new = np.array([1, 0, 1, 1, 0, 1])
+    s = score(win, row, t, new, np.array([0, 0], np.int8))
+    assert s.false.tolist() == [[0, 0, 0], [2, 0, 0]]
+    assert s.missed.tolist() == [[False, False, False], [False, True, False]]
+    assert s.delay_ns[0].tolist() == [5, 5, 5]
+    assert s.delay_ns[1, 0] == 5 and np.isnan(s.delay_ns[1, 1])
+
+
+@pytest.fixture(scope="module")
+def design():
+    # makes: bounce ~ lognormal(median 1 ms, sigma 0.4); breaks: median 2 ms, sigma 0.3
+    e = bouncing(3000, 40 * MS, np.log(1e6), 0.4, np.log(2e6), 0.3, seed=3)
+    rec = channel_record(e.t_ns, e.level, None, 0, 5 * MS, int(e.t_ns[-1]) + 20 * MS)
+    return design_software([rec], 250_000, 1e-6, life_windows=3)
+
+
+def test_recommendations_are_clean_and_cover_the_known_tail(design):
+    # the break bounce time whose true exceedance probability is 1e-6 (scipy.stats.lognorm)
+    true_q_ms = float(stats.lognorm.isf(1e-6, 0.3, scale=2e6)) / 1e6
+    lock = design.choices["lockout"]
+    assert lock.point is not None and lock.point.clean
+    # the lockout must cover the break bounce at the target: within 20 % of the true quantile
+    assert lock.point.window_ms == pytest.approx(true_q_ms, rel=0.2)
+    assert lock.rate < 1e-5 and lock.rate_upper >= lock.rate
+    for deb, c in design.choices.items():
+        assert c.point is not None and c.point.false == 0 and c.point.missed == 0, deb
+        assert c.point.judged == 6000
+
+
+def test_sweep_false_transitions_fall_with_the_window(design):
+    for deb in ("lockout", "stable", "integrator"):
+        false = [p.false for p in design.sweeps[deb]]
+        assert false[0] > 1000  # one-sample windows follow the bounce
+        assert false[-1] == 0
+    # the smallest clean lockout is at least the longest recorded bounce minus one sample, at most it
+    bounce_max_ms = max(r.bounce_max_ms for r in design.life)
+    first_clean = next(p for p in design.sweeps["lockout"] if p.false == 0 and p.missed == 0)
+    assert first_clean.window_ms <= bounce_max_ms + 0.25
+
+
+def test_life_windows_cover_every_actuation(design):
+    assert sum(r.actuations for r in design.life) == 6000
+    assert len(design.life) == 3
+    for r in design.life:
+        assert r.choices["lockout"][0] > 0
