@@ -16,8 +16,16 @@ from benchlog.store import END_TARGET, Store
 ON_NS = OFF_NS = 50_000_000
 
 
-def fill(path, *, units_per_lot: int = 8, recorded: int = 400, test_end: int = 300_000, seed: int = 1,
-         lots=(("AG-MS5", "L1"), ("VS-505", "L1")), names=None) -> str:
+def fill(
+    path,
+    *,
+    units_per_lot: int = 8,
+    recorded: int = 400,
+    test_end: int = 300_000,
+    seed: int = 1,
+    lots=(("AG-MS5", "L1"), ("VS-505", "L1")),
+    names=None,
+) -> str:
     """Write one run with `units_per_lot` units of each lot (at most 16 channels in all)."""
     cfg = load_preset("demo")
     rng = np.random.default_rng(seed)
@@ -36,9 +44,11 @@ def fill(path, *, units_per_lot: int = 8, recorded: int = 400, test_end: int = 3
             channel_units[ch] = uid
             plan.append((ch, uid, draw_unit(rng, ch, serial, pop)))
             ch += 1
-    writer = store.start_run(bench, channel_units, profile={"on_ms": 50, "off_ms": 50}, target_cycles=test_end)
+    writer = store.start_run(
+        bench, channel_units, profile={"on_ms": 50, "off_ms": 50}, target_cycles=test_end
+    )
     step = test_end // recorded
-    for ch, uid, unit in plan:
+    for _ch, uid, unit in plan:
         last = min(unit.life, test_end)
         n = max(1, int(last // step))
         _, truth = cycles(rng, unit, 0, ON_NS, OFF_NS, n, 24, 2.0)
@@ -51,8 +61,11 @@ def fill(path, *, units_per_lot: int = 8, recorded: int = 400, test_end: int = 3
         writer.add(actuations=a)
         if unit.life <= test_end:
             writer.mark_failed(uid, int(unit.life), unit.mode)
-    writer.add(incidents=[Incident(DISCONNECT, 10**12, 10**12 + 4 * 10**9, 0, 4 * 10**9, 120, None,
-                                   "port vanished for 4 s")])
+    writer.add(
+        incidents=[
+            Incident(DISCONNECT, 10**12, 10**12 + 4 * 10**9, 0, 4 * 10**9, 120, None, "port vanished for 4 s")
+        ]
+    )
     writer.flush(final=True)
     writer.close(END_TARGET)
     store.close()

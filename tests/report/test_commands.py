@@ -1,0 +1,173 @@
+"""qualify / plan / report against a real SQLite store filled with the simulator's demo populations."""
+
+import base64
+import json
+import re
+
+import pytest
+from storefill import fill
+
+from benchlog.views.cli import main
+
+EVIL = '<script>alert("x")</script>'
+
+
+@pytest.fixture(scope="module")
+def db(tmp_path_factory):
+    path = tmp_path_factory.mktemp("store") / "lab.sqlite"
+    return fill(
+        path,
+        units_per_lot=8,
+        recorded=300,
+        seed=1,
+        lots=(("AG-MS5", "L1"), ("VS-505", 'L<2>&"b"')),
+        names={("VS-505", 0): EVIL},
+    )
+
+
+@pytest.fixture(scope="module")
+def small_db(tmp_path_factory):
+    path = tmp_path_factory.mktemp("small") / "small.sqlite"
+    return fill(path, units_per_lot=3, recorded=50, test_end=20_000, seed=2)
+
+
+def test_qualify_fails_the_demo_candidate_and_writes_json(db, tmp_path, capsys):
+    out = tmp_path / "q.json"
+    code = main(
+        [
+            "qualify",
+            "--db",
+            db,
+            "--incumbent",
+            "AG-MS5",
+            "--candidate",
+            "VS-505",
+            "--json",
+            str(out),
+            "--resamples",
+            "300",
+        ]
+    )
+    text = capsys.readouterr().out
+    assert code == 1 and "verdict: FAIL (exit 1)" in text
+    assert "operate time max (candidate)" in text and "B10 life (candidate)" in text
+    doc = json.loads(out.read_text())
+    assert doc["outcome"] == "fail" and doc["exit_code"] == 1
+    assert {c["outcome"] for c in doc["criteria"]} <= {"pass", "fail", "not yet decidable"}
+    assert doc["life"]["VS-505:" + 'L<2>&"b"']["units"] == 8
+
+
+def test_qualify_with_too_few_units_is_exit_2(small_db, capsys):
+    code = main(
+        [
+            "qualify",
+            "--db",
+            small_db,
+            "--incumbent",
+            "AG-MS5:L1",
+            "--candidate",
+            "VS-505:L1",
+            "--resamples",
+            "200",
+        ]
+    )
+    text = capsys.readouterr().out
+    assert code == 2 and "NOT YET DECIDABLE" in text
+    assert "a population claim needs 5" in text
+
+
+def test_lot_names(small_db, capsys):
+    # "L1" is a lot code of both parts: refused with the choices; an unknown name lists what exists
+    assert main(["qualify", "--db", small_db, "--incumbent", "L1", "--candidate", "VS-505"]) == 10
+    err = capsys.readouterr().err
+    assert "AG-MS5:L1" in err and "VS-505:L1" in err and len(err.strip().splitlines()) == 1
+    assert main(["qualify", "--db", small_db, "--incumbent", "nope", "--candidate", "VS-505"]) == 10
+    assert "no lot or part 'nope'" in capsys.readouterr().err
+
+
+def test_bad_spec_and_options_are_one_line_errors(small_db, tmp_path, capsys):
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[part\nnumber = 1\n")
+    assert (
+        main(
+            [
+                "qualify",
+                "--db",
+                small_db,
+                "--incumbent",
+                "AG-MS5",
+                "--candidate",
+                "VS-505",
+                "--spec",
+                str(bad),
+            ]
+        )
+        == 8
+    )
+    err = capsys.readouterr().err
+    assert "bad.toml" in err and "Traceback" not in err
+    with pytest.raises(SystemExit) as exc:
+        main(["qualify", "--db", small_db, "--incumbent", "a", "--candidate", "b", "--confidence", "2"])
+    assert exc.value.code == 2
+    assert (
+        main(
+            [
+                "qualify",
+                "--db",
+                str(tmp_path / "missing" / "x.sqlite"),
+                "--incumbent",
+                "a",
+                "--candidate",
+                "b",
+            ]
+        )
+        == 6
+    )
+
+
+def test_plan(small_db, capsys):
+    assert main(["plan", "--confidence", "0.95", "--reliability", "0.9"]) == 0
+    assert "success run: 29 units" in capsys.readouterr().out
+    assert main(["plan", "--spec", "VS-505", "--shape", "2", "--units", "16"]) == 0
+    assert "16 units: 116,872 cycles each" in capsys.readouterr().out
+    assert main(["plan", "--spec", "VS-505", "--shape", "2", "--lot", "VS-505:L1", "--db", small_db]) == 0
+    text = capsys.readouterr().out
+    assert "running test VS-505 (lot L1): 3 units" in text
+    assert re.search(r"[\d,]+ more cycles on each of the \d running units", text)
+
+
+def test_report_is_self_contained_and_escaped(db, tmp_path, capsys):
+    out = tmp_path / "r.html"
+    code = main(
+        [
+            "report",
+            "--db",
+            db,
+            "--incumbent",
+            "AG-MS5:L1",
+            "--candidate",
+            "VS-505",
+            "-o",
+            str(out),
+            "--resamples",
+            "300",
+        ]
+    )
+    assert code == 1
+    page = out.read_text()
+    assert EVIL not in page and "&lt;script&gt;" in page
+    assert 'L<2>&"b"' not in page and "L&lt;2&gt;&amp;&quot;b&quot;" in page
+    assert "http://" not in page and "https://" not in page  # nothing fetched from anywhere
+    images = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)
+    assert len(images) >= 6
+    assert all(base64.b64decode(i)[:8] == b"\x89PNG\r\n\x1a\n" for i in images)
+    for part in (
+        "Verdict",
+        "Life",
+        "Runs and incidents",
+        "port vanished for 4 s",
+        "Spec used",
+        "max_ms = 3.0",
+        "benchlog 0.",
+    ):
+        assert part in page
