@@ -1,1 +1,6 @@
-"""(to be filled by its issue)"""
+"""Exports from the store: actuations as CSV, raw edges as VCD (IEEE 1364 value change dump)."""
+
+from ._csv import write_actuations_csv
+from ._vcd import write_vcd
+
+__all__ = ["write_actuations_csv", "write_vcd"]

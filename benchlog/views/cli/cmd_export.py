@@ -1,0 +1,77 @@
+"""`benchlog export`: actuations as CSV, raw edges as VCD, from the database."""
+
+from __future__ import annotations
+
+import argparse
+
+NAME = "export"
+HELP = "Write recorded actuations as CSV or a run's raw edges as a VCD waveform file."
+
+
+def _span(text: str) -> tuple[float, float]:
+    lo, sep, hi = text.partition(":")
+    try:
+        if not sep:
+            raise ValueError
+        a, b = float(lo), float(hi)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"expected FIRST:LAST, got {text!r}") from exc
+    if b < a:
+        raise argparse.ArgumentTypeError(f"the span {text!r} ends before it starts")
+    return a, b
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("what", choices=("csv", "vcd"), help="csv: actuations; vcd: raw edges of one run")
+    p.add_argument("--db", help="database URL or SQLite file (default: $BENCHLOG_DB or ./benchlog.sqlite)")
+    p.add_argument("--run", type=int, action="append", help="run id (vcd: required; csv: repeatable)")
+    p.add_argument("--unit", type=int, action="append", metavar="ID", help="unit id (repeatable)")
+    p.add_argument("--part", action="append", help="part number (csv, repeatable)")
+    p.add_argument("--lot", type=int, action="append", metavar="ID", help="lot id (csv, repeatable)")
+    p.add_argument("--kind", choices=("make", "break"), help="only makes or only breaks (csv)")
+    p.add_argument("--cycles", type=_span, metavar="FIRST:LAST", help="life cycles, inclusive")
+    p.add_argument("--seconds", type=_span, metavar="FROM:TO", help="run time span in seconds (vcd)")
+    p.add_argument("-o", "--out", help="output file (default: standard output)")
+
+
+def run(args: argparse.Namespace) -> int:
+    import sys
+
+    from benchlog.errors import ConfigError
+    from benchlog.store import Store
+    from benchlog.views.export import write_actuations_csv, write_vcd
+
+    cycles = None if args.cycles is None else (int(args.cycles[0]), int(args.cycles[1]))
+    with Store.open(args.db, readonly=True) as store:
+        out = open(args.out, "w", encoding="utf-8", newline="") if args.out else sys.stdout
+        try:
+            if args.what == "csv":
+                if args.seconds is not None:
+                    raise ConfigError("--seconds applies to vcd; use --cycles for csv")
+                n = write_actuations_csv(
+                    store,
+                    out,
+                    units=args.unit,
+                    lots=args.lot,
+                    parts=args.part,
+                    runs=args.run,
+                    kind=args.kind,
+                    cycles=cycles,
+                )
+                what = "actuations"
+            else:
+                if not args.run or len(args.run) != 1:
+                    raise ConfigError("vcd needs exactly one --run")
+                if args.seconds is not None and cycles is not None:
+                    raise ConfigError("give --cycles or --seconds, not both")
+                t_ns = None
+                if args.seconds is not None:
+                    t_ns = (int(args.seconds[0] * 1e9), int(args.seconds[1] * 1e9))
+                n = write_vcd(store, out, args.run[0], units=args.unit, t_ns=t_ns, cycles=cycles)
+                what = "edges"
+        finally:
+            if args.out:
+                out.close()
+    if args.out:
+        print(f"wrote {n:,} {what} to {args.out}", file=sys.stderr)
+    return 0
