@@ -293,11 +293,10 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
         for k in ("min_cycles", "confidence"):
             if k not in life_tbl:
                 raise SpecError(f"{name}: life.{k}: expected a value, but it is missing")
-        life = LifeRequirement(
-            r.integer(life_tbl, "life", "min_cycles", 1), r.number(life_tbl, "life", "confidence", 0.0, 1.0)
-        )
-        if life.confidence >= 1.0:
-            raise r.fail("life.confidence", "a fraction > 0 and < 1 (0.90 for 90 %)", life_tbl["confidence"])
+        conf = life_tbl["confidence"]
+        if isinstance(conf, bool) or not isinstance(conf, int | float) or not 0 < conf < 1:
+            raise r.fail("life.confidence", "a fraction > 0 and < 1 (0.90 for 90 %)", conf)
+        life = LifeRequirement(r.integer(life_tbl, "life", "min_cycles", 1), float(conf))
 
     return PartSpec(
         number=number,
