@@ -108,7 +108,7 @@ def test_bad_spec_and_options_are_one_line_errors(small_db, tmp_path, capsys):
     assert "bad.toml" in err and "Traceback" not in err
     with pytest.raises(SystemExit) as exc:
         main(["qualify", "--db", small_db, "--incumbent", "a", "--candidate", "b", "--confidence", "2"])
-    assert exc.value.code == 2
+    assert exc.value.code == 64  # a usage error is never mistaken for "not enough data" (2)
     assert (
         main(
             [

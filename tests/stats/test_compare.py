@@ -35,7 +35,7 @@ def test_mann_whitney_on_the_scipy_documented_example():
 
 
 def test_anderson_darling_k_sample_on_scholz_stephens_example():
-    # Scholz and Stephens, JASA 82 (1987), example 1 (four laboratories, data from Lehmann 1975):
+    # Scholz and Stephens, JASA 82 (1987), example 1 (four laboratories, data from Lehmann, Nonparametrics):
     # midrank variant T = 4.480, p about 0.0020 (as also checked in scipy's test_morestats.py)
     t1 = [38.7, 41.5, 43.8, 44.5, 45.5, 46.0, 47.7, 58.0]
     t2 = [39.2, 39.3, 39.7, 41.4, 41.8, 42.9, 43.3, 45.8]

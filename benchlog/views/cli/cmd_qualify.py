@@ -9,7 +9,8 @@ HELP = "Judge a candidate lot against a part spec and the incumbent lot: pass, f
 
 EPILOG = """\
 LOT is PART:LOT (e.g. VS-505:L1), a lot code held by one part, or a part number (all its lots pooled).
-Exit status: 0 pass, 1 fail, 2 not yet decidable (not enough data); other codes are errors.
+Exit status: 0 pass, 1 fail, 2 not yet decidable (not enough data); 64 a usage error; other codes are
+errors (6 store, 8 spec, 10 data: e.g. an unknown lot).
 """
 
 
@@ -34,8 +35,21 @@ def _positive(text: str) -> float:
     return value
 
 
+def usage_errors_exit_64(p: argparse.ArgumentParser) -> None:
+    """A usage error exits 64 (EX_USAGE of sysexits.h), so that exit 2 only ever means "not enough
+    data" to a script gating on the verdict."""
+    import sys
+
+    def error(message: str) -> None:
+        p.print_usage(sys.stderr)
+        p.exit(64, f"benchlog: error: {message}\n")
+
+    p.error = error  # type: ignore[method-assign]
+
+
 def add_common(p: argparse.ArgumentParser) -> None:
     """Options `qualify` and `report` share."""
+    usage_errors_exit_64(p)
     p.add_argument("--incumbent", required=True, metavar="LOT", help="the lot in use today")
     p.add_argument("--candidate", required=True, metavar="LOT", help="the lot that would replace it")
     p.add_argument(
