@@ -47,6 +47,7 @@ class _Channel:
     dl: np.ndarray = field(default_factory=lambda: _U8)
     last_drive_level: int | None = None
     driven: bool = False  # a drive record was ever seen: drive-anchored from the first drive on
+    anchored: bool = False  # the free-running stretch before the first drive is done
     cycle_base: int = 0
     done_until: int = -_FAR  # every actuation starting before this has been emitted
     late_edges: int = 0
@@ -61,6 +62,7 @@ class AnalyzerCounters:
     repeated_levels: int = 0  # edges that did not change the level (lost edges upstream)
     late_edges: int = 0  # arrived after their stretch was already measured; not used
     stray_pulses: int = 0  # free-running disturbances before any actuation of their channel
+    closed_early: int = 0  # unfinished actuations closed because they held too many edges
 
 
 class Analyzer:
@@ -192,7 +194,14 @@ class Analyzer:
     def _emit(self, horizon: int, final: bool) -> np.ndarray:
         parts = []
         for c in sorted(self._channels):
-            rows = self._process(self._channels[c], horizon, final)
+            ch = self._channels[c]
+            rows = self._process(ch, horizon, final)
+            if not final and len(ch.t) > self.settings.max_pending_edges:
+                # Bounded memory: close the unfinished actuation at its last edge, as not measured.
+                early = self._process(ch, int(ch.t[-1]) + 1, True)
+                early["flags"][-1:] |= INCOMPLETE
+                self.counters.closed_early += 1
+                rows = np.concatenate((rows, early))
             if len(rows):
                 parts.append(rows)
         rows = np.concatenate(parts) if parts else empty_actuations()
@@ -224,7 +233,7 @@ class Analyzer:
         else:
             eff = horizon
         out = []
-        if len(ch.dt) and ch.done_until < int(ch.dt[0]):
+        if len(ch.dt) and not ch.anchored:
             # Free-running stretch before the first drive of a channel that became driven.
             cap = int(ch.dt[0])
             rows = self._free(ch, ft, flv, kept, glitch_t, glitch_n, eff, horizon, final, cap=cap)
@@ -235,6 +244,7 @@ class Analyzer:
             _, group_start, _, _ = filter_glitches(ch.t, floor)
             self._cut(ch, cap, group_start)
             ch.done_until = cap
+            ch.anchored = True
             kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
             ft, flv = ch.t[kept], ch.lv[kept]
         if len(ch.dt):
@@ -349,6 +359,8 @@ class Analyzer:
             self._mark_cut_short(rows[-1:])
         if n_emit < len(real):
             self._drop_raw(ch, int(kept[starts[real[n_emit]]]))
+        elif cap is None:  # the end of data: nothing left pending
+            self._drop_raw(ch, len(ch.t))
         ch.done_until = int(w_end[n_emit - 1])
         return rows
 

@@ -34,6 +34,9 @@ class AnalysisSettings:
       or "free" (drive records ignored).
     - `lateness_ns`: how far behind the newest record an older record may still arrive (the sampler
       sends edges in batches); actuations are final once their data is older than this.
+    - `max_pending_edges`: a channel whose unfinished actuation holds more edges than this (a contact
+      chattering for hours with no drive) has it closed early and marked INCOMPLETE, so memory stays
+      bounded.
     """
 
     settle_ns: int = 10_000_000
@@ -45,6 +48,7 @@ class AnalysisSettings:
     form_c: tuple[tuple[int, int], ...] = ()
     mode: str = "auto"
     lateness_ns: int = 200_000_000
+    max_pending_edges: int = 1_000_000
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "normally_closed", frozenset(int(c) for c in self.normally_closed))
@@ -52,6 +56,10 @@ class AnalysisSettings:
         for name in ("settle_ns", "chatter_threshold_ns", "resolution_ns"):
             if int(getattr(self, name)) <= 0:
                 raise ConfigError(f"analysis setting {name} must be > 0, got {getattr(self, name)}")
+        if int(self.max_pending_edges) < 1:
+            raise ConfigError(
+                f"analysis setting max_pending_edges must be >= 1, got {self.max_pending_edges}"
+            )
         for name in ("glitch_floor_ns", "lateness_ns"):
             if int(getattr(self, name)) < 0:
                 raise ConfigError(f"analysis setting {name} must be >= 0, got {getattr(self, name)}")

@@ -258,3 +258,31 @@ def test_repeated_level_edges_are_dropped_and_counted():
 def test_impossible_settings_are_config_errors(bad):
     with pytest.raises(ConfigError):
         AnalysisSettings(**bad)
+
+
+def test_endless_chatter_is_closed_early_to_bound_memory():
+    s = SETTINGS.with_(max_pending_edges=50, lateness_ns=0)
+    an = Analyzer(s)
+    rows = [an.push(E((1 * MS, 0, 1)))]  # free-running make, then hours of 30 us openings every 10 ms
+    for k in range(20):
+        t0 = 10 * MS + k * 300 * MS
+        t = t0 + np.arange(30) * 10 * MS
+        ts = np.ravel(np.column_stack((t, t + 30 * US)))
+        lv = np.tile(np.array([0, 1], np.uint8), 30)
+        rows.append(an.push(TimedEdges(ts, np.zeros(60, np.uint8), lv)))
+        assert len(an._channels[0].t) <= 50 + 60
+    rows = np.concatenate(rows + [an.flush()])
+    assert an.counters.closed_early > 0 and rows[0]["flags"] & INCOMPLETE
+    driven = Analyzer(s)  # a driven channel closed early keeps measuring from its next drive
+    edges, drives = one_cycle()
+    out = driven.push(E(*[(200 * MS + i * 100 * US, 0, (i + 1) % 2) for i in range(60)]), D((150 * MS, 0, 0)))
+    later = TimedEdges(edges.t_ns + 300 * MS, edges.channel, edges.level)
+    out = np.concatenate(
+        (
+            out,
+            driven.push(later, TimedDrives(drives.t_ns + 300 * MS, drives.channel, drives.level)),
+            driven.flush(),
+        )
+    )
+    measured = out[out["t_start_ns"] == 300 * MS][0]
+    assert measured["bounce_us"] == 600.0 and measured["flags"] == 0
