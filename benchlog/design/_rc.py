@@ -14,7 +14,7 @@ Contact open: the node charges toward Vdd with tau = Rp C. Contact closed: it di
 divider level Vdd Rs / (Rp + Rs) with tau = (Rp || Rs) C (Rs = 0: at once). Between two edges the node
 is exactly `v_inf + (v0 - v_inf) exp(-dt / tau)`, a map `v -> a v + b`; the voltage at every edge is the
 composition of those affine maps, computed for all edges at once with a parallel prefix scan (log2 of the
-edge count numpy passes), without time steps and without a loop over edges. Rows are independent
+edge count steps, O(n) work), without time steps and without a loop over edges. Rows are independent
 networks (tolerance corners, candidate values) driven by the same edges.
 
 The Schmitt input goes low when the node falls below VT- and high when it rises above VT+. Within one
@@ -65,8 +65,7 @@ class Networks:
         )
 
 
-def affine_scan(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Inclusive prefix composition along the last axis of maps `v -> a v + b` (Hillis-Steele)."""
+def _hillis_steele(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     a, b = a.copy(), b.copy()
     shift = 1
     n = a.shape[-1]
@@ -76,6 +75,38 @@ def affine_scan(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         a[..., shift:], b[..., shift:] = na, nb
         shift *= 2
     return a, b
+
+
+def affine_scan(a: np.ndarray, b: np.ndarray, block: int = 64) -> tuple[np.ndarray, np.ndarray]:
+    """Inclusive prefix composition along the last axis of maps `v -> a v + b`.
+
+    Two levels, O(n) work: every block of `block` maps is composed sequentially (one numpy step per
+    position, across all blocks and rows at once), the block totals are scanned (Hillis-Steele), and
+    each block's prefix is applied to its local results.
+    """
+    n = a.shape[-1]
+    if n <= 4 * block:
+        return _hillis_steele(a, b)
+    lead = a.shape[:-1]
+    pad = (-n) % block
+    if pad:
+        a = np.concatenate((a, np.ones(lead + (pad,))), axis=-1)
+        b = np.concatenate((b, np.zeros(lead + (pad,))), axis=-1)
+    nblk = a.shape[-1] // block
+    # (block position, rows..., block index): each position is one contiguous slab
+    la = np.ascontiguousarray(np.moveaxis(a.reshape(lead + (nblk, block)), -1, 0))
+    lb = np.ascontiguousarray(np.moveaxis(b.reshape(lead + (nblk, block)), -1, 0))
+    for j in range(1, block):
+        lb[j] += la[j] * lb[j - 1]
+        la[j] *= la[j - 1]
+    ta, tb = _hillis_steele(la[-1], lb[-1])
+    pa = np.concatenate((np.ones(lead + (1,)), ta[..., :-1]), axis=-1)
+    pb = np.concatenate((np.zeros(lead + (1,)), tb[..., :-1]), axis=-1)
+    lb += la * pb
+    la *= pa
+    out_a = np.moveaxis(la, 0, -1).reshape(lead + (nblk * block,))[..., :n]
+    out_b = np.moveaxis(lb, 0, -1).reshape(lead + (nblk * block,))[..., :n]
+    return out_a, out_b
 
 
 def node_at_edges(net: Networks, t_ns: np.ndarray, level: np.ndarray, initial: int) -> np.ndarray:

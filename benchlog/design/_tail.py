@@ -5,10 +5,10 @@ fails when a per-actuation bounce figure (bounce time, longest excursion, time i
 what its parameter covers, so its false-transition rate per actuation is the tail probability of that
 figure. The tail is fitted:
 
-- with at least 500 actuations (50 exceedances): a generalized Pareto distribution on the exceedances over the 90th
-  percentile (peaks over threshold; Pickands 1975, Balkema and de Haan 1974), fitted by probability
-  weighted moments (Hosking and Wallis, Technometrics 29(3), 1987), closed form and fast enough to
-  bootstrap;
+- with at least 500 actuations (50 exceedances): a generalized Pareto distribution on the exceedances
+  over the 90th percentile (peaks over threshold; Pickands 1975, Balkema and de Haan 1974), fitted by
+  probability weighted moments (Hosking and Wallis, Technometrics 29(3), 1987), closed form and fast
+  enough to bootstrap;
 - with 20 to 499: a lognormal on the non-zero values (times the fraction non-zero);
 - with fewer: no model, only the distribution-free bound below.
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 
 from benchlog.design import Networks, affine_scan, node_at_edges, node_curve, schmitt
 
@@ -60,15 +61,17 @@ def test_closed_level_is_the_divider():
     assert abs(v[0, 1] - 5.0 * 4.7e3 / 51.7e3) < 1e-9
 
 
-def test_affine_scan_matches_a_loop():
+@pytest.mark.parametrize("n", [1, 257, 1000, 4099])  # one-level and blocked scans
+def test_affine_scan_matches_a_loop(n):
     rng = np.random.default_rng(2)
-    a, b = rng.uniform(0, 1, (3, 257)), rng.uniform(-1, 1, (3, 257))
+    a, b = rng.uniform(0, 1, (2, n)), rng.uniform(-1, 1, (2, n))
     big_a, big_b = affine_scan(a, b)
-    for row in range(3):
-        v = 0.7
-        for k in range(257):
+    for row in range(2):
+        v, seq = 0.7, []
+        for k in range(n):
             v = a[row, k] * v + b[row, k]
-            assert abs(big_a[row, k] * 0.7 + big_b[row, k] - v) < 1e-12
+            seq.append(v)
+        assert np.allclose(big_a[row] * 0.7 + big_b[row], seq, atol=1e-12, rtol=0)
 
 
 def test_piecewise_voltage_matches_step_by_step_formula():
