@@ -256,7 +256,7 @@ static uint8_t parse_u32(const char *s, uint32_t *out)
 static void refuse(const char *why, const char *what)
 {
     char text[NOTE_MAX + 1];
-    char *p = bl_put_fstr(text, why, 32);
+    char *p = bl_put_fstr(text, why, 44);
     *p++ = ':';
     *p++ = ' ';
     p = bl_put_str(p, what, (uint8_t)(NOTE_MAX - 2u - (p - text)));
@@ -275,10 +275,12 @@ static uint8_t any_plan(void)
 static void halt(void)
 {
     bl_irqstate_t s = bl_port_irq_save();
+    for (uint8_t ch = 0; ch < board.channels; ch++)
+        if (plans[ch].state == PLAN_ON)
+            bl_port_set_actuator(ch, 0);
     uint32_t t = bl_port_now();
     for (uint8_t ch = 0; ch < board.channels; ch++) {
         if (plans[ch].state == PLAN_ON) {
-            bl_port_set_actuator(ch, 0);
             if (q_free() > 1u) /* always true: the ISR and the driver leave room for this */
                 q_push_marker(t, (bl_mask_t)ch);
         }
@@ -394,13 +396,17 @@ static void start_cycling(void)
         k += plans[ch].state == PLAN_READY;
     if (q_free() <= BL_MAX_CHANNELS + k)
         return; /* try again next pass */
+    /* switch every output first, then read the tick: the record then lags the pins by a few
+     * cycles rather than leading them by the loop */
     bl_irqstate_t s = bl_port_irq_save();
+    for (uint8_t ch = 0; ch < board.channels; ch++)
+        if (plans[ch].state == PLAN_READY)
+            bl_port_set_actuator(ch, 1);
     uint32_t t = bl_port_now();
     for (uint8_t ch = 0; ch < board.channels; ch++) {
         plan_t *p = &plans[ch];
         if (p->state != PLAN_READY)
             continue;
-        bl_port_set_actuator(ch, 1);
         q_push_marker(t, (bl_mask_t)(ch | MARK_LEVEL));
         p->state = PLAN_ON;
         p->done = 0;
@@ -432,8 +438,8 @@ static void serve_plans(void)
             continue;
         }
         bl_irqstate_t s = bl_port_irq_save();
-        uint32_t t = bl_port_now();
         bl_port_set_actuator(ch, on);
+        uint32_t t = bl_port_now();
         q_push_marker(t, (bl_mask_t)(ch | (on ? MARK_LEVEL : 0u)));
         bl_port_irq_restore(s);
         p->state = on ? PLAN_ON : PLAN_OFF;

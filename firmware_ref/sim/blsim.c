@@ -12,8 +12,8 @@
  *
  * A pin changes at the first instruction boundary at or after its cycle (at most 4 cycles, 250 ns,
  * late at 16 MHz). With --pty the harness prints "pty PATH" on stdout, waits for a line on stdin
- * (so the reader can open the port first), runs, prints "done CYCLES", and keeps the terminal open
- * until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver.
+ * (so the reader can open the port first), runs no faster than real time (so the host's commands
+ * arrive when a bench's would), prints "done CYCLES", and keeps the terminal open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver.
  * Wiring (as on the board, see ../README.md): channels 0-5 on PD2-PD7, 6-7 on PB0-PB1; actuators
  * 0-5 on PC0-PC5, 6-7 on PB2-PB3; strap PB4.
  */
@@ -27,6 +27,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <termios.h>
+#include <time.h>
 #include <unistd.h>
 
 #include <avr_ioport.h>
@@ -305,6 +306,8 @@ int main(int argc, char **argv)
         fcntl(master, F_SETFL, fcntl(master, F_GETFL) | O_NONBLOCK);
     }
 
+    struct timespec started;
+    clock_gettime(CLOCK_MONOTONIC, &started);
     size_t i = 0;
     uint64_t stop = n ? ev[n - 1].cycle + FREQ / 50u : FREQ / 10u;
     uint64_t next_poll = 0;
@@ -328,6 +331,13 @@ int main(int argc, char **argv)
             }
         }
         if (use_pty && avr->cycle >= next_poll) {
+            /* with --pty, emulated time never runs ahead of the wall clock: a host answers in time */
+            struct timespec now;
+            clock_gettime(CLOCK_MONOTONIC, &now);
+            int64_t wall_ns = (int64_t)(now.tv_sec - started.tv_sec) * 1000000000 + (now.tv_nsec - started.tv_nsec);
+            int64_t emu_ns = (int64_t)(avr->cycle * 1000000000ull / FREQ);
+            if (emu_ns > wall_ns + 1000000)
+                usleep((useconds_t)((emu_ns - wall_ns) / 1000));
             uint8_t buf[256];
             ssize_t r = read(master, buf, sizeof buf);
             if (r > 0)

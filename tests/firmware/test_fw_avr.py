@@ -1,0 +1,201 @@
+"""The AVR build: it fits the part, and run in the emulator it times a scripted bounce correctly.
+
+The emulator test is the closest the suite comes to a bench: the real firmware image, its UART on a
+real pseudo-terminal read with pyserial, and benchlog's decoder.
+"""
+
+from __future__ import annotations
+
+import re
+import subprocess
+from pathlib import Path
+
+import pytest
+import serial
+from _fw_helpers import decode_all, edge_rows, others
+
+from benchlog.wire import Announce, Beat, Drive, Fault, Notice, Pong, SequenceGap
+
+FLASH = 32 * 1024  # ATmega328P: 32 KiB flash, 2 KiB SRAM (the part's datasheet, from memory)
+SRAM = 2 * 1024
+BOOTLOADER = 2 * 1024  # the largest boot section the part can reserve; leave it free
+STACK = 384  # stack headroom we keep free of static data (deepest call chain measured ~250 bytes)
+
+TICK_NS = 500  # Timer1 at 16 MHz / 8 (firmware_ref/README.md)
+# Documented accuracy (firmware_ref/README.md, "Timing") of an edge not crowded by another within
+# 12 us: one tick of quantisation plus the longest stretch with interrupts off (a UART interrupt or
+# the cycle driver's switching section, about 50 cycles).
+ISOLATED_TOLERANCE_NS = 4_000
+# A drive record's tick against its pin switching (README, "Timing"): the main loop reads the
+# counter right after the pin, but the first-edge alignment carries that edge's own latency.
+DRIVE_TOLERANCE_NS = 12_000
+
+
+def test_avr_build_fits_flash_and_ram(avr_elf: Path) -> None:
+    report = subprocess.run(["avr-size", "-A", str(avr_elf)], capture_output=True, text=True, check=True)
+    sizes = {m[1]: int(m[2]) for m in re.finditer(r"^(\.\w+)\s+(\d+)", report.stdout, re.M)}
+    flash = sizes[".text"] + sizes.get(".data", 0)
+    ram = sizes.get(".data", 0) + sizes.get(".bss", 0)
+    print(f"\nAVR build: flash {flash} of {FLASH} bytes, static RAM {ram} of {SRAM} bytes")
+    assert flash <= FLASH - BOOTLOADER
+    assert ram <= SRAM - STACK
+
+
+# A make with bounce and a break with bounce on channel 0 (PORTD) and channel 6 (PORTB), six
+# actuations each; gaps from 20 us to 900 us. Times in emulated ns since reset.
+def bounce_pattern() -> tuple[list[tuple[int, int, int]], list[list[tuple[int, int]]]]:
+    rows, bursts = [], []
+    gaps_make = [40_000, 25_000, 180_000, 60_000, 900_000]
+    gaps_break = [20_000, 300_000, 75_000]
+    t = 20_000_000
+    for n in range(6):
+        for ch in (0, 6):
+            for level, gaps in ((1, gaps_make), (0, gaps_break)):
+                burst, u, lv = [], t, level
+                for g in [0, *gaps[: 3 + n % 3 if level else 1 + n % 3]]:
+                    u += g
+                    burst.append((u, lv))
+                    rows.append((u, ch, lv))
+                    lv ^= 1
+                if lv == level:  # end on the new level
+                    u += 50_000
+                    burst.append((u, level))
+                    rows.append((u, ch, level))
+                bursts.append([(ch, level), *burst])
+                t = u + 4_000_000
+    rows.sort()
+    rows = [(t + 20_000_000, ch, lv) for t, ch, lv in rows]  # leave the host 40 ms to send its commands
+    bursts = [[b[0], *((t + 20_000_000, lv) for t, lv in b[1:])] for b in bursts]
+    return rows, bursts
+
+
+def run_on_pty(blsim: Path, avr_elf: Path, script: str, tmp_path: Path, *flags: str) -> tuple[bytes, str]:
+    """Start the harness with its UART on a pty, read it with pyserial, send `PING 9` through it."""
+    path = tmp_path / "bounce.txt"
+    path.write_text(script)
+    log = tmp_path / "actuators.log"
+    proc = subprocess.Popen(
+        [
+            str(blsim),
+            "--elf",
+            str(avr_elf),
+            "--script",
+            str(path),
+            "--pty",
+            "--actuator-log",
+            str(log),
+            *flags,
+        ],
+        stdin=subprocess.PIPE,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    try:
+        first = proc.stdout.readline().split()
+        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
+            first = proc.stdout.readline().split()
+        assert first[:1] == ["pty"], first
+        port = serial.serial_for_url(first[1], baudrate=500_000, timeout=0.2)
+        proc.stdin.write("go\n")
+        proc.stdin.flush()
+        data = bytearray(port.read_until(b"\n" if not flags else b"\x00"))  # the announcement
+        port.write(b"PING 9\nPLAN 2 3000 2000 4\nGO\n")
+        done = proc.stdout.readline()
+        assert done.startswith("done"), done + proc.stderr.read()
+        while chunk := port.read(4096):
+            data += chunk
+        port.close()
+    finally:
+        proc.stdin.close()
+        proc.wait(timeout=30)
+        proc.stdout.close()
+        proc.stderr.close()
+    return bytes(data), log.read_text()
+
+
+@pytest.mark.parametrize("strap", ["line", "packed"])
+def test_emulated_board_times_a_scripted_bounce(
+    blsim: Path, avr_elf: Path, tmp_path: Path, strap: str
+) -> None:
+    rows, bursts = bounce_pattern()
+    end = max(rows[-1][0] + 30_000_000, 560_000_000)  # past the beat due 0.5 s after boot
+    script = "".join(f"{t} edge {ch} {lv}\n" for t, ch, lv in rows) + f"{end} end\n"
+    flags = ("--packed-strap",) if strap == "packed" else ()
+    data, actuator_log = run_on_pty(blsim, avr_elf, script, tmp_path, *flags)
+    assert (b"\x00" in data) == (strap == "packed")
+    records = decode_all(data)
+    assert not [r for r in records if isinstance(r, Fault | SequenceGap)]
+    assert records[0] == Announce(1, 2_000_000, 32, 8, "blref-avr8")
+    assert Pong(9) in records  # the host-to-board path through the pty works too
+    got = edge_rows(records)
+    assert [(ch, lv) for ch, lv, _ in got] == [(ch, lv) for _, ch, lv in rows]  # every edge, none extra
+
+    # the counter starts some microseconds after reset: align on the first edge
+    offset = got[0][2] * TICK_NS - rows[0][0]
+    errors = [tick * TICK_NS - offset - t for (_, _, tick), (t, _, _) in zip(got, rows, strict=True)]
+    print(f"\n{strap} form: timestamp error {min(errors)} to {max(errors)} ns")
+    assert max(map(abs, errors)) <= ISOLATED_TOLERANCE_NS
+
+    # bounce time of each actuation (first to last edge of its burst) against the script
+    by_channel: dict[int, list[int]] = {0: [], 6: []}
+    for ch, _, tick in got:
+        by_channel[ch].append(tick)
+    for ch in by_channel:
+        ticks = iter(by_channel[ch])
+        for burst in (b for b in bursts if b[0][0] == ch):
+            measured = [next(ticks) for _ in burst[1:]]
+            script_ns = burst[-1][0] - burst[1][0]
+            assert abs((measured[-1] - measured[0]) * TICK_NS - script_ns) <= ISOLATED_TOLERANCE_NS
+
+    beats = [r for r in records if isinstance(r, Beat)]
+    assert beats[-1].captured == len(rows) and beats[-1].dropped == 0
+    assert [r for r in records if isinstance(r, Notice)] == [Notice("channel 2 finished its plan: 4 cycles")]
+
+    # the cycle driver on the emulated board: PLAN 2 3000 2000 4 -> four 3 ms pulses, 5 ms apart
+    drives = [r for r in records if isinstance(r, Drive)]
+    assert [(d.channel, d.level) for d in drives] == [(2, 1), (2, 0)] * 4
+    switched = [tuple(int(x) for x in line.split()) for line in actuator_log.splitlines()]
+    assert [(ch, lv) for _, ch, lv in switched] == [(2, 1), (2, 0)] * 4
+    for d, (ns, _, _) in zip(drives, switched, strict=True):
+        assert abs(d.tick * TICK_NS - offset - ns) <= DRIVE_TOLERANCE_NS  # record = pin, in time
+    widths = [(b.tick - a.tick) * TICK_NS for a, b in zip(drives[::2], drives[1::2], strict=True)]
+    pins = [b[0] - a[0] for a, b in zip(switched[::2], switched[1::2], strict=True)]
+    # the records tell the pulse the pin really gave; the main loop switches it within 100 us
+    assert all(abs(w - p) <= DRIVE_TOLERANCE_NS for w, p in zip(widths, pins, strict=True))
+    assert all(abs(p - 3_000_000) <= 100_000 for p in pins)
+
+
+def test_shortest_resolvable_pulse(blsim: Path, avr_elf: Path, tmp_path: Path) -> None:
+    """Isolated pulses on an idle board, the README's figures: under about 1 us the pin is back
+    before the interrupt samples it (the pulse is counted as missed); up to one capture interrupt
+    (about 11.5 us) the second edge waits for the first's interrupt, so the width reads as at most
+    12 us; from there on widths are exact within the isolated-edge tolerance."""
+    widths = [250, 500, 3_000, 6_000, 15_000, 40_000]
+    lines, t = [], 10_000_000
+    for w in widths:
+        lines += [f"{t} edge 3 1", f"{t + w} edge 3 0"]
+        t += 2_000_000
+    script = "\n".join(lines) + f"\n{t + 600_000_000} end\n"
+    path = tmp_path / "pulses.txt"
+    path.write_text(script)
+    out = tmp_path / "out.bin"
+    subprocess.run(
+        [str(blsim), "--elf", str(avr_elf), "--script", str(path), "--out", str(out)],
+        check=True,
+        capture_output=True,
+        timeout=60,
+    )
+    records = decode_all(out.read_bytes())
+    got = edge_rows(records)
+    measured = [(b[2] - a[2]) * TICK_NS for a, b in zip(got[::2], got[1::2], strict=True)]
+    print(f"\npulses of {widths} ns read as {measured} ns")
+    # a missed pulse costs one or two interrupts that find no change; each is counted
+    notes = [r.text for r in others(records) if isinstance(r, Notice)]
+    suffix = "pin changes too short to time since reset"
+    counted = [int(t.split()[0]) for t in notes if t.endswith(suffix)]
+    assert 4 <= len(measured) <= 5 and counted and counted[0] >= len(widths) - len(measured)
+    for m, w in zip(measured[-4:-2], widths[2:4], strict=True):
+        assert w <= m <= 12_000
+    for m, w in zip(measured[-2:], widths[4:], strict=True):
+        assert abs(m - w) <= ISOLATED_TOLERANCE_NS
