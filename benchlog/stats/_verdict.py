@@ -243,7 +243,9 @@ def _fmt_cycles(value: float) -> str:
 
 def _stat_name(limit: Limit) -> str:
     m = METRICS[limit.metric]
-    return m.label if m.kind == "rate" else f"{m.label} p{limit.percentile:g}"
+    if m.kind == "rate":
+        return m.label
+    return f"{m.label} max" if limit.percentile >= 100 else f"{m.label} p{limit.percentile:g}"
 
 
 def _pooled(sample: UnitSample, limit: Limit, conf: float, n_resamples: int, seed: int) -> Interval:
@@ -352,7 +354,7 @@ def _every_actuation(sample: UnitSample, limit: Limit, conf: float) -> Criterion
     over = np.bincount(sample.unit, sample.values > limit.value, sample.n_units) > 0
     n, k = sample.n_units, int(over.sum())
     worst = float(sample.values.max())
-    name = f"{METRICS[limit.metric].label} max (candidate)"
+    name = f"{_stat_name(limit)} (candidate)"
     required = f"<= {_fmt(limit.metric, limit.value)} on every actuation"
     if k:
         return Criterion(

@@ -171,3 +171,35 @@ def test_report_is_self_contained_and_escaped(db, tmp_path, capsys):
         "benchlog 0.",
     ):
         assert part in page
+
+
+def test_operations_counted_per_cycle_or_per_actuation(small_db, tmp_path):
+    from benchlog.views.report import evaluate
+
+    per_cycle = evaluate(small_db, "AG-MS5:L1", "VS-505:L1", resamples=100, per="cycle")
+    per_act = evaluate(small_db, "AG-MS5:L1", "VS-505:L1", resamples=100, per="actuation")
+    a = per_cycle.qualification.life["VS-505:L1"]["rate_per_10k"]
+    b = per_act.qualification.life["VS-505:L1"]["rate_per_10k"]
+    assert b["operations"] == 2 * a["operations"]  # each make and each break is one operation
+    assert (a["operation"], b["operation"]) == ("coil cycle", "make or break")
+    assert b["rate"] == pytest.approx(a["rate"] / 2)
+
+
+def test_report_into_a_missing_folder_is_one_line(small_db, tmp_path, capsys):
+    code = main(
+        [
+            "report",
+            "--db",
+            small_db,
+            "--incumbent",
+            "AG-MS5",
+            "--candidate",
+            "VS-505",
+            "-o",
+            str(tmp_path / "no" / "such" / "r.html"),
+            "--resamples",
+            "100",
+        ]
+    )
+    err = capsys.readouterr().err
+    assert code == 9 and "cannot write" in err and len(err.strip().splitlines()) == 1

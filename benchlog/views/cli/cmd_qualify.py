@@ -101,36 +101,23 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def evaluate(args: argparse.Namespace, *, with_runs: bool = False):
-    """Open the store, load both lots, judge. Returns (qualification, incumbent, candidate, spec, name)."""
-    from benchlog.errors import ConfigError
-    from benchlog.stats import Requirements, qualify
-    from benchlog.store import Store
-    from benchlog.views.report._data import load_lot, spec_for
+    from benchlog.views.report import evaluate as evaluate_lots
 
-    if args.min_units < 3:
-        raise ConfigError(f"--min-units must be at least 3, got {args.min_units}")
-    if args.resamples < 100:
-        raise ConfigError(f"--resamples must be at least 100, got {args.resamples}")
-    operation = "coil cycle" if args.per == "cycle" else "make or break"
-    store = Store.open(args.db, readonly=True)
-    try:
-        inc = load_lot(store, args.incumbent, operation=operation, with_runs=with_runs)
-        cand = load_lot(store, args.candidate, operation=operation, with_runs=with_runs)
-    finally:
-        store.close()
-    spec, spec_name = spec_for(args.spec, cand)
-    req = Requirements.from_spec(spec, reliability=args.reliability, confidence=args.confidence)
-    q = qualify(
-        inc.population,
-        cand.population,
-        req,
+    return evaluate_lots(
+        args.db,
+        args.incumbent,
+        args.candidate,
+        spec=args.spec,
+        confidence=args.confidence,
+        reliability=args.reliability,
         margin=None if args.no_comparison else args.margin,
         assumed_shape=args.assumed_shape,
         min_units=args.min_units,
-        n_resamples=args.resamples,
+        per=args.per,
+        resamples=args.resamples,
         seed=args.seed,
+        with_runs=with_runs,
     )
-    return q, inc, cand, spec, spec_name
 
 
 def verdict_table(q) -> str:
@@ -147,7 +134,8 @@ def run(args: argparse.Namespace) -> int:
     import json
     import sys
 
-    q, inc, cand, _spec, spec_name = evaluate(args)
+    ev = evaluate(args)
+    q, inc, cand, spec_name = ev.qualification, ev.incumbent, ev.candidate, ev.spec_name
     conf = q.requirements.confidence
     print(
         f"candidate {cand.label}, {cand.population.units} units; incumbent {inc.label}, "

@@ -18,35 +18,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import os
-    import tempfile
-
-    from benchlog.errors import ConfigError
     from benchlog.views.cli.cmd_qualify import evaluate
-    from benchlog.views.report import render_report
+    from benchlog.views.report import write_report
 
-    q, inc, cand, spec, spec_name = evaluate(args, with_runs=True)
-    text = ""
-    if args.spec and os.path.exists(args.spec):
-        with open(args.spec, encoding="utf-8", errors="replace") as fh:
-            text = fh.read()
-    elif args.spec:  # a shipped spec, by part number
-        from importlib import resources
-
-        text = resources.files("benchlog.presets").joinpath("specs", f"{args.spec}.toml").read_text("utf-8")
-    elif cand.spec_toml:
-        text = cand.spec_toml
-    page = render_report(q, inc, cand, spec_name=spec_name, spec_text=text or repr(spec))
-    out = os.path.abspath(args.output)
-    try:  # write beside the target, then rename: a half-written report never replaces a good one
-        fd, tmp = tempfile.mkstemp(prefix=".report-", suffix=".html", dir=os.path.dirname(out))
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(page)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)
-        os.replace(tmp, out)
-    except OSError as exc:
-        raise ConfigError(f"cannot write {args.output}: {exc.strerror or exc}") from exc
+    ev = evaluate(args, with_runs=True)
+    write_report(args.output, ev)
+    q = ev.qualification
     print(f"wrote {args.output}: verdict {q.outcome} (exit {q.exit_code})")
     return q.exit_code
