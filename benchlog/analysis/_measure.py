@@ -108,22 +108,19 @@ def measure_windows(
     moved = level_at_start != expected
     count = b - a
 
-    # Per-edge quantities, for edges inside some window (others are masked out by the window ranges).
-    win = np.searchsorted(w_start, t, "right") - 1
-    inside = (win >= 0) & (t < w_end[np.maximum(win, 0)])
-    win_c = np.maximum(win, 0)
-    e_edge = expected[win_c]
-    we_edge = w_end[win_c]
+    # Per-edge quantities. Edges outside every window get values too, but every query below stays
+    # inside one window's index range [a, b), so they never count.
+    win = np.maximum(np.searchsorted(w_start, t, "right") - 1, 0)
+    e_edge = expected[win]
+    we_edge = w_end[win]
     nxt = np.empty(n_edges, np.int64)
     if n_edges:
         nxt[:-1] = t[1:]
         nxt[-1] = np.iinfo(np.int64).max
-    capped = np.minimum(nxt, we_edge)
-    dwell = capped - t
     last_in_window = nxt >= we_edge
-    towards = (lv == e_edge) & inside
-    away = (lv != e_edge) & inside
-    cand = towards & ((dwell >= settle_ns) | last_in_window)
+    dwell = np.minimum(nxt, we_edge) - t
+    away = lv != e_edge
+    cand = ~away & ((dwell >= settle_ns) | last_in_window)
 
     cand_idx = np.flatnonzero(cand)
     if len(cand_idx):
@@ -134,11 +131,10 @@ def measure_windows(
     has_edges = count > 0
     settled = moved & has_edges & (j >= 0) & (j < b)
 
-    away_dwell = np.where(away, dwell, 0).astype(np.int64)
+    away_dwell = np.where(away, dwell, 0)
     away_cum = np.concatenate(([0], np.cumsum(away_dwell)))
     chat = (away & (dwell >= chatter_ns)).astype(np.int64)
     chat_cum = np.concatenate(([0], np.cumsum(chat)))
-    away_cnt_cum = np.concatenate(([0], np.cumsum(away.astype(np.int64))))
 
     # Bounce spans [a, end_b): to the settle point when settled, else to the window end.
     end_b = np.where(settled, j, b)
@@ -157,7 +153,8 @@ def measure_windows(
     out["t_settle_ns"] = np.where(settled, t_pad[j], -1)
     out["transit_us"] = np.nan
     out["bounce_us"] = np.where(settled, (out["t_settle_ns"] - out["t_first_ns"]) / _NS_PER_US, np.nan)
-    out["bounce_count"] = np.where(moved & has_edges, away_cnt_cum[end_b] - away_cnt_cum[a], 0)
+    # levels alternate and the first edge goes toward the expected state: every second one is away
+    out["bounce_count"] = np.where(moved & has_edges, (end_b - a) // 2, 0)
     out["longest_gap_us"] = np.where(moved & has_edges, longest / _NS_PER_US, np.nan)
     out["wrong_state_us"] = np.where(moved & has_edges, (away_cum[end_b] - away_cum[a]) / _NS_PER_US, np.nan)
     # Chatter: excursions in the stable period (after the settle point, or the whole window when the
