@@ -33,6 +33,8 @@ from benchlog.wire import (
 )
 
 MAX_CYCLES_PER_STEP = 20_000  # per channel; a longer step is cut short (its end is returned)
+LOOKAHEAD_NS = 2_000_000_000  # cycles are generated this far ahead, in batches (numpy per batch)
+MAX_LOOKAHEAD_CYCLES = 2_000
 
 SENT_DTYPE = np.dtype(
     [
@@ -201,16 +203,40 @@ class Bench:
             case Halt():
                 # the cycle in progress finishes (its drive-off is already scheduled); no new cycle starts
                 for ch, run in list(self._running.items()):
-                    if run.generated:
-                        run.cycles = run.generated
+                    started = self._truncate(ch, run, self.now_ns)
+                    if started:
+                        run.cycles = started
                     else:
                         del self._running[ch]
                 self.plans.clear()
                 return []
         return [Notice("not understood")]
 
+    def _truncate(self, ch: int, run: _Running, t_ns: int) -> int:
+        """Forget the cycles generated ahead that had not started by `t_ns`; returns how many started."""
+        started = min(run.wanted_until(t_ns), run.generated)
+        extra = run.generated - started
+        if extra:
+            cut_ns = run.start_ns + started * run.period
+            t, _, chan, _ = self._pending
+            keep = ~((chan == ch) & (t >= cut_ns))
+            self._pending = tuple(a[keep] for a in self._pending)  # type: ignore[assignment]
+            run.generated = started
+            unit = self.units.get(ch)
+            if unit is not None:
+                unit.cycles_done -= extra
+                first_dropped = unit.cycles_done
+                if self.keep_truth and self.truth._act:
+                    act = self.truth.actuations
+                    self.truth._act = [act[~((act["channel"] == ch) & (act["cycle"] >= first_dropped))]]
+        return started
+
     def _cleanup_running(self) -> None:
-        done = [ch for ch, r in self._running.items() if r.cycles and r.generated >= r.cycles]
+        done = [
+            ch
+            for ch, r in self._running.items()
+            if r.cycles and r.generated >= r.cycles and self.now_ns >= r.start_ns + r.cycles * r.period
+        ]
         for ch in done:
             del self._running[ch]
 
@@ -226,6 +252,10 @@ class Bench:
             want = run.wanted_until(t_end) - run.generated
             if want <= 0:
                 continue
+            ahead = min(MAX_LOOKAHEAD_CYCLES, max(1, LOOKAHEAD_NS // run.period))
+            if run.cycles:
+                ahead = min(ahead, run.cycles - run.generated)
+            want = max(want, ahead)
             if want > MAX_CYCLES_PER_STEP:
                 want = MAX_CYCLES_PER_STEP
                 known = min(known, run.start_ns + (run.generated + want) * run.period)
@@ -305,6 +335,8 @@ class Bench:
     def power_cycle(self, off_ns: int) -> list:
         """The board lost power for `off_ns` (a bus-powered board on a pulled cable): the cycle in
         progress is cut short, plans are forgotten, and it comes back reset."""
+        for ch, run in self._running.items():
+            self._truncate(ch, run, self.now_ns)
         self._running.clear()
         self.plans.clear()
         self._pending = tuple(a[:0] for a in self._pending)  # type: ignore[assignment]

@@ -27,6 +27,7 @@ from benchlog.sim._config import SimConfig
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
 STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
 MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated time instead
+UNHEARD_S = 0.5  # the pty took nothing for this long: nobody is listening, output is discarded
 
 
 class PtySampler:
@@ -64,6 +65,8 @@ class PtySampler:
         self._pull_request: float | None = None
         self.bytes_written = 0
         self.bytes_lost_unplugged = 0
+        self.bytes_lost_unheard = 0
+        self._last_progress = time.monotonic()
         self.outages: list[tuple[float, float]] = []  # wall-clock (time.time) start/end of each pull
         self.commands_seen: list[bytes] = []
         self.error: BaseException | None = None
@@ -171,6 +174,11 @@ class PtySampler:
                 data = bench.step_bytes(step)
                 self._send(data)
             self._flush()
+            if self._backlog and time.monotonic() - self._last_progress > UNHEARD_S:
+                # nobody reads the port: like a board whose host is not listening, the sampler runs on
+                # and what it sends is lost (a reader that opens later hears the stream from then on)
+                self.bytes_lost_unheard += len(self._backlog)
+                self._backlog.clear()
             self._wait()
 
     def _wait(self) -> None:
@@ -185,6 +193,8 @@ class PtySampler:
 
     def _send(self, data: bytes) -> None:
         if data:
+            if not self._backlog:
+                self._last_progress = time.monotonic()
             self._backlog += data
 
     def _flush(self) -> None:
@@ -198,6 +208,7 @@ class PtySampler:
                     return
                 raise
             self.bytes_written += n
+            self._last_progress = time.monotonic()
             del self._backlog[:n]
 
     def _read_commands(self) -> None:
