@@ -122,6 +122,8 @@ def test_store_units(tmp_path, capsys):
         ["debounce", "--edges", "{edges}", "--input", "no such input"],
         ["debounce", "--edges", "{edges}", "--input", "CMOS Schmitt", "--try", "1k"],
         ["debounce", "--edges", "{garbage}"],
+        ["debounce", "--edges", "{edges}", "--input", "CMOS Schmitt", "--margin", "-1"],
+        ["debounce", "--capture", "{garbage}"],
     ],
 )
 def test_bad_input_is_one_line(argv, edge_file, tmp_path, capsys):

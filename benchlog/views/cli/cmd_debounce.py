@@ -365,6 +365,8 @@ def run(args) -> int:
     bad = [k for k in kinds if k not in KINDS]
     if bad or not kinds:
         raise ConfigError(f"unknown debouncer {', '.join(bad) or '(none)'}: choose from {', '.join(KINDS)}")
+    if not 0 <= args.margin < 100:
+        raise ConfigError(f"--margin must be 0 or more volts, got {args.margin:g}")
     if args.life_windows < 0 or args.life_windows > 50:
         raise ConfigError("--life-windows must be between 0 and 50")
     series: str | float = args.series
