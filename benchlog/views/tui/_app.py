@@ -14,7 +14,8 @@ class BenchDashboard(App):
     """The dashboard over the store at `db` (an URL or SQLite path), read-only.
 
     Reads run in thread workers about every `refresh_s` seconds. `show_timing=False` leaves read times
-    out of the status line (for fixed screenshots)."""
+    out of the status line and `label` names the database there instead of its path (for fixed
+    screenshots); `refresh_s=0` reads only on demand (opening a screen, `r`)."""
 
     CSS_PATH = "_app.tcss"
     TITLE = "benchlog"
@@ -24,9 +25,18 @@ class BenchDashboard(App):
         Binding("r", "refresh_now", "Read now", show=False),
     ]
 
-    def __init__(self, db: str | None = None, *, refresh_s: float = 1.0, show_timing: bool = True) -> None:
+    def __init__(
+        self,
+        db: str | None = None,
+        *,
+        refresh_s: float = 1.0,
+        show_timing: bool = True,
+        label: str | None = None,
+    ) -> None:
         super().__init__()
         self.source = StoreSource(db)
+        if label is not None:
+            self.source.shown = label
         self.refresh_s = refresh_s
         self.show_timing = show_timing
 

@@ -187,12 +187,19 @@ class DriftFlag:
     crossing_high: float | None
     baseline: float
     limit: float | None
+    last_cycle: int  # the last cycle the trend covers
+
+    @property
+    def past_limit(self) -> bool:
+        return self.crossing_cycle is not None and self.crossing_cycle <= self.last_cycle
 
     @property
     def short(self) -> str:
         if not self.signalled:
             return ""
         head = f"DRIFT {self.words}"
+        if self.past_limit:
+            return f"{head}, trend past the limit"
         if self.crossing_cycle is not None:
             return f"{head} -> limit ~{cycles_text(self.crossing_cycle)}"
         return head
@@ -226,6 +233,7 @@ def drift_of(trend: Trend, metric: str, spec: PartSpec | None) -> tuple[DriftFla
         None if p is None else p.crossing_high,
         rep.baseline.mean,
         lim[0] if lim else None,
+        int(w["cycle_end"][-1]) - 1,
     )
     return flag, rep
 

@@ -105,7 +105,9 @@ class HistoryScreen(DataScreen):
         if data.flag is not None and data.flag.signalled:
             title.append("  DRIFT", style=DRIFT_STYLE)
             title.append(f" from cycle {cycles_text(data.flag.first_signal_cycle)}")
-            if data.flag.crossing_cycle is not None:
+            if data.flag.past_limit:
+                title.append(", trend past the limit")
+            elif data.flag.crossing_cycle is not None:
                 title.append(f", limit reached near {cycles_text(data.flag.crossing_cycle)}")
         elif data.flag is not None:
             title.append("  steady", style=DIM_STYLE)

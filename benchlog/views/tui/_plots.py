@@ -68,7 +68,7 @@ def trend_chart(
     y_hi = y_hi * 1.05 if y_hi > 0 else 1.0
     y_lo = 0.0
     grid = [[(" ", "")] * w for _ in range(h)]
-    for lv in levels:
+    for lv in sorted(levels, key=lambda lv: lv.char == "="):
         if not math.isfinite(lv.y):
             continue
         r = h - 1 - int(_scale(np.array([lv.y]), y_lo, y_hi, h)[0])

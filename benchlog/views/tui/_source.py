@@ -74,7 +74,7 @@ class StoreSource:
             )
         elif "schema" in text or "revision" in text:
             kind = "no_schema"
-            message = f"{self.shown} is not a current benchlog database: {text}"
+            message = f"Not a current benchlog database: {text}"
         else:
             kind = "outage"
             message = f"Cannot read {self.shown}: {text}"

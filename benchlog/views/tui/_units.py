@@ -65,7 +65,10 @@ def drift_cell(row: UnitRow) -> Text:
     first = min(sig, key=lambda d: d.crossing_cycle if d.crossing_cycle is not None else math.inf)
     short = {"make bounce": "mk", "break bounce": "bk", "operate time": "op", "release time": "rl"}
     names = "+".join(short.get(d.words, d.words) for d in sig)
-    cross = f" @{cycles_text(first.crossing_cycle)}" if first.crossing_cycle is not None else ""
+    if first.past_limit:
+        cross = " over"
+    else:
+        cross = f" @{cycles_text(first.crossing_cycle)}" if first.crossing_cycle is not None else ""
     return Text(f"DRIFT {names}{cross}", style=DRIFT_STYLE)
 
 
@@ -247,7 +250,9 @@ class UnitsScreen(DataScreen):
     def _drift_words(d) -> str:
         text = f"DRIFT {d.words}: chart signal from cycle {cycles_text(d.first_signal_cycle)}"
         text += f", baseline {value_text(d.baseline)} ms"
-        if d.crossing_cycle is not None:
+        if d.past_limit:
+            text += f", its trend is past the {value_text(d.limit)} ms limit"
+        elif d.crossing_cycle is not None:
             text += f", reaches the {value_text(d.limit)} ms limit near cycle {cycles_text(d.crossing_cycle)}"
             lo = cycles_text(d.crossing_low) if d.crossing_low is not None else "-"
             hi = cycles_text(d.crossing_high) if d.crossing_high is not None else "never"
@@ -257,9 +262,15 @@ class UnitsScreen(DataScreen):
     # -- actions ------------------------------------------------------------------------------------
     def action_back(self) -> None:
         filt = self.query_one("#filter", Input)
-        if filt.display:
-            filt.display = False
+        if filt.has_focus:  # close the filter box, keep the filter
+            filt.display = bool(self.filter_text)
             self.query_one("#units", DataTable).focus()
+            return
+        if self.filter_text:  # then clear the filter
+            self.filter_text = ""
+            filt.value = ""
+            filt.display = False
+            self._fill()
             return
         self.app.pop_screen()
 
