@@ -37,8 +37,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from benchlog.clock._convert import NS_PER_S, signed_delta, signed_deltas, ticks_to_ns, ticks_to_ns_array
+from benchlog.clock._convert import NS_PER_S, signed_deltas, ticks_to_ns, ticks_to_ns_array
 from benchlog.clock._drift import DriftEstimator
+from benchlog.errors import ConfigError
 from benchlog.events import (
     CLOCK,
     DECODE_FAULT,
@@ -116,6 +117,83 @@ class Timed:
     pongs: list[TimedPong] = field(default_factory=list)
 
 
+_EDGE, _DRIVE, _BEAT = 0, 1, 2
+
+
+class _Segment:
+    """The tick-bearing records of a push between announcements, gathered for one vectorised pass.
+
+    Edge batches are kept as arrays and single records (drives, beats) as Python lists with their
+    positions; `arrays` lays both out in stream order with two fancy-index assignments.
+    """
+
+    __slots__ = (
+        "ticks",
+        "channels",
+        "levels",
+        "pos",
+        "one_tick",
+        "one_kind",
+        "one_ch",
+        "one_lv",
+        "beats",
+        "markers",
+        "n",
+    )
+
+    def __init__(self) -> None:
+        self.ticks: list[np.ndarray] = []
+        self.channels: list[np.ndarray] = []
+        self.levels: list[np.ndarray] = []
+        self.pos: list[int] = []  # positions of single records
+        self.one_tick: list[int] = []
+        self.one_kind: list[int] = []
+        self.one_ch: list[int] = []
+        self.one_lv: list[int] = []
+        self.beats: list[tuple[int, int, int]] = []  # (position, captured, dropped)
+        self.markers: list[tuple[int, Record]] = []  # (position, record) of records without a tick
+        self.n = 0
+
+    def add_edges(self, rec: Edges) -> None:
+        self.ticks.append(rec.tick)
+        self.channels.append(rec.channel)
+        self.levels.append(rec.level)
+        self.n += len(rec.tick)
+
+    def add_one(self, kind: int, tick: int, channel: int, level: int) -> None:
+        self.pos.append(self.n)
+        self.one_tick.append(tick & 0xFFFFFFFFFFFFFFFF)
+        self.one_kind.append(kind)
+        self.one_ch.append(channel)
+        self.one_lv.append(level)
+        self.n += 1
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        n = self.n
+        if not self.pos:
+            if not self.ticks:
+                z = np.zeros(0, np.uint8)
+                return np.zeros(0, np.uint64), z, z, z
+            tick = np.concatenate(self.ticks).astype(np.uint64)  # a copy: it is masked in place
+            return tick, np.zeros(n, np.uint8), np.concatenate(self.channels), np.concatenate(self.levels)
+        tick = np.empty(n, np.uint64)
+        kind = np.zeros(n, np.uint8)
+        channel = np.empty(n, np.uint8)
+        level = np.empty(n, np.uint8)
+        pos = np.asarray(self.pos, np.intp)
+        tick[pos] = np.asarray(self.one_tick, np.uint64)
+        kind[pos] = self.one_kind
+        channel[pos] = self.one_ch
+        level[pos] = self.one_lv
+        if self.ticks:
+            is_edge = np.ones(n, bool)
+            is_edge[pos] = False
+            tick[is_edge] = np.concatenate(self.ticks)
+            channel[is_edge] = np.concatenate(self.channels)
+            level[is_edge] = np.concatenate(self.levels)
+        return tick, kind, channel, level
+
+
 @dataclass(slots=True)
 class _PendingBeat:
     rel: int
@@ -131,10 +209,16 @@ class Timeline:
     """Unwraps, converts and bridges one bench's sampler time; see the module docstring.
 
     `clock_hz` and `counter_bits` are used until an announcement gives them; without either, records with
-    ticks wait (up to about a million edges) for the first announcement.
+    ticks wait (up to about a million edges) for the first announcement. `time_scale` is how many sampler
+    seconds pass per host second: 1 for a board, N for a simulated sampler running N times faster.
     """
 
-    def __init__(self, clock_hz: int | None = None, counter_bits: int | None = None) -> None:
+    def __init__(
+        self, clock_hz: int | None = None, counter_bits: int | None = None, *, time_scale: float = 1.0
+    ) -> None:
+        if not time_scale > 0:
+            raise ConfigError(f"time scale must be positive, not {time_scale}")
+        self.time_scale = time_scale
         self.clock_hz = clock_hz
         self.counter_bits = counter_bits
         self.announcement: Announce | None = None
@@ -156,6 +240,10 @@ class Timeline:
         self._reset_from_host = 0
         self._solicited_until: int | None = None
         self._outage_hint: int | None = None  # host ns elapsed to use for the first tick after an outage
+        self._disconnected = False
+        self._min_offset: int | None = None  # least (host_ns - t_ns) of earlier pushes in this epoch
+        self._min_offset_t = 0
+        self._push_min: tuple[int, int] | None = None  # (offset, t_ns) least in the current push
         self._queued: list[Incident] = []
         self._held: list[tuple[list[Record], int]] = []
         self._held_edges = 0
@@ -164,7 +252,9 @@ class Timeline:
         self._e_t: list[np.ndarray] = []
         self._e_ch: list[np.ndarray] = []
         self._e_lv: list[np.ndarray] = []
-        self._drives: list[tuple[int, int, int]] = []
+        self._d_t: list[np.ndarray] = []
+        self._d_ch: list[np.ndarray] = []
+        self._d_lv: list[np.ndarray] = []
         self._beats: list[tuple[int, int, int, int]] = []
         self._incidents: list[Incident] = []
         self._announcements: list[Announce] = []
@@ -193,7 +283,7 @@ class Timeline:
     def note_disconnect(self, host_start_ns: int, host_end_ns: int) -> Incident:
         """Turn a port outage into a DISCONNECT incident (returned, and delivered by the next `push`)."""
         start = self._run_at_host(host_start_ns)
-        end = start + max(0, host_end_ns - host_start_ns)
+        end = start + self._scaled(max(0, host_end_ns - host_start_ns))
         inc = Incident(
             DISCONNECT,
             start,
@@ -203,6 +293,7 @@ class Timeline:
             detail=f"port lost for {(host_end_ns - host_start_ns) / NS_PER_S:.3f} s",
         )
         self._queued.append(inc)
+        self._disconnected = True
         return inc
 
     def push(self, records: list[Record], host_ns: int) -> Timed:
@@ -225,40 +316,50 @@ class Timeline:
         if self._started:
             self._check_outage(host_ns)
         faults: dict[str, list[int]] = {}
+        seg = _Segment()
         for rec in records:
             if isinstance(rec, Edges):
                 if len(rec):
-                    self._edges(rec, host_ns)
+                    seg.add_edges(rec)
             elif isinstance(rec, Drive):
-                rel = self._place_one(rec.tick, host_ns)
-                self._drives.append((self._to_ns(rel), rec.channel, rec.level))
+                seg.add_one(_DRIVE, rec.tick, rec.channel, rec.level)
             elif isinstance(rec, Beat):
-                self._on_beat(rec, host_ns)
+                seg.beats.append((seg.n, rec.captured, rec.dropped))
+                seg.add_one(_BEAT, rec.tick, 0, 0)
             elif isinstance(rec, Announce):
+                self._place_segment(seg, host_ns)
+                seg = _Segment()
                 self._announcements.append(rec)
                 self._on_announce(rec, host_ns)
             elif isinstance(rec, Fault):
                 entry = faults.setdefault(rec.reason, [0, 0])
                 entry[0] += rec.units
                 entry[1] += rec.nbytes
-            elif isinstance(rec, SequenceGap):
-                t = self._run_hi_ns
-                detail = (
-                    f"{rec.frames_lost} frame(s) lost "
-                    f"(sequence {rec.expected} expected, {rec.received} received)"
-                )
-                self._incidents.append(
-                    Incident(SEQUENCE_GAP, t, t, self._host_last or host_ns, host_ns, detail=detail)
-                )
-            elif isinstance(rec, Notice):
-                self._notices.append(TimedNotice(self._run_hi_ns, host_ns, rec.text))
-            elif isinstance(rec, Pong):
-                self._pongs.append(TimedPong(self._run_hi_ns, host_ns, rec.token))
+            elif isinstance(rec, SequenceGap | Notice | Pong):
+                seg.markers.append((seg.n, rec))
+        self._place_segment(seg, host_ns)
         if faults:
             t = self._run_hi_ns
             detail = ", ".join(f"{u} x {r} ({b} bytes)" for r, (u, b) in sorted(faults.items()))
             self._incidents.append(Incident(DECODE_FAULT, t, t, host_ns, host_ns, detail=detail))
         self._host_last = host_ns
+        if self._push_min is not None:
+            if self._min_offset is None or self._push_min[0] < self._min_offset:
+                self._min_offset, self._min_offset_t = self._push_min
+            self._push_min = None
+
+    def _marker(self, rec: Record, t: int, host_ns: int) -> None:
+        if isinstance(rec, SequenceGap):
+            detail = (
+                f"{rec.frames_lost} frame(s) lost (sequence {rec.expected} expected, {rec.received} received)"
+            )
+            self._incidents.append(
+                Incident(SEQUENCE_GAP, t, t, self._host_last or host_ns, host_ns, detail=detail)
+            )
+        elif isinstance(rec, Notice):
+            self._notices.append(TimedNotice(t, host_ns, rec.text))
+        elif isinstance(rec, Pong):
+            self._pongs.append(TimedPong(t, host_ns, rec.token))
 
     # -- output -------------------------------------------------------------------------------------------
 
@@ -271,14 +372,17 @@ class Timeline:
             edges = TimedEdges.empty()
         out = Timed(
             edges,
-            TimedDrives.of(self._drives),
+            TimedDrives(np.concatenate(self._d_t), np.concatenate(self._d_ch), np.concatenate(self._d_lv))
+            if self._d_t
+            else TimedDrives.empty(),
             self._incidents,
             self._announcements,
             TimedBeats.of(self._beats),
             self._notices,
             self._pongs,
         )
-        self._e_t, self._e_ch, self._e_lv, self._drives, self._beats = [], [], [], [], []
+        self._e_t, self._e_ch, self._e_lv, self._beats = [], [], [], []
+        self._d_t, self._d_ch, self._d_lv = [], [], []
         self._incidents, self._announcements, self._notices, self._pongs = [], [], [], []
         return out
 
@@ -293,21 +397,25 @@ class Timeline:
     def _run_at_host(self, host_ns: int) -> int:
         if not self._started:
             return self._run_hi_ns
-        return self._run_hi_ns + max(0, host_ns - self._hi_host)
+        return self._run_hi_ns + self._scaled(max(0, host_ns - self._hi_host))
+
+    def _scaled(self, host_duration_ns: int) -> int:
+        """A host-clock duration in sampler time."""
+        if self.time_scale == 1.0:
+            return host_duration_ns
+        return int(host_duration_ns * self.time_scale)
 
     def _back_tolerance(self) -> int:
         return min(1 << (self.counter_bits - 2), max(1, self.clock_hz // 10))
 
-    def _ahead_limit(self, host_ns: int) -> int:
-        """Most ticks a counter can have advanced past the epoch's latest since then, by the host clock."""
-        elapsed = max(0, host_ns - self._hi_host)
-        allowed_ns = int(elapsed * (1 + HOST_RATE_MARGIN)) + HOST_SLACK_NS
-        return (allowed_ns * self.clock_hz) // NS_PER_S
-
     def _check_outage(self, host_ns: int) -> None:
+        """After a port outage longer than a quarter wrap, wraps may have passed unseen."""
+        if not self._disconnected:
+            return
+        self._disconnected = False
         quarter_ns = ticks_to_ns(1 << (self.counter_bits - 2), self.clock_hz)
-        if host_ns - self._hi_host > quarter_ns:
-            self._outage_hint = host_ns - self._hi_host
+        if self._scaled(host_ns - self._hi_host) > quarter_ns:
+            self._outage_hint = self._scaled(host_ns - self._hi_host)
 
     def _apply_outage(self, d: int, host_ns: int) -> int:
         """Add the whole wraps an outage may have hidden to the first delta after it."""
@@ -340,7 +448,7 @@ class Timeline:
         first_tick_ns = ticks_to_ns(raw, self.clock_hz)
         if self._started:
             last = self._run_hi_ns
-            gap = max(0, host_ns - max(self._hi_host, self._reset_from_host))
+            gap = self._scaled(max(0, host_ns - max(self._hi_host, self._reset_from_host)))
             self._ns0 = max(last, last + gap - first_tick_ns)
             self.resets += 1
             self._incidents.append(
@@ -365,6 +473,8 @@ class Timeline:
         self._started = True
         self._reset_pending = None
         self._outage_hint = None
+        self._min_offset = None
+        self._push_min = None
         self._last_raw = raw
         self._last_rel = self._hi_rel = rel
         self._hi_host = host_ns
@@ -403,53 +513,39 @@ class Timeline:
 
     # -- placing ticks ------------------------------------------------------------------------------------
 
-    def _place_one(self, raw: int, host_ns: int) -> int:
-        raw &= (1 << self.counter_bits) - 1
-        if not self._started or self._reset_pending is not None:
-            self._new_epoch(raw, host_ns, self._reset_pending or "")
-            return self._last_rel
-        d = signed_delta(raw, self._last_raw, self.counter_bits)
-        if self._outage_hint is not None:
-            d = self._apply_outage(d, host_ns)
-        rel = self._last_rel + d
-        if rel < self._hi_rel - self._back_tolerance():
-            self._new_epoch(raw, host_ns, "counter went back")
-            return self._last_rel
-        if rel - self._hi_rel > self._ahead_limit(host_ns):
-            self._new_epoch(raw, host_ns, "counter ran ahead of the host clock")
-            return self._last_rel
-        self._last_raw, self._last_rel = raw, rel
-        if rel > self._hi_rel:
-            self._hi_rel, self._hi_host = rel, host_ns
-            self._run_hi_ns = max(self._run_hi_ns, self._to_ns(rel))
-        return rel
-
-    def _edges(self, rec: Edges, host_ns: int) -> None:
-        raw = rec.tick.astype(np.uint64, copy=False)
-        if self.counter_bits < 64:
-            raw = raw & np.uint64((1 << self.counter_bits) - 1)
-        start = 0
+    def _place_segment(self, seg: _Segment, host_ns: int) -> None:
+        """Place every tick-bearing record of `seg` at once, epoch piece by epoch piece."""
+        raw, kind, channel, level = seg.arrays()
         n = len(raw)
+        run_before = self._run_hi_ns
+        t_all = np.empty(n, np.int64)
+        if self.counter_bits < 64:
+            raw &= np.uint64((1 << self.counter_bits) - 1)
+        start = 0
+        why: str | None = None
         while start < n:
-            if not self._started or self._reset_pending is not None:
-                self._place_one(int(raw[start]), host_ns)
-                rels = [np.array([self._last_rel], np.int64)]
-                end = start + 1
-                if end < n:
-                    end, more = self._place_run(raw, end, host_ns)
-                    rels.append(more)
-                rel = np.concatenate(rels)
-            else:
-                end, rel = self._place_run(raw, start, host_ns)
-                if end == start:  # raw[start] starts a new epoch
-                    self._place_one(int(raw[start]), host_ns)
-                    rel = np.array([self._last_rel], np.int64)
-                    end = start + 1
-            self._emit_edges(rel, rec.channel[start:end], rec.level[start:end])
+            pos = start
+            first = None
+            if not self._started or self._reset_pending is not None or why is not None:
+                self._new_epoch(int(raw[start]), host_ns, self._reset_pending or why or "")
+                first = self._last_rel
+                pos = start + 1
+            end, rel, why = self._place_run(raw, pos, host_ns)
+            if first is not None:
+                rel = np.concatenate([np.array([first], np.int64), rel])
+            if end > start:
+                t_all[start:end] = self._ns0 + ticks_to_ns_array(rel, self.clock_hz)
+                self._consume(seg, start, end, rel, t_all, kind, channel, level, host_ns)
             start = end
+        if seg.markers:
+            upto = np.maximum.accumulate(t_all) if n else t_all
+            for p, rec in seg.markers:
+                self._marker(rec, max(run_before, int(upto[p - 1])) if p else run_before, host_ns)
 
-    def _place_run(self, raw: np.ndarray, start: int, host_ns: int) -> tuple[int, np.ndarray]:
-        """Unwrap raw[start:] up to (not including) the first tick that means a reset."""
+    def _place_run(self, raw: np.ndarray, start: int, host_ns: int) -> tuple[int, np.ndarray, str | None]:
+        """Unwrap raw[start:] up to (not including) the first tick that means a reset, and why it does."""
+        if start >= len(raw):
+            return start, np.zeros(0, np.int64), None
         d = signed_deltas(raw[start:], self._last_raw, self.counter_bits)
         if self._outage_hint is not None:
             d[0] = self._apply_outage(int(d[0]), host_ns)
@@ -458,37 +554,87 @@ class Timeline:
         prior_hi = np.empty_like(hi)
         prior_hi[0] = self._hi_rel
         prior_hi[1:] = hi[:-1]
-        bad = (rel < prior_hi - self._back_tolerance()) | (rel - self._hi_rel > self._ahead_limit(host_ns))
-        stop = int(np.argmax(bad)) if bad.any() else len(rel)
+        back = rel < prior_hi - self._back_tolerance()
+        t = self._ns0 + ticks_to_ns_array(rel, self.clock_hz)
+        # receive time minus sampler time: latency (plus a constant), never less
+        offset = self._scaled(host_ns - self._epoch_start_host) - t
+        if self._min_offset is not None:
+            # data cannot arrive before it was sampled: an offset well under the least seen in earlier
+            # pushes means the sampler's time jumped ahead (backlogged chunks only raise offsets)
+            allowance = HOST_SLACK_NS + (HOST_RATE_MARGIN * np.maximum(t - self._min_offset_t, 0)).astype(
+                np.int64
+            )
+            ahead = offset < self._min_offset - allowance
+        else:
+            ahead = np.zeros(len(rel), bool)
+        bad = back | ahead
+        why = None
+        stop = len(rel)
+        if bad.any():
+            stop = int(np.argmax(bad))
+            why = "counter went back" if back[stop] else "counter ran ahead of the host clock"
         if stop == 0:
-            return start, rel[:0]
+            return start, rel[:0], why
         rel = rel[:stop]
+        j = int(np.argmin(offset[:stop]))
+        if self._push_min is None or int(offset[j]) < self._push_min[0]:
+            self._push_min = (int(offset[j]), int(t[j]))
         self._last_raw = int(raw[start + stop - 1])
         self._last_rel = int(rel[-1])
         top = int(hi[stop - 1])
         if top > self._hi_rel:
             self._hi_rel, self._hi_host = top, host_ns
             self._run_hi_ns = max(self._run_hi_ns, self._to_ns(top))
-        return start + stop, rel
+        return start + stop, rel, why
 
-    def _emit_edges(self, rel: np.ndarray, channel: np.ndarray, level: np.ndarray) -> None:
-        t = self._ns0 + ticks_to_ns_array(rel, self.clock_hz)
-        self._e_t.append(t)
-        self._e_ch.append(np.asarray(channel, np.uint8))
-        self._e_lv.append(np.asarray(level, np.uint8))
-        self._received += len(rel)
-        if self._beat is not None:
-            self._beat.late += int(np.count_nonzero(rel <= self._beat.rel))
+    def _consume(
+        self,
+        seg: _Segment,
+        a: int,
+        b: int,
+        rel: np.ndarray,
+        t_all: np.ndarray,
+        kind: np.ndarray,
+        channel: np.ndarray,
+        level: np.ndarray,
+        host_ns: int,
+    ) -> None:
+        """Hand out records a..b of a segment, all in one epoch: edges, drives, and beats in order."""
+        k = kind[a:b]
+        t = t_all[a:b]
+        is_edge = k == _EDGE
+        if is_edge.all():
+            self._e_t.append(t)
+            self._e_ch.append(channel[a:b])
+            self._e_lv.append(level[a:b])
+        else:
+            self._e_t.append(t[is_edge])
+            self._e_ch.append(channel[a:b][is_edge])
+            self._e_lv.append(level[a:b][is_edge])
+            is_drive = k == _DRIVE
+            if is_drive.any():
+                self._d_t.append(t[is_drive])
+                self._d_ch.append(channel[a:b][is_drive])
+                self._d_lv.append(level[a:b][is_drive])
+        beats = [bt for bt in seg.beats if a <= bt[0] < b]
+        prev = 0  # offset in the piece where edges stop counting towards the pending beat's "late"
+        edges_before = np.cumsum(is_edge) if beats else None
+        for p, captured, dropped in beats:
+            j = p - a
+            if self._beat is not None:
+                self._beat.late += int(np.count_nonzero(is_edge[prev:j] & (rel[prev:j] <= self._beat.rel)))
+            before = self._received + (int(edges_before[j - 1]) if j else 0)
+            tb = int(t[j])
+            self._beats.append((tb, host_ns, captured, dropped))
+            self._drift.add(self._scaled(host_ns - self._epoch_start_host), tb)
+            self._settle_beat()
+            self._beat = _PendingBeat(int(rel[j]), tb, host_ns, captured, dropped, before)
+            prev = j + 1
+        if self._beat is not None and prev < len(k):
+            self._beat.late += int(np.count_nonzero(is_edge[prev:] & (rel[prev:] <= self._beat.rel)))
+        self._received += int(np.count_nonzero(is_edge))
 
     # -- beats --------------------------------------------------------------------------------------------
-
-    def _on_beat(self, rec: Beat, host_ns: int) -> None:
-        rel = self._place_one(rec.tick, host_ns)
-        t = self._to_ns(rel)
-        self._beats.append((t, host_ns, rec.captured, rec.dropped))
-        self._drift.add(host_ns, t)
-        self._settle_beat()
-        self._beat = _PendingBeat(rel, t, host_ns, rec.captured, rec.dropped, self._received)
 
     def _settle_beat(self) -> None:
         b, self._beat = self._beat, None

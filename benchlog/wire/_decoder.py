@@ -70,42 +70,18 @@ _TERMINATOR = re.compile(rb"[\n\x00]")
 _FIXED_PAYLOAD = {TYPE_DRIVE: 10, TYPE_BEAT: 16, TYPE_PONG: 2}
 
 
+class _EdgeRun:
+    """Placeholder in the output for `count` consecutive edge frames, decoded later all at once."""
+
+    __slots__ = ("first", "count")
+
+    def __init__(self, first: int) -> None:
+        self.first = first
+        self.count = 1
+
+
 def _edges_empty() -> Edges:
     return Edges(np.zeros(0, np.uint8), np.zeros(0, np.uint8), np.zeros(0, np.uint64))
-
-
-def _merge(records: list[Record]) -> list[Record]:
-    """Join consecutive `Edges` into one batch and consecutive faults of one reason into one."""
-    out: list[Record] = []
-    run: list[Edges] = []
-
-    def flush() -> None:
-        if run:
-            if len(run) == 1:
-                out.append(run[0])
-            else:
-                out.append(
-                    Edges(
-                        np.concatenate([r.channel for r in run]),
-                        np.concatenate([r.level for r in run]),
-                        np.concatenate([r.tick for r in run]),
-                    )
-                )
-            run.clear()
-
-    for rec in records:
-        if isinstance(rec, Edges):
-            if len(rec):
-                run.append(rec)
-            continue
-        flush()
-        if isinstance(rec, Fault) and out and isinstance(out[-1], Fault) and out[-1].reason == rec.reason:
-            prev = out[-1]
-            out[-1] = Fault(rec.reason, prev.nbytes + rec.nbytes, prev.units + rec.units)
-        else:
-            out.append(rec)
-    flush()
-    return out
 
 
 class Decoder:
@@ -142,8 +118,7 @@ class Decoder:
             if self.form == form or not buf:
                 break
         self._buf = buf
-        out = _merge(self._out)
-        self._out = []
+        out, self._out = self._out, []
         return out
 
     # -- bookkeeping ----------------------------------------------------------------------------------
@@ -154,7 +129,12 @@ class Decoder:
         c.faults += 1
         c.fault_bytes += nbytes
         c.by_reason[reason] = c.by_reason.get(reason, 0) + 1
-        self._out.append(Fault(reason, nbytes))
+        out = self._out
+        prev = out[-1] if out else None
+        if isinstance(prev, Fault) and prev.reason == reason:  # one record for a run of like faults
+            out[-1] = Fault(reason, prev.nbytes + nbytes, prev.units + 1)
+        else:
+            out.append(Fault(reason, nbytes))
         if self.form is None:
             return False
         self._bad_units += 1
@@ -173,12 +153,29 @@ class Decoder:
         if isinstance(rec, Unknown):
             c.unknown += 1
         elif isinstance(rec, Edges):
-            c.edges += len(rec)
+            self._edges(rec, 1)
+            return
         elif isinstance(rec, Announce):
             self._ctx.version = rec.version
             self._ctx.counter_bits = rec.counter_bits
             self._ctx.channels = rec.channels
         self._out.append(rec)
+
+    def _edges(self, rec: Edges, units: int) -> None:
+        """Append an edge batch decoded from `units` lines or frames, joined to a batch just before it."""
+        c = self.counters
+        c.records += units
+        c.edges += len(rec.tick)
+        out = self._out
+        prev = out[-1] if out else None
+        if isinstance(prev, Edges):
+            out[-1] = Edges(
+                np.concatenate([prev.channel, rec.channel]),
+                np.concatenate([prev.level, rec.level]),
+                np.concatenate([prev.tick, rec.tick]),
+            )
+        else:
+            out.append(rec)
 
     def _skip_to(self, buf: bytes, terminator: bytes) -> bytes | None:
         """While skipping an over-long unit: the bytes after it, or None when it has not ended yet.
@@ -265,24 +262,37 @@ class Decoder:
         prefix = np.empty(len(a) + 1, np.uint8)
         prefix[0] = 0
         np.bitwise_xor.accumulate(a, out=prefix[1:])
-        fast, channel, level, tick = fast_edge_lines(a, prefix, starts, ends, self._ctx)
+        fast, is_drive, channel, level, tick = fast_edge_lines(a, prefix, starts, ends, self._ctx)
         n_lines = len(nl)
-        is_fast = np.zeros(n_lines + 1, bool)
-        is_fast[fast] = True
-        slow = np.flatnonzero(~is_fast)  # ends with the sentinel n_lines
+        is_edge_line = np.zeros(n_lines + 1, bool)
+        is_edge_line[fast[~is_drive]] = True
+        breaks = np.flatnonzero(~is_edge_line)  # every line but a fast edge line, and the sentinel
+        fast_index = np.full(n_lines, -1, np.intp)
+        fast_index[fast] = np.arange(len(fast))
+        drive_at = fast_index[breaks[:-1]].tolist()
+        edge_sel = ~is_drive
+        e_channel, e_level, e_tick = channel[edge_sel], level[edge_sel], tick[edge_sel]
         taken = 0  # edges of the fast arrays already emitted
         prev = 0
         starts_l, ends_l, nl_l = starts.tolist(), ends.tolist(), nl.tolist()
-        for j in slow.tolist():
+        ch_l, lv_l, tk_l = channel.tolist(), level.tolist(), tick.tolist()
+        out = self._out
+        for b, j in enumerate(breaks.tolist()):
             if j > prev:
                 k = j - prev
                 run = slice(taken, taken + k)
-                self._good(Edges(channel[run], level[run], tick[run]))
-                self.counters.records += k - 1
+                self._bad_units = self._bad_bytes = 0
+                self._edges(Edges(e_channel[run], e_level[run], e_tick[run]), k)
                 taken += k
             if j == n_lines:
                 break
             prev = j + 1
+            f = drive_at[b]
+            if f >= 0:  # a well-formed drive line, decoded with the edge lines
+                self._bad_units = self._bad_bytes = 0
+                self.counters.records += 1
+                out.append(Drive(ch_l[f], lv_l[f], tk_l[f]))
+                continue
             rec = parse_line(body[starts_l[j] : ends_l[j]], self._ctx)
             if isinstance(rec, str):
                 if self._fault(rec, nl_l[j] + 1 - starts_l[j]):
@@ -314,6 +324,8 @@ class Decoder:
         tail = buf[last + 1 :]
         heads: list[bytes] = []
         bodies: list[bytes] = []
+        out = self._out
+        mark_from = len(out)  # markers for `heads` sit at or after this index of the output
         ctx = self._ctx
         crc32, from_bytes = zlib.crc32, int.from_bytes
         for i, seg in enumerate(segments):
@@ -341,7 +353,6 @@ class Decoder:
                 expected = self._expected_seq
                 self._expected_seq = (seq + 1) & 0xFFFF
                 if expected is not None and seq != expected and kind != TYPE_ANNOUNCE:
-                    self._flush_edges(heads, bodies)
                     lost = (seq - expected) & 0xFFFF
                     self.counters.frames_lost += lost
                     self._out.append(SequenceGap(expected, seq, lost))
@@ -349,22 +360,38 @@ class Decoder:
                     count = frame[11] if n >= 12 else 0
                     size = 16 + 3 * count
                     if count and (n == size or (ctx.version > 1 and n > size)):
+                        last_out = out[-1] if out else None
+                        if isinstance(last_out, _EdgeRun):
+                            last_out.count += 1
+                        else:
+                            out.append(_EdgeRun(len(heads)))
                         heads.append(frame[3:12])
                         bodies.append(frame[12 : 12 + 3 * count])
+                        self._bad_units = self._bad_bytes = 0
                         continue
                     reason = PAYLOAD
+                elif kind == TYPE_DRIVE and n == 17:
+                    channel, level, tick = frame[3], frame[4], from_bytes(frame[5:13], "little")
+                    if channel < ctx.channels and level <= 1 and not tick >> ctx.counter_bits:
+                        self._bad_units = self._bad_bytes = 0
+                        self.counters.records += 1
+                        out.append(Drive(channel, level, tick))
+                        continue
+                    reason = RANGE
                 else:
-                    self._flush_edges(heads, bodies)
+                    if kind == TYPE_ANNOUNCE:  # it may change the counter width: decode what came before
+                        self._flush_edges(heads, bodies, mark_from)
+                        mark_from = len(out)
                     rec = self._record(kind, frame[3:-4], ctx.version)
                     if isinstance(rec, str):
                         reason = rec
                     else:
                         self._good(rec)
                         continue
-            self._flush_edges(heads, bodies)
             if self._fault(reason, len(seg) + 1):
+                self._flush_edges(heads, bodies, mark_from)
                 return b"\0".join(segments[i + 1 :]) + b"\0" + tail
-        self._flush_edges(heads, bodies)
+        self._flush_edges(heads, bodies, mark_from)
         return self._hold(tail, MAX_ENCODED, b"\0")
 
     def _record(self, kind: int, payload: bytes, version: int) -> Record | str:
@@ -407,8 +434,8 @@ class Decoder:
             return Announce(version, clock_hz, bits, channels, board)
         return Unknown(f"0x{kind:02x}")
 
-    def _flush_edges(self, heads: list[bytes], bodies: list[bytes]) -> None:
-        """Decode the edge frames gathered so far, all at once, and clear the lists."""
+    def _flush_edges(self, heads: list[bytes], bodies: list[bytes], mark_from: int) -> None:
+        """Decode the edge frames gathered so far, all at once, into the places their markers hold."""
         if not heads:
             return
         head = np.frombuffer(b"".join(heads), _EDGE_HEAD)
@@ -423,26 +450,45 @@ class Decoder:
         level = chan_level >> np.uint8(7)
         delta = entries[:, 1].astype(np.uint64) | (entries[:, 2].astype(np.uint64) << np.uint64(8))
         total = np.cumsum(delta, dtype=np.uint64)
-        first = np.zeros(len(counts), np.intp)
-        np.cumsum(counts[:-1], out=first[1:])
-        before = total[first] - delta[first]
+        first = np.zeros(len(counts) + 1, np.intp)
+        np.cumsum(counts, out=first[1:])
+        starts = first[:-1]
+        before = total[starts] - delta[starts]
         tick = np.repeat(base - before, counts) + total
         bad_entry = ((chan_level & np.uint8(0x70)) != 0) | (channel >= ctx.channels)
-        bad_frame = np.add.reduceat(bad_entry, first) > 0
+        bad_frame = np.add.reduceat(bad_entry, starts) > 0
         if ctx.counter_bits < 64:
             tick &= np.uint64((1 << ctx.counter_bits) - 1)
             bad_frame |= (base >> np.uint64(ctx.counter_bits)) != 0
-        if not bad_frame.any():
-            self._good(Edges(channel, level, tick))
-            self.counters.records += len(counts) - 1
-            return
-        # rare: a CRC-valid frame with impossible content from a faulty sampler; keep frame order
-        for f in range(len(counts)):
-            s, e = first[f], first[f] + counts[f]
-            if bad_frame[f]:
-                self._fault(RANGE, 16 + 3 * int(counts[f]))
-            else:
-                self._good(Edges(channel[s:e], level[s:e], tick[s:e]))
+        c = self.counters
+        any_bad = bool(bad_frame.any())
+        out = self._out
+        rebuilt: list[Record] = []
+        for item in out[mark_from:]:
+            if not isinstance(item, _EdgeRun):
+                rebuilt.append(item)
+                continue
+            f0, f1 = item.first, item.first + item.count
+            if not any_bad or not bad_frame[f0:f1].any():
+                s, e = first[f0], first[f1]
+                rebuilt.append(Edges(channel[s:e], level[s:e], tick[s:e]))
+                c.records += item.count
+                c.edges += int(e - s)
+                continue
+            # rare: a CRC-valid frame with impossible content from a faulty sampler; keep frame order
+            for f in range(f0, f1):
+                s, e = first[f], first[f + 1]
+                if bad_frame[f]:
+                    nbytes = 16 + 3 * int(counts[f])
+                    c.faults += 1
+                    c.fault_bytes += nbytes
+                    c.by_reason[RANGE] = c.by_reason.get(RANGE, 0) + 1
+                    rebuilt.append(Fault(RANGE, nbytes))
+                else:
+                    rebuilt.append(Edges(channel[s:e], level[s:e], tick[s:e]))
+                    c.records += 1
+                    c.edges += int(e - s)
+        out[mark_from:] = rebuilt
 
 
 __all__ = ["Decoder", "MAX_FRAME", "MAX_LINE", "MAX_EDGES_PER_FRAME"]

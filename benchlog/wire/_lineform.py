@@ -125,13 +125,15 @@ def parse_line(line: bytes, ctx: LineContext) -> Record | str:
 
 def fast_edge_lines(
     a: np.ndarray, prefix_xor: np.ndarray, starts: np.ndarray, ends: np.ndarray, ctx: LineContext
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Vectorised `E` lines. `a` is the buffer, `starts`/`ends` bound each line (without `\\r\\n`).
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Vectorised `E` and `D` lines (same layout). `a` is the buffer, `starts`/`ends` bound each line
+    (without `\\r\\n`).
 
-    Returns (line indices accepted, channel, level, tick), in line order.
+    Returns (line indices accepted, is_drive, channel, level, tick), in line order.
     """
     length = ends - starts
-    cand = np.flatnonzero((length >= 7) & (length <= 25) & (a[starts] == 0x45))
+    first = a[starts]
+    cand = np.flatnonzero((length >= 7) & (length <= 25) & ((first == 0x45) | (first == 0x44)))
     s, e = starts[cand], ends[cand]
     ok = (a[s + 1] == 0x20) & (a[s + 3] == 0x20) & (a[s + 5] == 0x20)
     channel = HEX_VALUE[a[s + 2]]
@@ -154,4 +156,4 @@ def fast_edge_lines(
         tick |= np.where(used, digit, 0).astype(np.uint64) << np.uint64(4 * (k - 1))
     if ctx.counter_bits < 64:
         ok &= (tick >> np.uint64(ctx.counter_bits)) == 0
-    return cand[ok], channel[ok], level[ok], tick[ok]
+    return cand[ok], first[cand[ok]] == 0x44, channel[ok], level[ok], tick[ok]

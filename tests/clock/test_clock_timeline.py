@@ -255,9 +255,10 @@ def test_outage_longer_than_a_16_bit_wrap_is_bridged_from_host_time():
     tl = Timeline()
     tl.push([smp.announce], 0)
     true, _, _ = run_stream(tl, smp, 0, 10, 0.5, latency_ms=0.01)
+    tl.note_disconnect(10 * S + 10**6, 29 * S)
     t = 30 * S
     out = tl.push([smp.edges(np.array([t]))], t + 10_000)
-    assert _kinds(out.incidents) == [CLOCK] and "3 counter wrap(s)" in out.incidents[0].detail
+    assert _kinds(out.incidents) == [DISCONNECT, CLOCK] and "3 counter wrap(s)" in out.incidents[1].detail
     assert abs(int(out.edges.t_ns[0]) - (t - int(true[0]))) < 200_000  # two ticks of 100 us
 
 
@@ -282,3 +283,49 @@ def test_beats_and_drives_come_out_timed():
     assert out.drives.t_ns.tolist() == [0, 2_000_000]
     assert out.beats.t_ns.tolist() == [900_000]  # run time starts at the first record (tick 100)
     assert out.beats.host_ns.tolist() == [123]
+
+
+def test_a_backlogged_reader_catching_up_is_no_reset():
+    # the reader stalled for 3 s; the port buffered the data, which then arrives in two quick chunks
+    smp = Sampler(1_000_000, 32, seed=11)
+    tl = Timeline()
+    tl.push([smp.announce], 0)
+    run_stream(tl, smp, 0, 10, 1, latency_ms=0.5)
+    first = [smp.edges(np.array([10 * S + 500_000_000])), smp.beat(11 * S)]
+    late = [smp.edges(np.array([11 * S + 500_000_000, 12 * S + 700_000_000])), smp.beat(13 * S)]
+    out1 = tl.push(first, 13 * S + 1_000_000)
+    out2 = tl.push(late, 13 * S + 2_000_000)
+    assert out1.incidents == [] and out2.incidents == []
+    assert np.all(
+        np.diff(np.concatenate([out1.edges.t_ns, out2.edges.t_ns])) == [1_000_000_000, 1_200_000_000]
+    )
+
+
+def test_a_stall_without_disconnect_adds_no_wraps():
+    # 16 bits at 1 MHz wrap every 65.5 ms; a 2 s reader stall with everything buffered loses nothing
+    smp = Sampler(1_000_000, 16, seed=12)
+    tl = Timeline()
+    tl.push([smp.announce], 0)
+    true, placed, inc = run_stream(tl, smp, 0, 0.5, 0.01, latency_ms=0.01)
+    true2 = []
+    recs = []
+    for k in range(1, 100):  # 10 ms of records each, all received at once after the stall
+        tt = np.array([int(0.5 * S) + k * 10_000_000 - 3_000_000])
+        recs += [smp.edges(tt), smp.beat(int(0.5 * S) + k * 10_000_000)]
+        true2.append(tt)
+    out = tl.push(recs, int(0.5 * S) + 3 * S)
+    assert inc == [] and out.incidents == []
+    t_true = np.concatenate([true, np.concatenate(true2)]) - true[0]
+    t_got = np.concatenate([placed, out.edges.t_ns])
+    assert np.max(np.abs(t_got - t_true)) < 2_000  # within a tick or two
+
+
+def test_a_counter_jumping_ahead_of_the_host_clock_is_a_reset():
+    smp = Sampler(1_000_000, 32, seed=13)
+    smp.boot_ns = -(0xF0000000 * 1000)  # the counter started near the top of its range
+    tl = Timeline()
+    tl.push([smp.announce], 0)
+    run_stream(tl, smp, 0, 5, 1)
+    # restart without an announcement: the new small tick is 268 s "ahead" modulo 2**32, in 1 s of host time
+    out = tl.push([Edges.of([(0, 1, 1000)])], 6 * S)
+    assert _kinds(out.incidents) == [RESET] and "ahead" in out.incidents[0].detail
