@@ -1,8 +1,8 @@
 """Regenerate tests/vectors/firmware_*.json from the host port (run by hand, after a deliberate change
 to the firmware's output):
 
-    make -C firmware_ref BUILD=/tmp/blref host
-    python tests/firmware/make_fw_vectors.py /tmp/blref/host/blhost
+    make -C firmware_ref host
+    python tests/firmware/make_fw_vectors.py firmware_ref/build/host/blhost
 
 Each file holds a script of pin changes and commands, the host-port options, the exact bytes the core
 sent in each form, and the edges the script describes (computed here from the script, not from the
