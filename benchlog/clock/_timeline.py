@@ -13,13 +13,15 @@ An epoch ends at a sampler reset, recognised by:
 - an announcement the host did not ask for (`expect_announcement` marks one that it did), or one whose
   parameters changed;
 - a tick more than `back_tolerance` behind the latest tick of the epoch (a restarted counter);
-- a tick further ahead of the latest one than the host clock allows (host time elapsed * 1.02 + 1 s).
+- a tick ahead of the host clock: its receive offset (host time - run time) more than 1 s (+ 2 % of the
+  time since) below the least offset of earlier pushes; data cannot arrive before it was sampled, and a
+  backlogged reader only raises offsets.
 The new epoch's counter started at 0 at the reset, so its `rel` is the raw tick, and `epoch_ns0` is set
 from the host time elapsed since the last record: never before the last run time, so run time stays
 monotonic. A RESET incident spans the bridged stretch.
 
-After an outage longer than a quarter wrap (the host saw nothing, so wraps may have been missed) the first
-tick is placed by the host time elapsed: the whole number of wraps that brings the sampler's elapsed time
+After a reported outage (`note_disconnect`) longer than a quarter wrap, wraps may have been missed: the
+first tick is placed by the host time elapsed: the whole number of wraps that brings the sampler's elapsed time
 closest to the host's. Where the wrap period is under 4 s host jitter makes that count doubtful, and a
 CLOCK incident says so.
 
