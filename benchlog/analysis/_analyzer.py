@@ -75,11 +75,14 @@ class Analyzer:
     rows = an.flush()
     ```
     `push` returns the actuations finished so far, `flush` the rest at the end of data. The optional
-    `spec` (a PartSpec) judges each emitted actuation (sets `verdict`).
+    `spec` (a PartSpec) judges each emitted actuation (sets `verdict`); without `settings` its settle
+    window, chatter threshold and glitch floor are used.
     """
 
     def __init__(self, settings: AnalysisSettings | None = None, spec: object | None = None) -> None:
-        self.settings = settings or AnalysisSettings()
+        if settings is None:
+            settings = spec.settings() if hasattr(spec, "settings") else AnalysisSettings()
+        self.settings = settings
         self.spec = spec
         self.counters = AnalyzerCounters()
         self._channels: dict[int, _Channel] = {}

@@ -40,6 +40,7 @@ def test_json_summary_counts_match_the_simulator(tmp_path, capsys, form):
     assert main(["analyze", str(path), "--spec", "AG-MS5", "--json"]) == 0
     doc = json.loads(capsys.readouterr().out)
     truth = bench.truth.actuations
+    truth = truth[truth["t_drive_ns"] < 3 * S]  # the simulator may have planned cycles it never sent
     assert doc["part"] == "AG-MS5" and doc["decode"]["faults"] == 0
     for ch in doc["channels"]:
         t = truth[truth["channel"] == ch["channel"]]

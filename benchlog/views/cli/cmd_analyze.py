@@ -150,7 +150,7 @@ def analyze_file(path: str, settings, spec=None, tick_hz=None, counter_bits=None
         if decoder.counters.records == 0:
             raise DataError(f"{path}: no sampler records found ({decoder.counters.faults} decode faults)")
         raise DataError(f"{path}: no announcement in the stream: give --tick-hz and --counter-bits")
-    rows.append(analyzer.flush())
+    rows.append(analyzer.flush(until_ns=timeline.run_ns + 1))  # beats tell how long the data ran
     table = np.concatenate(rows)
     c = decoder.counters
     return {
