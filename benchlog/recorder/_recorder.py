@@ -22,6 +22,7 @@ from benchlog.analysis import AnalysisSettings, Analyzer, judge
 from benchlog.errors import PortError, StoreError
 from benchlog.store import (
     END_ALL_FAILED,
+    END_IDLE,
     END_STOPPED,
     END_STORE_ERROR,
     END_TARGET,
@@ -93,6 +94,7 @@ class Recorder:
         self.actuations = 0
         self._last_flush = time.monotonic()
         self.failures: list = []
+        self.last_drive_at: float | None = None  # monotonic time of the latest drive record
 
     # -- what to send -------------------------------------------------------------------------------
     def plans(self, on_us: int, off_us: int):
@@ -109,6 +111,8 @@ class Recorder:
     # -- feeding ------------------------------------------------------------------------------------
     def push(self, timed) -> None:
         """One `Timed` batch from the feed (edges, drives, incidents)."""
+        if len(timed.drives):
+            self.last_drive_at = time.monotonic()
         until = None
         beats = getattr(timed, "beats", None)
         if beats is not None and len(beats):
@@ -196,8 +200,12 @@ class Recorder:
         on_progress: Callable[[Progress], None] | None = None,
         progress_every_s: float = 1.0,
         grace_s: float = 0.5,
+        idle_s: float = 10.0,
     ) -> str:
         """Record from `feed` until the target, every unit failing, or `stop`; returns the end reason.
+
+        `idle_s`: with a cycle target, no drive record for this long while connected means the sampler
+        has finished its plan although the target was not seen (cycles lost in an outage): END_IDLE.
 
         A StoreError (disk full, read-only database, lost lease) stops the recording: the run is left
         as it was at its last commit (resumable) and the error is raised again."""
@@ -225,6 +233,15 @@ class Recorder:
                         reason, ending_at = END_TARGET, now + grace_s  # let the last break arrive
                     elif stop.is_set():
                         reason, ending_at = END_STOPPED, now
+                    elif (
+                        self.writer.target_cycles
+                        and self.last_drive_at is not None
+                        and getattr(feed, "connected", True)
+                        and now - self.last_drive_at > idle_s
+                    ):
+                        # connected, yet no actuator switched for a long while: the sampler finished
+                        # its plan while some of its cycles were lost (see the run's incidents)
+                        reason, ending_at = END_IDLE, now
                 if ending_at is not None and now >= ending_at:
                     break
         except KeyboardInterrupt:

@@ -1,7 +1,7 @@
 """The command line's forms for units and cycle profiles, and registering units in the store.
 
-Units: `CH=SERIAL` or `CH=PART/LOT/SERIAL` (a part number, lot code or serial may hold any character
-but `/` in the short form; `=` only after the first). Channels are 0-15. The part and lot default to
+Units: `CH=SERIAL` or `CH=PART/LOT/SERIAL` (the part number and lot code may hold any character but
+`/`, the serial any character at all). Channels are 0-15. The part and lot default to
 `--part` / `--lot`. Profile: `ON_MS:OFF_MS:CYCLES` (CYCLES 0 = until stopped), e.g. `50:50:200000`.
 """
 
@@ -73,7 +73,7 @@ def _parse_one(text: str, part: str | None, lot: str | None, supplier: str) -> U
         raise ConfigError(f"unit {text!r}: the channel must be a number 0-15") from exc
     if not 0 <= channel <= 15:
         raise ConfigError(f"unit {text!r}: the channel must be 0-15")
-    fields = rest.split("/")
+    fields = rest.split("/", 2)
     if len(fields) == 3:
         p, lt, serial = fields
     elif len(fields) == 1:

@@ -157,8 +157,9 @@ class IncidentInfo:
 
     @property
     def duration_s(self) -> float:
-        """Length in host time (the sampler's clock may not have run across it)."""
-        return max(self.host_end_ns - self.host_start_ns, self.t_end_ns - self.t_start_ns) / 1e9
+        """Length in host (wall-clock) time; in run time when no host times were recorded."""
+        host = self.host_end_ns - self.host_start_ns
+        return (host if host > 0 else self.t_end_ns - self.t_start_ns) / 1e9
 
 
 @dataclass(frozen=True, slots=True, eq=False)

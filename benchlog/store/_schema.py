@@ -64,7 +64,8 @@ END_STOPPED = "stopped"  # Ctrl-C / stop requested
 END_PORT_LOST = "port_lost"  # the port was lost for good
 END_STORE_ERROR = "store_error"  # the database refused a write (disk full, read-only)
 END_ERROR = "error"
-END_REASONS = (END_TARGET, END_ALL_FAILED, END_STOPPED, END_PORT_LOST, END_STORE_ERROR, END_ERROR)
+END_IDLE = "sampler_idle"  # the sampler stopped cycling before the target was seen (cycles lost)
+END_REASONS = (END_TARGET, END_ALL_FAILED, END_STOPPED, END_PORT_LOST, END_STORE_ERROR, END_ERROR, END_IDLE)
 
 
 class Base(DeclarativeBase):

@@ -34,10 +34,12 @@ def recorded(tmp_path):
     t3[1::2] += 1  # every other change of unit 2 at the same instant as one of unit 1
     lv0 = (np.arange(300) % 2 == 0).astype(np.uint8)  # first edge closes
     lv3 = (np.arange(200) % 2 == 1).astype(np.uint8)  # first edge opens
-    edges = TimedEdges.concat([
-        TimedEdges(t0, np.zeros(300, np.uint8), lv0),
-        TimedEdges(t3, np.full(200, 3, np.uint8), lv3),
-    ])
+    edges = TimedEdges.concat(
+        [
+            TimedEdges(t0, np.zeros(300, np.uint8), lv0),
+            TimedEdges(t3, np.full(200, 3, np.uint8), lv3),
+        ]
+    )
     a = actuations([0, 3], range(20))
     a["transfer_us"][0] = -12.5
     w.add(actuations=a, edges=edges)
@@ -114,7 +116,8 @@ def test_csv_round_trip_with_python_csv_module(recorded):
 def test_export_command(recorded, tmp_path, capsys):
     store, run_id, u, _, path = recorded
     csv_path = tmp_path / "a.csv"
-    assert main(["export", "csv", "--db", path, "--unit", str(u[1]), "--kind", "make", "-o", str(csv_path)]) == 0
+    argv = ["export", "csv", "--db", path, "--unit", str(u[1]), "--kind", "make", "-o", str(csv_path)]
+    assert main(argv) == 0
     assert len(list(csv.DictReader(io.StringIO(csv_path.read_text())))) == 20
     vcd_path = tmp_path / "a.vcd"
     assert main(["export", "vcd", "--db", path, "--run", str(run_id), "-o", str(vcd_path)]) == 0

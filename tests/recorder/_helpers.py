@@ -1,0 +1,94 @@
+"""Running the recorder against the simulated sampler on a real pseudo-terminal."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import threading
+import time
+
+from benchlog.analysis import load_spec
+from benchlog.ingest import Feed
+from benchlog.recorder import Recorder
+from benchlog.sim import PtySampler, load_preset
+
+SPEED = 20.0
+
+
+def demo_config(**faults):
+    cfg = load_preset("demo")
+    return cfg.with_faults(**faults) if faults else cfg
+
+
+def record_sim(
+    store,
+    cfg,
+    channels,
+    cycles,
+    *,
+    speed=SPEED,
+    bench="bench T",
+    seed=3,
+    timeout_s=60,
+    fail_after=5,
+    on_running=None,
+    keep_sim=False,
+):
+    """Record `cycles` cycles (50 ms on / 50 ms off) of `channels` of `cfg`; returns (reason, writer,
+    recorder, sim, feed counters)."""
+    part = store.register_part("AG-MS5", "Ashgrove Components")
+    lot = store.register_lot(part, "T1")
+    units = {ch: store.register_unit(lot, f"T-{ch}") for ch in channels}
+    bench_id = store.register_bench(bench)
+    writer = store.start_run(
+        bench_id,
+        units,
+        profile={"on_ms": 50, "off_ms": 50, "cycles": cycles},
+        target_cycles=cycles,
+        rollup_window=20,
+        fail_after=fail_after,
+    )
+    spec = load_spec("AG-MS5")
+    rec = Recorder(
+        writer, settings=spec.settings(), specs=dict.fromkeys(channels, spec), fail_after=fail_after
+    )
+    stop = threading.Event()
+    timer = threading.Timer(timeout_s, stop.set)
+    timer.start()
+    try:
+        with (
+            PtySampler(cfg, seed=seed, speed=speed) as sim,
+            Feed(sim.path, speed=speed, wait_s=5.0, backoff_s=(0.01, 0.1)) as feed,
+        ):
+            feed.start_cycling(rec.plans(50_000, 50_000))
+            if on_running:
+                on_running(sim, writer)
+            reason = rec.run(feed, stop, grace_s=0.3)
+            counters = feed.counters
+    finally:
+        timer.cancel()
+    return reason, writer, rec, sim, counters
+
+
+def cli(*args, db: str, **kw) -> subprocess.Popen:
+    """`benchlog ARGS --db DB` in its own process."""
+    env = {k: v for k, v in os.environ.items() if k != "BENCHLOG_DEBUG"}
+    return subprocess.Popen(
+        [sys.executable, "-m", "benchlog", *args, "--db", db],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=env,
+        **kw,
+    )
+
+
+def wait_for(predicate, timeout_s: float, what: str):
+    end = time.monotonic() + timeout_s
+    while time.monotonic() < end:
+        value = predicate()
+        if value:
+            return value
+        time.sleep(0.1)
+    raise AssertionError(f"timed out waiting for {what}")
