@@ -90,3 +90,20 @@ def test_settings_file_sets_wiring(tmp_path, capsys):
     assert main(["analyze", str(path), "--settings", str(conf)]) != 0
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "settle: unknown key" in err
+
+
+def test_hand_typed_line_form_measured_by_hand(tmp_path, capsys):
+    # A minimal port's output (no checksums), ticks in us (hex):
+    # drive on at 0x1000 = 4096 us; make at 0x2388 = 9096 us (operate 5000 us); reopens 0x2400-0x2500,
+    # settles at 9472 us (bounce 376 us); drive off at 0xF424 = 62500 us, break at 0x10000 = 65536 us
+    # (release 3036 us); drive on at 0x186A0 = 100000 us and no edge after it: stuck open.
+    path = tmp_path / "hand.txt"
+    path.write_text(
+        "A 1 1000000 32 8 HANDMADE\nB 0 0 0\nD 0 1 1000\nE 0 1 2388\nE 0 0 2400\nE 0 1 2500\n"
+        "B c350 3 0\nD 0 0 F424\nE 0 0 10000\nB 186a0 4 0\nD 0 1 186a0\nB 30d40 4 0\n"
+    )
+    assert main(["analyze", str(path), "--settle-ms", "2", "--json"]) == 0
+    ch = json.loads(capsys.readouterr().out)["channels"][0]
+    assert ch["operate_us"]["max"] == 5000.0 and ch["make_bounce_us"]["max"] == 376.0
+    assert ch["release_us"]["max"] == 3036.0 and ch["break_bounce_us"]["max"] == 0.0
+    assert ch["stuck"] == 1 and ch["missed"] == 1 and ch["make_bounce_count"]["max"] == 1.0
