@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from benchlog.analysis import INCOMPLETE, MAKE, AnalysisSettings, Analyzer, measure
-from benchlog.clock._timeline import Timeline
+from benchlog.clock import Timeline
 from benchlog.events import RESET, SEQUENCE_GAP
 from benchlog.sim import Bench, load_preset
 from benchlog.wire import Announce, Decoder, Drive, Edges, Go, LineEncoder, Plan
