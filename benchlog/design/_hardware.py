@@ -34,7 +34,7 @@ from benchlog.design._score import Windows, score
 from benchlog.design._thresholds import InputThresholds
 from benchlog.errors import ConfigError, DataError
 
-_CHUNK = 4_000_000  # rows x edges per replay
+_CHUNK = 1_500_000  # rows x edges per replay (bounds the memory of one replay to ~200 MB)
 
 
 @dataclass(frozen=True, slots=True)
