@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import re
 import subprocess
+import threading
 from pathlib import Path
 
 import pytest
@@ -101,10 +102,19 @@ def run_on_pty(blsim: Path, avr_elf: Path, script: str, tmp_path: Path, *flags: 
         proc.stdin.flush()
         data = bytearray(port.read_until(b"\n" if not flags else b"\x00"))  # the announcement
         port.write(b"PING 9\nPLAN 2 3000 2000 4\nGO\n")
+        # read while the emulation runs, so a full terminal buffer can never stall the harness
+        stop = threading.Event()
+
+        def read() -> None:  # until the run is over and the terminal has been drained
+            while (chunk := port.read(4096)) or not stop.is_set():
+                data.extend(chunk)
+
+        reader = threading.Thread(target=read, daemon=True)
+        reader.start()
         done = proc.stdout.readline()
         assert done.startswith("done"), done + proc.stderr.read()
-        while chunk := port.read(4096):
-            data += chunk
+        stop.set()
+        reader.join(timeout=10)
         port.close()
     finally:
         proc.stdin.close()
