@@ -101,7 +101,7 @@ async def test_navigate_filter_sort_history_and_back(built):
         # the failed unit
         failed = store.units(ids=[ids["units"][6]])[0]
         frow = serials.index(failed.serial)
-        assert cell_text(t, frow, "life") == f"FAILED missed make @{cycles_text(failed.failed_at_cycle)}"
+        assert cell_text(t, frow, "life") == f"FAILED {cycles_text(failed.failed_at_cycle)} missed"
         # sort by verdict: FAIL first
         await pilot.press("s", "s")
         assert units.sort_key == "drift"

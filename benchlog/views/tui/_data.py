@@ -331,9 +331,17 @@ class UnitRow:
     def life_text(self) -> str:
         u = self.unit
         if u.status == FAILED:
-            mode = (u.failure_mode or "failed").replace("_", " ")
-            return f"FAILED {mode} @{cycles_text(u.failed_at_cycle or u.cycles)}"
+            mode = (u.failure_mode or "").replace("_", " ").split(" ")[0]
+            return f"FAILED {cycles_text(u.failed_at_cycle or u.cycles)} {mode}".rstrip()
         return u.status.upper()
+
+    @property
+    def life_words(self) -> str:
+        u = self.unit
+        if u.status == FAILED:
+            mode = (u.failure_mode or "unknown mode").replace("_", " ")
+            return f"failed at cycle {u.failed_at_cycle or u.cycles:,}: {mode}"
+        return f"{u.status}, {u.cycles:,} cycles"
 
     def search_text(self) -> str:
         u = self.unit
@@ -590,12 +598,14 @@ def cycles_text(c: float | int | None) -> str:
 
 
 def value_text(v: float, metric: str = "make_bounce") -> str:
-    """A metric value for a table cell: times in ms (they are stored in us), counts as numbers."""
+    """A metric value for a table cell: times in ms (they are stored in us) with two decimals below
+    10 ms and one above, counts as numbers."""
     if v is None or math.isnan(v):
         return "-"
     if "count" in metric or metric.startswith("chatter"):
         return f"{v:.0f}"
-    return f"{v / 1000:.2f}"
+    ms = v / 1000
+    return f"{ms:.2f}" if abs(ms) < 10 else f"{ms:.1f}"
 
 
 def duration_text(s: float | None) -> str:

@@ -121,16 +121,7 @@ class PopulationScreen(DataScreen):
         for pu in data.units:
             lots.setdefault(pu.unit.lot, []).append(pu)
         summary = Table(box=None, padding=(0, 1), header_style="bold")
-        for col in (
-            "lot",
-            "units",
-            "failed",
-            "fail verdict",
-            "median p95",
-            "worst p95",
-            "worst max",
-            "cycles",
-        ):
+        for col in ("lot", "units", "failed", "FAIL", "p95 med", "p95 top", "max", "cycles"):
             summary.add_column(col, justify="right" if col != "lot" else "left")
         for lot, pus in lots.items():
             p95 = np.array([pu.figures[self.metric].p95 for pu in pus])

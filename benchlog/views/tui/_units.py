@@ -63,7 +63,7 @@ def drift_cell(row: UnitRow) -> Text:
     if not sig:
         return Text("steady", style=DIM_STYLE)
     first = min(sig, key=lambda d: d.crossing_cycle if d.crossing_cycle is not None else math.inf)
-    short = {"make bounce": "mk", "break bounce": "bk", "operate time": "op", "release time": "rl"}
+    short = {"make bounce": "mk", "break bounce": "brk", "operate time": "op", "release time": "rel"}
     names = "+".join(short.get(d.words, d.words) for d in sig)
     if first.past_limit:
         cross = " over"
@@ -119,12 +119,11 @@ class UnitsScreen(DataScreen):
             ("Cycles", "cycles"),
             ("Life", "life"),
             ("Verdict", "verdict"),
-            ("Make p95/max", "make"),
-            ("Break p95/max", "break"),
-            ("Op", "op"),
-            ("Rel", "rel"),
-            ("Chat", "chat"),
+            ("Make", "make"),
+            ("Break", "break"),
             ("Drift", "drift"),
+            ("Op/Rel", "oprel"),
+            ("Chat", "chat"),
         ):
             t.add_column(label, key=key)
         self.query_one("#filter", Input).display = False
@@ -186,16 +185,15 @@ class UnitsScreen(DataScreen):
                 verdict_text(u),
                 pair(f["make_bounce"]),
                 pair(f["break_bounce"]),
-                value_text(f["operate_time"].p95),
-                value_text(f["release_time"].p95),
-                str(u.chatter),
                 drift_cell(u),
+                f"{value_text(f['operate_time'].p95)}/{value_text(f['release_time'].p95)}",
+                str(u.chatter),
                 key=str(u.unit.id),
             )
         if self.rows:
             idx = next((i for i, u in enumerate(self.rows) if u.unit.id == keep), 0)
             t.move_cursor(row=idx)
-        view = Text(" times in ms, rolling last 10 windows", style=DIM_STYLE)
+        view = Text(" ms, last 10 windows: make/break p95/max, op/rel p95", style=DIM_STYLE)
         view.append(f"   sort: {self.sort_key}{' (reversed)' if self.reverse else ''}")
         if self.verdict_filter is not None:
             view.append(f"   verdict: {VERDICT_LABEL_SHORT[self.verdict_filter]}")
@@ -235,6 +233,7 @@ class UnitsScreen(DataScreen):
             )
         head = Text(f"{u.unit.serial}", style="bold")
         head.append(f"  {u.unit.part_number} ({u.unit.supplier or 'no supplier'}) lot {u.unit.lot}  ")
+        head.append(u.life_words + "  ")
         head.append_text(verdict_text(u))
         if u.reasons:
             head.append(": " + "; ".join(u.reasons[:2]))
