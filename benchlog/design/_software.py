@@ -86,7 +86,9 @@ class LifeRow:
     cycle_hi: int
     actuations: int
     bounce_max_ms: float
-    choices: dict[str, tuple[int, int, float]]  # debouncer -> (make, brk, delay p99 ms); -1: none clean
+    choices: dict[
+        str, tuple[int, int, float]
+    ]  # debouncer -> (make, brk, delay p99 ms); -1: none clean, -2: unbounded tail
     # (a NaN delay: the tail asks for more than the sweep replayed)
 
 
@@ -153,7 +155,12 @@ def _point(debouncer: str, m: int, b: int, ts: int, s: Score, row: int, sel: np.
     )
 
 
+_NEVER = 10**9  # a requirement no replay can meet (an unbounded fitted tail)
+
+
 def _covering(debouncer: str, figure_ns: float, ts: int) -> int:
+    if not math.isfinite(figure_ns) or figure_ns / ts > _NEVER:
+        return _NEVER
     return max(1, int(math.ceil(figure_ns / ts - 1e-9)) + _OFFSET[debouncer])
 
 
@@ -235,12 +242,17 @@ def design_software(
             want = (max(clean[0], need),) * 2 if clean else None
             life_scores[deb] = (params, s1)
         sweeps[deb] = pts
-        choices[deb] = _choose(chans, deb, want, ts, fit_m, fit_b, judged_all, n_judged, target_rate, pts)
+        limit = min(caps.get(deb, 4096), 4096)
+        choices[deb] = _choose(
+            chans, deb, want, ts, fit_m, fit_b, judged_all, n_judged, target_rate, pts, limit
+        )
     life = _life(chans, life_scores, judged_all, kinds, cycles, ts, target_rate, life_windows)
     return SoftwareDesign(ts, target_rate, n_judged, sweeps, choices, life)
 
 
-def _choose(chans, deb, want, ts, fit_m: Tail, fit_b: Tail, judged_all, n_judged, target, pts) -> Choice:
+def _choose(
+    chans, deb, want, ts, fit_m: Tail, fit_b: Tail, judged_all, n_judged, target, pts, limit
+) -> Choice:
     fig = FIGURE[deb]
     tails = (fit_m.describe(), fit_b.describe())
     if want is None:
@@ -255,6 +267,18 @@ def _choose(chans, deb, want, ts, fit_m: Tail, fit_b: Tail, judged_all, n_judged
             note=f"no clean setting up to {pts[-1].window_ms:.3g} ms",
         )
     m, b = want
+    if max(m, b) > limit:  # more than the stable period allows (or an unbounded tail): no replay there
+        asked = "more than any window" if max(m, b) >= _NEVER else f"{max(m, b) * ts / 1e6:g} ms"
+        return Choice(
+            deb,
+            None,
+            np.nan,
+            np.nan,
+            zero_event_bound(n_judged),
+            FIGURE_TEXT[fig],
+            *tails,
+            note=f"the fitted tail asks for {asked}, beyond {limit * ts / 1e6:g} ms (the stable period)",
+        )
     point = None
     note = ""
     for extra in range(8):  # the sampled outcome is not strictly monotone: step up until clean
@@ -311,7 +335,9 @@ def _life(chans, life_scores, judged_all, kinds, cycles, ts, target, k) -> list[
             if not ok:
                 # the tail asks for more than the sweep replayed: report the requirement, delay unknown
                 clean_i = [i for i in range(len(params)) if clean[i]]
-                if not clean_i:
+                if max(need_m, need_b) >= _NEVER:
+                    choices[deb] = (-2, -2, np.nan)
+                elif not clean_i:
                     choices[deb] = (-1, -1, np.nan)
                 else:
                     m0, b0 = params[clean_i[0]]

@@ -543,7 +543,7 @@ def _as_text(names, soft, hard, tried, np) -> str:
             for d in soft.choices:
                 m, b, p99 = r.choices[d]
                 if m < 0:
-                    cells.append(f"{'none clean':>24}")
+                    cells.append(f"{'none clean' if m == -1 else 'tail unbounded':>24}")
                     continue
                 w = m * soft.ts_ns / 1e6
                 text = f"{w:g}/{b * soft.ts_ns / 1e6:g} ms" if d == "confirm" else f"{w:g} ms"
