@@ -209,3 +209,32 @@ def test_shortest_resolvable_pulse(blsim: Path, avr_elf: Path, tmp_path: Path) -
         assert w <= m <= 12_000
     for m, w in zip(measured[-2:], widths[4:], strict=True):
         assert abs(m - w) <= ISOLATED_TOLERANCE_NS
+
+
+def run_to_file(blsim: Path, avr_elf: Path, script: str, tmp_path: Path) -> list:
+    path = tmp_path / "script.txt"
+    path.write_text(script)
+    out = tmp_path / "out.bin"
+    command = [str(blsim), "--elf", str(avr_elf), "--script", str(path), "--out", str(out)]
+    subprocess.run(command, check=True, capture_output=True, timeout=60)
+    return decode_all(out.read_bytes())
+
+
+def test_edges_at_the_16_bit_timer_wrap_keep_their_high_half(
+    blsim: Path, avr_elf: Path, tmp_path: Path
+) -> None:
+    """The software extension of Timer1 to 32 bits: an edge sampled just before or just after the
+    hardware counter wraps (every 32.768 ms), while the overflow interrupt is still pending, must
+    not be 32.768 ms off."""
+    probe = edge_rows(run_to_file(blsim, avr_elf, "10000000 edge 5 1\n30000000 end\n", tmp_path))
+    timer_start_ns = 10_000_000 - probe[0][2] * TICK_NS  # the emulation is deterministic
+    offsets = [-2_000, -1_000, -500, -250, 0, 250, 500, 1_000, 2_000, 4_000]
+    rows, level = [], 0
+    for k, delta in enumerate(offsets, start=1):
+        level ^= 1
+        rows.append((timer_start_ns + k * 2**16 * TICK_NS + delta, level))
+    script = "".join(f"{t} edge 5 {lv}\n" for t, lv in rows) + f"{rows[-1][0] + 600_000_000} end\n"
+    got = edge_rows(run_to_file(blsim, avr_elf, script, tmp_path))
+    assert [lv for _, lv, _ in got] == [lv for _, lv in rows]
+    for (_, _, tick), (t, _) in zip(got, rows, strict=True):
+        assert abs(tick * TICK_NS + timer_start_ns - t) <= ISOLATED_TOLERANCE_NS
