@@ -131,18 +131,45 @@ class _PooledCdf:
             ]
         ).astype(np.float64)
         self.n = np.diff(bounds).astype(np.float64)
+        self._windows: dict[float, tuple[int, int]] = {}
+
+    def _window(self, percentile: float) -> tuple[int, int]:
+        """Grid slice that holds the pooled quantile for *any* unit weights: a mixture's quantile lies
+        between the smallest and the largest of its components' quantiles."""
+        win = self._windows.get(percentile)
+        if win is None:
+            hit = self.counts >= (percentile / 100.0) * self.n[:, None]
+            first = np.where(hit.any(axis=1), hit.argmax(axis=1), len(self.grid) - 1)
+            win = (max(int(first.min()) - 1, 0), int(first.max()))
+            self._windows[percentile] = win
+        return win
 
     def quantile(self, weights: np.ndarray, percentile: float) -> np.ndarray:
-        cum = weights @ self.counts  # (..., grid)
+        """The q-quantile of the pooled values with each unit's values counted `weights[u]` times: the
+        inverse of the pooled ECDF drawn linearly between the values present (for distinct values,
+        numpy's 'interpolated_inverted_cdf')."""
+        weights = np.asarray(weights, dtype=np.float64)
+        shape = weights.shape[:-1]
+        weights = weights.reshape(-1, weights.shape[-1])
+        a, b = self._window(percentile)
+        cum = weights @ self.counts[:, a : b + 1]  # (..., window)
         target = (weights @ self.n) * (percentile / 100.0)
-        idx = np.minimum((cum < target[..., None]).sum(axis=-1), len(self.grid) - 1)
-        hi = self.grid[idx]
-        lo = self.grid[np.maximum(idx - 1, 0)]
-        c_hi = np.take_along_axis(cum, idx[..., None], -1)[..., 0]
-        c_lo = np.take_along_axis(cum, np.maximum(idx - 1, 0)[..., None], -1)[..., 0]
+        local = np.minimum((cum < target[..., None]).sum(axis=-1), b - a)
+        hi = self.grid[a + local]
+        c_hi = np.take_along_axis(cum, local[..., None], -1)[..., 0]
+        c_lo = np.take_along_axis(cum, np.maximum(local - 1, 0)[..., None], -1)[..., 0]
+        c_lo = np.where(local == 0, 0.0, c_lo)
+        # the value present just below: where the count first reached c_lo (grid points of units
+        # with weight 0 lie in between and must be skipped)
+        first = (cum < c_lo[..., None]).sum(axis=-1)
+        lo = self.grid[a + first]
+        outside = (local > 0) & (first == 0) & (a > 0)
+        if np.any(outside):  # that value lies left of the window: search the whole grid for these
+            full = weights[outside] @ self.counts
+            lo[outside] = self.grid[(full < c_lo[outside][..., None]).sum(axis=-1)]
         with np.errstate(invalid="ignore", divide="ignore"):
             frac = np.where(c_hi > c_lo, (target - c_lo) / (c_hi - c_lo), 1.0)
-        return np.where(idx == 0, hi, lo + np.clip(frac, 0.0, 1.0) * (hi - lo))
+        return np.where(c_lo <= 0, hi, lo + np.clip(frac, 0.0, 1.0) * (hi - lo)).reshape(shape)
 
 
 def _weights(idx: np.ndarray, n_units: int) -> np.ndarray:

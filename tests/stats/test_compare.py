@@ -146,3 +146,19 @@ def test_unit_sample_drops_nan_and_tags_units():
     s = UnitSample.of([1.0, np.nan, 3.0, 4.0], ["b", "a", "a", "c"])
     assert len(s) == 3 and s.unit_names == ("a", "b", "c")
     assert np.allclose(s.per_unit(50), [3.0, 1.0, 4.0])
+
+
+def test_weighted_pooled_quantile_equals_replicated_data():
+    # a bootstrap resample drawing unit u w_u times is the data with u's values repeated w_u times; the
+    # pooled quantile inverts that data's ECDF drawn linearly between its distinct values (numpy's
+    # 'interpolated_inverted_cdf' where there are no ties), computed here with np.unique and np.interp
+    s = clustered(units=6, per_unit=150, seed=9)
+    cdf = s.pooled_cdf()
+    rng = np.random.default_rng(1)
+    for _ in range(20):
+        w = rng.multinomial(6, np.full(6, 1 / 6)).astype(float)
+        rep = np.concatenate([np.repeat(s.values[s.unit == u], int(w[u])) for u in range(6)])
+        uniq, counts = np.unique(rep, return_counts=True)
+        for q in (50.0, 95.0, 99.0):
+            ref = np.interp(q / 100 * len(rep), np.cumsum(counts), uniq)
+            assert float(cdf.quantile(w, q)) == pytest.approx(ref, rel=1e-12)
