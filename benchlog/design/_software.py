@@ -242,7 +242,8 @@ def design_software(
             want = (max(clean[0], need),) * 2 if clean else None
             life_scores[deb] = (params, s1)
         sweeps[deb] = pts
-        limit = min(caps.get(deb, 4096), 4096)
+        # physical limit: a lockout or confirm window longer than the shortest usual stable period
+        limit = min(quiet_samples if deb in caps else 4096, 4096)
         choices[deb] = _choose(
             chans, deb, want, ts, fit_m, fit_b, judged_all, n_judged, target_rate, pts, limit
         )
