@@ -91,6 +91,8 @@ def test_capture_of_the_simulated_sampler(tmp_path, capsys):
     assert out["software"]["actuations"] > 300  # 200 cycles of make + break
     for c in out["software"]["choices"].values():
         assert c["point"]["false"] == 0
+    assert sum(w["actuations"] for w in out["software"]["life"]) == out["software"]["actuations"]
+    assert out["software"]["life"][0]["choices"]["lockout"]["window_ms"] > 0
 
 
 def test_store_units(tmp_path, capsys):

@@ -437,6 +437,27 @@ def _clean(obj):
     return obj
 
 
+def _life_json(row, ts_ns):
+    out = {
+        "cycle_lo": row.cycle_lo,
+        "cycle_hi": row.cycle_hi,
+        "actuations": row.actuations,
+        "bounce_max_ms": row.bounce_max_ms,
+        "choices": {},
+    }
+    for deb, (m, b, p99) in row.choices.items():
+        if m < 0:
+            out["choices"][deb] = {"status": "none clean" if m == -1 else "tail unbounded"}
+        else:
+            out["choices"][deb] = {
+                "window_ms": m * ts_ns / 1e6,
+                "break_window_ms": b * ts_ns / 1e6,
+                "delay_p99_ms": p99,
+                "replayed": math.isfinite(p99),
+            }
+    return out
+
+
 def _as_json(names, soft, hard, tried):
     from dataclasses import asdict
 
@@ -448,7 +469,7 @@ def _as_json(names, soft, hard, tried):
             "actuations": soft.actuations,
             "choices": {k: asdict(c) for k, c in soft.choices.items()},
             "sweeps": {k: [asdict(p) for p in v] for k, v in soft.sweeps.items()},
-            "life": [asdict(r) for r in soft.life],
+            "life": [_life_json(r, soft.ts_ns) for r in soft.life],
         },
     }
     if hard is not None:
