@@ -9,6 +9,7 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from numbers import Integral
 
 import numpy as np
 from sqlalchemy import and_, func, select
@@ -196,6 +197,11 @@ class LifeTable:
         return len(self.unit_id)
 
 
+def _ints(values) -> list[int]:
+    """Ids as Python ints (numpy integers are not bound as integers by every driver)."""
+    return [int(v) for v in values]
+
+
 def _float(v) -> float:
     return float("nan") if v is None else float(v)
 
@@ -256,7 +262,7 @@ class ReadAPI:
         if lot is not None:
             q = q.where(self._lot_cond(lot))
         if ids is not None:
-            q = q.where(s.Unit.id.in_(list(ids)))
+            q = q.where(s.Unit.id.in_(_ints(ids)))
         with self._read("units") as c:
             return [self._unit_info(r) for r in c.execute(q.order_by(s.Unit.id)).all()]
 
@@ -292,7 +298,7 @@ class ReadAPI:
         """Runs, newest first; `state` filters on RunInfo.state ('live', 'interrupted', 'ended')."""
         q = self._run_query()
         if bench is not None:
-            q = q.where(s.Bench.id == bench if isinstance(bench, int) else s.Bench.name == bench)
+            q = q.where(s.Bench.id == int(bench) if isinstance(bench, Integral) else s.Bench.name == bench)
         q = q.order_by(s.Run.id.desc())
         with self._read("runs") as c:
             out = [self._run_info(r) for r in c.execute(q).all()]
@@ -301,6 +307,7 @@ class ReadAPI:
         return out[:limit] if limit else out
 
     def run(self, run_id: int) -> RunInfo:
+        run_id = int(run_id)
         with self._read(f"run {run_id}") as c:
             row = c.execute(self._run_query().where(s.Run.id == run_id)).first()
         if row is None:
@@ -309,6 +316,7 @@ class ReadAPI:
 
     def run_units(self, run_id: int) -> list[RunUnitInfo]:
         """The units of a run, by channel, with life status and each metric's latest rollup window."""
+        run_id = int(run_id)
         q = self._unit_query().add_columns(s.RunUnit.channel, s.RunUnit.cycle_base, s.RunUnit.cycles_done)
         q = q.join(s.RunUnit, s.RunUnit.unit_id == s.Unit.id).where(s.RunUnit.run_id == run_id)
         with self._read(f"units of run {run_id}") as c:
@@ -352,6 +360,7 @@ class ReadAPI:
             return out
 
     def incidents(self, run_id: int, *, kind: str | None = None) -> list[IncidentInfo]:
+        run_id = int(run_id)
         q = select(s.Incident).where(s.Incident.run_id == run_id)
         if kind is not None:
             q = q.where(s.Incident.kind == kind)
@@ -362,6 +371,7 @@ class ReadAPI:
     # -- measurements ---------------------------------------------------------------------------------
     def trend(self, unit_id: int, metric: str, *, kind: int | str = MAKE, run_id: int | None = None) -> Trend:
         """One metric of one unit per rollup window (from the rollups; never scans actuations)."""
+        unit_id, run_id = int(unit_id), None if run_id is None else int(run_id)
         if metric not in s.ROLLUP_METRICS:
             raise DataError(f"no rollups for {metric!r}: one of {', '.join(s.ROLLUP_METRICS)}")
         k = _kind(kind)
@@ -403,15 +413,15 @@ class ReadAPI:
         a = s.Actuation.__table__.c
         cond = []
         if units is not None:
-            cond.append(a.unit_id.in_(list(units)))
+            cond.append(a.unit_id.in_(_ints(units)))
         if runs is not None:
-            cond.append(a.run_id.in_(list(runs)))
+            cond.append(a.run_id.in_(_ints(runs)))
         if lots is not None or parts is not None:
             uq = select(s.Unit.id).join(s.Lot)
             if lots is not None:
-                uq = uq.where(s.Lot.id.in_(list(lots)))
+                uq = uq.where(s.Lot.id.in_(_ints(lots)))
             if parts is not None:
-                ids = [p for p in parts if isinstance(p, int)]
+                ids = [int(p) for p in parts if isinstance(p, Integral)]
                 names = [p for p in parts if isinstance(p, str)]
                 uq = uq.join(s.Part).where(s.Part.id.in_(ids) | s.Part.part_number.in_(names))
             cond.append(a.unit_id.in_(uq.scalar_subquery()))
@@ -440,6 +450,7 @@ class ReadAPI:
     ) -> TimedEdges:
         """Raw edges of one unit, in run time, over `t_ns` [start, end] or over the life `cycles`
         [first, last] (from the start of the first to the start of the cycle after the last)."""
+        unit_id, run_id = int(unit_id), None if run_id is None else int(run_id)
         e = s.EdgeChunk.__table__.c
         with self._read(f"edges of unit {unit_id}") as c:
             if cycles is not None:
@@ -493,11 +504,11 @@ class ReadAPI:
     # -- helpers --------------------------------------------------------------------------------------
     @staticmethod
     def _part_cond(part: int | str):
-        return s.Part.id == part if isinstance(part, int) else s.Part.part_number == part
+        return s.Part.id == int(part) if isinstance(part, Integral) else s.Part.part_number == part
 
     @staticmethod
     def _lot_cond(lot: int | str):
-        return s.Lot.id == lot if isinstance(lot, int) else s.Lot.code == lot
+        return s.Lot.id == int(lot) if isinstance(lot, Integral) else s.Lot.code == lot
 
     @staticmethod
     def _unit_query():

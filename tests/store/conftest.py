@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import uuid
+from contextlib import contextmanager
 
 import pytest
 from sqlalchemy import create_engine, text
@@ -16,12 +17,9 @@ def _pg_schema_url(base: str) -> tuple[str, str]:
     return schema, f"{base}{sep}options=-csearch_path%3D{schema}"
 
 
-@pytest.fixture(params=["sqlite", "postgresql"])
-def db_url(request, tmp_path):
-    """An empty database: a SQLite file, or a fresh schema on the PostgreSQL test server."""
-    if request.param == "sqlite":
-        yield f"sqlite:///{tmp_path / 'store.sqlite'}"
-        return
+@contextmanager
+def _pg_schema():
+    """A fresh schema on the PostgreSQL test server, dropped afterwards; yields its URL."""
     base = need_postgres_url()
     schema, url = _pg_schema_url(base)
     admin = create_engine(base)
@@ -33,6 +31,22 @@ def db_url(request, tmp_path):
         with admin.begin() as c:
             c.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
         admin.dispose()
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def db_url(request, tmp_path):
+    """An empty database: a SQLite file, or a fresh schema on the PostgreSQL test server."""
+    if request.param == "sqlite":
+        yield f"sqlite:///{tmp_path / 'store.sqlite'}"
+        return
+    with _pg_schema() as url:
+        yield url
+
+
+@pytest.fixture
+def pg_url():
+    with _pg_schema() as url:
+        yield url
 
 
 @pytest.fixture
