@@ -86,17 +86,23 @@ def plot_latency(sweeps: dict[str, list[SweepPoint]]) -> bytes:
     """Added delay (p50, p99, max) against window length per debouncer; hollow = false transitions."""
     fig, ax = _figure()
     for i, (deb, pts) in enumerate(sweeps.items()):
+        name = _LABEL.get(deb, deb)
+        x_of = "window_ms"
         if deb == "confirm":
-            pts = pts[: len(pts) // 2]  # the make-window sweep (the second half sweeps the break window)
+            pts = pts[len(pts) // 2 :]  # the break-window sweep, with the chosen make window
+            if not pts:
+                continue
+            name = f"{name} (break window; make {pts[0].window_ms:g} ms)"
+            x_of = "brk_ms"
         if not pts:
             continue
-        x = np.array([p.window_ms for p in pts])
+        x = np.array([getattr(p, x_of) for p in pts])
         p99 = np.array([p.delay_p99_ms for p in pts])
         mx = np.array([p.delay_max_ms for p in pts])
         clean = np.array([p.clean for p in pts])
         color = f"C{i}"
-        ax.plot(x, p99, color=color, lw=1.4, label=f"{_LABEL.get(deb, deb)} p99")
-        ax.plot(x, mx, color=color, lw=0.8, ls=":", label=f"{_LABEL.get(deb, deb)} max")
+        ax.plot(x, p99, color=color, lw=1.4, label=f"{name} p99")
+        ax.plot(x, mx, color=color, lw=0.8, ls=":", label=f"{name} max")
         ax.scatter(x[clean], p99[clean], color=color, s=12)
         ax.scatter(x[~clean], p99[~clean], facecolors="none", edgecolors=color, s=12)
     ax.set_xlabel("window (ms)")
