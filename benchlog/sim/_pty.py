@@ -27,7 +27,9 @@ from benchlog.sim._config import SimConfig
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
 STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
 MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated time instead
-UNHEARD_S = 0.5  # the pty took nothing for this long: nobody is listening, output is discarded
+UNHEARD_S = 0.5  # an open port took nothing for this long: its reader is stuck, output is discarded
+HELD_LIMIT = 64 << 10  # while no reader has the port open, the sampler holds this much, then drops
+SETTLE_S = 0.05  # a reader that just opened the port is left this long to finish configuring it
 
 
 class PtySampler:
@@ -67,6 +69,7 @@ class PtySampler:
         self.bytes_lost_unplugged = 0
         self.bytes_lost_unheard = 0
         self._last_progress = time.monotonic()
+        self._listening_since: float | None = None
         self.outages: list[tuple[float, float]] = []  # wall-clock (time.time) start/end of each pull
         self.commands_seen: list[bytes] = []
         self.error: BaseException | None = None
@@ -109,8 +112,13 @@ class PtySampler:
             raise PortError(f"cannot open a pseudo-terminal: {exc.strerror}") from exc
         tty.setraw(slave)
         os.set_blocking(master, False)
-        self._master, self._slave = master, slave
         self.slave_name = os.ttyname(slave)
+        # The slave is not kept open here: a read on the master then fails with EIO until a reader
+        # opens the port, which is how the sampler knows whether anyone listens (as a USB serial board
+        # knows whether the host has opened it).
+        os.close(slave)
+        self._master, self._slave = master, -1
+        self._listening_since = None
         tmp = self.path + ".new"
         try:
             if os.path.lexists(tmp):
@@ -174,15 +182,25 @@ class PtySampler:
                 data = bench.step_bytes(step)
                 self._send(data)
             self._flush()
-            if self._backlog and time.monotonic() - self._last_progress > UNHEARD_S:
+            if self._listening_since is None and len(self._backlog) > HELD_LIMIT:
+                # nobody has the port open: the sampler's transmit buffer is full, newer output is lost
+                self.bytes_lost_unheard += len(self._backlog) - HELD_LIMIT
+                del self._backlog[HELD_LIMIT:]
+            if self._backlog and self.listening and time.monotonic() - self._last_progress > UNHEARD_S:
                 # nobody reads the port: like a board whose host is not listening, the sampler runs on
                 # and what it sends is lost (a reader that opens later hears the stream from then on)
                 self.bytes_lost_unheard += len(self._backlog)
                 self._backlog.clear()
             self._wait()
 
+    @property
+    def listening(self) -> bool:
+        """A reader has had the port open for a moment."""
+        since = self._listening_since
+        return since is not None and time.monotonic() - since >= SETTLE_S
+
     def _wait(self) -> None:
-        if self._master < 0:
+        if self._master < 0 or self._listening_since is None:
             time.sleep(0.002)
             return
         wr = [self._master] if self._backlog else []
@@ -198,6 +216,9 @@ class PtySampler:
             self._backlog += data
 
     def _flush(self) -> None:
+        if not self.listening:
+            self._last_progress = time.monotonic()
+            return
         while self._backlog and self._master >= 0:
             try:
                 n = os.write(self._master, self._backlog[: 1 << 16])
@@ -217,11 +238,17 @@ class PtySampler:
         try:
             chunk = os.read(self._master, 4096)
         except (BlockingIOError, InterruptedError):
+            if self._listening_since is None:
+                self._listening_since = time.monotonic()
             return
         except OSError as exc:
-            if exc.errno == errno.EIO:
+            if exc.errno == errno.EIO:  # no reader has the port open
+                self._listening_since = None
+                self._cmd_buf.clear()
                 return
             raise
+        if self._listening_since is None:
+            self._listening_since = time.monotonic()
         self._cmd_buf += chunk
         while True:
             nl = self._cmd_buf.find(b"\n")

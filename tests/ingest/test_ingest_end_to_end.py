@@ -166,3 +166,18 @@ def test_sixteen_bit_counter_many_wraps_exact_times():
     tr = (sent["tick"] - sent["tick"][0]) * 10_000
     assert np.array_equal(e.channel, sent["channel"]) and np.array_equal(e.level, sent["level"])
     assert np.max(np.abs(rx - tr)) <= 1
+
+
+def test_bus_powered_board_comes_back_reset_and_idle():
+    """A board powered by its cable: while out it is off; back, it announces itself afresh (a reset to
+    the clock) and has forgotten its plans, so cycling stops until the host plans again."""
+    faults = "pull_at_s = 6.0\npull_for_s = 0.15\npull_powers_off = true"
+    cfg = parse_config(CONFIG.format(form="line", bits=32, clock_hz=1_000_000, faults=faults), "bus.toml")
+    sim, counters, timed = run_bench(cfg, seconds_sampler=14.0, plan_cycles=0, seed=5)
+    kinds = [i.kind for i in timed.incidents]
+    assert kinds.count(DISCONNECT) == 1 and kinds.count(RESET) == 1
+    reset = next(i for i in timed.incidents if i.kind == RESET)
+    assert len(timed.announcements) >= 2
+    assert np.count_nonzero(timed.edges.t_ns > reset.t_end_ns) == 0  # idle after the power loss
+    assert np.count_nonzero(timed.edges.t_ns < reset.t_start_ns) > 1000
+    assert len(sim.bench.truth.resets) == 1 and not sim.bench.pending_cycles()
