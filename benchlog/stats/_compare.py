@@ -344,7 +344,7 @@ class UnitTests:
     mann_whitney_worse_p: float  # one-sided: first population stochastically greater (worse)
     ks_p: float  # two-sample Kolmogorov-Smirnov, two-sided; NaN for more than two
     anderson_p: float  # Anderson-Darling k-sample (midrank variant)
-    anderson_capped: bool  # scipy caps the tabulated p-value to [0.001, 0.25]
+    anderson_capped: bool  # scipy's table bounds the p-value to [0.001, 0.25]: it lies beyond that
     kruskal_p: float  # Kruskal-Wallis, for any number of populations
 
 
@@ -366,7 +366,7 @@ def unit_tests(per_unit: list[np.ndarray], summary: str) -> UnitTests:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             ad = float(stats.anderson_ksamp(per_unit, variant="midrank").pvalue)
-        capped = any("capped" in str(w.message) for w in caught)
+        capped = any(("capped" in str(w.message) or "floored" in str(w.message)) for w in caught)
     except ValueError:  # all values identical
         ad = nan
     try:

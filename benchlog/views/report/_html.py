@@ -116,7 +116,11 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
         def iv(d, scale=k):
             if not d or d.get("estimate") is None:
                 return "-"
-            return f"{_num(d['estimate'] * scale)} [{_num(d['low'] * scale)}, {_num(d['high'] * scale)}]"
+            f4 = "{:.4g}"
+            return (
+                f"{_num(d['estimate'] * scale, f4)} [{_num(d['low'] * scale, f4)}, "
+                f"{_num(d['high'] * scale, f4)}]"
+            )
 
         sh = s.get("beyond_limit")
         share = (
@@ -169,7 +173,7 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
     if "note" in t:
         out += f'<p class="small">Tests: {escape(t["note"])}</p>'
     elif t:
-        cap = " (capped by scipy's table)" if t.get("anderson_capped") else ""
+        cap = " (at the end of scipy's table: the true value lies beyond)" if t.get("anderson_capped") else ""
         out += (
             f'<p class="small">Distribution-free tests on one value per unit ({escape(t["summary"])}; '
             f"units {', '.join(str(u) for u in t['units'])}): Mann-Whitney {_p(t['mann_whitney_p'])} "
