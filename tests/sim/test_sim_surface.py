@@ -1,0 +1,45 @@
+"""The public surfaces of the sim, link and ingest stages, and their place in the layering."""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+import benchlog.ingest
+import benchlog.link
+import benchlog.sim
+
+ROOT = Path(benchlog.sim.__file__).parents[1]
+
+
+def test_public_surfaces():
+    assert {"Bench", "PtySampler", "Truth", "SimConfig", "load_preset", "parse_config"} <= set(
+        benchlog.sim.__all__
+    )
+    assert set(benchlog.link.__all__) == {"Chunk", "Link", "Outage", "PortInfo", "list_ports"}
+    assert set(benchlog.ingest.__all__) == {"Feed", "FeedCounters", "merge_timed", "empty_timed"}
+    for mod in (benchlog.sim, benchlog.link, benchlog.ingest):
+        assert all(hasattr(mod, name) for name in mod.__all__)
+
+
+def imports_of(package: str) -> set[str]:
+    names: set[str] = set()
+    for path in (ROOT / package).glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom) and node.module:
+                names.add(node.module)
+            elif isinstance(node, ast.Import):
+                names.update(a.name for a in node.names)
+    return names
+
+
+def test_layering():
+    # the link knows nothing of the protocol; the sim nothing of pyserial or the host stages
+    assert not {m for m in imports_of("link") if m.startswith(("benchlog.wire", "benchlog.clock"))}
+    sim = imports_of("sim")
+    assert not {
+        m for m in sim if m.startswith(("serial", "benchlog.link", "benchlog.clock", "benchlog.ingest"))
+    }
+    assert not {m for m in imports_of("ingest") if m.startswith(("benchlog.store", "benchlog.views"))}
+    # presets are package data inside benchlog/, so they install with it
+    assert (ROOT / "presets" / "demo.toml").is_file()
