@@ -42,6 +42,5 @@ def signed_deltas(ticks: np.ndarray, first_prev: int, bits: int) -> np.ndarray:
     m = np.uint64(1 << bits)
     d &= m - np.uint64(1)
     half = np.uint64(1 << (bits - 1))
-    signed = d.astype(np.int64)
-    signed[d > half] -= np.int64(1 << bits)
-    return signed
+    d[d > half] -= m  # wraps in uint64 to the two's complement of the negative delta
+    return d.view(np.int64)

@@ -21,9 +21,9 @@ from the host time elapsed since the last record: never before the last run time
 monotonic. A RESET incident spans the bridged stretch.
 
 After a reported outage (`note_disconnect`) longer than a quarter wrap, wraps may have been missed: the
-first tick is placed by the host time elapsed: the whole number of wraps that brings the sampler's elapsed time
-closest to the host's. Where the wrap period is under 4 s host jitter makes that count doubtful, and a
-CLOCK incident says so.
+first tick is placed by the host time elapsed: the whole number of wraps that brings the sampler's
+elapsed time closest to the host's. Where the wrap period is under 4 s host jitter makes that count
+doubtful, and a CLOCK incident says so.
 
 Lost edges: each beat says how many edges the sampler captured and dropped since its reset. Edges still in
 flight when a beat is sent arrive after it, so a beat is settled when the next beat arrives: received =
@@ -72,6 +72,8 @@ HOST_SLACK_NS = NS_PER_S  # latency jitter between two receive times
 SOLICITED_FOR_NS = 5 * NS_PER_S
 MAX_HELD_EDGES = 1 << 20
 U32 = 1 << 32
+EPOCH_LIMIT_NS = 1 << 60  # 36 years: no counter epoch is longer; beyond it a tick is garbage
+RUN_LIMIT_NS = 1 << 61  # run time stays far inside int64
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -405,7 +407,7 @@ class Timeline:
         """A host-clock duration in sampler time."""
         if self.time_scale == 1.0:
             return host_duration_ns
-        return int(host_duration_ns * self.time_scale)
+        return min(int(host_duration_ns * self.time_scale), RUN_LIMIT_NS)
 
     def _back_tolerance(self) -> int:
         return min(1 << (self.counter_bits - 2), max(1, self.clock_hz // 10))
@@ -425,6 +427,8 @@ class Timeline:
         m = 1 << self.counter_bits
         expected = (elapsed_ns * self.clock_hz) // NS_PER_S
         wraps = max(0, round((expected - d) / m))
+        if abs(d + wraps * m) >= 1 << 62:
+            wraps = 0
         if wraps and self._reset_pending is None:
             period_s = m / self.clock_hz
             doubtful = period_s < 4.0
@@ -447,11 +451,15 @@ class Timeline:
     def _new_epoch(self, raw: int, host_ns: int, why: str) -> None:
         """Start a counter epoch at a record with raw tick `raw` (the counter restarted at 0)."""
         self._settle_beat()
-        first_tick_ns = ticks_to_ns(raw, self.clock_hz)
+        if ticks_to_ns(raw, self.clock_hz) > EPOCH_LIMIT_NS:
+            raw_start = 0  # no restarted counter reads this high: count the epoch from this record
+        else:
+            raw_start = raw
+        first_tick_ns = ticks_to_ns(raw_start, self.clock_hz)
         if self._started:
             last = self._run_hi_ns
             gap = self._scaled(max(0, host_ns - max(self._hi_host, self._reset_from_host)))
-            self._ns0 = max(last, last + gap - first_tick_ns)
+            self._ns0 = min(max(last, last + gap - first_tick_ns), RUN_LIMIT_NS)
             self.resets += 1
             self._incidents.append(
                 Incident(
@@ -468,7 +476,7 @@ class Timeline:
             self._base_dropped = 0
             self._prev_beat = None
             self._drift.clear()
-            rel = raw
+            rel = raw_start
         else:
             self._ns0 = 0
             rel = 0
@@ -551,6 +559,11 @@ class Timeline:
         d = signed_deltas(raw[start:], self._last_raw, self.counter_bits)
         if self._outage_hint is not None:
             d[0] = self._apply_outage(int(d[0]), host_ns)
+        # a garbage tick far beyond any run length would overflow int64 ns: such a record starts an epoch
+        rel_approx = self._last_rel + np.cumsum(d.astype(np.float64))
+        too_far = np.abs(rel_approx) * (NS_PER_S / self.clock_hz) > EPOCH_LIMIT_NS
+        if too_far.any():
+            d[int(np.argmax(too_far)) :] = 0  # (never used: those records are cut off below)
         rel = self._last_rel + np.cumsum(d)
         hi = np.maximum.accumulate(np.maximum(rel, self._hi_rel))
         prior_hi = np.empty_like(hi)
@@ -569,12 +582,15 @@ class Timeline:
             ahead = offset < self._min_offset - allowance
         else:
             ahead = np.zeros(len(rel), bool)
-        bad = back | ahead
+        bad = back | ahead | too_far
         why = None
         stop = len(rel)
         if bad.any():
             stop = int(np.argmax(bad))
-            why = "counter went back" if back[stop] else "counter ran ahead of the host clock"
+            if too_far[stop]:
+                why = "a tick beyond any run length"
+            else:
+                why = "counter went back" if back[stop] else "counter ran ahead of the host clock"
         if stop == 0:
             return start, rel[:0], why
         rel = rel[:stop]

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from benchlog.clock import Timeline, ticks_to_ns
 from benchlog.events import CLOCK, DECODE_FAULT, DISCONNECT, LOST_EDGES, OVERFLOW, RESET, SEQUENCE_GAP
@@ -329,3 +331,39 @@ def test_a_counter_jumping_ahead_of_the_host_clock_is_a_reset():
     # restart without an announcement: the new small tick is 268 s "ahead" modulo 2**32, in 1 s of host time
     out = tl.push([Edges.of([(0, 1, 1000)])], 6 * S)
     assert _kinds(out.incidents) == [RESET] and "ahead" in out.incidents[0].detail
+
+
+record_strategy = st.one_of(
+    st.builds(
+        lambda rows: Edges.of(rows),
+        st.lists(st.tuples(st.integers(0, 15), st.integers(0, 1), st.integers(0, 2**64 - 1)), max_size=20),
+    ),
+    st.builds(Drive, st.integers(0, 15), st.integers(0, 1), st.integers(0, 2**64 - 1)),
+    st.builds(Beat, st.integers(0, 2**64 - 1), st.integers(0, 2**32 - 1), st.integers(0, 2**32 - 1)),
+    st.builds(
+        Announce,
+        st.integers(1, 3),
+        st.integers(1, 2**32 - 1),
+        st.integers(16, 64),
+        st.integers(1, 16),
+        st.just("FUZZ"),
+    ),
+    st.builds(Fault, st.sampled_from(["CRC", "syntax"]), st.integers(0, 500)),
+    st.builds(SequenceGap, st.integers(0, 65535), st.integers(0, 65535), st.integers(1, 65535)),
+    st.builds(Notice, st.text(max_size=10)),
+    st.builds(Pong, st.integers(0, 65535)),
+)
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.tuples(st.lists(record_strategy, max_size=8), st.integers(0, 10**12)), max_size=10))
+def test_timeline_never_raises_on_arbitrary_records(pushes):
+    tl = Timeline()
+    host = 0
+    for records, dt in pushes:
+        host += dt
+        out = tl.push(records, host)
+        assert out.edges.t_ns.dtype == np.int64 and len(out.edges.channel) == len(out.edges)
+        if dt % 7 == 0:  # now and then the port drops out
+            tl.note_disconnect(host, host + dt // 2)
+    tl.clock_error_ppm  # noqa: B018
