@@ -195,8 +195,10 @@ def _expanded_level(two_sided: float, n: int) -> float:
 def _bootstrap(samples, statistic, confidence, n_resamples, seed) -> tuple[float, float]:
     data = tuple(np.arange(s.n_units) for s in samples)
     level = _expanded_level(2.0 * confidence - 1.0, min(s.n_units for s in samples))
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        # constant or infinite replicates (no spread at all, Ppk of zero spread) are legitimate here
         warnings.simplefilter("ignore", stats.DegenerateDataWarning)
+        warnings.simplefilter("ignore", RuntimeWarning)
         res = stats.bootstrap(
             data,
             statistic,

@@ -162,3 +162,13 @@ def test_weighted_pooled_quantile_equals_replicated_data():
         for q in (50.0, 95.0, 99.0):
             ref = np.interp(q / 100 * len(rep), np.cumsum(counts), uniq)
             assert float(cdf.quantile(w, q)) == pytest.approx(ref, rel=1e-12)
+
+
+def test_degenerate_samples_raise_no_warnings():
+    # every value equal (a contact that never bounced): intervals collapse, Ppk is infinite, tests
+    # are not run; pytest turns any warning into an error, so this also checks none escapes
+    s = UnitSample.of(np.zeros(60), np.arange(60) % 6)
+    assert pooled_percentile(s, 95, n_resamples=100).high == 0.0
+    assert math.isinf(capability(s, 3000.0, n_resamples=100).ppk.estimate)
+    assert math.isnan(unit_tests([s.per_unit(95), s.per_unit(95)], "x").mann_whitney_p)
+    assert share_beyond(s, 1.0, n_resamples=100).beyond == 0
