@@ -203,3 +203,24 @@ def test_report_into_a_missing_folder_is_one_line(small_db, tmp_path, capsys):
     )
     err = capsys.readouterr().err
     assert code == 9 and "cannot write" in err and len(err.strip().splitlines()) == 1
+
+
+def test_json_to_stdout_alone(small_db, capsys):
+    code = main(
+        [
+            "qualify",
+            "--db",
+            small_db,
+            "--incumbent",
+            "AG-MS5",
+            "--candidate",
+            "VS-505",
+            "--json",
+            "-",
+            "--resamples",
+            "100",
+        ]
+    )
+    captured = capsys.readouterr()
+    assert code == 2 and json.loads(captured.out)["outcome"] == "not yet decidable"
+    assert "verdict: NOT YET DECIDABLE" in captured.err

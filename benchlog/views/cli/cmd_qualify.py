@@ -137,24 +137,29 @@ def run(args: argparse.Namespace) -> int:
     ev = evaluate(args)
     q, inc, cand, spec_name = ev.qualification, ev.incumbent, ev.candidate, ev.spec_name
     conf = q.requirements.confidence
-    print(
-        f"candidate {cand.label}, {cand.population.units} units; incumbent {inc.label}, "
-        f"{inc.population.units} units"
+    out = sys.stderr if args.json == "-" else sys.stdout  # '--json -': stdout carries only the JSON
+
+    def say(text: str = "") -> None:
+        print(text, file=out)
+
+    say(
+        f"candidate {cand.label}, {len(cand.serial_of)} units; "
+        f"incumbent {inc.label}, {len(inc.serial_of)} units"
     )
-    print(f"spec: {spec_name}; every bound one-sided at {conf:.0%}; units are the experimental unit")
-    print()
-    print(verdict_table(q))
+    say(f"spec: {spec_name}; every bound one-sided at {conf:.0%}; units are the experimental unit")
+    say()
+    say(verdict_table(q))
     notes = [(c.name, c.note) for c in q.criteria if c.note]
     settle = [(c.name, c.to_settle) for c in q.criteria if c.to_settle]
     if settle:
-        print("\nto settle what is undecided:")
+        say("\nto settle what is undecided:")
         for name, text in settle:
-            print(f"  {name}: {text}")
+            say(f"  {name}: {text}")
     if notes:
-        print("\nnotes:")
+        say("\nnotes:")
         for name, text in notes:
-            print(f"  {name}: {text}")
-    print(f"\nverdict: {q.outcome.upper()} (exit {q.exit_code})")
+            say(f"  {name}: {text}")
+    say(f"\nverdict: {q.outcome.upper()} (exit {q.exit_code})")
     if args.json:
         doc = q.to_dict()
         doc["spec"] = spec_name
