@@ -34,11 +34,11 @@
 #define OUT_B_MASK 0x0Cu /* PB2..PB3 = actuators 6..7 */
 #define STRAP_B _BV(PB4)
 
-static volatile uint16_t t1_high;
+volatile uint16_t bl_avr_t1_high; /* the counter's high half (asm reads it by name) */
 
 static volatile uint8_t tx_ring[256];
 static volatile uint8_t tx_head, tx_tail;
-static volatile uint8_t rx_ring[64];
+static volatile uint8_t rx_ring[32];
 static volatile uint8_t rx_head, rx_tail;
 
 __attribute__((always_inline)) static inline bl_mask_t levels_of(uint8_t pind, uint8_t pinb)
@@ -49,7 +49,7 @@ __attribute__((always_inline)) static inline bl_mask_t levels_of(uint8_t pind, u
 /* Interrupts disabled. TOV1 set with a small count means the overflow has not been counted yet. */
 __attribute__((always_inline)) static inline uint32_t ticks_with(uint16_t lo)
 {
-    uint16_t hi = t1_high;
+    uint16_t hi = bl_avr_t1_high;
     if ((TIFR1 & _BV(TOV1)) && lo < 0x8000u)
         hi++;
     return ((uint32_t)hi << 16) | lo;
@@ -57,58 +57,148 @@ __attribute__((always_inline)) static inline uint32_t ticks_with(uint16_t lo)
 
 ISR(TIMER1_OVF_vect)
 {
-    t1_high++;
+    bl_avr_t1_high++;
 }
 
 /*
- * Pin change: a naked stub samples both input ports and the counter within a few cycles of the
- * vector (no register saving before it: in/out/lds/sts/push leave SREG alone), parks them in
- * GPIOR0/GPIOR1 and cap_lo, then jumps to the ordinary handler, whose long prologue no longer
- * stands between the pin change and its timestamp. The time from pin change to sample is the
- * capture latency; a pulse shorter than it is seen as no change at all (counted, see README).
+ * Pin change, in two layers, so that a change arriving while an earlier one is being processed is
+ * still sampled within a couple of microseconds:
+ *
+ * - a naked stub (interrupts off, about 40 cycles) samples both input ports and the counter first
+ *   thing, and appends them, with the counter's high half and overflow flag as they were at that
+ *   moment, to a 16-entry ring of raw samples;
+ * - unless a drain is already running, it then enters the drain: a handler that re-enables
+ *   interrupts and feeds the raw samples, oldest first, to the core's capture queue. Further pin
+ *   changes during the drain interrupt it and only add to the ring.
+ *
+ * The main loop only runs once the ring is empty, so its markers still queue in tick order. If the
+ * ring is full a sample is lost; the next sample's changes are then counted as dropped rather than
+ * given a wrong time.
  */
-volatile uint16_t bl_avr_cap_lo;
+#define RAW_ENTRIES 16u
+volatile uint8_t bl_avr_raw[RAW_ENTRIES * 8u];
+volatile uint8_t bl_avr_raw_head, bl_avr_raw_tail; /* byte offsets into the ring, steps of 8 */
+volatile uint8_t bl_avr_draining, bl_avr_raw_lost;
 
-void __vector_capture_d(void) __attribute__((signal, used, externally_visible));
-void __vector_capture_d(void)
+void __vector_capture_drain(void) __attribute__((interrupt, used, externally_visible));
+void __vector_capture_drain(void)
 {
-    bl_capture_isr(ticks_with(bl_avr_cap_lo), levels_of(GPIOR0, GPIOR1), 0x3Fu);
+    static uint8_t seen_lost;
+    for (;;) {
+        while (bl_avr_raw_tail != bl_avr_raw_head) {
+            const volatile uint8_t *e = &bl_avr_raw[bl_avr_raw_tail];
+            uint16_t lo = (uint16_t)(e[2] | (uint16_t)e[3] << 8);
+            uint16_t hi = (uint16_t)(e[4] | (uint16_t)e[5] << 8);
+            if ((e[6] & _BV(TOV1)) && lo < 0x8000u)
+                hi++;
+            bl_mask_t levels = levels_of(e[0], e[1]);
+            bl_mask_t own = e[7] ? 0xC0u : 0x3Fu;
+            /* no critical section: the main loop, the queue's other producer, cannot run until the
+             * drain is over, and nested stubs only touch the raw ring */
+            if (bl_avr_raw_lost != seen_lost) {
+                seen_lost = bl_avr_raw_lost;
+                bl_isr_dropped += bl_popcount((bl_mask_t)(levels ^ bl_isr_levels));
+                bl_isr_levels = levels;
+                bl_isr_owed = 0;
+            } else {
+                bl_capture_isr(((uint32_t)hi << 16) | lo, levels, own);
+            }
+            bl_avr_raw_tail = (uint8_t)((bl_avr_raw_tail + 8u) & (RAW_ENTRIES * 8u - 1u));
+        }
+        cli();
+        if (bl_avr_raw_tail == bl_avr_raw_head) {
+            bl_avr_draining = 0;
+            return; /* the epilogue restores SREG, interrupts on, and returns with reti */
+        }
+        sei();
+    }
 }
 
-void __vector_capture_b(void) __attribute__((signal, used, externally_visible));
-void __vector_capture_b(void)
-{
-    bl_capture_isr(ticks_with(bl_avr_cap_lo), levels_of(GPIOR0, GPIOR1), 0xC0u);
-}
-
-/* in/out/lds/sts/push leave SREG alone, so the stub needs no register saving before its samples */
-#define CAPTURE_STUB(body)                                                                             \
+#define CAPTURE_STUB(id)                                                                               \
     __asm__ __volatile__("push r24\n\t"                                                               \
-                         "in r24, %[pind]\n\t"                                                        \
-                         "out %[g0], r24\n\t"                                                         \
-                         "in r24, %[pinb]\n\t"                                                        \
-                         "out %[g1], r24\n\t"                                                         \
-                         "lds r24, %[tl]\n\t" /* low byte first: latches the high byte */             \
-                         "sts bl_avr_cap_lo, r24\n\t"                                                 \
-                         "lds r24, %[th]\n\t"                                                         \
-                         "sts bl_avr_cap_lo+1, r24\n\t"                                               \
+                         "in r24, %[pind]\n\t" /* sample first */                                     \
+                         "push r25\n\t"                                                               \
+                         "in r25, %[pinb]\n\t"                                                        \
+                         "push r30\n\t"                                                               \
+                         "lds r30, %[tl]\n\t" /* low byte first: latches the high byte */             \
+                         "push r31\n\t"                                                               \
+                         "lds r31, %[th]\n\t"                                                         \
+                         "push r0\n\t"                                                                \
+                         "in r0, __SREG__\n\t"                                                        \
+                         "push r0\n\t"                                                                \
+                         "push r26\n\t"                                                               \
+                         "push r27\n\t"                                                               \
+                         "push r28\n\t"                                                               \
+                         "lds r26, bl_avr_raw_head\n\t"                                               \
+                         "mov r28, r26\n\t"                                                           \
+                         "subi r28, -8\n\t"                                                           \
+                         "andi r28, %[wrap]\n\t"                                                      \
+                         "lds r27, bl_avr_raw_tail\n\t"                                               \
+                         "cp r28, r27\n\t"                                                            \
+                         "brne 1f\n\t"                                                                \
+                         "lds r24, bl_avr_raw_lost\n\t" /* ring full: count the lost sample */        \
+                         "inc r24\n\t"                                                                \
+                         "sts bl_avr_raw_lost, r24\n\t"                                               \
+                         "rjmp 2f\n"                                                                  \
+                         "1:\n\t"                                                                     \
+                         "ldi r27, 0\n\t" /* X = ring + head */                                     \
+                         "subi r26, lo8(-(bl_avr_raw))\n\t"                                           \
+                         "sbci r27, hi8(-(bl_avr_raw))\n\t"                                           \
+                         "st X+, r24\n\t"                                                             \
+                         "st X+, r25\n\t"                                                             \
+                         "st X+, r30\n\t"                                                             \
+                         "st X+, r31\n\t"                                                             \
+                         "lds r24, bl_avr_t1_high\n\t"                                                \
+                         "st X+, r24\n\t"                                                             \
+                         "lds r24, bl_avr_t1_high+1\n\t"                                              \
+                         "st X+, r24\n\t"                                                             \
+                         "in r24, %[tifr]\n\t"                                                        \
+                         "st X+, r24\n\t"                                                             \
+                         "ldi r24, " #id "\n\t"                                                       \
+                         "st X, r24\n\t"                                                              \
+                         "sts bl_avr_raw_head, r28\n"                                                 \
+                         "2:\n\t"                                                                     \
+                         "lds r24, bl_avr_draining\n\t"                                               \
+                         "tst r24\n\t"                                                                \
+                         "brne 3f\n\t"                                                                \
+                         "ldi r24, 1\n\t"                                                             \
+                         "sts bl_avr_draining, r24\n\t"                                               \
+                         "pop r28\n\t"                                                                \
+                         "pop r27\n\t"                                                                \
+                         "pop r26\n\t"                                                                \
+                         "pop r0\n\t"                                                                 \
+                         "out __SREG__, r0\n\t"                                                       \
+                         "pop r0\n\t"                                                                 \
+                         "pop r31\n\t"                                                                \
+                         "pop r30\n\t"                                                                \
+                         "pop r25\n\t"                                                                \
                          "pop r24\n\t"                                                                \
-                         "jmp " body "\n\t" ::[pind] "I"(_SFR_IO_ADDR(PIND)),                         \
-                         [pinb] "I"(_SFR_IO_ADDR(PINB)), [g0] "I"(_SFR_IO_ADDR(GPIOR0)),               \
-                         [g1] "I"(_SFR_IO_ADDR(GPIOR1)), [tl] "n"(_SFR_MEM_ADDR(TCNT1L)),              \
-                         [th] "n"(_SFR_MEM_ADDR(TCNT1H)))
+                         "jmp __vector_capture_drain\n"                                               \
+                         "3:\n\t"                                                                     \
+                         "pop r28\n\t"                                                                \
+                         "pop r27\n\t"                                                                \
+                         "pop r26\n\t"                                                                \
+                         "pop r0\n\t"                                                                 \
+                         "out __SREG__, r0\n\t"                                                       \
+                         "pop r0\n\t"                                                                 \
+                         "pop r31\n\t"                                                                \
+                         "pop r30\n\t"                                                                \
+                         "pop r25\n\t"                                                                \
+                         "pop r24\n\t"                                                                \
+                         "reti\n\t" ::[pind] "I"(_SFR_IO_ADDR(PIND)),                                 \
+                         [pinb] "I"(_SFR_IO_ADDR(PINB)), [tifr] "I"(_SFR_IO_ADDR(TIFR1)),              \
+                         [tl] "n"(_SFR_MEM_ADDR(TCNT1L)), [th] "n"(_SFR_MEM_ADDR(TCNT1H)),             \
+                         [wrap] "M"(RAW_ENTRIES * 8u - 1u))
 
 ISR(PCINT2_vect, ISR_NAKED)
 {
-    CAPTURE_STUB("__vector_capture_d");
+    CAPTURE_STUB(0);
 }
 
 ISR(PCINT0_vect, ISR_NAKED)
 {
-    CAPTURE_STUB("__vector_capture_b");
+    CAPTURE_STUB(1);
 }
-
-
 
 ISR(USART_UDRE_vect)
 {
@@ -123,7 +213,7 @@ ISR(USART_UDRE_vect)
 ISR(USART_RX_vect)
 {
     uint8_t c = UDR0;
-    uint8_t next = (uint8_t)((rx_head + 1u) & 63u);
+    uint8_t next = (uint8_t)((rx_head + 1u) & 31u);
     if (next != rx_tail) { /* a full ring drops the byte; the command parser then sees a bad line */
         rx_ring[rx_head] = c;
         rx_head = next;
@@ -179,7 +269,7 @@ int bl_port_rx(void)
     if (rx_head == rx_tail)
         return -1;
     uint8_t c = rx_ring[rx_tail];
-    rx_tail = (uint8_t)((rx_tail + 1u) & 63u);
+    rx_tail = (uint8_t)((rx_tail + 1u) & 31u);
     return c;
 }
 

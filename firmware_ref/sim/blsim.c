@@ -13,7 +13,7 @@
  * A pin changes at the first instruction boundary at or after its cycle (at most 4 cycles, 250 ns,
  * late at 16 MHz). With --pty the harness prints "pty PATH" on stdout, waits for a line on stdin
  * (so the reader can open the port first), runs no faster than real time (so the host's commands
- * arrive when a bench's would), prints "done CYCLES", and keeps the terminal open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver.
+ * arrive when a bench's would), prints "done CYCLES cycles, stack N bytes at most", and keeps the terminal open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver.
  * Wiring (as on the board, see ../README.md): channels 0-5 on PD2-PD7, 6-7 on PB0-PB1; actuators
  * 0-5 on PC0-PC5, 6-7 on PB2-PB3; strap PB4.
  */
@@ -312,6 +312,7 @@ int main(int argc, char **argv)
     uint64_t stop = n ? ev[n - 1].cycle + FREQ / 50u : FREQ / 10u;
     uint64_t next_poll = 0;
     int state = cpu_Running;
+    uint16_t min_sp = 0xFFFF; /* deepest stack seen (SPL/SPH at data 0x5D/0x5E) */
     while (state != cpu_Done && state != cpu_Crashed && avr->cycle < stop) {
         while (i < n && ev[i].cycle <= avr->cycle) {
             event_t *e = &ev[i++];
@@ -345,13 +346,17 @@ int main(int argc, char **argv)
             next_poll = avr->cycle + 1600; /* every 100 us of emulated time */
         }
         state = avr_run(avr);
+        uint16_t sp = (uint16_t)(avr->data[0x5D] | avr->data[0x5E] << 8);
+        if (sp < min_sp)
+            min_sp = sp;
     }
     if (state == cpu_Crashed)
         die("the firmware crashed");
     if (actuator_log)
         fclose(actuator_log);
     if (use_pty) {
-        printf("done %llu\n", (unsigned long long)avr->cycle);
+        printf("done %llu cycles, stack %u bytes at most\n", (unsigned long long)avr->cycle,
+               (unsigned)(0x8FF - min_sp));
         fflush(stdout);
         char rest[64];
         while (fgets(rest, sizeof rest, stdin)) {
@@ -359,7 +364,8 @@ int main(int argc, char **argv)
         close(slave);
     } else {
         close(out_fd);
-        fprintf(stderr, "blsim: done %llu cycles\n", (unsigned long long)avr->cycle);
+        fprintf(stderr, "blsim: done %llu cycles, stack %u bytes at most\n", (unsigned long long)avr->cycle,
+                (unsigned)(0x8FF - min_sp)); /* RAMEND of the part */
     }
     return 0;
 }
