@@ -64,9 +64,10 @@ ISR(TIMER1_OVF_vect)
  * Pin change, in two layers, so that a change arriving while an earlier one is being processed is
  * still sampled within a couple of microseconds:
  *
- * - a naked stub (interrupts off, about 40 cycles) samples both input ports and the counter first
- *   thing, and appends them, with the counter's high half and overflow flag as they were at that
- *   moment, to a 16-entry ring of raw samples;
+ * - a naked stub samples both input ports and the counter first thing, and appends them, with the
+ *   counter's high half and overflow flag as they were at that moment, to a 16-entry ring of raw
+ *   samples; interrupts are off for those 50-odd cycles only, then on again for the rest of it
+ *   (nested stubs append in sampling order, and whichever finds no drain running starts one);
  * - unless a drain is already running, it then enters the drain: a handler that re-enables
  *   interrupts and feeds the raw samples, oldest first, to the core's capture queue. Further pin
  *   changes during the drain interrupt it and only add to the ring.
@@ -158,6 +159,7 @@ void __vector_capture_drain(void)
                          "st X, r24\n\t"                                                              \
                          "sts bl_avr_raw_head, r28\n"                                                 \
                          "2:\n\t"                                                                     \
+                         "sei\n\t" /* the sample is in the ring: let the next edge in */               \
                          "lds r24, bl_avr_draining\n\t"                                               \
                          "tst r24\n\t"                                                                \
                          "brne 3f\n\t"                                                                \
