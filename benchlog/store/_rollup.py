@@ -72,16 +72,13 @@ class RollupKeeper:
     @staticmethod
     def _columns(unit: np.ndarray, acts: np.ndarray) -> tuple[np.ndarray, ...]:
         keep = (acts["flags"] & INCOMPLETE) == 0
-        values = np.empty((int(keep.sum()), len(ROLLUP_METRICS)))
-        sub = acts[keep]
+        unit = np.asarray(unit, np.int64)
+        if not keep.all():
+            acts, unit = acts[keep], unit[keep]
+        values = np.empty((len(acts), len(ROLLUP_METRICS)))
         for j, metric in enumerate(ROLLUP_METRICS):
-            values[:, j] = sub[metric]
-        return (
-            np.asarray(unit, np.int64)[keep],
-            sub["kind"].astype(np.int64),
-            sub["cycle"].astype(np.int64),
-            values,
-        )
+            values[:, j] = acts[metric]
+        return unit, acts["kind"].astype(np.int64), acts["cycle"].astype(np.int64), values
 
     def _merge(self, cols: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
         if self._open is None:
@@ -123,7 +120,7 @@ class RollupKeeper:
             unit_a[done],
             kind[done],
         )
-        order = np.lexsort((cycle, win, key))
+        order = np.argsort(key * (1 << 42) + cycle, kind="stable")  # by unit, kind, then cycle (< 2**42)
         key, win, cycle, values, unit_a, kind = (
             key[order],
             win[order],
