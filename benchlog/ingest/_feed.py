@@ -26,6 +26,8 @@ from benchlog.events import TimedDrives, TimedEdges
 from benchlog.link import Chunk, Link, Outage
 from benchlog.wire import Command, Decoder, Go, Plan, SetForm, Who, encode_command
 
+GREET_AFTER_S = 0.3  # data but no announcement for this long: ask for one
+
 
 @dataclass(slots=True)
 class FeedCounters:
@@ -109,6 +111,7 @@ class Feed:
         self.speed = float(speed)
         self.link = Link(url, baudrate=baudrate, wait_s=wait_s, backoff_s=backoff_s)
         self._asked_at = 0.0
+        self._first_data_at: float | None = None
         self.decoder = Decoder()
         self.timeline = Timeline()
         self.group_ns = group_ns
@@ -132,10 +135,18 @@ class Feed:
         self.link.close()
 
     def _greet(self) -> None:
-        """Data but no announcement yet (pyserial discards what the port buffered before it opened, so
-        a sampler already running is heard mid-stream): ask for one, at most once a second."""
+        """Data but no announcement yet (a sampler already running is heard mid-stream, and pyserial
+        discards what the port buffered before it opened): after a moment, ask for one, at most once a
+        second."""
         now = time.monotonic()
-        if self.timeline.announcement is not None or now - self._asked_at < 1.0 or not self.link.connected:
+        if self._first_data_at is None:
+            self._first_data_at = now
+        if (
+            self.timeline.announcement is not None
+            or now - self._first_data_at < GREET_AFTER_S  # a fresh sampler's own announcement may follow
+            or now - self._asked_at < 1.0
+            or not self.link.connected
+        ):
             return
         self._asked_at = now
         self.timeline.expect_announcement(self._to_clock(time.time_ns()))

@@ -23,12 +23,13 @@ from pathlib import Path
 from benchlog.errors import ConfigError, PortError
 from benchlog.sim._bench import Bench
 from benchlog.sim._config import SimConfig
+from benchlog.wire import Announce, LineEncoder, PackedEncoder
 
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
 STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
 MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated time instead
 UNHEARD_S = 0.5  # an open port took nothing for this long: its reader is stuck, output is discarded
-HELD_LIMIT = 64 << 10  # while no reader has the port open, the sampler holds this much, then drops
+HOLD_NS = 200_000_000  # while no reader has the port open, the sampler keeps only its latest output
 SETTLE_S = 0.05  # a reader that just opened the port is left this long to finish configuring it
 
 
@@ -63,6 +64,8 @@ class PtySampler:
         self._slave = -1
         self.slave_name = ""
         self._backlog = bytearray()
+        self._held: list[tuple[int, bytes, bool]] = []  # (sampler time, bytes, holds an announcement)
+        self._sticky: bytes | None = None  # an announcement no reader has heard yet
         self._cmd_buf = bytearray()
         self._pull_request: float | None = None
         self.bytes_written = 0
@@ -158,7 +161,7 @@ class PtySampler:
         pull_at_ns = int(faults.pull_at_s * 1e9) if faults.pull_at_s >= 0 else None
         wall0 = time.monotonic()
         sim0 = bench.now_ns
-        self._send(bench.encode(bench.advance_to(bench.now_ns)))
+        self._send_records(bench.advance_to(bench.now_ns))
         while not self._stop.is_set():
             if self._pull_request is not None:
                 seconds, self._pull_request = self._pull_request, None
@@ -179,13 +182,8 @@ class PtySampler:
                 step = min(target, bench.now_ns + int(STEP_WALL_S * self.speed * 1e9))
                 if pull_at_ns is not None:
                     step = min(step, max(pull_at_ns, bench.now_ns + 1))
-                data = bench.step_bytes(step)
-                self._send(data)
+                self._send_records(bench.advance_to(step))
             self._flush()
-            if self._listening_since is None and len(self._backlog) > HELD_LIMIT:
-                # nobody has the port open: the sampler's transmit buffer is full, newer output is lost
-                self.bytes_lost_unheard += len(self._backlog) - HELD_LIMIT
-                del self._backlog[HELD_LIMIT:]
             if self._backlog and self.listening and time.monotonic() - self._last_progress > UNHEARD_S:
                 # nobody reads the port: like a board whose host is not listening, the sampler runs on
                 # and what it sends is lost (a reader that opens later hears the stream from then on)
@@ -209,6 +207,39 @@ class PtySampler:
         except (OSError, ValueError):
             time.sleep(0.002)
 
+    def _send_records(self, records: list) -> None:
+        """Encode (with byte damage) and send; with no reader, hold only the latest output.
+
+        A USB serial board whose host has not opened the port cannot send: its transmit buffer fills
+        and older output is lost. It keeps its announcement for the host (the first thing a host must
+        hear) and the last `HOLD_NS` of sampler time."""
+        bench = self.bench
+        data = bench.damage(bench.encode(records))
+        if self._listening_since is not None:
+            self._deliver_held()
+            self._send(data)
+            return
+        announces = [r for r in records if isinstance(r, Announce)]
+        if announces:
+            enc = LineEncoder() if bench.form == "line" else PackedEncoder()
+            self._sticky = enc.encode(announces[-1])
+        if data:
+            self._held.append((bench.now_ns, data, bool(announces)))
+        cut = 0
+        while cut < len(self._held) and self._held[cut][0] < bench.now_ns - HOLD_NS:
+            self.bytes_lost_unheard += len(self._held[cut][1])
+            cut += 1
+        del self._held[:cut]
+
+    def _deliver_held(self) -> None:
+        if self._held or self._sticky:
+            if self._sticky is not None and not any(a for _, _, a in self._held):
+                self._send(self._sticky)
+            for _, data, _ in self._held:
+                self._send(data)
+            self._held.clear()
+            self._sticky = None
+
     def _send(self, data: bytes) -> None:
         if data:
             if not self._backlog:
@@ -219,6 +250,7 @@ class PtySampler:
         if not self.listening:
             self._last_progress = time.monotonic()
             return
+        self._deliver_held()
         while self._backlog and self._master >= 0:
             try:
                 n = os.write(self._master, self._backlog[: 1 << 16])
@@ -259,15 +291,16 @@ class PtySampler:
             line = bytes(self._cmd_buf[:nl])
             del self._cmd_buf[: nl + 1]
             self.commands_seen.append(line)
-            self._send(self.bench.encode(self.bench.command_line(line)))
+            self._send_records(self.bench.command_line(line))
 
     def _unplugged(self, seconds: float, powers_off: bool, wall0: float, sim0: int) -> None:
         """The cable is out for `seconds` of wall time: the pty goes; a self-powered sampler runs on
         unheard (keeping its pace), a bus-powered one is off and comes back reset."""
         bench = self.bench
         start = time.time()
-        self.bytes_lost_unplugged += len(self._backlog)
+        self.bytes_lost_unplugged += len(self._backlog) + sum(len(d) for _, d, _ in self._held)
         self._backlog.clear()
+        self._held.clear()
         self._cmd_buf.clear()
         self._close_pty()
         end_wall = time.monotonic() + seconds
@@ -280,6 +313,6 @@ class PtySampler:
             time.sleep(0.005)
         if powers_off:
             target = sim0 + int((time.monotonic() - wall0) * self.speed * 1e9)
-            self._send(bench.encode(bench.power_cycle(max(0, target - bench.now_ns))))
+            self._send_records(bench.power_cycle(max(0, target - bench.now_ns)))
         self._open_pty()
         self.outages.append((start, time.time()))
