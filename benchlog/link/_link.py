@@ -188,7 +188,10 @@ class Link:
         reader.name = "benchlog-link-reader"
         self._reader = reader
         reader.start()
-        reader.connect()
+        try:
+            reader.connect()
+        except RuntimeError:  # lost at once: `_lost` has been told, the supervisor reconnects
+            pass
 
     def _supervise(self) -> None:
         while not self._closing.is_set():
