@@ -259,10 +259,8 @@ class Decoder:
         starts[0] = 0
         starts[1:] = nl[:-1] + 1
         ends = nl - ((nl > starts) & (a[nl - 1] == 0x0D))
-        prefix = np.empty(len(a) + 1, np.uint8)
-        prefix[0] = 0
-        np.bitwise_xor.accumulate(a, out=prefix[1:])
-        fast, is_drive, channel, level, tick = fast_edge_lines(a, prefix, starts, ends, self._ctx)
+        line_xor = np.bitwise_xor.reduceat(a, starts)
+        fast, is_drive, channel, level, tick = fast_edge_lines(a, line_xor, starts, ends, nl, self._ctx)
         n_lines = len(nl)
         is_edge_line = np.zeros(n_lines + 1, bool)
         is_edge_line[fast[~is_drive]] = True
@@ -274,8 +272,6 @@ class Decoder:
         e_channel, e_level, e_tick = channel[edge_sel], level[edge_sel], tick[edge_sel]
         taken = 0  # edges of the fast arrays already emitted
         prev = 0
-        starts_l, ends_l, nl_l = starts.tolist(), ends.tolist(), nl.tolist()
-        ch_l, lv_l, tk_l = channel.tolist(), level.tolist(), tick.tolist()
         out = self._out
         for b, j in enumerate(breaks.tolist()):
             if j > prev:
@@ -291,12 +287,14 @@ class Decoder:
             if f >= 0:  # a well-formed drive line, decoded with the edge lines
                 self._bad_units = self._bad_bytes = 0
                 self.counters.records += 1
-                out.append(Drive(ch_l[f], lv_l[f], tk_l[f]))
+                out.append(Drive(int(channel[f]), int(level[f]), int(tick[f])))
                 continue
-            rec = parse_line(body[starts_l[j] : ends_l[j]], self._ctx)
+            line_start = int(starts[j])
+            rec = parse_line(body[line_start : int(ends[j])], self._ctx)
             if isinstance(rec, str):
-                if self._fault(rec, nl_l[j] + 1 - starts_l[j]):
-                    return body[nl_l[j] + 1 :] + tail
+                line_end = int(nl[j]) + 1
+                if self._fault(rec, line_end - line_start):
+                    return body[line_end:] + tail
             else:
                 self._good(rec)
         return self._hold(tail, MAX_LINE + 1, b"\n")

@@ -124,10 +124,16 @@ def parse_line(line: bytes, ctx: LineContext) -> Record | str:
 
 
 def fast_edge_lines(
-    a: np.ndarray, prefix_xor: np.ndarray, starts: np.ndarray, ends: np.ndarray, ctx: LineContext
+    a: np.ndarray,
+    line_xor: np.ndarray,
+    starts: np.ndarray,
+    ends: np.ndarray,
+    newlines: np.ndarray,
+    ctx: LineContext,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Vectorised `E` and `D` lines (same layout). `a` is the buffer, `starts`/`ends` bound each line
-    (without `\\r\\n`).
+    (without `\\r\\n`), `newlines` are the positions of the `\\n`s, `line_xor` the XOR of each whole
+    line (its `\\n` included).
 
     Returns (line indices accepted, is_drive, channel, level, tick), in line order.
     """
@@ -145,15 +151,26 @@ def fast_edge_lines(
     ndig = tick_end - (s + 6)
     ok &= (ndig >= 1) & (ndig <= 16)
     hi, lo = HEX_VALUE[a[e - 2]], HEX_VALUE[a[e - 1]]
-    xor = prefix_xor[tick_end] ^ prefix_xor[s]
+    # XOR of the bytes before '*': the whole line's XOR without '*', the two digits, '\r' and '\n'
+    cr = np.where(e != newlines[cand], np.uint8(0x0D), np.uint8(0))
+    xor = line_xor[cand] ^ a[e - 3] ^ a[e - 2] ^ a[e - 1] ^ cr ^ np.uint8(0x0A)
     ok &= ~has_check | ((hi < 16) & (lo < 16) & (xor == ((hi << 4) | lo)))
     tick = np.zeros(len(cand), np.uint64)
-    max_digits = int(ndig[ok].max()) if ok.any() else 0
-    for k in range(1, max_digits + 1):
-        digit = HEX_VALUE[a[np.maximum(tick_end - k, 0)]]
-        used = ndig >= k
-        ok &= ~used | (digit < 16)
-        tick |= np.where(used, digit, 0).astype(np.uint64) << np.uint64(4 * (k - 1))
+    if not len(cand):
+        return cand, cand.astype(bool), channel, level, tick
+    max_digits = int(ndig.max())
+    if max_digits == int(ndig.min()):  # the usual case: every tick has the same width; no masking
+        for k in range(1, max_digits + 1):
+            digit = HEX_VALUE[a[tick_end - k]]
+            ok &= digit < 16
+            tick |= digit.astype(np.uint64) << np.uint64(4 * (k - 1))
+    else:
+        max_digits = min(max_digits, 16)
+        for k in range(1, max_digits + 1):
+            digit = HEX_VALUE[a[np.maximum(tick_end - k, 0)]]
+            used = ndig >= k
+            ok &= ~used | (digit < 16)
+            tick |= np.where(used, digit, 0).astype(np.uint64) << np.uint64(4 * (k - 1))
     if ctx.counter_bits < 64:
         ok &= (tick >> np.uint64(ctx.counter_bits)) == 0
     return cand[ok], first[cand[ok]] == 0x44, channel[ok], level[ok], tick[ok]
