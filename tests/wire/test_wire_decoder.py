@@ -236,6 +236,8 @@ def test_line_rules_from_the_protocol():
     dec.feed(LineEncoder().encode(ANNOUNCE))
     lines = [
         b"E 1 1 0a\r\n",  # \r before \n is ignored; checksum optional; 1-16 digits
+        b"E 1 1 0000000b*37\r\n",  # a checksum and \r\n
+        b"E 1 0 0000000b*37\r\n",  # the same checksum on a changed line: fault
         b"E 1 0 ABCDEF01\n",  # uppercase hex
         b"E 1 1 00000000000000001\n",  # 17 digits: fault
         b"X anything at all\n",  # unknown letter: skipped and counted
@@ -245,8 +247,8 @@ def test_line_rules_from_the_protocol():
         b"E 1 1 0a" + b" " * 160 + b"\n",  # longer than 160 bytes: fault
     ]
     out = dec.feed(b"".join(lines))
-    assert flatten(out) == [("E", 1, 1, 0x0A), ("E", 1, 0, 0xABCDEF01), ("Unknown", "X")]
-    assert dec.counters.faults == 5
+    assert flatten(out) == [("E", 1, 1, 0x0A), ("E", 1, 1, 0x0B), ("E", 1, 0, 0xABCDEF01), ("Unknown", "X")]
+    assert dec.counters.faults == 6
     assert dec.counters.unknown == 1
 
 
