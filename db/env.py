@@ -18,6 +18,10 @@ def _run(connection) -> None:
         render_as_batch=connection.dialect.name == "sqlite",
     )
     with context.begin_transaction():
+        if connection.dialect.name == "postgresql":
+            # two recorders opening a new shared database at once: the second waits here, then
+            # finds the schema current (the key is arbitrary but fixed for benchlog)
+            connection.exec_driver_sql("SELECT pg_advisory_xact_lock(7311020407)")
         context.run_migrations()
 
 

@@ -67,7 +67,12 @@ class Store(ReadAPI):
                         f"the database {cls._show(url)} is at revision {st.current}; "
                         "run `benchlog db upgrade`"
                     )
-                schema_upgrade(engine)
+                try:
+                    schema_upgrade(engine)
+                except StoreError:
+                    # another process may have created the schema at the same moment
+                    if not schema_status(engine).up_to_date:
+                        raise
         except StoreError:
             engine.dispose()
             raise
