@@ -271,6 +271,8 @@ class Feed:
         """Write a host command (`PortError` while the port is down)."""
         if isinstance(cmd, Who):
             self.timeline.expect_announcement(self._to_clock(time.time_ns()))
+        elif isinstance(cmd, SetForm):
+            self.decoder.expect_form("line" if cmd.form == "L" else "packed")
         self.link.write(encode_command(cmd))
 
     def start_cycling(self, plans: list[Plan], form: str | None = None) -> None:

@@ -99,6 +99,7 @@ class Decoder:
         self._expected_seq: int | None = None
         self._undecided = 0  # bytes dropped while undecided, reported as one fault at the decision
         self._out: list[Record] = []
+        self._form_asked: str | None = None  # the host asked for this form (FORM L / FORM P)
 
     # -- public ---------------------------------------------------------------------------------------
 
@@ -109,6 +110,17 @@ class Decoder:
         self._out = []
         for _ in range(1000):  # each pass consumes input or changes state; the bound is a safety net
             form = self.form
+            if self._form_asked is not None and form is not None:
+                cut = self._switch_point(buf)
+                if cut is not None:  # old form up to the cut, then look afresh
+                    self._skipping = False
+                    rest = buf[cut:]
+                    head = self._lines(buf[:cut]) if form == "line" else self._frames(buf[:cut])
+                    if head:
+                        self._fault("unfinished before a form switch", len(head))
+                    self.form = form = None
+                    self._expected_seq = None
+                    buf = rest
             if form is None:
                 buf = self._detect(buf)
             elif form == "line":
@@ -120,6 +132,41 @@ class Decoder:
         self._buf = buf
         out, self._out = self._out, []
         return out
+
+    def expect_form(self, form: str) -> None:
+        """The host asked the sampler to switch to `form` ("line" or "packed").
+
+        The decoder then looks for the first unit of the new form as bytes arrive, decodes the old form
+        up to it and the new form from it, instead of waiting for a run of faults, so no record is lost.
+        """
+        self._form_asked = None if form == self.form else form
+
+    def _switch_point(self, buf: bytes) -> int | None:
+        """Where the first whole unit of the asked form starts in `buf`, or None while none is seen.
+
+        A packed frame may contain newline bytes, so the candidates are the unit boundaries of the old
+        form, tried from the left; the first that starts a valid unit of the new form wins.
+        """
+        if self._form_asked == "packed":
+            end = buf.find(b"\0")
+            if end < 0:
+                return None
+            lo = max(0, end - MAX_ENCODED)
+            starts = [0] if lo == 0 else []
+            starts += [m.end() for m in re.finditer(b"\n", buf[lo:end])]
+            for st in starts:
+                st += lo if st else 0
+                if st <= end and self._valid_frame(buf[st:end]):
+                    return st
+            return None
+        for st in [0] + [m.end() for m in re.finditer(b"\0", buf)]:
+            nl = buf.find(b"\n", st)
+            if nl < 0:
+                return None
+            line = buf[st : nl - 1 if nl > st and buf[nl - 1] == 13 else nl]
+            if b"\0" not in line and not isinstance(parse_line(line, self._ctx), str | Unknown):
+                return st
+        return None
 
     # -- bookkeeping ----------------------------------------------------------------------------------
 
@@ -234,6 +281,7 @@ class Decoder:
                 self._undecided = 0
             return buf[keep:]
         self.form, start = found
+        self._form_asked = None
         self._undecided += start
         if self._undecided:
             self._fault(BEFORE_FIRST, self._undecided)

@@ -275,3 +275,28 @@ def test_undecided_bytes_before_the_first_record_are_faults():
     out = dec.feed(b"\x01\x02\x03 power-on noise\r\n" + LineEncoder().encode(ANNOUNCE))
     assert isinstance(out[0], Fault) and out[0].reason == "before first record"
     assert out[1] == ANNOUNCE
+
+
+@pytest.mark.parametrize("first, second, asked", [("line", "packed", "packed"), ("packed", "line", "line")])
+def test_a_requested_form_switch_loses_no_record(first, second, asked):
+    # docs/protocol.md: FORM L / FORM P switch the sampler's form mid-stream; the host is told.
+    encoders = {"line": LineEncoder(), "packed": PackedEncoder()}
+    before = sample_stream(6, seed=3)
+    after = sample_stream(6, seed=4)[1:]  # no new announcement: the sampler did not restart
+    dec = Decoder()
+    got = dec.feed(b"".join(encoders[first].encode(r) for r in before))
+    dec.expect_form(asked)
+    encoders[second].encode(ANNOUNCE)  # the sampler's encoder knows its counter width
+    got_after = dec.feed(b"".join(encoders[second].encode(r) for r in after))
+    assert flatten(got) == flatten(before)
+    assert flatten([r for r in got_after if not isinstance(r, Fault)]) == flatten(after)
+    assert dec.form == second
+
+
+def test_without_the_request_the_old_form_holds_on_for_a_while():
+    dec = Decoder()
+    dec.feed(b"".join(LineEncoder().encode(r) for r in sample_stream(3)))
+    packed = PackedEncoder()
+    packed.encode(ANNOUNCE)
+    out = dec.feed(b"".join(packed.encode(r) for r in sample_stream(3)[1:]))
+    assert flatten(out) == [] and dec.form == "line"  # held as one unfinished line, nothing decoded
