@@ -171,11 +171,17 @@ async def test_population_side_by_side(built):
         assert pop.last_data.group.label == "PART-A"
         assert [pu.unit.id for pu in pop.last_data.units] == ids["a"]
         chart = static_text(pop, "#pop-chart")
-        assert "A1-003" in chart and "FAIL" in chart and "| limit 3.00 ms" in chart
+        assert "A1-003" in chart and "FAIL" in chart and "PART-A/A1 Supplier A limit 3.00 ms" in flat(chart)
         await pilot.press("down")
         pop = await settle(pilot, PopulationScreen)
         assert pop.last_data.group.label == "PART-B"
         assert [pu.unit.id for pu in pop.last_data.units] == ids["b"]
+        await pilot.press("up", "up")  # every part, lot after lot on one scale
+        pop = await settle(pilot, PopulationScreen)
+        assert pop.last_data.group.kind == "all"
+        assert [pu.unit.id for pu in pop.last_data.units] == ids["a"] + ids["b"]
+        chart = flat(static_text(pop, "#pop-chart"))
+        assert chart.index("PART-A/A1") < chart.index("PART-B/B1")
         await pilot.press("escape")
         assert isinstance(app.screen, UnitsScreen)
 

@@ -43,7 +43,7 @@ from benchlog.analysis import (
     project,
 )
 from benchlog.errors import BenchlogError
-from benchlog.store import FAILED, IncidentInfo, PartInfo, RunInfo, RunUnitInfo, Trend, UnitInfo
+from benchlog.store import FAILED, IncidentInfo, PartInfo, RunInfo, Trend, UnitInfo
 
 ROLLING_WINDOWS = 10
 DRIFT_POINTS = 240
@@ -405,60 +405,130 @@ def judge_unit(unit: UnitInfo, figs: dict[str, Figures], chatter_recent: int, wi
 
 
 class TrendCache:
-    """Trends per (unit, metric) re-read only when the unit's latest rollup window moved on, and at
-    most every `min_age_s` seconds (so a fast run does not re-read whole lives every second)."""
+    """Trends per (unit, metric), re-read only when the unit's latest rollup window moved on, at most
+    every `min_age_s` seconds, and within a time budget per refresh (`begin(budget_s)`): a trend due
+    for a re-read past the budget is served as it was and re-read on a later refresh, so a refresh
+    over long lives stays short however many units got a new window at once."""
 
-    def __init__(self, min_age_s: float = 5.0) -> None:
+    def __init__(self, min_age_s: float = 5.0, budget_s: float = 0.04) -> None:
         self.min_age_s = min_age_s
+        self.budget_s = budget_s
         self._data: dict[tuple[int, str], tuple[int, float, Trend]] = {}
+        self._derived: dict[tuple, tuple[Trend, object]] = {}
+        self.layouts: dict[int, tuple[float, list]] = {}
+        self._spent = 0.0
+        self.deferred = 0  # re-reads put off in the current refresh
+
+    def begin(self) -> None:
+        """A new refresh: its budget starts afresh."""
+        self._spent = 0.0
+        self.deferred = 0
 
     def get(self, store, unit_id: int, key: str, latest_hi: int, now: float | None = None) -> Trend:
         now = time.monotonic() if now is None else now
         hit = self._data.get((unit_id, key))
-        if hit is not None and (hit[0] == latest_hi or now - hit[1] < self.min_age_s):
-            return hit[2]
+        if hit is not None:
+            if hit[0] == latest_hi or now - hit[1] < self.min_age_s:
+                return hit[2]
+            if self._spent >= self.budget_s:
+                self.deferred += 1
+                return hit[2]
         _, column, kind = CHART_METRICS[key]
+        t0 = time.perf_counter()
         t = store.trend(unit_id, column, kind=kind)
+        self._spent += time.perf_counter() - t0
         self._data[(unit_id, key)] = (latest_hi, now, t)
         return t
+
+    def derived(self, key: tuple, trend: Trend, make):
+        """`make(trend)`, computed again only when the trend was re-read (figures, drift charts)."""
+        hit = self._derived.get(key)
+        if hit is not None and hit[0] is trend:
+            return hit[1]
+        value = make(trend)
+        self._derived[key] = (trend, value)
+        return value
+
+
+LAYOUT_AGE_S = 30.0  # a live run's channel layout (and per-run cycle counts) is re-read this often
+
+
+@dataclass(frozen=True, slots=True)
+class _Seat:
+    channel: int
+    unit_id: int
+    cycle_base: int
+    cycles_done: int  # as of the last run_units() read
+
+
+def _layout(store, run: RunInfo, cache: TrendCache) -> list[_Seat]:
+    """The run's channels and units. `run_units()` scans every rollup of the run for its latest
+    windows (about 100 ms over 10 M actuations), so it is read when a run is opened, and for a live
+    run again every LAYOUT_AGE_S; in between, life status and cycles come from `units(ids=...)`."""
+    now = time.monotonic()
+    hit = cache.layouts.get(run.id)
+    if hit is None or len(hit[1]) != run.units or (run.state != "ended" and now - hit[0] > LAYOUT_AGE_S):
+        seats = [
+            _Seat(ru.channel, ru.unit.id, ru.cycle_base, ru.cycles_done) for ru in store.run_units(run.id)
+        ]
+        cache.layouts[run.id] = (now, seats)
+        return seats
+    return hit[1]
 
 
 def read_run(store, run_id: int, cache: TrendCache | None = None, specs: dict | None = None) -> RunDetail:
     t0 = time.perf_counter()
     cache = cache or TrendCache()
+    cache.begin()
     run = store.run(run_id)
-    run_units = store.run_units(run_id)
+    seats = _layout(store, run, cache)
+    units = {u.id: u for u in store.units(ids=[s.unit_id for s in seats])} if seats else {}
     incidents = store.incidents(run_id) if run.incidents else []
     if specs is None:
         specs = {p.id: part_spec(p) for p in store.parts()}
-    rows = [_unit_row(store, ru, run, cache, specs.get(ru.unit.part_id)) for ru in run_units]
+    rows = []
+    for seat in seats:
+        unit = units.get(seat.unit_id)
+        if unit is None:
+            continue
+        # a live run's units are in no later run: their life cycles less the base are this run's
+        done = (
+            max(seat.cycles_done, unit.cycles - seat.cycle_base) if run.state != "ended" else seat.cycles_done
+        )
+        rows.append(_unit_row(store, seat.channel, unit, done, run, cache, specs.get(unit.part_id)))
     return RunDetail(run, rows, outage_of(incidents), incidents, time.perf_counter() - t0)
 
 
-def _latest_hi(ru: RunUnitInfo, column: str, kind: int) -> int:
-    p = ru.latest.get(("make" if kind == MAKE else "break", column))
-    return -1 if p is None else int(p.cycle_hi) * 1_000_003 + int(p.count)
+def _spec_key(spec) -> tuple | None:
+    return None if spec is None else (spec.number, spec.marginal_band, spec.limits)
 
 
-def _unit_row(store, ru: RunUnitInfo, run: RunInfo, cache: TrendCache, spec) -> UnitRow:
+def _unit_row(store, channel: int, unit: UnitInfo, run_cycles: int, run: RunInfo, cache: TrendCache, spec):
     figs: dict[str, Figures] = {}
     trends: dict[str, Trend] = {}
+    uid = unit.id
+    window_no = unit.cycles // max(1, run.rollup_window)  # moves on when a new window can be complete
     for key in TABLE_METRICS:
-        _, column, kind = CHART_METRICS[key]
-        t = cache.get(store, ru.unit.id, key, _latest_hi(ru, column, kind))
+        t = cache.get(store, uid, key, window_no)
         trends[key] = t
-        figs[key] = figures(t)
-    chatter = chatter_events(trends["chatter_make"]) + chatter_events(trends["chatter_break"])
-    recent = chatter_events(trends["chatter_make"], ROLLING_WINDOWS) + chatter_events(
-        trends["chatter_break"], ROLLING_WINDOWS
-    )
-    verdict, reasons = judge_unit(ru.unit, figs, recent, run.rollup_window, spec)
+        figs[key] = cache.derived((uid, key, "figures"), t, figures)
+    counts = [
+        cache.derived(
+            (uid, k, "chatter"), trends[k], lambda t: (chatter_events(t), chatter_events(t, ROLLING_WINDOWS))
+        )
+        for k in ("chatter_make", "chatter_break")
+    ]
+    chatter = counts[0][0] + counts[1][0]
+    recent = counts[0][1] + counts[1][1]
+    verdict, reasons = judge_unit(unit, figs, recent, run.rollup_window, spec)
     flags = []
     for key in ("make_bounce", "break_bounce", "operate_time", "release_time"):
-        flag, _ = drift_of(trends[key], key, spec)
+        flag, _ = cache.derived(
+            (uid, key, "drift", _spec_key(spec)), trends[key], lambda t, k=key: drift_of(t, k, spec)
+        )
         if flag is not None:
             flags.append(flag)
-    return UnitRow(ru.channel, ru.unit, ru.cycles_done, figs, chatter, verdict, reasons, tuple(flags))
+    return UnitRow(channel, unit, run_cycles, figs, chatter, verdict, reasons, tuple(flags))
 
 
 # -- one unit's history ------------------------------------------------------------------------------
@@ -525,13 +595,13 @@ def read_history(store, unit_id: int, metric: str, span: tuple[int, int] | None,
 # -- population ---------------------------------------------------------------------------------------
 @dataclass(frozen=True, slots=True)
 class Group:
-    kind: str  # "part" | "lot"
+    kind: str  # "all" (every unit, by part and lot) | "part" | "lot"
     key: int
     label: str
 
     @property
     def title(self) -> str:
-        return f"{self.kind} {self.label}"
+        return "all parts" if self.kind == "all" else f"{self.kind} {self.label}"
 
 
 @dataclass(frozen=True, slots=True)
@@ -546,7 +616,7 @@ class Population:
     groups: list[Group]
     group: Group | None
     units: list[PopUnit]
-    limits: dict[str, float | None]
+    limits: dict[tuple[int, str], float | None]  # (part id, metric) -> spec limit
     read_s: float
 
 
@@ -556,15 +626,23 @@ POP_METRICS = ("make_bounce", "break_bounce", "operate_time")
 def read_population(store, group: Group | None, cache: TrendCache | None = None) -> Population:
     t0 = time.perf_counter()
     cache = cache or TrendCache()
+    cache.begin()
     parts = store.parts()
-    groups = [Group("part", p.id, p.part_number) for p in parts]
+    groups = [Group("all", 0, "parts")] if len(parts) > 1 else []
+    groups += [Group("part", p.id, p.part_number) for p in parts]
     groups += [Group("lot", lot.id, f"{lot.part_number}/{lot.code}") for lot in store.lots()]
     if group is None and groups:
         group = groups[0]
     units: list[PopUnit] = []
     limits: dict[str, float | None] = {}
     if group is not None:
-        found = store.units(part=group.key) if group.kind == "part" else store.units(lot=group.key)
+        if group.kind == "all":
+            found = store.units()
+        elif group.kind == "part":
+            found = store.units(part=group.key)
+        else:
+            found = store.units(lot=group.key)
+        found.sort(key=lambda u: (u.part_number, u.lot, u.serial))
         specs = {p.id: part_spec(p) for p in parts}
         for u in found:
             figs = {}
@@ -577,7 +655,7 @@ def read_population(store, group: Group | None, cache: TrendCache | None = None)
             units.append(PopUnit(u, figs, verdict))
             for key in POP_METRICS:
                 lim = limit_for(spec, key)
-                limits.setdefault(key, lim[0] if lim else None)
+                limits.setdefault((u.part_id, key), lim[0] if lim else None)
     return Population(groups, group, units, limits, time.perf_counter() - t0)
 
 

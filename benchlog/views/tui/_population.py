@@ -119,11 +119,11 @@ class PopulationScreen(DataScreen):
         # per lot summary
         lots: dict[str, list] = {}
         for pu in data.units:
-            lots.setdefault(pu.unit.lot, []).append(pu)
+            lots.setdefault(f"{pu.unit.part_number}/{pu.unit.lot}", []).append(pu)
         summary = Table(box=None, padding=(0, 1), header_style="bold")
         for col in ("lot", "units", "failed", "FAIL", "p95 med", "p95 top", "max", "cycles"):
             summary.add_column(col, justify="right" if col != "lot" else "left")
-        for lot, pus in lots.items():
+        for lot, pus in lots.items():  # noqa: B007 - the lot label is the first cell
             p95 = np.array([pu.figures[self.metric].p95 for pu in pus])
             mx = np.array([pu.figures[self.metric].max for pu in pus])
             failed = sum(pu.unit.status == "failed" for pu in pus)
@@ -140,8 +140,8 @@ class PopulationScreen(DataScreen):
                 cycles_text(int(np.median([pu.unit.cycles for pu in pus]))),
             )
         self.query_one("#pop-summary", Static).update(summary)
-        limit = data.limits.get(self.metric)
-        vals = [pu.figures[self.metric].max for pu in data.units] + [limit or 0.0]
+        limits = {pid: v for (pid, m), v in data.limits.items() if m == self.metric}
+        vals = [pu.figures[self.metric].max for pu in data.units] + [v for v in limits.values() if v]
         vals = [v for v in vals if v is not None and not math.isnan(v)]
         top = max(vals) * 1.05 if vals and max(vals) > 0 else 1.0
         chart = self.query_one("#pop-chart", Static)
@@ -150,8 +150,14 @@ class PopulationScreen(DataScreen):
         prev_lot = None
         for pu in data.units:
             lot = f"{pu.unit.part_number}/{pu.unit.lot}"
+            limit = limits.get(pu.unit.part_id)
             if lot != prev_lot:
-                lines.append(Text(lot, style="bold underline"))
+                head = Text(lot, style="bold underline")
+                head.append(f"  {pu.unit.supplier}" if pu.unit.supplier else "", style=DIM_STYLE)
+                head.append(
+                    f"  limit {value_text(limit)} ms" if limit is not None else "  no limit", style=DIM_STYLE
+                )
+                lines.append(head)
                 prev_lot = lot
             f = pu.figures[self.metric]
             row = Text(f"{pu.unit.serial[-NAME_W:]:<{NAME_W}} ")
@@ -164,9 +170,8 @@ class PopulationScreen(DataScreen):
             lines.append(row)
         scale = Text(f"{'':<{NAME_W}} 0{'':>{max(0, width - 8)}}{top / 1000:.3g} ms", style=DIM_STYLE)
         key = Text(
-            f"{'':<{NAME_W}} - to p50  = to p95  . to max  x max  | limit"
-            + (f" {value_text(limit)} ms" if limit is not None else " (none)")
-            + "   columns: p95, max; F failed",
+            f"{'':<{NAME_W}} - to p50  = to p95  . to max  x max  | its part's limit"
+            "   columns: p95, max; F failed",
             style=DIM_STYLE,
         )
         chart.update(RichGroup(*lines, scale, key))
