@@ -8,7 +8,9 @@ bench lease heartbeat) commits together, so a crash loses at most what arrived s
 
 from __future__ import annotations
 
+import queue
 import sqlite3
+import threading
 import time
 from collections import deque
 from collections.abc import Iterable
@@ -57,6 +59,7 @@ _SQLITE_ROLLUP_INSERT = (
     f"INSERT INTO rollups ({', '.join(_ROLLUP_COLS)}) VALUES ({', '.join('?' * len(_ROLLUP_COLS))})"
 )
 CHUNK_MAX_EDGES = 65_536
+PIPE_CHUNK = 4096  # rows per executemany on large batches
 RATE_WINDOW_S = 10.0
 _TIME_FIELDS = tuple(n for n in ("t_start_ns", "t_first_ns", "t_settle_ns", "t_end_ns") if n in ACT_FIELDS)
 LEASE_SECONDS = 15.0
@@ -295,19 +298,35 @@ class RunWriter:
         stats = FlushStats()
         acts = np.concatenate(self._acts) if self._acts else np.zeros(0, ACTUATION_DTYPE)
         units = np.concatenate(self._act_units) if self._act_units else np.zeros(0, np.int64)
-        rollups = self._rollups.add(units, acts, final=final)
-        chunks = self._chunks()
+        # rollups and edge chunks (numpy sorts, zlib) are worked out beside the actuation inserts
+        side: dict = {}
+
+        def prepare() -> None:
+            try:
+                side["rollups"] = self._rollups.add(units, acts, final=final)
+                side["chunks"] = self._chunks()
+            except BaseException as exc:  # re-raised in the flushing thread
+                side["error"] = exc
+
+        helper = threading.Thread(target=prepare, name="benchlog-rollups", daemon=True)
+        helper.start()
         now = time.time()
         done = self.run_cycles_done()
         self._rate = self._update_rate(done)
         conn = self._conn
         try:
             with conn.begin():
-                if len(acts):
-                    if conn.dialect.name == "sqlite":
-                        self._insert_by_channel(conn, acts)
-                    else:
-                        bulk_insert_actuations(conn, to_stored(acts, units, self.run_id).tolist())
+                try:
+                    if len(acts):
+                        if conn.dialect.name == "sqlite":
+                            self._insert_by_channel(conn, acts)
+                        else:
+                            bulk_insert_actuations(conn, to_stored(acts, units, self.run_id).tolist())
+                finally:
+                    helper.join()
+                if "error" in side:
+                    raise side["error"]
+                rollups, chunks = side["rollups"], side["chunks"]
                 if chunks:
                     conn.execute(insert(s.EdgeChunk), chunks)
                 if self._incidents:
@@ -345,8 +364,46 @@ class RunWriter:
         acts = acts[order]
         chans, starts = np.unique(ch[order], return_index=True)
         ends = np.append(starts[1:], len(acts))
-        for c, a, b in zip(chans.tolist(), starts.tolist(), ends.tolist(), strict=True):
-            bulk_insert_actuations(conn, acts[a:b].tolist(), self._sqlite_insert[c])
+        pieces = [
+            (self._sqlite_insert[c], a0, min(a0 + PIPE_CHUNK, b))
+            for c, a, b in zip(chans.tolist(), starts.tolist(), ends.tolist(), strict=True)
+            for a0 in range(a, b, PIPE_CHUNK)
+        ]
+        if len(acts) < 4 * PIPE_CHUNK:
+            for sql, a, b in pieces:
+                bulk_insert_actuations(conn, acts[a:b].tolist(), sql)
+            return
+        # Large batches: a helper thread turns the next piece into Python tuples while sqlite3 inserts
+        # this one (sqlite3 lets go of the GIL while SQLite works). Every insert still runs here, in
+        # this connection's one transaction.
+        ready: queue.Queue = queue.Queue(maxsize=3)
+
+        def convert() -> None:
+            try:
+                for sql, a, b in pieces:
+                    ready.put((sql, acts[a:b].tolist()))
+            except BaseException as exc:  # handed over to the inserting thread
+                ready.put((None, exc))
+                return
+            ready.put((None, None))
+
+        helper = threading.Thread(target=convert, name="benchlog-rows", daemon=True)
+        helper.start()
+        try:
+            while True:
+                sql, rows = ready.get()
+                if sql is None:
+                    if rows is not None:
+                        raise rows
+                    break
+                bulk_insert_actuations(conn, rows, sql)
+        finally:
+            while helper.is_alive():  # never leave the helper blocked on a full queue
+                try:
+                    ready.get(timeout=0.05)
+                except queue.Empty:
+                    pass
+            helper.join()
 
     def _write_progress(self, conn, now: float, done: int) -> None:
         renewed = conn.execute(

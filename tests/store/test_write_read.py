@@ -202,3 +202,22 @@ def test_break_and_make_percentiles_are_kept_apart(store):
     assert store.trend(units[0], "bounce_us", kind="make").max[0] == 10.0
     with store.engine.connect() as c:
         assert c.execute(text("SELECT count(*) FROM rollups")).scalar() == 2 * len(ROLLUP_METRICS)
+
+
+def test_large_batch_round_trip(store):
+    # above 4 x PIPE_CHUNK rows the SQLite path converts and inserts in two threads
+    part = store.register_part("AG-R12")
+    lot = store.register_lot(part, "B")
+    units = {ch: store.register_unit(lot, f"B{ch}") for ch in range(8)}
+    w = store.start_run(store.register_bench("bench L"), units, profile={}, rollup_window=100)
+    a = actuations(range(8), range(2600))
+    w.add(actuations=a)
+    w.close("stopped")
+    got = store.actuations()
+    assert len(got) == len(a)
+    for ch, unit in units.items():
+        mine = got[got["unit_id"] == unit]
+        src = a[a["channel"] == ch]
+        np.testing.assert_array_equal(mine["cycle"], src["cycle"])
+        np.testing.assert_array_equal(mine["bounce_us"], src["bounce_us"])
+        assert len(store.trend(unit, "bounce_us")) == 26
