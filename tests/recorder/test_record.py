@@ -169,3 +169,26 @@ def test_bad_options_are_one_line_errors(argv, message, tmp_path, capsys):
     code = main([*argv, "--db", str(tmp_path / "x.sqlite")])
     err = capsys.readouterr().err
     assert code != 0 and message in err and err.count("\n") == 1
+
+
+def test_units_failing_in_the_simulator_are_marked_failed(open_store):
+    import dataclasses
+    import math
+
+    cfg = demo_config()
+    short = {k: dataclasses.replace(p, life_scale=80.0, life_shape=4.0) for k, p in cfg.populations.items()}
+    cfg = dataclasses.replace(cfg, populations=short)  # lives of a few dozen cycles
+    store = open_store()
+    reason, w, rec, sim, counters = record_sim(store, cfg, [0, 1, 2, 3], cycles=1000, timeout_s=90)
+    assert reason == "all_failed"
+    truth = sim.bench.truth.lives()  # the simulator's ground truth: (life in cycles, failure mode)
+    life = store.life_table(part="AG-MS5")
+    assert life.failed.all()
+    for ru in store.run_units(w.run_id):
+        true_life, true_mode = truth[ru.channel]
+        assert ru.unit.status == "failed" and ru.unit.failure_mode == true_mode
+        if true_mode == "chatter":  # judged against the spec's chatter allowance: later than onset
+            assert ru.unit.failed_at_cycle >= math.floor(true_life)
+        else:  # a missed make or a weld shows on the very cycle it starts
+            assert math.ceil(true_life) <= ru.unit.failed_at_cycle <= math.ceil(true_life) + 1
+    assert store.run(w.run_id).end_reason == "all_failed"
