@@ -170,8 +170,13 @@ async def test_population_side_by_side(built):
         pop = await settle(pilot, PopulationScreen)
         assert pop.last_data.group.label == "PART-A"
         assert [pu.unit.id for pu in pop.last_data.units] == ids["a"]
-        chart = static_text(pop, "#pop-chart")
-        assert "A1-003" in chart and "FAIL" in chart and "PART-A/A1 Supplier A limit 3.00 ms" in flat(chart)
+        t = pop.query_one("#pop-units", DataTable)
+        assert column(t, "unit") == ["PART-A/A1", "A1-001", "A1-002", "A1-003", "A1-004"]
+        assert cell_text(t, 0, "strip") == "Supplier A  limit 3.00 ms"
+        assert column(t, "verdict")[3] == "FAIL"  # the drifting unit
+        with Store.open(path, readonly=True) as store:
+            p95, mx = rolling_p95_max(store, ids["units"][2], MAKE)
+        assert (cell_text(t, 3, "p95"), cell_text(t, 3, "max")) == (value_text(p95), value_text(mx))
         await pilot.press("down")
         pop = await settle(pilot, PopulationScreen)
         assert pop.last_data.group.label == "PART-B"
@@ -180,8 +185,15 @@ async def test_population_side_by_side(built):
         pop = await settle(pilot, PopulationScreen)
         assert pop.last_data.group.kind == "all"
         assert [pu.unit.id for pu in pop.last_data.units] == ids["a"] + ids["b"]
-        chart = flat(static_text(pop, "#pop-chart"))
-        assert chart.index("PART-A/A1") < chart.index("PART-B/B1")
+        t = pop.query_one("#pop-units", DataTable)
+        assert column(t, "unit").index("PART-A/A1") == 0 and column(t, "unit").index("PART-B/B1") == 5
+        await pilot.press("tab")  # from the list of groups to the units
+        assert t.has_focus
+        t.move_cursor(row=3)
+        await pilot.press("enter")  # Enter from this list too: the unit's history
+        hist = await settle(pilot, HistoryScreen)
+        assert hist.unit_id == ids["units"][2]
+        await pilot.press("escape")
         await pilot.press("escape")
         assert isinstance(app.screen, UnitsScreen)
 

@@ -5,13 +5,12 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from rich.console import Group as RichGroup
 from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, VerticalScroll
-from textual.widgets import Footer, OptionList, Static
+from textual.containers import Horizontal, Vertical
+from textual.widgets import DataTable, Footer, OptionList, Static
 from textual.widgets.option_list import Option
 
 from ._base import DIM_STYLE, FAIL_STYLE, DataScreen, StatusLine
@@ -64,7 +63,6 @@ class PopulationScreen(DataScreen):
     BINDINGS = [
         Binding("escape", "back", "Back"),
         Binding("m", "metric", "Metric"),
-        Binding("tab", "focus_next", "Switch", show=False),
     ]
 
     def __init__(self, group: Group | None = None) -> None:
@@ -78,13 +76,20 @@ class PopulationScreen(DataScreen):
         yield Static("Populations: units side by side", id="pop-title")
         with Horizontal():
             yield OptionList(id="groups")
-            with VerticalScroll(id="pop-body"):
+            with Vertical(id="pop-body"):
                 yield Static("", id="pop-summary")
-                yield Static("", id="pop-chart")
+                yield DataTable(id="pop-units", cursor_type="row", zebra_stripes=False)
+                yield Static("", id="pop-key")
         yield StatusLine()
         yield Footer()
 
     def on_mount(self) -> None:
+        t = self.query_one("#pop-units", DataTable)
+        for label, key in (("Unit", "unit"), ("p50 - p95 . max x  | limit", "strip"), ("Verdict", "verdict")):
+            t.add_column(label, key=key)
+        t.add_column("p95", key="p95")
+        t.add_column("max", key="max")
+        t.add_column("", key="life")
         self.request()
 
     def params(self):
@@ -114,7 +119,7 @@ class PopulationScreen(DataScreen):
         self.query_one("#pop-title", Static).update(title)
         if not data.units:
             self.query_one("#pop-summary", Static).update(Text("No units in this group.", style=DIM_STYLE))
-            self.query_one("#pop-chart", Static).update("")
+            self.query_one("#pop-units", DataTable).clear()
             return
         # per lot summary
         lots: dict[str, list] = {}
@@ -144,37 +149,58 @@ class PopulationScreen(DataScreen):
         vals = [pu.figures[self.metric].max for pu in data.units] + [v for v in limits.values() if v]
         vals = [v for v in vals if v is not None and not math.isnan(v)]
         top = max(vals) * 1.05 if vals and max(vals) > 0 else 1.0
-        chart = self.query_one("#pop-chart", Static)
-        width = max(20, (chart.size.width or 70) - NAME_W - 22)
-        lines = []
+        t = self.query_one("#pop-units", DataTable)
+        width = max(16, (t.size.width or 76) - NAME_W - 40)
+        keep = self._unit_at_cursor()
+        t.clear()
+        self._row_units: list[int | None] = []
         prev_lot = None
         for pu in data.units:
             lot = f"{pu.unit.part_number}/{pu.unit.lot}"
             limit = limits.get(pu.unit.part_id)
             if lot != prev_lot:
-                head = Text(lot, style="bold underline")
-                head.append(f"  {pu.unit.supplier}" if pu.unit.supplier else "", style=DIM_STYLE)
-                head.append(
-                    f"  limit {value_text(limit)} ms" if limit is not None else "  no limit", style=DIM_STYLE
-                )
-                lines.append(head)
+                lim = f"limit {value_text(limit)} ms" if limit is not None else "no limit"
+                head = Text(f"{pu.unit.supplier}  {lim}".strip(), style=DIM_STYLE)
+                t.add_row(Text(lot, style="bold underline"), head, "", "", "", "")
+                self._row_units.append(None)
                 prev_lot = lot
             f = pu.figures[self.metric]
-            row = Text(f"{pu.unit.serial[-NAME_W:]:<{NAME_W}} ")
-            row.append_text(strip(f.p50, f.p95, f.max, limit, top, width))
-            label = {0: "PASS", 1: "MARG", 2: "FAIL"}.get(pu.verdict, "----")
-            row.append(f" {label:<4}", style=VERDICT_STYLE.get(pu.verdict, DIM_STYLE))
-            row.append(f" {value_text(f.p95):>5} {value_text(f.max):>5}")
-            if pu.unit.status == "failed":
-                row.append(" F", style=FAIL_STYLE)
-            lines.append(row)
-        scale = Text(f"{'':<{NAME_W}} 0{'':>{max(0, width - 8)}}{top / 1000:.3g} ms", style=DIM_STYLE)
-        key = Text(
-            f"{'':<{NAME_W}} - to p50  = to p95  . to max  x max  | its part's limit"
-            "   columns: p95, max; F failed",
-            style=DIM_STYLE,
+            label = {0: "PASS", 1: "MARGINAL", 2: "FAIL"}.get(pu.verdict, "NO DATA")
+            t.add_row(
+                pu.unit.serial[-NAME_W:],
+                strip(f.p50, f.p95, f.max, limit, top, width),
+                Text(label, style=VERDICT_STYLE.get(pu.verdict, DIM_STYLE)),
+                value_text(f.p95),
+                value_text(f.max),
+                Text("FAILED", style=FAIL_STYLE) if pu.unit.status == "failed" else "",
+                key=str(pu.unit.id),
+            )
+            self._row_units.append(pu.unit.id)
+        if keep in self._row_units:
+            t.move_cursor(row=self._row_units.index(keep))
+        self.query_one("#pop-key", Static).update(
+            Text(
+                f"scale 0 to {top / 1000:.3g} ms:  - to p50  = to p95  . to max  x max  | the part's limit"
+                "   Enter: history",
+                style=DIM_STYLE,
+            )
         )
-        chart.update(RichGroup(*lines, scale, key))
+
+    def on_resize(self, _event) -> None:
+        if isinstance(self.last_data, Population):
+            self._draw(self.last_data)
+
+    def _unit_at_cursor(self) -> int | None:
+        rows = getattr(self, "_row_units", [])
+        t = self.query_one("#pop-units", DataTable)
+        return rows[t.cursor_row] if 0 <= t.cursor_row < len(rows) else None
+
+    def on_data_table_row_selected(self, _event) -> None:
+        unit = self._unit_at_cursor()
+        if unit is not None:
+            from ._history import HistoryScreen
+
+            self.app.push_screen(HistoryScreen(unit, metric=self.metric))
 
     def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
         if not self._groups or event.option_index >= len(self._groups):
