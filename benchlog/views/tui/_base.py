@@ -60,7 +60,10 @@ class DataScreen(Screen):
         source = self.app.source
 
         def work() -> None:
-            data = source.read(lambda store: self.load(store, params))
+            try:
+                data = source.read(lambda store: self.load(store, params))
+            except Exception as exc:  # noqa: BLE001 - shown on the status line; the next read retries
+                data = Problem("error", f"internal error while reading: {type(exc).__name__}: {exc}", 0.0)
             self.post_message(self.Loaded(data))
 
         self.run_worker(work, thread=True, group="reads", exit_on_error=False)

@@ -20,7 +20,7 @@ from benchlog.store import Store, resolve_url
 class Problem:
     """Why there is nothing (or nothing fresh) to show, in words for the status line."""
 
-    kind: str  # "missing" | "no_schema" | "outage" | "data"
+    kind: str  # "missing" | "no_schema" | "outage" | "data" | "error"
     message: str
     since_s: float  # monotonic time the problem started
 
