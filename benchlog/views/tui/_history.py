@@ -140,6 +140,7 @@ class HistoryScreen(DataScreen):
                 max(4, hist.size.height or 8),
                 data.limit,
                 div,
+                unit,
             )
         )
 

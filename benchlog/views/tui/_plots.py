@@ -119,7 +119,12 @@ def legend(series: list[Series], levels: list[Level], marks: Series | None) -> T
 
 
 def histogram(
-    values: np.ndarray, width: int, height: int, limit: float | None = None, unit_div: float = 1000.0
+    values: np.ndarray,
+    width: int,
+    height: int,
+    limit: float | None = None,
+    unit_div: float = 1000.0,
+    unit: str = " ms",
 ) -> Text:
     """Counts of `values` in bins across the width; bins past `limit` are drawn with another texture."""
     w = max(10, width - Y_LABEL)
@@ -159,7 +164,7 @@ def histogram(
     out.append(" " * (Y_LABEL - 1) + "+" + "-" * w + "\n", style="dim")
     labels = [(Y_LABEL, "0")]
     labels.append((Y_LABEL + w // 2, f"{top / 2 / unit_div:.3g}"))
-    end = f"{top / unit_div:.3g} ms"
+    end = f"{top / unit_div:.3g}{unit}"
     labels.append((Y_LABEL + w - len(end), end))
     for pos, label in labels:
         for i, ch in enumerate(label):
