@@ -16,8 +16,13 @@ def _run(connection) -> None:
         connection=connection,
         target_metadata=target_metadata,
         render_as_batch=connection.dialect.name == "sqlite",
+        transactional_ddl=True,
     )
     with context.begin_transaction():
+        if connection.dialect.name == "sqlite":
+            # the same for SQLite: take the write lock before reading the revision, so a second
+            # process waits (busy_timeout) and then finds the whole schema, never half of it
+            connection.exec_driver_sql("BEGIN IMMEDIATE")
         if connection.dialect.name == "postgresql":
             # two recorders opening a new shared database at once: the second waits here, then
             # finds the schema current (the key is arbitrary but fixed for benchlog)

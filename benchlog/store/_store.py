@@ -54,6 +54,8 @@ class Store(ReadAPI):
         engine = make_engine(url, readonly=readonly)
         try:
             st = schema_status(engine)
+            if st.current is None and not readonly and not is_empty(engine):
+                st = schema_status(engine)  # another process may have just created the schema
             if not st.up_to_date:
                 if readonly:
                     what = "has no benchlog schema" if st.current is None else f"is at revision {st.current}"
