@@ -329,3 +329,24 @@ async def test_database_file_replaced_and_removed(tmp_path):
 @pytest.mark.parametrize("value", [math.nan, 1234.5])
 def test_value_text(value):
     assert value_text(value) == ("-" if math.isnan(value) else "1.23")
+
+
+def test_a_long_run_fills_in_batch_by_batch(built):
+    """With no budget for first reads, each refresh reads one trend; the rows end as a full read's."""
+    from benchlog.views.tui._data import TrendCache, read_run
+
+    path, ids = built
+    with Store.open(path, readonly=True) as store:
+        full = read_run(store, ids["run1"], TrendCache())
+        assert full.complete
+        cache = TrendCache(first_budget_s=0.0)
+        batches = 0
+        while True:
+            part = read_run(store, ids["run1"], cache)
+            batches += 1
+            if part.complete:
+                break
+            assert part.missing > 0 and len(part.units) == 8  # every unit is there, figures come later
+        assert batches > 8
+        assert [u.figures for u in part.units] == [u.figures for u in full.units]
+        assert [u.verdict for u in part.units] == [u.verdict for u in full.units]

@@ -81,6 +81,8 @@ class DataScreen(Screen):
             self.last_data = data
             self.show(data)
             self.loaded_once = True
+            if not getattr(data, "complete", True):
+                self._again = True  # shown in part: read the rest right away
         self.update_status(getattr(data, "read_s", None))
         if self._again:
             self._again = False

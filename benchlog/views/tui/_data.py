@@ -360,6 +360,11 @@ class RunDetail:
     outage: Outage | None
     incidents: list[IncidentInfo]
     read_s: float
+    missing: int = 0  # trends not read yet: the figures fill in on the next reads
+
+    @property
+    def complete(self) -> bool:
+        return self.missing == 0
 
 
 def judge_unit(unit: UnitInfo, figs: dict[str, Figures], chatter_recent: int, window: int, spec):
@@ -404,36 +409,50 @@ def judge_unit(unit: UnitInfo, figs: dict[str, Figures], chatter_recent: int, wi
     return verdict, tuple(reasons)
 
 
+def _empty_trend(unit_id: int, column: str, kind: int) -> Trend:
+    z = np.zeros(0, np.int64)
+    f = np.zeros(0, np.float64)
+    return Trend(unit_id, column, kind, z, z, z, f, f, f)
+
+
 class TrendCache:
     """Trends per (unit, metric), re-read only when the unit's latest rollup window moved on, at most
-    every `min_age_s` seconds, and within a time budget per refresh (`begin(budget_s)`): a trend due
-    for a re-read past the budget is served as it was and re-read on a later refresh, so a refresh
-    over long lives stays short however many units got a new window at once."""
+    every `min_age_s` seconds, and within a time budget per refresh: a trend due for a re-read past
+    `budget_s` is served as it was and re-read on a later refresh, so a refresh over long lives stays
+    short however many units got a new window at once. Trends never read yet are read up to
+    `first_budget_s` per refresh; past it they are left out (`missing`), the screen shows what it has
+    and reads again at once, so a run with long lives fills in batch by batch."""
 
-    def __init__(self, min_age_s: float = 5.0, budget_s: float = 0.04) -> None:
+    def __init__(self, min_age_s: float = 5.0, budget_s: float = 0.04, first_budget_s: float = 0.25) -> None:
         self.min_age_s = min_age_s
         self.budget_s = budget_s
+        self.first_budget_s = first_budget_s
         self._data: dict[tuple[int, str], tuple[int, float, Trend]] = {}
         self._derived: dict[tuple, tuple[Trend, object]] = {}
         self.layouts: dict[int, tuple[float, list]] = {}
         self._spent = 0.0
         self.deferred = 0  # re-reads put off in the current refresh
+        self.missing = 0  # trends not read yet (left for the next refresh)
 
     def begin(self) -> None:
-        """A new refresh: its budget starts afresh."""
+        """A new refresh: its budgets start afresh."""
         self._spent = 0.0
         self.deferred = 0
+        self.missing = 0
 
     def get(self, store, unit_id: int, key: str, latest_hi: int, now: float | None = None) -> Trend:
         now = time.monotonic() if now is None else now
         hit = self._data.get((unit_id, key))
+        _, column, kind = CHART_METRICS[key]
         if hit is not None:
             if hit[0] == latest_hi or now - hit[1] < self.min_age_s:
                 return hit[2]
-            if self._spent >= self.budget_s:
+            if self._spent > 0 and self._spent >= self.budget_s:  # one read per refresh at least
                 self.deferred += 1
                 return hit[2]
-        _, column, kind = CHART_METRICS[key]
+        elif self._spent > 0 and self._spent >= self.first_budget_s:
+            self.missing += 1
+            return _empty_trend(unit_id, column, kind)
         t0 = time.perf_counter()
         t = store.trend(unit_id, column, kind=kind)
         self._spent += time.perf_counter() - t0
@@ -496,7 +515,7 @@ def read_run(store, run_id: int, cache: TrendCache | None = None, specs: dict | 
             max(seat.cycles_done, unit.cycles - seat.cycle_base) if run.state != "ended" else seat.cycles_done
         )
         rows.append(_unit_row(store, seat.channel, unit, done, run, cache, specs.get(unit.part_id)))
-    return RunDetail(run, rows, outage_of(incidents), incidents, time.perf_counter() - t0)
+    return RunDetail(run, rows, outage_of(incidents), incidents, time.perf_counter() - t0, cache.missing)
 
 
 def _spec_key(spec) -> tuple | None:
@@ -618,6 +637,11 @@ class Population:
     units: list[PopUnit]
     limits: dict[tuple[int, str], float | None]  # (part id, metric) -> spec limit
     read_s: float
+    missing: int = 0
+
+    @property
+    def complete(self) -> bool:
+        return self.missing == 0
 
 
 POP_METRICS = ("make_bounce", "break_bounce", "operate_time")
@@ -656,7 +680,7 @@ def read_population(store, group: Group | None, cache: TrendCache | None = None)
             for key in POP_METRICS:
                 lim = limit_for(spec, key)
                 limits.setdefault((u.part_id, key), lim[0] if lim else None)
-    return Population(groups, group, units, limits, time.perf_counter() - t0)
+    return Population(groups, group, units, limits, time.perf_counter() - t0, cache.missing)
 
 
 # -- text ---------------------------------------------------------------------------------------------

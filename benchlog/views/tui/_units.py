@@ -102,7 +102,7 @@ class UnitsScreen(DataScreen):
 
     def compose(self) -> ComposeResult:
         yield Static(f"Run {self.run_id}", id="run-line")
-        yield Static("", id="view-line")
+        yield Static(Text(" reading the run ...", style=DIM_STYLE), id="view-line")
         yield DataTable(id="units", cursor_type="row", zebra_stripes=True)
         yield Input(
             placeholder="filter: words to match (serial, part, lot, pass/marginal/fail, drift)", id="filter"
@@ -203,6 +203,8 @@ class UnitsScreen(DataScreen):
             view.append(f"   filter: {self.filter_text!r}")
         total = len(self.last_data.units) if isinstance(self.last_data, RunDetail) else 0
         view.append(f"   {len(self.rows)} of {total} units")
+        if isinstance(self.last_data, RunDetail) and not self.last_data.complete:
+            view.append(f"   reading trends, {self.last_data.missing} to go", style="bold")
         self.query_one("#view-line", Static).update(view)
         self._show_info()
 
