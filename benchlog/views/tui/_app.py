@@ -10,6 +10,12 @@ from ._runs import RunsScreen
 from ._source import StoreSource
 
 
+def _warm_up() -> None:
+    """Import the drift charts' scipy modules while the first screen is read, not on the first run."""
+    import scipy.signal  # noqa: F401
+    import scipy.stats  # noqa: F401
+
+
 class BenchDashboard(App):
     """The dashboard over the store at `db` (an URL or SQLite path), read-only.
 
@@ -41,6 +47,7 @@ class BenchDashboard(App):
         self.show_timing = show_timing
 
     def on_mount(self) -> None:
+        self.run_worker(_warm_up, thread=True, group="warm-up", exit_on_error=False)
         self.push_screen(RunsScreen())
         if self.refresh_s > 0:
             self.set_interval(self.refresh_s, self.action_refresh_now)
