@@ -3,7 +3,7 @@
 A night of life test is 200,000 cycles (400,000 makes and breaks). Targets: one debouncer replay (all
 channels, one parameter) well under a second per million edges; the whole software design (four
 debouncers, their sweeps, life windows) and one RC candidate checked at every tolerance corner in
-minutes, not hours. Run: python tests/benchmarks/design_replay.py [cycles]
+minutes, not hours. Run: python tests/benchmarks/bench_design.py [cycles]
 """
 
 from __future__ import annotations
