@@ -28,7 +28,8 @@ SPEED = 300.0  # sampler time runs this many times the wall clock
 ON_MS = OFF_MS = 50.0
 AGED_LIFE_CYCLES = 200_000  # the run's cycles stand for this many cycles of a real life test ...
 MAX_AGEING = 100.0  # ... but parts age at most this many times faster than real ones
-PULL_FOR_S = 0.3  # bench B's cable is pulled halfway through its cycles for this many wall seconds
+PULL_FOR_S = 0.3  # bench B's cable is pulled a third of the way in for this many wall seconds
+STALL_S = 8.0  # a bench whose cycle count does not move for this long is stopped
 
 
 def _cycles(text: str) -> int:
@@ -102,6 +103,7 @@ class BenchJob:
     pull: bool = False
     run_id: int | None = None
     reason: str = ""
+    stalled: bool = False
     error: BaseException | None = None
     done: threading.Event = field(default_factory=threading.Event)
     started: threading.Event = field(default_factory=threading.Event)
@@ -160,14 +162,21 @@ def record_bench(db: str, job: BenchJob, aged_for: int, stop: threading.Event) -
         feed.start_cycling(rec.plans(int(ON_MS * 1000), int(OFF_MS * 1000)))
 
         pulled: list[float] = []  # monotonic time of the pull
+        moved = [time.monotonic(), -1]  # when the cycle count last moved, and to what
 
         def progress(p) -> None:
+            now = time.monotonic()
             target = job.stop_after or job.cycles
             if job.pull and not pulled and p.cycles_done >= target // 3:
-                pulled.append(time.monotonic())
+                pulled.append(now)
                 sim.pull_cable(PULL_FOR_S)  # the link goes down and comes back
-            back = not job.pull or (pulled and time.monotonic() - pulled[0] > PULL_FOR_S + 1.0)
+            back = not job.pull or (pulled and now - pulled[0] > PULL_FOR_S + 1.0)
             if job.stop_after and p.cycles_done >= job.stop_after and back:
+                stop.set()
+            if p.cycles_done != moved[1]:
+                moved[:] = [now, p.cycles_done]
+            elif now - moved[0] > STALL_S:  # a demo never waits for ever on a bench that went quiet
+                job.stalled = True
                 stop.set()
 
         job.reason = rec.run(
@@ -210,6 +219,16 @@ def start_demo(db: str, cycles: int, seed: int) -> tuple[list[BenchJob], threadi
     return [a, b], stop, thread
 
 
+def _stalls(jobs: list[BenchJob]) -> None:
+    for job in jobs:
+        if job.stalled:
+            print(
+                f"note: bench {job.name} delivered no cycles for {STALL_S:g} s"
+                + (" after its cable was pulled" if job.pull else "")
+                + "; its recording was stopped there"
+            )
+
+
 def _check(jobs: list[BenchJob]) -> None:
     from benchlog.errors import BenchlogError, StoreError
 
@@ -241,6 +260,7 @@ def run(args: argparse.Namespace) -> int:
 
         with Store.open(db, readonly=True) as store:
             print(summary_text(store))
+        _stalls(jobs)
         print(f"recorded in {time.monotonic() - t0:.1f} s; look again with: benchlog dash --db {path}")
         return 0
     from benchlog.views.tui import BenchDashboard
@@ -251,5 +271,6 @@ def run(args: argparse.Namespace) -> int:
         stop.set()
         thread.join(15)
     _check(jobs)
+    _stalls(jobs)
     print(f"demo database: {path} (open it again with: benchlog dash --db {path})")
     return 0
