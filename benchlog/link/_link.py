@@ -77,6 +77,45 @@ class _Receiver(serial.threaded.Protocol):
         self.link._lost(exc)
 
 
+class _ReaderThread(serial.threaded.ReaderThread):
+    """pyserial's reader thread, but a pulled cable ends it through `connection_lost`.
+
+    pyserial's loop catches only `SerialException`, while `in_waiting` on a vanished tty raises a bare
+    `OSError` (EIO): the thread then dies with a traceback and nobody reconnects. This loop is the same
+    one with that error caught too.
+    """
+
+    def run(self) -> None:
+        if not hasattr(self.serial, "cancel_read"):
+            self.serial.timeout = 1
+        self.protocol = self.protocol_factory()
+        try:
+            self.protocol.connection_made(self)
+        except Exception as exc:
+            self.alive = False
+            self.protocol.connection_lost(exc)
+            self._connection_made.set()
+            return
+        error: BaseException | None = None
+        self._connection_made.set()
+        while self.alive and self.serial.is_open:
+            try:
+                data = self.serial.read(self.serial.in_waiting or 1)
+            except (serial.SerialException, OSError, TypeError, AttributeError) as exc:
+                # TypeError / AttributeError: pyserial's posix port after close() from another thread
+                error = exc
+                break
+            if data:
+                try:
+                    self.protocol.data_received(data)
+                except Exception as exc:
+                    error = exc
+                    break
+        self.alive = False
+        self.protocol.connection_lost(error)
+        self.protocol = None
+
+
 class Link:
     """Reads a pyserial URL in the background; use as a context manager.
 
@@ -101,7 +140,7 @@ class Link:
         self.wait_s = wait_s
         self.backoff_s = backoff_s
         self._queue: queue.SimpleQueue[Chunk | Outage] = queue.SimpleQueue()
-        self._reader: serial.threaded.ReaderThread | None = None
+        self._reader: _ReaderThread | None = None
         self._lost_event = threading.Event()
         self._lost_at = 0
         self._lost_reason = ""
@@ -184,7 +223,7 @@ class Link:
     # -- supervisor --------------------------------------------------------------------------------
     def _start_reader(self, port: serial.SerialBase) -> None:
         self._lost_event.clear()
-        reader = serial.threaded.ReaderThread(port, lambda: _Receiver(self))
+        reader = _ReaderThread(port, lambda: _Receiver(self))
         reader.name = "benchlog-link-reader"
         self._reader = reader
         reader.start()
