@@ -18,7 +18,7 @@ import math
 from pathlib import Path
 
 NAME = "debounce"
-HELP = "choose a software debounce or R and C for a Schmitt input from recorded bounce"
+HELP = "Choose a software debounce, or R and C for a Schmitt input, from recorded bounce."
 
 
 def _pos_float(text: str) -> float:

@@ -9,7 +9,7 @@ import math
 from benchlog.views.cli.cmd_debounce import _ohms, _pct, _pos_float
 
 NAME = "pullup"
-HELP = "estimate an internal pull-up from the open-pin voltage and the voltage across a known resistor"
+HELP = "Estimate an internal pull-up from the open-pin voltage and the voltage across a known resistor."
 
 
 def _ohms_or_inf(text: str) -> float:
