@@ -227,6 +227,20 @@ def pooled_percentile(
     return Interval(est, low, high, confidence, sample.n_units, _METHOD)
 
 
+def _two_sample(candidate, reference, compare, confidence, n_resamples, seed) -> Interval:
+    """`compare(weights_a, weights_b)` at unit weights 1, with its cluster-bootstrap interval."""
+    est = float(compare(np.ones(candidate.n_units), np.ones(reference.n_units)))
+
+    def stat(ia, ib, axis=-1):
+        return compare(
+            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
+            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
+        )
+
+    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
+    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+
+
 def percentile_ratio(
     candidate: UnitSample,
     reference: UnitSample,
@@ -244,16 +258,7 @@ def percentile_ratio(
         with np.errstate(divide="ignore", invalid="ignore"):
             return ca.quantile(wa, percentile) / cb.quantile(wb, percentile)
 
-    est = float(ratio(np.ones(candidate.n_units), np.ones(reference.n_units)))
-
-    def stat(ia, ib, axis=-1):
-        return ratio(
-            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
-            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
-        )
-
-    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
-    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+    return _two_sample(candidate, reference, ratio, confidence, n_resamples, seed)
 
 
 def pooled_mean(
@@ -294,16 +299,7 @@ def mean_ratio(
         with np.errstate(divide="ignore", invalid="ignore"):
             return ((wa @ parts[0][0]) / (wa @ parts[0][1])) / ((wb @ parts[1][0]) / (wb @ parts[1][1]))
 
-    est = float(ratio(np.ones(candidate.n_units), np.ones(reference.n_units)))
-
-    def stat(ia, ib, axis=-1):
-        return ratio(
-            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
-            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
-        )
-
-    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
-    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+    return _two_sample(candidate, reference, ratio, confidence, n_resamples, seed)
 
 
 def mean_difference(
@@ -324,16 +320,7 @@ def mean_difference(
     def diff(wa, wb):
         return (wa @ parts[0][0]) / (wa @ parts[0][1]) - (wb @ parts[1][0]) / (wb @ parts[1][1])
 
-    est = float(diff(np.ones(candidate.n_units), np.ones(reference.n_units)))
-
-    def stat(ia, ib, axis=-1):
-        return diff(
-            _weights(np.moveaxis(ia, axis, -1), candidate.n_units),
-            _weights(np.moveaxis(ib, axis, -1), reference.n_units),
-        )
-
-    low, high = _bootstrap((candidate, reference), stat, confidence, n_resamples, seed)
-    return Interval(est, low, high, confidence, min(candidate.n_units, reference.n_units), _METHOD)
+    return _two_sample(candidate, reference, diff, confidence, n_resamples, seed)
 
 
 @dataclass(frozen=True)
