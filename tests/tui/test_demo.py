@@ -32,10 +32,7 @@ def test_demo_without_a_terminal_prints_the_summary(tmp_path):
         a, b = runs["BW-BENCH-A"], runs["BW-BENCH-B"]
         assert a.end_reason == "target" and a.cycles_done >= 300 and a.units == 16
         assert b.end_reason in ("stopped", "all_failed") and b.units == 8  # open-ended: stopped by the demo
-        if "note: bench BW-BENCH-B delivered no cycles" not in text:
-            assert store.incidents(b.id, kind="disconnect")  # the pulled cable is a recorded outage
-        # else: the link did not come back after the pull (a reader-thread race below benchlog,
-        # reported); the demo must then say so and still end, which is what this run checks
+        assert store.incidents(b.id, kind="disconnect")  # the pulled cable is a recorded outage
         for run in (a, b):
             head = f"run {run.id} on {run.bench}: ENDED"
             assert head in text
@@ -47,7 +44,7 @@ def test_demo_without_a_terminal_prints_the_summary(tmp_path):
                     assert f"FAILED {cycles_text(ru.unit.failed_at_cycle)}" in line
         parts = {p.part_number for p in store.parts()}
         assert parts == {"AG-MS5", "VS-505", "AG-R12"}
-    assert "link down 1x" in text or "note: bench BW-BENCH-B delivered no cycles" in text
+    assert "link down 1x" in text
     assert "benchlog dash --db" in text
 
 
