@@ -19,6 +19,7 @@ range given by the slope's confidence interval.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -187,10 +188,26 @@ class DriftReport:
     ewma_signal: np.ndarray  # bool per window
     cusum_signal: np.ndarray  # bool per window
     projection: Projection | None
+    trend: Projection | None = None  # the Theil-Sen fit after the baseline, with or without a limit
 
     @property
     def signalled(self) -> bool:
         return bool(self.ewma_signal.any() or self.cusum_signal.any())
+
+    @property
+    def rising(self) -> bool:
+        """The whole slope interval of the post-baseline trend lies above zero."""
+        return self.trend is not None and self.trend.slope_low > 0
+
+    @property
+    def confirmed(self) -> bool:
+        """A chart signalled and the trend is rising: what a flag for a person should require.
+
+        The charts alone, on a baseline of a few windows, also signal on steady units now and then (a
+        short baseline underestimates sigma); a signal backed by a rising trend is the wear that drift
+        monitoring is for.
+        """
+        return self.signalled and self.rising
 
     @property
     def first_signal_cycle(self) -> int | None:
@@ -236,13 +253,13 @@ def drift(
     has = ~np.isnan(values)
     e_sig &= has
     c_sig &= has
-    proj = None
-    if limit is not None:
-        mid = (windows["cycle_start"] + windows["cycle_end"]) / 2.0
-        after = np.arange(len(values)) >= base.windows
-        if after.sum() >= 3:
-            proj = project(mid[after], values[after], limit, confidence)
-    return DriftReport(windows, base, z, lo, hi, cp, cm, hh, e_sig, c_sig, proj)
+    trend = None
+    mid = (windows["cycle_start"] + windows["cycle_end"]) / 2.0
+    after = np.arange(len(values)) >= base.windows
+    if after.sum() >= 3:
+        trend = project(mid[after], values[after], math.inf if limit is None else limit, confidence)
+    proj = trend if limit is not None else None
+    return DriftReport(windows, base, z, lo, hi, cp, cm, hh, e_sig, c_sig, proj, trend)
 
 
 class DriftMonitor:

@@ -109,3 +109,23 @@ def test_monitor_fed_in_pieces_agrees_with_the_batch_report():
         signals += mon.update(ws[i : i + 7])
     rep = mon.report()
     assert [c for c, kind in signals if kind == "ewma"] == list(ws["cycle_end"][rep.ewma_signal])
+
+
+def test_confirmed_needs_a_rising_trend_as_well_as_a_chart_signal():
+    # steady units: how often do the charts alone, and the confirmed flag, fire over 60 windows?
+    rng = np.random.default_rng(11)
+    charts = confirmed = 0
+    for _ in range(60):
+        ws = window_stats(actuations(6_000, rng.lognormal(7, 0.3, 6_000)), 100)
+        rep = drift(ws, limit=3000.0, baseline_windows=5)
+        charts += rep.signalled
+        confirmed += rep.confirmed
+    assert confirmed <= max(3, charts // 3)  # the trend's slope interval keeps most false alarms out
+    # a worn unit: the same noise on a rising bounce is confirmed, and the trend matches scipy's
+    n = 6_000
+    vals = rng.lognormal(7, 0.3, n) * (1 + np.arange(n) / 3_000)
+    ws = window_stats(actuations(n, vals), 100)
+    rep = drift(ws, baseline_windows=5)  # no limit: the trend is still fitted
+    assert rep.confirmed and rep.projection is None and rep.trend.slope_low > 0
+    mid = (ws["cycle_start"] + ws["cycle_end"]) / 2
+    assert rep.trend.slope_per_cycle == pytest.approx(theilslopes(ws["value"][5:], mid[5:])[0])

@@ -10,8 +10,10 @@ Statistics made from rollup windows (each window keeps count, p50, p95 and max o
 - **rolling**: the last `ROLLING_WINDOWS` windows: median of their p50, worst of their p95, max of
   their max. The verdict is judged on the rolling figures (the unit's present condition); the
   formal verdict over the whole life belongs to the qualification statistics.
-- **chatter events**: a lower bound, the sum over windows of the window's largest per-actuation
-  count (exact while at most one actuation of a window chattered); the rollups keep no sums.
+- **chatter events**: the sum over windows of each window's total (`sum`), exact. Windows written
+  before the store kept totals (revision 0003) have a NaN sum; for those the window's largest
+  per-actuation count stands in, a lower bound (exact while at most one actuation of the window
+  chattered).
 - **drift**: `benchlog.analysis.drift` over the windows' p95 (coarsened to at most `DRIFT_POINTS`
   points by taking medians of consecutive windows), baseline from the first windows, projection to
   the spec limit by Theil-Sen. The baseline is the first quarter of the windows (5 to 20). A unit is
@@ -40,7 +42,6 @@ from benchlog.analysis import (
     PartSpec,
     drift,
     parse_spec,
-    project,
 )
 from benchlog.errors import BenchlogError
 from benchlog.store import FAILED, IncidentInfo, PartInfo, RunInfo, Trend, UnitInfo
@@ -146,11 +147,13 @@ def figures(trend: Trend, rolling: int = ROLLING_WINDOWS) -> Figures:
 
 
 def chatter_events(trend: Trend, rolling: int | None = None) -> int:
-    """Lower bound on chatter events (see the module docstring); over the last `rolling` windows."""
-    mx = np.nan_to_num(trend.max[trend.count > 0], nan=0.0)
+    """Chatter events (see the module docstring); over the last `rolling` windows."""
+    has = trend.count > 0
+    total = trend.sum[has]
+    per_window = np.where(np.isnan(total), np.nan_to_num(trend.max[has], nan=0.0), total)
     if rolling is not None:
-        mx = mx[-rolling:]
-    return int(mx.sum())
+        per_window = per_window[-rolling:]
+    return int(round(float(per_window.sum())))
 
 
 def windows_of(trend: Trend, stat: str = "p95", points: int = DRIFT_POINTS) -> np.ndarray:
@@ -218,15 +221,10 @@ def drift_of(trend: Trend, metric: str, spec: PartSpec | None) -> tuple[DriftFla
     except BenchlogError:
         return None, None
     p = rep.projection
-    trend_p = p
-    if trend_p is None:  # no limit to project to: the slope's interval alone
-        mid = (w["cycle_start"] + w["cycle_end"]) / 2.0
-        trend_p = project(mid[n_base:], w["value"][n_base:], math.inf)
-    rising = trend_p is not None and trend_p.slope_low > 0
     flag = DriftFlag(
         metric,
         CHART_METRICS[metric][0],
-        rep.signalled and rising,
+        rep.confirmed,
         rep.first_signal_cycle,
         None if p is None else p.crossing_cycle,
         None if p is None else p.crossing_low,
@@ -314,7 +312,7 @@ class UnitRow:
     unit: UnitInfo
     run_cycles: int
     figures: dict[str, Figures]  # chart metric key -> figures
-    chatter: int  # events, lower bound, over the life
+    chatter: int  # events over the life (a lower bound where old windows have no sum)
     verdict: int
     reasons: tuple[str, ...]
     drift: tuple[DriftFlag, ...]
@@ -412,7 +410,7 @@ def judge_unit(unit: UnitInfo, figs: dict[str, Figures], chatter_recent: int, wi
 def _empty_trend(unit_id: int, column: str, kind: int) -> Trend:
     z = np.zeros(0, np.int64)
     f = np.zeros(0, np.float64)
-    return Trend(unit_id, column, kind, z, z, z, f, f, f)
+    return Trend(unit_id, column, kind, z, z, z, f, f, f, f)
 
 
 class TrendCache:
