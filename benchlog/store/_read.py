@@ -132,6 +132,7 @@ class RollupPoint:
     p50: float
     p95: float
     max: float
+    sum: float  # total of the window's values; NaN in windows written before revision 0003
 
 
 @dataclass(frozen=True, slots=True)
@@ -176,6 +177,7 @@ class Trend:
     p50: np.ndarray
     p95: np.ndarray
     max: np.ndarray
+    sum: np.ndarray  # total of each window's values; NaN for windows written before revision 0003
 
     def __len__(self) -> int:
         return len(self.cycle_lo)
@@ -213,6 +215,46 @@ def _kind(kind: int | str) -> int:
                 return k
         raise DataError(f"unknown actuation kind {kind!r}: make or break")
     return int(kind)
+
+
+# PostgreSQL's binary COPY format (https://www.postgresql.org/docs/current/sql-copy.html, "Binary
+# Format"): a 19-byte header, then per row an int16 field count and per field an int32 length and the
+# value in network byte order; -1 as the field count ends the data. With no NULLs every row has the same
+# length, so the whole answer is one big-endian structured array.
+_PG_COPY_HEADER = b"PGCOPY\n\xff\r\n\x00"
+_PG_WIDTH = {"small": (">i2", 2), "int": (">i4", 4), "big": (">i8", 8), "float": (">f8", 8)}
+_PG_SQL_KIND = {"unit_id": "big", "run_id": "big", **dict(s.ACTUATION_COLUMNS)}
+_PG_ROW_FIELDS = [("nfields", ">i2")] + [
+    pair for name in ACT_FIELDS for pair in ((f"len_{name}", ">i4"), (name, _PG_WIDTH[_PG_SQL_KIND[name]][0]))
+]
+_PG_ROW_DTYPE = np.dtype(_PG_ROW_FIELDS)
+
+
+def _pg_binary_actuations(raw, sql: str, params: dict) -> np.ndarray | None:
+    """The rows of `sql` through `COPY (sql) TO STDOUT (FORMAT binary)`, or None when they are not all
+    of the fixed layout (a NULL somewhere, a column of another width): the caller fetches them then."""
+    buf = bytearray()
+    with raw.cursor() as cur, cur.copy(f"COPY ({sql}) TO STDOUT (FORMAT binary)", params) as copy:
+        for block in copy:
+            buf += block
+    if len(buf) < 21 or not buf.startswith(_PG_COPY_HEADER):
+        return None
+    ext = int.from_bytes(buf[15:19], "big")
+    start = 19 + ext
+    body = len(buf) - start - 2  # the int16 -1 trailer
+    if body < 0 or body % _PG_ROW_DTYPE.itemsize or buf[-2:] != b"\xff\xff":
+        return None
+    n = body // _PG_ROW_DTYPE.itemsize
+    rows = np.frombuffer(buf, _PG_ROW_DTYPE, count=n, offset=start)
+    if (rows["nfields"] != len(ACT_FIELDS)).any():
+        return None
+    for name in ACT_FIELDS:
+        if (rows[f"len_{name}"] != _PG_WIDTH[_PG_SQL_KIND[name]][1]).any():
+            return None
+    out = np.empty(len(rows), STORED_ACTUATION_DTYPE)
+    for name in ACT_FIELDS:
+        out[name] = rows[name]
+    return out
 
 
 class ReadAPI:
@@ -355,6 +397,7 @@ class ReadAPI:
                         _float(p["p50"]),
                         _float(p["p95"]),
                         _float(p["max"]),
+                        _float(p["sum"]),
                     )
                 out.append(RunUnitInfo(r.channel, unit, int(r.cycle_base), int(r.cycles_done), latest))
             return out
@@ -379,7 +422,7 @@ class ReadAPI:
             # straight through the driver: tens of thousands of rows, no per-row objects in between
             mark = "?" if c.dialect.name == "sqlite" else "%s"
             sql = (
-                'SELECT cycle_lo, cycle_hi, "count", p50, p95, "max" FROM rollups '
+                'SELECT cycle_lo, cycle_hi, "count", p50, p95, "max", "sum" FROM rollups '
                 f"WHERE unit_id = {mark} AND metric = {mark} AND kind = {mark}"
             )
             params: tuple = (unit_id, metric, k)
@@ -401,10 +444,13 @@ class ReadAPI:
                 ("p50", np.float64),
                 ("p95", np.float64),
                 ("max", np.float64),
+                ("sum", np.float64),
             ],
         )
         arr = arr[np.argsort(arr["lo"], kind="stable")]
-        return Trend(unit_id, metric, k, arr["lo"], arr["hi"], arr["n"], arr["p50"], arr["p95"], arr["max"])
+        return Trend(
+            unit_id, metric, k, arr["lo"], arr["hi"], arr["n"], arr["p50"], arr["p95"], arr["max"], arr["sum"]
+        )
 
     def actuations(
         self,
@@ -442,12 +488,35 @@ class ReadAPI:
             return self._fetch_actuations(c, cond)
 
     def _fetch_actuations(self, c, cond) -> np.ndarray:
+        """The query compiled once by SQLAlchemy, then run on the DBAPI cursor of `c` (in its
+        transaction): PostgreSQL sends the rows as a binary COPY that numpy reads in one view;
+        SQLite's plain tuples go into the structured array in one `np.array` call."""
         a = s.Actuation.__table__.c
         q = select(*[a[n] for n in ACT_FIELDS]).where(*cond).order_by(a.unit_id, a.cycle, a.kind)
-        rows = c.execute(q).all()
+        compiled = q.compile(dialect=c.dialect, compile_kwargs={"render_postcompile": True})
+        raw = c.connection.driver_connection
+        if c.dialect.name == "postgresql":
+            params = dict(compiled.params)
+            arr = _pg_binary_actuations(raw, compiled.string, params)
+            if arr is not None:
+                return arr
+            cur = raw.cursor()
+            try:
+                cur.execute(compiled.string, params)
+                rows = cur.fetchall()
+            finally:
+                cur.close()
+        else:
+            params = tuple(compiled.params[name] for name in compiled.positiontup or ())
+            cur = raw.cursor()
+            try:
+                cur.execute(compiled.string, params)
+                rows = cur.fetchall()
+            finally:
+                cur.close()
         if not rows:
             return np.zeros(0, STORED_ACTUATION_DTYPE)
-        return np.array([tuple(r) for r in rows], dtype=STORED_ACTUATION_DTYPE)
+        return np.array(rows, dtype=STORED_ACTUATION_DTYPE)
 
     def edges(
         self,

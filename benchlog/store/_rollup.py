@@ -1,4 +1,4 @@
-"""Rollups: per unit, kind and window of cycles, count / p50 / p95 / max of each metric.
+"""Rollups: per unit, kind and window of cycles, count / p50 / p95 / max / sum of each metric.
 
 The recorder feeds actuations as they come; a window is written once an actuation of a later window
 arrives for the same unit and kind (and at the end of a segment, partial). Percentiles use linear
@@ -93,7 +93,8 @@ class RollupKeeper:
     def add(self, unit: np.ndarray, acts: np.ndarray, *, final: bool = False) -> list[tuple]:
         """Feed actuations (any dtype with kind, cycle, flags and the metric fields) of units `unit`;
         returns rollup rows (unit_id, metric, kind, None, window_no, cycle_lo, cycle_hi, count, p50,
-        p95, max) of every finished window; the caller fills in the run."""
+        p95, max, sum) of every finished window (sum 0.0 where count is 0); the caller fills in the
+        run."""
         unit_a, kind, cycle, values = self._merge(self._columns(unit, acts))
         self._open = None
         if not len(unit_a):
@@ -135,15 +136,29 @@ class RollupKeeper:
         starts = np.flatnonzero(new)
         ends = np.append(starts[1:], len(key)) - 1
         counts, stats = group_stats(group, values)
+        sums = np.add.reduceat(np.where(np.isnan(values), 0.0, values), starts, axis=0)  # (G, m)
         unit_l, kind_l, win_l = unit_a[starts].tolist(), kind[starts].tolist(), win[starts].tolist()
         lo_l, hi_l = cycle[starts].tolist(), cycle[ends].tolist()
-        counts_l, stats_l = counts.tolist(), stats.tolist()
+        counts_l, stats_l, sums_l = counts.tolist(), stats.tolist(), sums.tolist()
         result: list[tuple] = []
         for i in range(len(starts)):
             for j, metric in enumerate(ROLLUP_METRICS):
                 n = counts_l[i][j]
                 p50, p95, mx = stats_l[i][j] if n else (None, None, None)
                 result.append(
-                    (unit_l[i], metric, kind_l[i], None, win_l[i], lo_l[i], hi_l[i], n, p50, p95, mx)
+                    (
+                        unit_l[i],
+                        metric,
+                        kind_l[i],
+                        None,
+                        win_l[i],
+                        lo_l[i],
+                        hi_l[i],
+                        n,
+                        p50,
+                        p95,
+                        mx,
+                        sums_l[i][j],
+                    )
                 )
         return result

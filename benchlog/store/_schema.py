@@ -235,7 +235,8 @@ class EdgeChunk(Base):
 
 
 class Rollup(Base):
-    """Per unit, run, kind and metric, one window of cycles: count, p50, p95 and max."""
+    """Per unit, run, kind and metric, one window of cycles: count, p50, p95, max and sum (the total of
+    the window's values; NULL in rows written before revision 0003)."""
 
     __tablename__ = "rollups"
     unit_id: Mapped[int] = mapped_column(ForeignKey("units.id"), primary_key=True)
@@ -249,6 +250,7 @@ class Rollup(Base):
     p50: Mapped[float | None] = mapped_column(Float)
     p95: Mapped[float | None] = mapped_column(Float)
     max: Mapped[float | None] = mapped_column(Float)
+    sum: Mapped[float | None] = mapped_column(Float)
 
 
 # Metrics the rollups keep (all float-valued columns of ACTUATION_DTYPE plus the counts).

@@ -54,6 +54,7 @@ _ROLLUP_COLS = (
     "p50",
     "p95",
     "max",
+    "sum",
 )
 _SQLITE_ROLLUP_INSERT = (
     f"INSERT INTO rollups ({', '.join(_ROLLUP_COLS)}) VALUES ({', '.join('?' * len(_ROLLUP_COLS))})"

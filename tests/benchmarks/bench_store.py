@@ -1,6 +1,6 @@
 """Store and recorder benchmark; prints each figure beside its target.
 
-Run: python tests/benchmarks/bench_store.py [--hours H] [--skip ingest trend recorder]
+Run: python tests/benchmarks/bench_store.py [--hours H] [--pg URL] [--skip ingest trend read recorder]
 
 1. Ingest into SQLite: actuations/s through the store's write path (RunWriter: numpy batch in,
    per-unit prepared INSERT via sqlite3 executemany, rollups, progress, commit), target >= 250 k/s;
@@ -10,7 +10,11 @@ Run: python tests/benchmarks/bench_store.py [--hours H] [--skip ingest trend rec
 2. Trend query: `Store.trend` for one unit with 10 M actuations (5 M cycles, makes and breaks), from
    rollups written directly at that scale (generating 10 M raw rows would only slow the benchmark;
    the trend never reads them), target < 200 ms.
-3. Recorder memory: a simulated 24 h run of 8 channels at 10 cycles/s (6.9 M cycles, 13.8 M
+3. Read: `Store.actuations()` of a 1 M-actuation store (8 units, NaN in some metrics), actuations/s,
+   target >= 1 M/s, beside the row-by-row read through SQLAlchemy (one Python tuple per row, the
+   earlier path) in the same run; on the SQLite file, and on PostgreSQL too when `--pg URL` (or
+   BENCHLOG_TEST_PG_URL) names a server (the store goes into a schema of its own, dropped after).
+4. Recorder memory: a simulated 24 h run of 8 channels at 10 cycles/s (6.9 M cycles, 13.8 M
    actuations) pushed through the real Recorder (analysis, life judge, store writer with raw edges
    and rollups) as fast as it goes; RSS is sampled every simulated hour, the peak is reported.
 """
@@ -18,6 +22,7 @@ Run: python tests/benchmarks/bench_store.py [--hours H] [--skip ingest trend rec
 from __future__ import annotations
 
 import argparse
+import os
 import resource
 import sqlite3
 import statistics
@@ -147,7 +152,7 @@ def bench_trend(tmp: Path, actuations: int, window: int) -> None:
                 p50 = rng.gamma(2.0, 400.0, windows)
                 base = [(unit, m, kind, writer.run_id) for m in ROLLUP_METRICS]
                 rows = [
-                    (*b, wi, wi * window, wi * window + window - 1, window, v, v * 1.6, v * 2.1)
+                    (*b, wi, wi * window, wi * window + window - 1, window, v, v * 1.6, v * 2.1, v * window)
                     for b in base
                     for wi, v in zip(w.tolist(), p50.tolist(), strict=True)
                 ]
@@ -180,7 +185,73 @@ def bench_trend(tmp: Path, actuations: int, window: int) -> None:
     )
 
 
-# -- 3. recorder memory -----------------------------------------------------------------------------
+# -- 3. read ----------------------------------------------------------------------------------------
+def _rows_one_by_one(store) -> np.ndarray:
+    """The earlier read path: SQLAlchemy rows, one Python tuple per row, then np.array."""
+    from sqlalchemy import select
+
+    from benchlog.store import _schema as sch
+    from benchlog.store._write import ACT_FIELDS, STORED_ACTUATION_DTYPE
+
+    a = sch.Actuation.__table__.c
+    q = select(*[a[n] for n in ACT_FIELDS]).order_by(a.unit_id, a.cycle, a.kind)
+    with store.engine.connect() as c:
+        rows = c.execute(q).all()
+    return np.array([tuple(r) for r in rows], dtype=STORED_ACTUATION_DTYPE)
+
+
+def _read_figures(label: str, url: str, actuations: int, rounds: int) -> None:
+    channels = 8
+    store, writer, units = new_run(url, channels)
+    acts = synthetic_actuations(channels, actuations // (2 * channels))
+    acts["bounce_us"][::5] = np.nan
+    t0 = time.perf_counter()
+    for i in range(0, len(acts), 100_000):
+        writer.add(actuations=acts[i : i + 100_000])
+        writer.flush()
+    writer.close("stopped")
+    build = time.perf_counter() - t0
+    store.close()
+    ro = Store.open(url, readonly=True)
+    ours, old = [], []
+    for _ in range(rounds):
+        t0 = time.perf_counter()
+        got = ro.actuations()
+        ours.append(len(got) / (time.perf_counter() - t0))
+        t0 = time.perf_counter()
+        ref = _rows_one_by_one(ro)
+        old.append(len(ref) / (time.perf_counter() - t0))
+    ro.close()
+    assert len(got) == len(ref) == len(acts)
+    assert all(np.array_equal(got[n], ref[n], equal_nan=got[n].dtype.kind == "f") for n in got.dtype.names)
+    print(f"read ({label}): {len(acts):,} actuations of {channels} units (store built in {build:.1f} s)")
+    best = max(ours)
+    line(f"Store.actuations(), {label} (actuations/s)", f"{best:,.0f}", ">= 1,000,000", best >= 1_000_000)
+    line(f"row by row through SQLAlchemy, {label} (actuations/s)", f"{max(old):,.0f}", "(reference)", True)
+
+
+def bench_read(tmp: Path, actuations: int, rounds: int, pg_url: str | None) -> None:
+    _read_figures("SQLite", str(tmp / "read.sqlite"), actuations, rounds)
+    if not pg_url:
+        return
+    import uuid
+
+    from sqlalchemy import create_engine, text
+
+    schema = "bench_" + uuid.uuid4().hex[:10]
+    admin = create_engine(pg_url)
+    with admin.begin() as c:
+        c.execute(text(f'CREATE SCHEMA "{schema}"'))
+    try:
+        sep = "&" if "?" in pg_url else "?"
+        _read_figures("PostgreSQL", f"{pg_url}{sep}options=-csearch_path%3D{schema}", actuations, rounds)
+    finally:
+        with admin.begin() as c:
+            c.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
+        admin.dispose()
+
+
+# -- 4. recorder memory -----------------------------------------------------------------------------
 def synthetic_hour(
     t0_ns: int, cycle0: int, cycles: int, channels: int, rng
 ) -> tuple[TimedEdges, TimedDrives]:
@@ -267,7 +338,11 @@ def main() -> None:
     ap.add_argument("--batch", type=int, default=50_000)
     ap.add_argument("--trend-actuations", type=int, default=10_000_000)
     ap.add_argument("--hours", type=float, default=24.0)
-    ap.add_argument("--skip", nargs="*", default=[], choices=["ingest", "trend", "recorder"])
+    ap.add_argument("--read-actuations", type=int, default=1_000_000)
+    ap.add_argument(
+        "--pg", default=os.environ.get("BENCHLOG_TEST_PG_URL"), help="PostgreSQL URL for the read"
+    )
+    ap.add_argument("--skip", nargs="*", default=[], choices=["ingest", "trend", "read", "recorder"])
     args = ap.parse_args()
     with tempfile.TemporaryDirectory(prefix="benchlog-bench-") as d:
         tmp = Path(d)
@@ -275,6 +350,8 @@ def main() -> None:
             bench_ingest(tmp, args.rounds, args.ingest_cycles, args.batch)
         if "trend" not in args.skip:
             bench_trend(tmp, args.trend_actuations, 100)
+        if "read" not in args.skip:
+            bench_read(tmp, args.read_actuations, args.rounds, args.pg)
         if "recorder" not in args.skip:
             bench_recorder(tmp, args.hours, 8, 10.0, 60.0)
 
