@@ -89,3 +89,21 @@ def test_postgresql_reads_the_binary_copy(pg_url):
         assert got is not None and len(got) == len(a)
         np.testing.assert_array_equal(got["bounce_us"], a["bounce_us"])
         np.testing.assert_array_equal(got["cycle"], a["cycle"])
+
+
+def test_nulls_written_by_another_tool_read_as_nan(store):
+    # PostgreSQL rows with a NULL no longer have the fixed layout: those reads fetch rows instead
+    from sqlalchemy import text
+
+    part = store.register_part("VS-505", "Vellmar Switchgear")
+    unit = store.register_unit(store.register_lot(part, "L-12"), "VS-001")
+    w = store.start_run(store.register_bench("bench F"), {0: unit}, profile={})
+    w.add(actuations=actuations([0], range(20), seed=6))
+    w.close("stopped")
+    with store.engine.begin() as c:
+        c.execute(text("UPDATE actuations SET wrong_state_us = NULL WHERE cycle % 3 = 0"))
+    old = _through_sqlalchemy(store)
+    new = store.actuations()
+    assert np.isnan(new["wrong_state_us"]).sum() == 2 * 7
+    for name in STORED_ACTUATION_DTYPE.names:
+        np.testing.assert_array_equal(new[name], old[name], err_msg=name)
