@@ -399,7 +399,7 @@ def judge_unit(unit: UnitInfo, figs: dict[str, Figures], chatter_recent: int, wi
         if chatter_recent > allowed:
             verdict = FAIL
             reasons.append(
-                f"chatter >= {chatter_recent} events in {span:,} cycles "
+                f"chatter {chatter_recent} events in {span:,} cycles "
                 f"(limit {spec.chatter.max_events} per {spec.chatter.per_cycles:,})"
             )
     if not any_data and verdict == PASS:
