@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 from typing import Any
+
+from benchlog.views.cli._args import positive
 
 NAME = "analyze"
 HELP = "Measure every make and break in a recorded sampler stream and summarise each channel."
@@ -19,16 +20,6 @@ Exit status: 0 measured (whatever the verdicts), 1 a channel failed its spec (wi
 """
 
 READ_CHUNK = 1 << 20
-
-
-def _positive(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not value > 0 or not math.isfinite(value):
-        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
-    return value
 
 
 def _channels(text: str) -> frozenset[int]:
@@ -52,8 +43,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("file", metavar="FILE", help="recorded sampler bytes or line-form text ('-' for stdin)")
     p.add_argument("--spec", metavar="SPEC", help="part spec TOML, or a shipped part number (e.g. AG-MS5)")
     p.add_argument("--settings", metavar="TOML", help="analysis settings file (docs/metrics.md)")
-    p.add_argument("--settle-ms", type=_positive, help="settle window (default 10 ms, or the spec's)")
-    p.add_argument("--chatter-us", type=_positive, help="chatter threshold (default 10 us, or the spec's)")
+    p.add_argument("--settle-ms", type=positive, help="settle window (default 10 ms, or the spec's)")
+    p.add_argument("--chatter-us", type=positive, help="chatter threshold (default 10 us, or the spec's)")
     p.add_argument("--normally-closed", type=_channels, metavar="CH,..", help="normally-closed channels")
     p.add_argument("--changeover", type=_pair, action="append", metavar="NO:NC", help="a form C pair")
     p.add_argument("--free", action="store_true", help="ignore drive records: every channel free-running")

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import argparse
 
+from benchlog.views.cli._args import fraction, positive
+
 NAME = "plan"
 HELP = "Plan a life demonstration (success run, Weibayes) or say what would settle a running test."
 
@@ -15,39 +17,25 @@ store, and how many more cycles on its running units, with no further failure, w
 """
 
 
-def _fraction(text: str) -> float:
-    value = float(text)
-    if not 0.0 < value < 1.0:
-        raise argparse.ArgumentTypeError(f"must be between 0 and 1 (exclusive), got {text}")
-    return value
-
-
-def _positive(text: str) -> float:
-    value = float(text)
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
-    return value
-
-
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.epilog = EPILOG
     p.formatter_class = argparse.RawDescriptionHelpFormatter
     p.add_argument("--spec", help="part spec (file or shipped part number): life and confidence from it")
     p.add_argument(
-        "--confidence", type=_fraction, help="confidence to demonstrate (default: spec's, else 0.9)"
+        "--confidence", type=fraction, help="confidence to demonstrate (default: spec's, else 0.9)"
     )
     p.add_argument(
         "--reliability",
-        type=_fraction,
+        type=fraction,
         default=0.9,
         help="reliability to demonstrate at the life (default 0.9, i.e. the B10 life)",
     )
     p.add_argument(
-        "--life", type=_positive, metavar="CYCLES", help="the life to demonstrate (default: spec's)"
+        "--life", type=positive, metavar="CYCLES", help="the life to demonstrate (default: spec's)"
     )
-    p.add_argument("--shape", type=_positive, metavar="BETA", help="assumed Weibull shape (Weibayes)")
+    p.add_argument("--shape", type=positive, metavar="BETA", help="assumed Weibull shape (Weibayes)")
     p.add_argument("--units", type=int, help="units available: how long must each run")
-    p.add_argument("--cycles", type=_positive, help="cycles each unit can run: how many units are needed")
+    p.add_argument("--cycles", type=positive, help="cycles each unit can run: how many units are needed")
     p.add_argument("--failures", type=int, default=0, help="failures the plan may allow (default 0)")
     p.add_argument("--lot", help="a running test's lot (PART:LOT, lot code or part number) in the store")
     p.add_argument("--db", help="store URL or SQLite path (default: $BENCHLOG_DB, then ./benchlog.sqlite)")

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from benchlog.views.cli._args import non_negative, number_within, positive
+
 NAME = "qualify"
 HELP = "Judge a candidate lot against a part spec and the incumbent lot: pass, fail or not yet decidable."
 
@@ -12,27 +14,6 @@ LOT is PART:LOT (e.g. VS-505:L1), a lot code held by one part, or a part number 
 Exit status: 0 pass, 1 fail, 2 not yet decidable (not enough data); 64 a usage error; other codes are
 errors (6 store, 8 spec, 10 data: e.g. an unknown lot).
 """
-
-
-def _fraction(text: str) -> float:
-    value = float(text)
-    if not 0.5 < value < 1.0:
-        raise argparse.ArgumentTypeError(f"must be between 0.5 and 1 (exclusive), got {text}")
-    return value
-
-
-def _nonneg(text: str) -> float:
-    value = float(text)
-    if not value >= 0:
-        raise argparse.ArgumentTypeError(f"must be >= 0, got {text}")
-    return value
-
-
-def _positive(text: str) -> float:
-    value = float(text)
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
-    return value
 
 
 def usage_errors_exit_64(p: argparse.ArgumentParser) -> None:
@@ -58,25 +39,25 @@ def add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--db", help="store URL or SQLite path (default: $BENCHLOG_DB, then ./benchlog.sqlite)")
     p.add_argument(
         "--confidence",
-        type=_fraction,
+        type=number_within(0.5, 1),
         help="one-sided confidence of every bound (default: the spec's life confidence, else 0.9)",
     )
     p.add_argument(
         "--reliability",
-        type=_fraction,
+        type=number_within(0.5, 1),
         default=0.9,
         help="the life requirement is the life at this reliability (default 0.9: B10)",
     )
     p.add_argument(
         "--margin",
-        type=_nonneg,
+        type=non_negative,
         default=0.2,
         help="how much worse than the incumbent a metric may be, as a fraction (default 0.2)",
     )
     p.add_argument("--no-comparison", action="store_true", help="judge the candidate against the spec only")
     p.add_argument(
         "--assumed-shape",
-        type=_positive,
+        type=positive,
         metavar="BETA",
         help="Weibull shape for a Weibayes life bound when too few units failed",
     )

@@ -4,29 +4,17 @@ from __future__ import annotations
 
 import argparse
 
+from benchlog.views.cli._args import number_within, positive
+
 NAME = "sim"
 HELP = "Run a simulated sampler bench on a pseudo-terminal and print its port path."
-
-
-def _rate(text: str) -> float:
-    value = float(text)
-    if not 0 <= value < 1:
-        raise argparse.ArgumentTypeError(f"must be in [0, 1), got {text}")
-    return value
-
-
-def _positive(text: str) -> float:
-    value = float(text)
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"must be > 0, got {text}")
-    return value
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--preset", default="demo", help="a shipped preset name or a TOML file (default: demo)")
     p.add_argument("--list-presets", action="store_true", help="list the shipped presets and exit")
     p.add_argument("--form", choices=("line", "packed"), help="record form at power-up (default: preset's)")
-    p.add_argument("--speed", type=_positive, default=1.0, help="sampler time runs N times the wall clock")
+    p.add_argument("--speed", type=positive, default=1.0, help="sampler time runs N times the wall clock")
     p.add_argument("--seed", type=int, default=0, help="random seed (units, bounce, faults)")
     p.add_argument("--link", help="path of the port link to create (default: a new temporary directory)")
     p.add_argument("--counter-bits", type=int, help="override the sampler's counter width (16-64)")
@@ -39,8 +27,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="start cycling every unit at power-up without waiting for host commands",
     )
     g = p.add_argument_group("faults")
-    g.add_argument("--drop-rate", type=_rate, help="probability per byte that it is lost")
-    g.add_argument("--flip-rate", type=_rate, help="probability per byte that one bit flips")
+    g.add_argument(
+        "--drop-rate",
+        type=number_within(0, 1, low_inclusive=True),
+        help="probability per byte that it is lost",
+    )
+    g.add_argument(
+        "--flip-rate",
+        type=number_within(0, 1, low_inclusive=True),
+        help="probability per byte that one bit flips",
+    )
     g.add_argument("--reset-at-cycle", type=int, help="the sampler restarts before this cycle")
     g.add_argument("--pull-at", type=float, metavar="SECONDS", help="pull the cable at this sampler time")
     g.add_argument("--pull-for", type=float, metavar="SECONDS", help="wall seconds the cable stays out")
