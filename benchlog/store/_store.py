@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
+import fcntl
 import json
 import os
 import socket
 import time
 import uuid
+from collections.abc import Iterator
 from datetime import UTC, datetime
 
 from sqlalchemy import Engine, insert, select, update
@@ -33,6 +36,37 @@ def _pid_alive(pid: int) -> bool:
     return True
 
 
+@contextlib.contextmanager
+def _opening_lock(engine: Engine, readonly: bool) -> Iterator[None]:
+    """Serialise the schema check and migration of one SQLite file between processes.
+
+    Several recorders started at once on a new file must not interleave "is it empty?", "which
+    revision?" and the migration itself. An flock on the database file does it; it is independent of
+    the POSIX locks SQLite takes on the same file. PostgreSQL serialises in the migration instead
+    (an advisory lock in db/env.py).
+    """
+    path = engine.url.database
+    if (
+        readonly
+        or engine.dialect.name != "sqlite"
+        or not path
+        or path == ":memory:"
+        or path.startswith("file:")
+    ):
+        yield
+        return
+    try:
+        fh = open(path, "ab")  # noqa: SIM115 - held for the lock's lifetime
+    except OSError as exc:
+        raise StoreError(f"cannot open the database {path}: {exc.strerror or exc}") from exc
+    with fh:
+        fcntl.flock(fh, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(fh, fcntl.LOCK_UN)
+
+
 class Store(ReadAPI):
     """One benchlog database. `Store.open(db)` for recording, `Store.open(db, readonly=True)` for the
     dashboard, reports and statistics (never takes a write lock)."""
@@ -53,28 +87,8 @@ class Store(ReadAPI):
         url = resolve_url(db)
         engine = make_engine(url, readonly=readonly)
         try:
-            st = schema_status(engine)
-            if st.current is None and not readonly and not is_empty(engine):
-                st = schema_status(engine)  # another process may have just created the schema
-            if not st.up_to_date:
-                if readonly:
-                    what = "has no benchlog schema" if st.current is None else f"is at revision {st.current}"
-                    raise StoreError(f"the database {cls._show(url)} {what}; run `benchlog db upgrade`")
-                if st.current is None and not is_empty(engine):
-                    raise StoreError(
-                        f"the database {cls._show(url)} holds other tables and no benchlog schema"
-                    )
-                if st.current is not None and not upgrade:
-                    raise StoreError(
-                        f"the database {cls._show(url)} is at revision {st.current}; "
-                        "run `benchlog db upgrade`"
-                    )
-                try:
-                    schema_upgrade(engine)
-                except StoreError:
-                    # another process may have created the schema at the same moment
-                    if not schema_status(engine).up_to_date:
-                        raise
+            with _opening_lock(engine, readonly):
+                cls._check_schema(engine, url, readonly, upgrade)
         except StoreError:
             engine.dispose()
             raise
@@ -82,6 +96,21 @@ class Store(ReadAPI):
             engine.dispose()
             raise _store_error(f"open the database {cls._show(url)}", exc) from exc
         return cls(engine, url, readonly)
+
+    @classmethod
+    def _check_schema(cls, engine: Engine, url: str, readonly: bool, upgrade: bool) -> None:
+        st = schema_status(engine)
+        if not st.up_to_date:
+            if readonly:
+                what = "has no benchlog schema" if st.current is None else f"is at revision {st.current}"
+                raise StoreError(f"the database {cls._show(url)} {what}; run `benchlog db upgrade`")
+            if st.current is None and not is_empty(engine):
+                raise StoreError(f"the database {cls._show(url)} holds other tables and no benchlog schema")
+            if st.current is not None and not upgrade:
+                raise StoreError(
+                    f"the database {cls._show(url)} is at revision {st.current}; run `benchlog db upgrade`"
+                )
+            schema_upgrade(engine)
 
     @staticmethod
     def _show(url: str) -> str:
