@@ -256,29 +256,19 @@ def _choose(
 ) -> Choice:
     fig = FIGURE[deb]
     tails = (fit_m.describe(), fit_b.describe())
-    if want is None:
+
+    def no_choice(note: str) -> Choice:
         return Choice(
-            deb,
-            None,
-            np.nan,
-            np.nan,
-            zero_event_bound(n_judged),
-            FIGURE_TEXT[fig],
-            *tails,
-            note=f"no clean setting up to {pts[-1].window_ms:.3g} ms",
+            deb, None, np.nan, np.nan, zero_event_bound(n_judged), FIGURE_TEXT[fig], *tails, note=note
         )
+
+    if want is None:
+        return no_choice(f"no clean setting up to {pts[-1].window_ms:.3g} ms")
     m, b = want
     if max(m, b) > limit:  # more than the stable period allows (or an unbounded tail): no replay there
         asked = "more than any window" if max(m, b) >= _NEVER else f"{max(m, b) * ts / 1e6:g} ms"
-        return Choice(
-            deb,
-            None,
-            np.nan,
-            np.nan,
-            zero_event_bound(n_judged),
-            FIGURE_TEXT[fig],
-            *tails,
-            note=f"the fitted tail asks for {asked}, beyond {limit * ts / 1e6:g} ms (the stable period)",
+        return no_choice(
+            f"the fitted tail asks for {asked}, beyond {limit * ts / 1e6:g} ms (the stable period)"
         )
     point = None
     note = ""
