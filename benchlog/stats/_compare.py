@@ -277,6 +277,19 @@ def pooled_mean(
     return Interval(float(sums.sum() / n.sum()), low, high, confidence, sample.n_units, _METHOD)
 
 
+def _pooled_means(candidate: UnitSample, reference: UnitSample):
+    """Both populations' pooled means as a function of unit weights (sums and counts per unit)."""
+    (sa, na), (sb, nb) = (
+        (np.bincount(s.unit, s.values, s.n_units), np.bincount(s.unit, None, s.n_units).astype(float))
+        for s in (candidate, reference)
+    )
+
+    def means(wa, wb):
+        return (wa @ sa) / (wa @ na), (wb @ sb) / (wb @ nb)
+
+    return means
+
+
 def mean_ratio(
     candidate: UnitSample,
     reference: UnitSample,
@@ -285,19 +298,14 @@ def mean_ratio(
     n_resamples: int = 2000,
     seed: int = 0,
 ) -> Interval:
+    """Ratio of pooled means (candidate / reference), cluster bootstrap."""
     _check_units(candidate, reference)
-    parts = []
-    for s in (candidate, reference):
-        parts.append(
-            (
-                np.bincount(s.unit, s.values, s.n_units),
-                np.bincount(s.unit, None, s.n_units).astype(np.float64),
-            )
-        )
+    means = _pooled_means(candidate, reference)
 
     def ratio(wa, wb):
         with np.errstate(divide="ignore", invalid="ignore"):
-            return ((wa @ parts[0][0]) / (wa @ parts[0][1])) / ((wb @ parts[1][0]) / (wb @ parts[1][1]))
+            a, b = means(wa, wb)
+            return a / b
 
     return _two_sample(candidate, reference, ratio, confidence, n_resamples, seed)
 
@@ -312,13 +320,11 @@ def mean_difference(
 ) -> Interval:
     """Difference of pooled means (candidate - reference), cluster bootstrap; for rates that may be 0."""
     _check_units(candidate, reference)
-    parts = [
-        (np.bincount(s.unit, s.values, s.n_units), np.bincount(s.unit, None, s.n_units).astype(float))
-        for s in (candidate, reference)
-    ]
+    means = _pooled_means(candidate, reference)
 
     def diff(wa, wb):
-        return (wa @ parts[0][0]) / (wa @ parts[0][1]) - (wb @ parts[1][0]) / (wb @ parts[1][1])
+        a, b = means(wa, wb)
+        return a - b
 
     return _two_sample(candidate, reference, diff, confidence, n_resamples, seed)
 
