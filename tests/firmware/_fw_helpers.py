@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 
 from benchlog.wire import Decoder, Edges
+from tests.conftest import HANG_S
 
 _ROOT_CONFTEST = Path(__file__).resolve().parents[1] / "conftest.py"
 _spec = importlib.util.spec_from_file_location("_benchlog_root_conftest", _ROOT_CONFTEST)
@@ -38,7 +39,7 @@ def run_host(blhost: Path, script: str, tmp_path: Path, *options: str) -> tuple[
     path = tmp_path / "script.txt"
     path.write_text(script)
     result = subprocess.run(
-        [str(blhost), "run", *options, str(path)], capture_output=True, timeout=60, check=False
+        [str(blhost), "run", *options, str(path)], capture_output=True, timeout=HANG_S, check=False
     )
     assert result.returncode == 0, result.stderr.decode()
     return result.stdout, result.stderr.decode()

@@ -9,6 +9,8 @@ from pathlib import Path
 import pytest
 from _fw_helpers import need_file, need_tool
 
+from tests.conftest import HANG_S
+
 FIRMWARE = Path(__file__).resolve().parents[2] / "firmware_ref"
 SIMAVR_HEADER = Path("/usr/include/simavr/sim_avr.h")
 
@@ -18,7 +20,7 @@ def _make(build: Path, target: str) -> None:
         ["make", "-s", "-C", str(FIRMWARE), f"BUILD={build}", target],
         capture_output=True,
         text=True,
-        timeout=120,
+        timeout=HANG_S,
     )
     assert result.returncode == 0, f"make {target} failed:\n{result.stdout}\n{result.stderr}"
 

@@ -16,6 +16,7 @@ import serial
 from _fw_helpers import decode_all, edge_rows, others
 
 from benchlog.wire import Announce, Beat, Drive, Fault, Notice, Pong, SequenceGap
+from tests.conftest import HANG_S
 
 FLASH = 32 * 1024  # ATmega328P: 32 KiB flash, 2 KiB SRAM (the part's datasheet, from memory)
 SRAM = 2 * 1024
@@ -116,11 +117,16 @@ def run_on_pty(
         done = proc.stdout.readline()
         assert done.startswith("done"), done + proc.stderr.read()
         stop.set()
-        reader.join(timeout=10)
+        reader.join(timeout=HANG_S)
         port.close()
     finally:
         proc.stdin.close()
-        proc.wait(timeout=30)
+        try:
+            proc.wait(timeout=HANG_S)
+        finally:
+            if proc.poll() is None:  # never outlives the test
+                proc.kill()
+                proc.wait()
         proc.stdout.close()
         proc.stderr.close()
     return bytes(data), log.read_text(), int(done.split()[4])  # deepest stack the harness saw
@@ -198,7 +204,7 @@ def test_shortest_resolvable_pulse(blsim: Path, avr_elf: Path, tmp_path: Path) -
         [str(blsim), "--elf", str(avr_elf), "--script", str(path), "--out", str(out)],
         check=True,
         capture_output=True,
-        timeout=60,
+        timeout=HANG_S,
     )
     records = decode_all(out.read_bytes())
     got = edge_rows(records)
@@ -220,7 +226,7 @@ def run_to_file(blsim: Path, avr_elf: Path, script: str, tmp_path: Path) -> list
     path.write_text(script)
     out = tmp_path / "out.bin"
     command = [str(blsim), "--elf", str(avr_elf), "--script", str(path), "--out", str(out)]
-    subprocess.run(command, check=True, capture_output=True, timeout=60)
+    subprocess.run(command, check=True, capture_output=True, timeout=HANG_S)
     return decode_all(out.read_bytes())
 
 

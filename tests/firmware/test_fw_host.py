@@ -16,6 +16,7 @@ from _fw_helpers import decode_all, edge_rows, others, run_host
 from cobs import cobs
 
 from benchlog.wire import Announce, Beat, Drive, Edges, Fault, Notice, Pong, SequenceGap, cobs_decode
+from tests.conftest import HANG_S
 
 FORMS = ["L", "P"]
 
@@ -52,7 +53,7 @@ def bounce_script(seed: int = 7) -> tuple[str, list[tuple[int, int, int]]]:
 
 
 def test_selftest(blhost: Path) -> None:
-    result = subprocess.run([str(blhost), "selftest"], capture_output=True, text=True, timeout=30)
+    result = subprocess.run([str(blhost), "selftest"], capture_output=True, text=True, timeout=HANG_S)
     assert result.returncode == 0, result.stderr
     assert "0 failed" in result.stdout
 
@@ -61,7 +62,7 @@ def test_crc_matches_zlib(blhost: Path) -> None:
     rng = random.Random(3)
     for n in (0, 1, 9, 255, 1024, 4000):
         data = bytes(rng.randrange(256) for _ in range(n))
-        out = subprocess.run([str(blhost), "crc"], input=data, capture_output=True, timeout=30).stdout
+        out = subprocess.run([str(blhost), "crc"], input=data, capture_output=True, timeout=HANG_S).stdout
         assert int(out, 16) == zlib.crc32(data)  # reference: zlib's CRC-32 (ISO-HDLC)
 
 
@@ -72,7 +73,7 @@ def test_cobs_matches_the_reference_library(blhost: Path) -> None:
         cases.append(bytes(rng.choice([0, 0, rng.randrange(1, 256)]) for _ in range(n)))
         cases.append(bytes(rng.randrange(1, 256) for _ in range(n)))
     for raw in cases:
-        out = subprocess.run([str(blhost), "cobs"], input=raw, capture_output=True, timeout=30).stdout
+        out = subprocess.run([str(blhost), "cobs"], input=raw, capture_output=True, timeout=HANG_S).stdout
         assert out == cobs.encode(raw) + b"\x00"  # reference: the `cobs` package (Cheshire and Baker)
 
 
@@ -244,6 +245,6 @@ def test_cycle_driver_switches_on_schedule(blhost: Path, tmp_path: Path) -> None
 def test_bad_script_is_one_clear_line(blhost: Path, tmp_path: Path) -> None:
     path = tmp_path / "bad.txt"
     path.write_text("100 edge 0 1\n50 edge 0 0\n")
-    result = subprocess.run([str(blhost), "run", str(path)], capture_output=True, text=True, timeout=30)
+    result = subprocess.run([str(blhost), "run", str(path)], capture_output=True, text=True, timeout=HANG_S)
     assert result.returncode == 2
     assert result.stderr == "blhost: script line 2: ticks must not decrease\n"

@@ -14,6 +14,8 @@ from pathlib import Path
 import pytest
 from _fw_helpers import decode_all, edge_rows, run_host
 
+from tests.conftest import HANG_S
+
 VECTORS = Path(__file__).resolve().parents[1] / "vectors"
 SHARED = sorted(
     p
@@ -46,7 +48,7 @@ def encode_script(vector: dict, form: str) -> str:
 
 
 def encode(blhost: Path, text: str) -> subprocess.CompletedProcess:
-    return subprocess.run([str(blhost), "encode"], input=text.encode(), capture_output=True, timeout=30)
+    return subprocess.run([str(blhost), "encode"], input=text.encode(), capture_output=True, timeout=HANG_S)
 
 
 def test_there_are_shared_vectors_to_check() -> None:

@@ -14,12 +14,15 @@ import pytest
 
 from benchlog.errors import PortError
 from benchlog.link import Chunk, Link, Outage, list_ports
+from tests.conftest import HANG_S, wait_until
 
 
-def collect(link: Link, until, timeout: float = 5.0) -> list:
+def collect(link: Link, until, ceiling_s: float = HANG_S) -> list:
+    """What the link delivers until `until(items)` holds (a ceiling only a hang reaches)."""
     items: list = []
-    end = time.monotonic() + timeout
-    while time.monotonic() < end and not until(items):
+    end = time.monotonic() + ceiling_s
+    while not until(items):
+        assert time.monotonic() < end, f"gave up after {ceiling_s:g} s; got {items!r:.300}"
         items += link.drain(0.05)
     return items
 
@@ -66,8 +69,8 @@ def test_pulled_pty_loses_nothing_received_and_reports_the_outage(tmp_path):
         time.sleep(0.05)
         assert os.read(port.master, 100) == b"WHO\n"
         port.pull()
+        wait_until(lambda: not link.connected, "the link to notice the pulled port")
         time.sleep(0.3)  # out for a while: reopening fails meanwhile
-        assert not link.connected
         with pytest.raises(PortError):
             link.write(b"PING 1\n")
         port.plug()
@@ -79,7 +82,7 @@ def test_pulled_pty_loses_nothing_received_and_reports_the_outage(tmp_path):
     outages = [i for i in got if isinstance(i, Outage)]
     assert len(outages) == 1
     out = outages[0]
-    assert 0.25e9 < out.host_end_ns - out.host_start_ns < 3e9 and out.attempts >= 2
+    assert 0.25e9 < out.host_end_ns - out.host_start_ns < HANG_S * 1e9 and out.attempts >= 2
     k = got.index(out)
     assert data_of(got[:k]) == before and data_of(got[k + 1 :]) == after
     assert all(a.host_ns <= b.host_ns for a, b in zip(got[:k], got[1:k], strict=False))
@@ -90,19 +93,22 @@ def test_socket_url_reconnects_after_the_server_drops_it():
     server = socket.create_server(("127.0.0.1", 0))
     host, port = server.getsockname()
     sent = [b"first connection\n", b"second connection\n"]
+    opened = threading.Semaphore(0)  # released each time the link has (re)opened the port
 
     def serve():
         for payload in sent:
             conn, _ = server.accept()
-            time.sleep(0.1)  # pyserial's open() discards what a socket already holds; send after it
+            # pyserial's open() discards what a socket already holds: send once the link says it is open
+            opened.acquire(timeout=HANG_S)
             conn.sendall(payload)
             time.sleep(0.2)
             conn.close()
 
     thread = threading.Thread(target=serve, daemon=True)
     thread.start()
-    with Link(f"socket://{host}:{port}", backoff_s=(0.01, 0.05)) as link:
+    with Link(f"socket://{host}:{port}", backoff_s=(0.01, 0.05), on_connect=opened.release) as link:
         got = collect(link, lambda items: data_of(items) == b"".join(sent))
+    thread.join(HANG_S)
     server.close()
     outages = [i for i in got if isinstance(i, Outage)]
     assert data_of(got) == b"".join(sent)

@@ -2,11 +2,7 @@
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
 import threading
-import time
 
 from benchlog.analysis import load_spec
 from benchlog.ingest import Feed
@@ -69,26 +65,3 @@ def record_sim(
     finally:
         timer.cancel()
     return reason, writer, rec, sim, counters
-
-
-def cli(*args, db: str, **kw) -> subprocess.Popen:
-    """`benchlog ARGS --db DB` in its own process."""
-    env = {k: v for k, v in os.environ.items() if k != "BENCHLOG_DEBUG"}
-    return subprocess.Popen(
-        [sys.executable, "-m", "benchlog", *args, "--db", db],
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-        env=env,
-        **kw,
-    )
-
-
-def wait_for(predicate, timeout_s: float, what: str):
-    end = time.monotonic() + timeout_s
-    while time.monotonic() < end:
-        value = predicate()
-        if value:
-            return value
-        time.sleep(0.1)
-    raise AssertionError(f"timed out waiting for {what}")

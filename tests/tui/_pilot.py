@@ -8,8 +8,19 @@ import time
 
 from textual.widgets import DataTable
 
+from tests.conftest import HANG_S
 
-async def settle(pilot, screen_type=None, timeout: float = 10.0):
+
+async def until(pilot, predicate, what: str, ceiling_s: float = HANG_S):
+    """Let the app run until `predicate()` is true; fail naming `what` at a ceiling only a hang reaches."""
+    end = time.monotonic() + ceiling_s
+    while not predicate():
+        if time.monotonic() > end:
+            raise AssertionError(f"gave up after {ceiling_s:g} s waiting for {what}")
+        await pilot.pause(0.05)
+
+
+async def settle(pilot, screen_type=None, timeout: float = HANG_S):
     """Wait until the current screen (of `screen_type`) has shown data and no read is running."""
     app = pilot.app
     t0 = time.monotonic()

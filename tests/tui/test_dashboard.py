@@ -25,7 +25,7 @@ from benchlog.views.tui._runs import RunsScreen
 from benchlog.views.tui._units import UnitsScreen
 
 from ._build import actuations, build
-from ._pilot import cell_text, column, settle
+from ._pilot import cell_text, column, settle, until
 
 SIZE = (100, 30)
 
@@ -271,10 +271,8 @@ async def test_missing_database_then_created(tmp_path):
         assert scr.problem is not None and scr.problem.kind == "missing"
         assert "No benchlog database at" in flat(static_text(scr, "#alert"))
         build(path, cycles=500)
-        for _ in range(100):
-            await pilot.pause(0.05)
-            if scr.problem is None and scr.query_one("#runs", DataTable).row_count:
-                break
+        table = scr.query_one("#runs", DataTable)
+        await until(pilot, lambda: scr.problem is None and table.row_count, "the new file's runs")
         assert scr.query_one("#runs", DataTable).row_count == 2
 
 
@@ -312,17 +310,11 @@ async def test_database_file_replaced_and_removed(tmp_path):
             p = tmp_path / f"bench.sqlite{suffix}"
             if p.exists():
                 p.unlink()
-        for _ in range(100):
-            await pilot.pause(0.05)
-            if scr.problem is not None:
-                break
+        await until(pilot, lambda: scr.problem is not None, "the removed file to be noticed")
         assert scr.problem.kind == "missing"
         assert t.row_count == 2  # the last data read stays on screen
         os.replace(other, path)
-        for _ in range(100):
-            await pilot.pause(0.05)
-            if scr.problem is None and t.row_count == 3:
-                break
+        await until(pilot, lambda: scr.problem is None and t.row_count == 3, "the replacement's runs")
         assert t.row_count == 3 and scr.problem is None
 
 

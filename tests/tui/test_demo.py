@@ -8,6 +8,7 @@ import sys
 
 from benchlog.store import Store
 from benchlog.views.tui._data import cycles_text
+from tests.conftest import HANG_S
 
 
 def _demo(*args: str, cwd=None) -> subprocess.CompletedProcess:
@@ -15,7 +16,7 @@ def _demo(*args: str, cwd=None) -> subprocess.CompletedProcess:
         [sys.executable, "-m", "benchlog", "demo", *args],
         capture_output=True,
         text=True,
-        timeout=120,
+        timeout=HANG_S,
         cwd=cwd,
     )
 
@@ -65,7 +66,10 @@ def test_demo_rejects_impossible_cycles(tmp_path):
 def test_dash_without_a_terminal_prints_a_summary(built):
     path, ids = built
     out = subprocess.run(
-        [sys.executable, "-m", "benchlog", "dash", "--db", path], capture_output=True, text=True, timeout=60
+        [sys.executable, "-m", "benchlog", "dash", "--db", path],
+        capture_output=True,
+        text=True,
+        timeout=HANG_S,
     )
     assert out.returncode == 0, out.stderr
     assert f"run {ids['run1']} on bench-1: ENDED" in out.stdout
@@ -73,6 +77,6 @@ def test_dash_without_a_terminal_prints_a_summary(built):
         [sys.executable, "-m", "benchlog", "dash", "--db", path + ".missing"],
         capture_output=True,
         text=True,
-        timeout=60,
+        timeout=HANG_S,
     )
     assert out.returncode == 6 and "no database at" in out.stderr and "Traceback" not in out.stderr

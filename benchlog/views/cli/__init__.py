@@ -52,13 +52,16 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    from benchlog.views.cli._signals import raise_on_stop_signals
+
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
     try:
-        return int(args._run(args) or 0)
+        with raise_on_stop_signals():  # SIGTERM and SIGHUP end a command as Ctrl-C does
+            return int(args._run(args) or 0)
     except BenchlogError as exc:
         print(f"benchlog: error: {exc}", file=sys.stderr)
         return exc.exit_code

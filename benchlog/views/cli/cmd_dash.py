@@ -39,5 +39,5 @@ def run(args: argparse.Namespace) -> int:
         return 0
     from benchlog.views.tui import BenchDashboard
 
-    BenchDashboard(args.db, refresh_s=args.every).run()
+    BenchDashboard(args.db, refresh_s=args.every, quit_on_signals=True).run()
     return 0

@@ -266,7 +266,7 @@ def run(args: argparse.Namespace) -> int:
     from benchlog.views.tui import BenchDashboard
 
     try:
-        BenchDashboard(db, refresh_s=1.0).run()
+        BenchDashboard(db, refresh_s=1.0, quit_on_signals=True).run()
     finally:
         stop.set()
         thread.join(15)

@@ -46,11 +46,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import signal
     import threading
 
     from benchlog.errors import ConfigError, StoreError
     from benchlog.store import Store
+    from benchlog.views.cli._signals import stop_signals
 
     if not args.port and not args.sim:
         raise ConfigError("give the sampler's PORT, or --sim PRESET for the simulated sampler")
@@ -67,17 +67,9 @@ def run(args: argparse.Namespace) -> int:
     store = Store.open(args.db)
     stop = threading.Event()
     session = _Session(args, store, sim_cfg)
-    old = {}
-
-    def _on_signal(signum, _frame):
-        if stop.is_set():  # a second Ctrl-C: stop now
-            raise KeyboardInterrupt
-        stop.set()
-
-    for sig in (signal.SIGINT, signal.SIGTERM):
-        old[sig] = signal.signal(sig, _on_signal)
     try:
-        return session.record(stop)
+        with stop_signals(stop):  # Ctrl-C, SIGTERM, SIGHUP: end the run as "stopped"
+            return session.record(stop)
     except StoreError as exc:
         if session.writer is None:
             raise
@@ -86,8 +78,6 @@ def run(args: argparse.Namespace) -> int:
             f"(continue with: benchlog record --resume {session.writer.run_id})"
         ) from exc
     finally:
-        for sig, handler in old.items():
-            signal.signal(sig, handler)
         session.close()
         store.close()
 

@@ -1,4 +1,4 @@
-"""`benchlog sim`: serve a simulated sampler on a pseudo-terminal until Ctrl-C."""
+"""`benchlog sim`: serve a simulated sampler on a pseudo-terminal until Ctrl-C, SIGTERM or SIGHUP."""
 
 from __future__ import annotations
 
@@ -46,12 +46,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import signal
     import threading
     from dataclasses import replace
 
     from benchlog.errors import ConfigError
     from benchlog.sim import Autostart, PtySampler, load_preset, preset_names
+    from benchlog.views.cli._signals import stop_signals
 
     if args.list_presets:
         for name in preset_names():
@@ -91,8 +91,7 @@ def run(args: argparse.Namespace) -> int:
         cfg = replace(cfg, autostart=Autostart(on_ms, off_ms, int(count)))
 
     stop = threading.Event()
-    signal.signal(signal.SIGTERM, lambda *_: stop.set())
-    with PtySampler(cfg, seed=args.seed, speed=args.speed, link=args.link) as sim:
+    with stop_signals(stop), PtySampler(cfg, seed=args.seed, speed=args.speed, link=args.link) as sim:
         units = ", ".join(f"{u.channel}:{u.serial}" for u in cfg.units)
         print(sim.path, flush=True)
         print(

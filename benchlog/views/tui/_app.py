@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import asyncio
+import signal
+
 from textual.app import App
 from textual.binding import Binding
 
@@ -21,7 +24,8 @@ class BenchDashboard(App):
 
     Reads run in thread workers about every `refresh_s` seconds. `show_timing=False` leaves read times
     out of the status line and `label` names the database there instead of its path (for fixed
-    screenshots); `refresh_s=0` reads only on demand (opening a screen, `r`)."""
+    screenshots); `refresh_s=0` reads only on demand (opening a screen, `r`). `quit_on_signals` makes
+    SIGTERM and SIGHUP quit the app as `q` does (the terminal is restored), for `benchlog dash`."""
 
     CSS_PATH = "_app.tcss"
     TITLE = "benchlog"
@@ -38,8 +42,11 @@ class BenchDashboard(App):
         refresh_s: float = 1.0,
         show_timing: bool = True,
         label: str | None = None,
+        quit_on_signals: bool = False,
     ) -> None:
         super().__init__()
+        self.quit_on_signals = quit_on_signals
+        self._signals: dict[signal.Signals, object] = {}  # signal -> handler before the app
         self.source = StoreSource(db)
         if label is not None:
             self.source.shown = label
@@ -47,6 +54,13 @@ class BenchDashboard(App):
         self.show_timing = show_timing
 
     def on_mount(self) -> None:
+        if self.quit_on_signals:
+            loop = asyncio.get_running_loop()
+            for sig in (signal.SIGTERM, signal.SIGHUP):
+                before = signal.getsignal(sig)
+                if before is not signal.SIG_IGN:
+                    loop.add_signal_handler(sig, self.exit)
+                    self._signals[sig] = before
         self.run_worker(_warm_up, thread=True, group="warm-up", exit_on_error=False)
         self.push_screen(RunsScreen())
         if self.refresh_s > 0:
@@ -64,4 +78,9 @@ class BenchDashboard(App):
             self.push_screen(HelpScreen())
 
     def on_unmount(self) -> None:
+        loop = asyncio.get_running_loop()
+        for sig, before in self._signals.items():
+            loop.remove_signal_handler(sig)
+            signal.signal(sig, before)  # the command's own handling again (asyncio leaves SIG_DFL)
+        self._signals.clear()
         self.source.close()
