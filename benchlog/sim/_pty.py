@@ -28,7 +28,8 @@ from benchlog.wire import Announce, LineEncoder, PackedEncoder
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
 STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
 MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated time instead
-UNHEARD_S = 0.5  # an open port took nothing for this long: its reader is stuck, output is discarded
+UNHEARD_S = 5.0  # an open port took nothing for this long: its reader is stuck, output is discarded
+# (seconds, not less: a reader on a loaded machine can be starved for most of a second and is not stuck)
 HOLD_NS = 200_000_000  # while no reader has the port open, the sampler keeps only its latest output
 SETTLE_S = 0.05  # a reader that just opened the port is left this long to finish configuring it
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import multiprocessing as mp
 
 from benchlog.store import Store
+from tests.conftest import HANG_S
 
 
 def _open(path: str, results) -> None:
@@ -21,10 +22,19 @@ def test_simultaneous_first_opens_never_see_half_a_schema(tmp_path):
         path = str(tmp_path / f"bench{i}.sqlite")
         results = ctx.Queue()
         procs = [ctx.Process(target=_open, args=(path, results)) for _ in range(3)]
-        for p in procs:
-            p.start()
-        for p in procs:
-            p.join(30)
-        assert [results.get(timeout=5) for _ in procs] == ["ok"] * 3
+        try:
+            for p in procs:
+                p.start()
+            got = [results.get(timeout=HANG_S) for _ in procs]
+        finally:
+            for p in procs:  # never outlives the test
+                p.join(HANG_S)
+                if p.is_alive():
+                    p.kill()
+                    p.join()
+                p.close()
+            results.close()
+            results.join_thread()
+        assert got == ["ok"] * 3
         with Store.open(path, readonly=True) as store:
             assert store.runs() == []

@@ -3,6 +3,9 @@
 Every read runs in a worker thread. A read that fails (the file was replaced or removed, the
 PostgreSQL server restarted) drops the store and records the outage; the next read opens it again.
 The source never raises to the screens: they get a `Problem` to show instead of data.
+
+Closing (the app exits) may find a read still running in its thread, which Textual cannot stop: the
+store is then closed by that read as it ends, so no database connection outlives the dashboard.
 """
 
 from __future__ import annotations
@@ -38,6 +41,8 @@ class StoreSource:
         self._lock = threading.Lock()
         self.problem: Problem | None = None
         self.reconnects = 0
+        self._reading = 0  # reads under way (worker threads)
+        self._closed = False
 
     @staticmethod
     def _show(url: str) -> str:
@@ -49,6 +54,8 @@ class StoreSource:
 
     def _open(self) -> Store:
         with self._lock:
+            if self._closed:
+                raise BenchlogError("the dashboard is closing")
             if self._store is None:
                 self._store = Store.open(self.url, readonly=True)
                 if self.problem is not None:
@@ -84,6 +91,18 @@ class StoreSource:
 
     def read(self, fn):
         """`fn(store)`, or a Problem when the database cannot be opened or read."""
+        with self._lock:
+            self._reading += 1
+        try:
+            return self._read(fn)
+        finally:
+            with self._lock:
+                self._reading -= 1
+                last_after_close = self._closed and self._reading == 0
+            if last_after_close:
+                self._drop()
+
+    def _read(self, fn):
         try:
             store = self._open()
         except BenchlogError as exc:
@@ -103,7 +122,12 @@ class StoreSource:
         return out
 
     def close(self) -> None:
-        self._drop()
+        """Close the store now, or (a read still running) as soon as the last read ends."""
+        with self._lock:
+            self._closed = True
+            busy = self._reading > 0
+        if not busy:
+            self._drop()
 
 
 def _exists(url: str) -> bool:
