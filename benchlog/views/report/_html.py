@@ -146,11 +146,15 @@ def _p(v) -> str:
 
 
 def _table(head: list[str], rows: list[list[str]], num_from: int = 1) -> str:
-    out = ["<table><tr>" + "".join(f"<th>{escape(h)}</th>" for h in head) + "</tr>"]
+    """A table; its head (when it has one) is repeated on every printed page the table runs onto."""
+    out = ["<table>"]
+    if any(head):
+        out.append("<thead><tr>" + "".join(f"<th>{escape(h)}</th>" for h in head) + "</tr></thead>")
+    out.append("<tbody>")
     for r in rows:
         cells = [f"<td{' class=num' if i >= num_from else ''}>{c}</td>" for i, c in enumerate(r)]
         out.append("<tr>" + "".join(cells) + "</tr>")
-    out.append("</table>")
+    out.append("</tbody></table>")
     return "".join(out)
 
 
@@ -242,9 +246,9 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
         out += f'<p class="small">Tests: {escape(t["note"])}</p>'
     elif t:
         cap = (
-            " (the end of the interpolated range: the p-value of the k-sample test is read from Scholz and "
-            "Stephens' table of critical values, J. Am. Stat. Assoc. 82(399), 1987, which spans 0.001 to "
-            "0.25; the true value lies beyond it)"
+            " (at the end of the tabulated range: the p-value is interpolated in Scholz and Stephens' "
+            "critical values, J. Am. Stat. Assoc. 82(399), 1987, which span 0.001 to 0.25; the true "
+            "value lies beyond)"
             if t.get("anderson_capped")
             else ""
         )
@@ -658,7 +662,7 @@ def render_report(
         f"{_tally(len(by[PASS]), len(by[FAIL]), len(by[UNDECIDED]))}.{named}<br>"
         "Fail if any criterion fails; pass only when all pass.</small></div>"
     )
-    h.append(_keep("<h2>Verdict</h2>", _verdict_section(q)))
+    h.append("<h2>Verdict</h2>" + _verdict_section(q))  # a long table: rows kept whole, not the table
     h.append(
         '<p class="small">Units, not actuations, are the experimental unit: population percentiles, '
         "rates and capability carry bounds from a bootstrap that resamples whole units; the "
