@@ -68,7 +68,7 @@ def ecdf_png(
     log scale (right: the upper tail the verdict is about), with the spec's limit drawn on both."""
     m = METRICS[metric]
     k = m.display_scale
-    fig = Figure(figsize=(9.6, 3.5))
+    fig = Figure(figsize=(9.6, 3.2))
     ax, tail = fig.subplots(1, 2, gridspec_kw={"width_ratios": [3, 2]})
     x_lo, x_hi = ecdf_range([s.values * k for _, s in samples], limit * k if limit is not None else None)
     floor = 1.0
@@ -135,7 +135,7 @@ def trend_png(
     population. `series`: (unit label, population index, cycles, values)."""
     m = METRICS[metric]
     k = m.display_scale
-    fig = Figure(figsize=(9.6, 3.4))
+    fig = Figure(figsize=(9.6, 2.9))
     ax = fig.add_subplot(1, 1, 1)
     top = max((float(c.max()) for _, _, c, _ in series if len(c)), default=1.0)
     edges = np.linspace(0, top + 1, 21)
