@@ -7,7 +7,7 @@ import argparse
 from benchlog.views.cli.cmd_qualify import EPILOG, add_common
 
 NAME = "report"
-HELP = "Write a self-contained HTML qualification report (verdict, plots, life, runs, the spec used)."
+HELP = "Write a self-contained HTML or PDF qualification report (verdict, plots, life, runs, the spec used)."
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
