@@ -99,6 +99,11 @@ class PartSpec:
 # -- loading ----------------------------------------------------------------------------------------
 
 
+# [conditions]: the test conditions a report states (free text) and `operation`, the part's own word
+# for one operating cycle ("plunger stroke", "coil cycle") used in failure rates.
+CONDITION_KEYS = ("operation", "profile", "load", "coil_voltage", "ambient")
+
+
 class _Reader:
     def __init__(self, path: str) -> None:
         self.path = path
@@ -196,7 +201,7 @@ def _parse_toml(raw: bytes, name: str) -> dict:
 
 def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
     r = _Reader(name)
-    top = {"part", "measure", "verdict", "limits", "life"}
+    top = {"part", "measure", "verdict", "limits", "life", "conditions"}
     unknown = sorted(set(doc) - top)
     if unknown:
         raise SpecError(f"{name}: [{unknown[0]}]: unknown table (expected one of {', '.join(sorted(top))})")
@@ -298,6 +303,9 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
             raise r.fail("life.confidence", "a fraction > 0 and < 1 (0.90 for 90 %)", conf)
         life = LifeRequirement(r.integer(life_tbl, "life", "min_cycles", 1), float(conf))
 
+    conditions = r.table(doc, "conditions", set(CONDITION_KEYS)) or {}
+    stated = {k: r.text(conditions, "conditions", k) for k in CONDITION_KEYS if k in conditions}
+    extra = {"conditions": stated}
     return PartSpec(
         number=number,
         supplier=r.text(part, "part", "supplier"),
@@ -311,6 +319,7 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
         max_missed=max_missed,
         life=life,
         source=name,
+        extra=extra,
     )
 
 

@@ -180,7 +180,8 @@ def _weights(idx: np.ndarray, n_units: int) -> np.ndarray:
 def _check_units(*samples: UnitSample, min_units: int = 3) -> None:
     for s in samples:
         if s.n_units < min_units:
-            raise DataError(f"{s.n_units} unit(s) measured: a population claim needs at least {min_units}")
+            units = "1 unit" if s.n_units == 1 else f"{s.n_units} units"
+            raise DataError(f"{units} measured: a population claim needs at least {min_units}")
 
 
 def _expanded_level(two_sided: float, n: int) -> float:

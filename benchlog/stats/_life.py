@@ -190,7 +190,10 @@ def fit_weibull(table: LifeTable, *, min_failures: int = 2) -> WeibullFit:
     t_fail = table.cycles[table.failed]
     t_susp = table.cycles[~table.failed]
     if len(t_fail) < max(min_failures, 2) or np.ptp(t_fail) == 0:
-        raise DataError(f"{len(t_fail)} failure(s) among {len(table)} units: too few to fit a Weibull shape")
+        raise DataError(
+            f"{len(t_fail)} {'failure' if len(t_fail) == 1 else 'failures'} among {len(table)} units: "
+            "too few to fit a Weibull shape"
+        )
     shape, scale = _mle(t_fail, t_susp)
     return WeibullFit(
         shape=shape,

@@ -278,7 +278,8 @@ def _metric_criteria(
         if sample is None or len(sample) == 0:
             raise DataError("not measured")
         if sample.n_units < min_units:
-            raise DataError(f"{sample.n_units} unit(s) measured; a population claim needs {min_units}")
+            units = "1 unit" if sample.n_units == 1 else f"{sample.n_units} units"
+            raise DataError(f"{units} measured; a population claim needs {min_units}")
         if every:
             out.append(_every_actuation(sample, limit, conf))
         else:
@@ -325,9 +326,9 @@ def _metric_criteria(
             if a is None or b is None or not len(a) or not len(b):
                 raise DataError("not measured in both lots")
             if min(a.n_units, b.n_units) < min_units:
-                raise DataError(
-                    f"{min(a.n_units, b.n_units)} unit(s) in a lot; a comparison needs {min_units}"
-                )
+                fewest = min(a.n_units, b.n_units)
+                units = "1 unit" if fewest == 1 else f"{fewest} units"
+                raise DataError(f"{units} in a lot; a comparison needs {min_units}")
             if rate:
                 iv = mean_difference(a, b, confidence=conf, n_resamples=n_resamples, seed=seed + 1)
                 shown = _fmt_interval(limit.metric, iv.estimate, iv.low, iv.high)

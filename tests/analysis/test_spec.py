@@ -33,6 +33,8 @@ def test_shipped_demo_specs_carry_the_scenario_limits():
         assert spec.limit("operate_time").max_value == 12000.0  # operate time <= 12 ms
         assert (spec.life.min_cycles, spec.life.confidence) == (100_000, 0.90)
         assert spec.settings().settle_ns == 5_000_000 and spec.settings().chatter_threshold_ns == 10_000
+        assert spec.extra["conditions"]["operation"] == "plunger stroke"  # a plunger-operated switch
+    assert load_spec("AG-R12").extra["conditions"]["coil_voltage"] == "12 V DC"
 
 
 GOOD = """
@@ -58,6 +60,8 @@ percentile = 95
         (GOOD + "[limits.chatter]\nmax_events = 1\n", "limits.chatter.per_cycles"),
         (GOOD + "[limits.weld_time]\nmax_ms = 1\n", "limits.weld_time"),
         (GOOD + "[lmits]\n", "[lmits]"),
+        (GOOD + "[conditions]\nambient = 23\n", "conditions.ambient"),
+        (GOOD + "[conditions]\nhumidity = '40 %'\n", "conditions.humidity"),
         ("[part\nnumber = 1", "not valid TOML"),
     ],
 )

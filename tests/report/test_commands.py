@@ -1,6 +1,7 @@
 """qualify / plan / report against a real SQLite store filled with the simulator's demo populations."""
 
 import base64
+import html
 import json
 import re
 
@@ -181,7 +182,8 @@ def test_operations_counted_per_cycle_or_per_actuation(small_db, tmp_path):
     a = per_cycle.qualification.life["VS-505:L1"]["rate_per_10k"]
     b = per_act.qualification.life["VS-505:L1"]["rate_per_10k"]
     assert b["operations"] == 2 * a["operations"]  # each make and each break is one operation
-    assert (a["operation"], b["operation"]) == ("coil cycle", "make or break")
+    # the part's own word for one operating cycle, from the spec's [conditions]
+    assert (a["operation"], b["operation"]) == ("plunger stroke", "make or break")
     assert b["rate"] == pytest.approx(a["rate"] / 2)
 
 
@@ -224,3 +226,76 @@ def test_json_to_stdout_alone(small_db, capsys):
     captured = capsys.readouterr()
     assert code == 2 and json.loads(captured.out)["outcome"] == "not yet decidable"
     assert "verdict: NOT YET DECIDABLE" in captured.err
+
+
+def test_report_carries_the_quality_file_fields(db, tmp_path):
+    from benchlog.views.report import data_checksum, evaluate
+
+    out = tmp_path / "r.html"
+    args = ["report", "--db", db, "--incumbent", "AG-MS5:L1", "--candidate", "VS-505", "-o", str(out)]
+    args += ["--resamples", "300", "--number", "QR-7", "--revision", "C", "--ambient", f"23 C {EVIL}"]
+    args += ["--prepared", "J. Okafor", "--prepared-on", "2026-12-02", "--approved", "R. Lind"]
+    assert main(args) == 1
+    page = out.read_text()
+    text = re.sub(r"<[^>]+>", " ", page)
+    text = " ".join(text.split())
+    assert "report number QR-7" in text and "revision C" in text
+    # conditions: given, from the spec's [conditions], from the runs, or said to be missing
+    assert f"ambient temperature 23 C {html.escape(EVIL)} given for this report" in text
+    assert "load switched 24 V DC, 10 mA resistive (door-interlock sense input) the spec" in text
+    assert "coil voltage not recorded" in text
+    assert "cycle profile drive on 50 ms, off 50 ms, to 300,000 cycles recorded with the runs" in text
+    # the bench and the sampler it announced; the store, the runs and the data's checksum
+    assert "bench-A BW-BENCH-A" in text and "1,000,000 Hz" in text
+    assert f"store {db}" in text and "runs 1 " in text
+    ev = evaluate(db, "AG-MS5:L1", "VS-505", resamples=100, with_runs=True)
+    checksum = data_checksum([ev.incumbent, ev.candidate])
+    assert re.fullmatch(r"[0-9a-f]{64}", checksum) and checksum in text
+    # sign-off: names and dates given are filled, the rest left blank for ink
+    assert "prepared J. Okafor 2026-12-02" in text and "reviewed approved R. Lind" in text
+    # the running header is a CSS string: the lot code's quotes and brackets cannot break out of it
+    assert page.count("</style>") == 2 and "<script" not in page
+    header = re.search(r"@top-left \{ content: (\"[^\"]*\"); \}", page).group(1)
+    assert "report QR-7, revision C" in header and '"' not in header[1:-1]
+
+
+def test_report_wording(db, tmp_path):
+    out = tmp_path / "r.html"
+    doc = tmp_path / "q.json"
+    common = ["--db", db, "--incumbent", "AG-MS5:L1", "--candidate", "VS-505", "--resamples", "300"]
+    assert main(["report", *common, "-o", str(out)]) == 1
+    assert main(["qualify", *common, "--json", str(doc)]) == 1
+    text = " ".join(re.sub(r"<[^>]+>", " ", out.read_text()).split())
+    failed = [c["name"] for c in json.loads(doc.read_text())["criteria"] if c["outcome"] == "fail"]
+    assert failed and "Failed: " + "; ".join(failed) + "." in text  # the banner names them
+    assert not re.search(r"[a-z]\(s\)", text) and "1 criteria" not in text and "1 failures" not in text
+    assert "scipy's" not in text
+    assert "per 10,000 plunger strokes" in text and "coil cycle" not in text  # the part's own word
+    # one rounding rule: the metric table shows the verdict table's three significant figures
+    p95 = re.search(r"make bounce p95 \(candidate\) ([\d.]+) \[", text).group(1)
+    assert re.search(rf"VS-505:L\S* 8 [\d,]+ {re.escape(p95)} \[", text)
+
+
+def test_report_as_pdf(small_db, tmp_path):
+    common = ["--db", small_db, "--incumbent", "AG-MS5", "--candidate", "VS-505", "--resamples", "100"]
+    by_name = tmp_path / "r.pdf"
+    assert main(["report", *common, "-o", str(by_name)]) == 2
+    by_option = tmp_path / "r.out"
+    assert main(["report", *common, "--pdf", "--paper", "letter", "-o", str(by_option)]) == 2
+    for f in (by_name, by_option):
+        assert f.read_bytes()[:5] == b"%PDF-"
+    with pytest.raises(SystemExit) as exc:
+        main(["report", *common, "--prepared-on", "2 Dec"])
+    assert exc.value.code == 64
+
+
+def test_data_checksum_follows_the_data(tmp_path):
+    from benchlog.views.report import data_checksum, evaluate
+
+    sums = []
+    for name, seed in (("a", 4), ("b", 4), ("c", 5)):
+        path = fill(tmp_path / f"{name}.sqlite", units_per_lot=3, recorded=40, test_end=20_000, seed=seed)
+        ev = evaluate(path, "AG-MS5:L1", "VS-505:L1", resamples=100, min_units=3)
+        sums.append(data_checksum([ev.incumbent, ev.candidate]))
+    assert sums[0] == sums[1]  # the same data in another file
+    assert sums[0] != sums[2]  # other data

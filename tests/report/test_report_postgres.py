@@ -44,6 +44,13 @@ def test_qualify_reads_postgresql(tmp_path, capsys):
             results.append((code, [(c["name"], c["outcome"]) for c in doc["criteria"]]))
         capsys.readouterr()
         assert results[0] == results[1]  # the engine makes no difference to the verdict
+        from benchlog.views.report import data_checksum, evaluate
+
+        sums = []
+        for db in (url, sqlite):
+            ev = evaluate(db, "AG-MS5", "VS-505", resamples=100)
+            sums.append(data_checksum([ev.incumbent, ev.candidate]))
+        assert sums[0] == sums[1]  # the report's checksum is of the data, not of the store holding it
     finally:
         with admin.begin() as c:
             c.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))

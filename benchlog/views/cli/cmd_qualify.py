@@ -68,7 +68,8 @@ def add_common(p: argparse.ArgumentParser) -> None:
         "--per",
         choices=("cycle", "actuation"),
         default="cycle",
-        help="what one operation is in failure rates: a coil cycle, or each make and each break",
+        help="what one operation is in failure rates: an operating cycle (the spec's own word for it), "
+        "or each make and each break",
     )
     p.add_argument("--resamples", type=int, default=2000, help="bootstrap resamples (default 2000)")
     p.add_argument("--seed", type=int, default=0, help="bootstrap random seed (default 0)")

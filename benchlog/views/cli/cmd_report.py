@@ -1,4 +1,4 @@
-"""`benchlog report`: write the self-contained HTML qualification report."""
+"""`benchlog report`: write the self-contained HTML (or PDF) qualification report."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import argparse
 from benchlog.views.cli.cmd_qualify import EPILOG, add_common
 
 NAME = "report"
-HELP = "Write a self-contained HTML qualification report (verdict, plots, life, runs, the spec used)."
+HELP = "Write a self-contained HTML or PDF qualification report (verdict, plots, life, runs, the spec used)."
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -15,14 +15,65 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.formatter_class = argparse.RawDescriptionHelpFormatter
     add_common(p)
     p.add_argument("-o", "--output", default="qualification.html", help="HTML file to write")
+    add_quality_file(p)
+
+
+def _iso_date(text: str) -> str:
+    from datetime import date
+
+    try:
+        return date.fromisoformat(text).isoformat()
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a date as YYYY-MM-DD, got {text!r}") from None
+
+
+def add_quality_file(p: argparse.ArgumentParser) -> None:
+    """The report's identity, test conditions, sign-off and PDF output."""
+    g = p.add_argument_group("quality file")
+    g.add_argument("--pdf", action="store_true", help="write PDF (also chosen by an output ending in .pdf)")
+    g.add_argument(
+        "--paper",
+        choices=("a4", "letter"),
+        help="page size for print and PDF (default: the printer's; PDF: a4)",
+    )
+    g.add_argument("--number", metavar="TEXT", help="report number, as the quality system assigns it")
+    g.add_argument("--revision", metavar="TEXT", help="report revision")
+    for key, label in (
+        ("profile", "cycle profile"),
+        ("load", "load switched"),
+        ("coil-voltage", "coil voltage"),
+        ("ambient", "ambient temperature"),
+    ):
+        g.add_argument(f"--{key}", metavar="TEXT", help=f"{label} (default: the spec's [conditions])")
+    for role in ("prepared", "reviewed", "approved"):
+        g.add_argument(f"--{role}", metavar="NAME", help=f"{role} by (default: a blank line to sign on)")
+        g.add_argument(f"--{role}-on", metavar="YYYY-MM-DD", type=_iso_date, help="its date (default: blank)")
+
+
+def report_info(args: argparse.Namespace):
+    from benchlog.views.report import ReportInfo, SignOff
+
+    keys = ("profile", "load", "coil_voltage", "ambient")
+    return ReportInfo(
+        number=args.number or "",
+        revision=args.revision or "",
+        conditions={k: getattr(args, k) for k in keys if getattr(args, k)},
+        sign_off=tuple(
+            SignOff(role, getattr(args, role) or "", getattr(args, f"{role}_on") or "")
+            for role in ("prepared", "reviewed", "approved")
+        ),
+        paper=args.paper or "",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
     from benchlog.views.cli.cmd_qualify import evaluate
     from benchlog.views.report import write_report
 
+    if args.pdf and args.output == "qualification.html":
+        args.output = "qualification.pdf"
     ev = evaluate(args, with_runs=True)
-    write_report(args.output, ev)
+    write_report(args.output, ev, report_info(args), pdf=args.pdf)
     q = ev.qualification
     print(f"wrote {args.output}: verdict {q.outcome} (exit {q.exit_code})")
     return q.exit_code

@@ -9,6 +9,7 @@ A LOT argument names, in this order of preference:
 
 from __future__ import annotations
 
+import hashlib
 import tomllib
 from dataclasses import dataclass, field
 
@@ -16,8 +17,11 @@ import numpy as np
 
 from benchlog.errors import DataError, SpecError
 from benchlog.stats import LifeTable, Population, metric_samples
+from benchlog.store import STORED_ACTUATION_DTYPE
 
-__all__ = ["LotData", "load_lot", "resolve_lot", "spec_for"]
+STORED_FIELDS = STORED_ACTUATION_DTYPE.names
+
+__all__ = ["LotData", "data_checksum", "load_lot", "resolve_lot", "spec_for"]
 
 
 @dataclass
@@ -32,6 +36,7 @@ class LotData:
     runs: list = field(default_factory=list)  # RunInfo of every run that held one of its units
     incidents: dict[int, list] = field(default_factory=dict)  # run id -> IncidentInfo list
     spec_toml: str | None = None
+    benches: dict = field(default_factory=dict)  # bench id -> BenchInfo of the runs' benches
 
     @property
     def label(self) -> str:
@@ -86,10 +91,13 @@ def load_lot(store, ident: str, *, operation: str = "coil cycle", with_runs: boo
     data = LotData(ident, part, supplier, [lo.code for lo in lots], pop, acts, serial_of, spec_toml=spec_toml)
     if with_runs:
         ids = set(serial_of)
+        benches = {b.id: b for b in store.benches()}
         for run in store.runs():
             if any(ru.unit.id in ids for ru in store.run_units(run.id)):
                 data.runs.append(run)
                 data.incidents[run.id] = store.incidents(run.id)
+                if run.bench_id in benches:
+                    data.benches[run.bench_id] = benches[run.bench_id]
     return data
 
 
@@ -107,3 +115,30 @@ def spec_for(spec_arg: str | None, candidate: LotData):
         except tomllib.TOMLDecodeError as exc:
             raise SpecError(f"{name}: not valid TOML: {exc}") from exc
     raise SpecError(f"no --spec given and the store holds no spec for {candidate.part_number}")
+
+
+def data_checksum(lots: list[LotData]) -> str:
+    """SHA-256 of the data a report is drawn from: per lot, its part and lot codes, then every unit's
+    actuations (by serial, in cycle order; the store's row ids left out, so the same data in another
+    store gives the same sum) and its life table row. Recomputing it from the store shows whether
+    the data changed since the report was written."""
+    h = hashlib.sha256()
+    cols = [n for n in STORED_FIELDS if n not in ("unit_id", "run_id")]
+    for lot in lots:
+        h.update(f"lot\0{lot.part_number}\0{','.join(lot.lot_codes)}\0".encode())
+        a = lot.actuations
+        serials = np.array([lot.serial_of.get(int(u), str(u)) for u in a["unit_id"]], dtype=object)
+        for serial in sorted(set(serials.tolist())):
+            rows = a[serials == serial]
+            rows = rows[np.lexsort((rows["kind"], rows["t_start_ns"], rows["cycle"]))]
+            h.update(f"unit\0{serial}\0{len(rows)}\0".encode())
+            for c in cols:
+                h.update(np.ascontiguousarray(rows[c]).astype(rows.dtype[c].newbyteorder("<")).tobytes())
+        life = lot.population.life
+        if life is not None:
+            for i in np.argsort(np.array([str(u) for u in life.unit]), kind="stable"):
+                row = (
+                    f"life\0{life.unit[i]}\0{float(life.cycles[i])!r}\0{bool(life.failed[i])}\0{life.mode[i]}"
+                )
+                h.update(row.encode())
+    return h.hexdigest()

@@ -17,8 +17,9 @@ from benchlog import __version__
 from benchlog.analysis import INCOMPLETE, MISSED, NO_CHANGE, STUCK
 from benchlog.errors import DataError
 from benchlog.stats import FAIL, METRICS, PASS, UNDECIDED, Qualification, fit_weibull
-from benchlog.views.report._data import LotData
-from benchlog.views.report._plots import COLOURS, ecdf_png, trend_png, weibull_png
+from benchlog.views.report._build import CONDITIONS, ReportInfo
+from benchlog.views.report._data import LotData, data_checksum
+from benchlog.views.report._plots import COLOURS, Plot, ecdf_png, trend_png, weibull_png
 
 __all__ = ["render_report"]
 
@@ -35,25 +36,96 @@ h1 { font-size: 24px; margin: 0 0 4px; } h2 { font-size: 18px; margin: 32px 0 8p
 .b-fail { background: #fbe6e4; border-left: 6px solid #c62828; }
 .b-undecided { background: #fdf3dc; border-left: 6px solid #c98a00; }
 table { border-collapse: collapse; width: 100%; margin: 6px 0 12px; font-size: 13px; }
-th, td { text-align: left; padding: 5px 8px; border-bottom: 1px solid #e3e6ea; vertical-align: top; }
+th, td { text-align: left; padding: 5px 8px; border-bottom: 1px solid #e3e6ea; vertical-align: top;
+         overflow-wrap: break-word; }
 th { background: #f0f2f4; font-weight: 600; } td.num { font-variant-numeric: tabular-nums; }
+table.ident th { width: 22%; } table.sign td { height: 34px; }
 .pill { display: inline-block; padding: 1px 8px; border-radius: 10px; font-size: 12px; font-weight: 600;
         white-space: nowrap; }
 .p-pass { background: #2e7d32; color: #fff; } .p-fail { background: #c62828; color: #fff; }
 .p-undecided { background: #c98a00; color: #fff; }
 .small { color: #5b6670; font-size: 12px; } img { max-width: 100%; display: block; margin: 6px 0; }
-pre { background: #f6f7f9; padding: 10px 12px; border-radius: 4px; font-size: 12px; overflow-x: auto; }
+pre { background: #f6f7f9; padding: 10px 12px; border-radius: 4px; font-size: 12px;
+      white-space: pre-wrap; overflow-wrap: anywhere; }
 .key { display: inline-block; width: 12px; height: 12px; border-radius: 2px; margin-right: 6px;
        vertical-align: -1px; }
 .caution { background: #fff8e1; border: 1px solid #ecd48a; padding: 8px 12px; border-radius: 4px;
            font-size: 12px; }
+.absent { color: #8a5a00; font-style: italic; }
+.mono { font-family: ui-monospace, "DejaVu Sans Mono", monospace; font-size: 12px; overflow-wrap: anywhere; }
+h1, h2, h3 { break-after: avoid; page-break-after: avoid; }
+.keep, img, tr, .banner, .caution { break-inside: avoid; page-break-inside: avoid; }
+@page { margin: 16mm 13mm 15mm;
+        @top-left { font: 8pt sans-serif; color: #5b6670; }
+        @bottom-right { content: "page " counter(page) " of " counter(pages); font: 8pt sans-serif;
+                        color: #5b6670; } }
+@media print {
+  body { background: #fff; font-size: 9.5pt; line-height: 1.35; }
+  main { max-width: none; margin: 0; padding: 0; }
+  h1 { font-size: 17pt; } h2 { font-size: 13pt; margin: 14pt 0 5pt; }
+  h3 { font-size: 11pt; margin: 10pt 0 4pt; }
+  table { font-size: 8pt; margin: 4pt 0 8pt; } th, td { padding: 2pt 4pt; }
+  .small, pre, .caution, .mono { font-size: 7.5pt; } .pill { font-size: 7.5pt; padding: 0 5pt; }
+  .banner { font-size: 12pt; padding: 8pt 12pt; } .banner small { font-size: 9pt; }
+  img { width: 100%; height: auto; margin: 3pt 0; }
+  * { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+}
 """
 
 _OUTCOME_CLASS = {PASS: "pass", FAIL: "fail", UNDECIDED: "undecided"}
 
 
-def _img(png: bytes, alt: str) -> str:
-    return f'<img alt="{escape(alt)}" src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}">'
+def _img(plot: Plot, alt: str) -> str:
+    """The figure, with its x range and the requirement it draws as data attributes (a reader's tool
+    or a test can check that the requirement is inside the axes)."""
+    lo, hi = plot.x_range
+    req = "" if plot.requirement is None else f' data-requirement="{plot.requirement:.6g}"'
+    data = base64.b64encode(plot.png).decode("ascii")
+    return (
+        f'<img alt="{escape(alt)}" data-x-range="{lo:.6g} {hi:.6g}"{req} src="data:image/png;base64,{data}">'
+    )
+
+
+def _keep(*blocks: str) -> str:
+    """Blocks printed on one page (a heading with its figure, a figure with its caption)."""
+    return '<div class="keep">' + "".join(blocks) + "</div>"
+
+
+def _count(n: int, one: str, many: str | None = None) -> str:
+    return f"{n} {one}" if n == 1 else f"{n} {many or one + 's'}"
+
+
+def _plural(word: str) -> str:
+    """'plunger stroke' -> 'plunger strokes'; 'make or break' -> 'makes and breaks'."""
+    if word == "make or break":
+        return "makes and breaks"
+    return word + ("es" if word.endswith(("s", "x", "ch", "sh")) else "s")
+
+
+def _tally(passed: int, failed: int, undecided: int) -> str:
+    """'5 criteria pass, 1 criterion fails, 2 are not yet decidable' in plain English."""
+
+    def one(n: int, verb_one: str, verb_many: str) -> str:
+        return f"1 criterion {verb_one}" if n == 1 else f"{n or 'no'} criteria {verb_many}"
+
+    return ", ".join(
+        [
+            one(passed, "passes", "pass"),
+            one(failed, "fails", "fail"),
+            one(undecided, "is not yet decidable", "are not yet decidable"),
+        ]
+    )
+
+
+def _css_string(text: str) -> str:
+    """A CSS string literal that cannot end the string, the rule or the style element."""
+    out = []
+    for ch in text:
+        if ch.isalnum() or ch in " .,:;-_()/+#=":
+            out.append(ch)
+        else:
+            out.append(f"\\{ord(ch):x} ")
+    return '"' + "".join(out) + '"'
 
 
 def _pill(outcome: str) -> str:
@@ -74,11 +146,15 @@ def _p(v) -> str:
 
 
 def _table(head: list[str], rows: list[list[str]], num_from: int = 1) -> str:
-    out = ["<table><tr>" + "".join(f"<th>{escape(h)}</th>" for h in head) + "</tr>"]
+    """A table; its head (when it has one) is repeated on every printed page the table runs onto."""
+    out = ["<table>"]
+    if any(head):
+        out.append("<thead><tr>" + "".join(f"<th>{escape(h)}</th>" for h in head) + "</tr></thead>")
+    out.append("<tbody>")
     for r in rows:
         cells = [f"<td{' class=num' if i >= num_from else ''}>{c}</td>" for i, c in enumerate(r)]
         out.append("<tr>" + "".join(cells) + "</tr>")
-    out.append("</table>")
+    out.append("</tbody></table>")
     return "".join(out)
 
 
@@ -116,11 +192,7 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
         def iv(d, scale=k):
             if not d or d.get("estimate") is None:
                 return "-"
-            f4 = "{:.4g}"
-            return (
-                f"{_num(d['estimate'] * scale, f4)} [{_num(d['low'] * scale, f4)}, "
-                f"{_num(d['high'] * scale, f4)}]"
-            )
+            return f"{_num(d['estimate'] * scale)} [{_num(d['low'] * scale)}, {_num(d['high'] * scale)}]"
 
         sh = s.get("beyond_limit")
         share = (
@@ -173,7 +245,13 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
     if "note" in t:
         out += f'<p class="small">Tests: {escape(t["note"])}</p>'
     elif t:
-        cap = " (at the end of scipy's table: the true value lies beyond)" if t.get("anderson_capped") else ""
+        cap = (
+            " (at the end of the tabulated range: the p-value is interpolated in Scholz and Stephens' "
+            "critical values, J. Am. Stat. Assoc. 82(399), 1987, which span 0.001 to 0.25; the true "
+            "value lies beyond)"
+            if t.get("anderson_capped")
+            else ""
+        )
         out += (
             f'<p class="small">Distribution-free tests on one value per unit ({escape(t["summary"])}; '
             f"units {', '.join(str(u) for u in t['units'])}): Mann-Whitney {_p(t['mann_whitney_p'])} "
@@ -209,7 +287,7 @@ def _trend_series(lots: list[LotData], metric: str) -> list[tuple[str, int, np.n
     return out
 
 
-def _life_section(q: Qualification, lots: list[LotData]) -> str:
+def _life_section(q: Qualification, lots: list[LotData], head: str) -> str:
     req = q.requirements
     x = req.life_percent
     tables = []
@@ -224,13 +302,19 @@ def _life_section(q: Qualification, lots: list[LotData]) -> str:
         tables.append((lot.population.name, table, fit))
     parts = []
     if tables:
-        parts.append(_img(weibull_png(tables, req.life_cycles, x), "Weibull probability plot"))
         parts.append(
-            '<p class="small">Failures at median ranks (Johnson\'s adjusted ranks for the '
-            "suspensions, Benard's approximation); ticks along the bottom are suspensions (units "
-            "still running or removed). Lines are maximum-likelihood fits with the suspensions in "
-            "the likelihood.</p>"
+            _keep(
+                head,
+                _img(weibull_png(tables, req.life_cycles, x), "Weibull probability plot"),
+                '<p class="small">Failures at median ranks (Johnson\'s adjusted ranks for the '
+                "suspensions, Benard's approximation); ticks along the bottom are suspensions (units "
+                "still running or removed), one row per population, with the number of units beside a "
+                "tick where several stopped at the same cycles. Lines are maximum-likelihood fits with "
+                "the suspensions in the likelihood; the dashed line is the required life.</p>",
+            )
         )
+    else:
+        parts.append(head)
     rows, mode_rows = [], []
     order = [lot.population.name for lot in lots]
     for name, info in sorted(q.life.items(), key=lambda kv: order.index(kv[0]) if kv[0] in order else 99):
@@ -243,7 +327,7 @@ def _life_section(q: Qualification, lots: list[LotData]) -> str:
             if not rate
             else (
                 f"{rate['rate']:.3g} [{rate['low']:.3g}, {rate['high']:.3g}] per 10,000 "
-                f"{escape(rate['operation'])}s"
+                f"{escape(_plural(rate['operation']))}"
             )
         )
         if "shape" in fit:
@@ -312,8 +396,8 @@ def _life_section(q: Qualification, lots: list[LotData]) -> str:
             f"{_p(same['p_value'])}.</p>"
         )
     if mode_rows:
-        parts.append("<h3>Failure modes (competing risks)</h3>")
         parts.append(
+            "<h3>Failure modes (competing risks)</h3>"
             '<p class="small">Each mode is fitted on its own with the other modes\' failures '
             "counted as suspensions (a welded unit tells nothing about when it would have worn "
             "out); a mode needs three failures for a fit.</p>"
@@ -341,8 +425,9 @@ def _life_section(q: Qualification, lots: list[LotData]) -> str:
                 ]
             )
     if unit_rows:
-        parts.append("<h3>Units</h3>")
-        parts.append(_table(["population", "unit", "status", "cycles"], unit_rows, num_from=3))
+        parts.append(
+            "<h3>Units</h3>" + _table(["population", "unit", "status", "cycles"], unit_rows, num_from=3)
+        )
     return "".join(parts)
 
 
@@ -410,6 +495,112 @@ def _runs_section(lots: list[LotData]) -> str:
     return out
 
 
+def _profile_text(profile: dict, target: int) -> str:
+    on, off = profile.get("on_ms"), profile.get("off_ms")
+    parts = []
+    if on is not None and off is not None:
+        parts.append(f"drive on {on:g} ms, off {off:g} ms")
+    parts += [
+        f"{escape(str(k))} {escape(str(v))}" for k, v in profile.items() if k not in ("on_ms", "off_ms")
+    ]
+    if target:
+        parts.append(f"to {target:,} cycles")
+    return ", ".join(parts) or "-"
+
+
+def _conditions_rows(info: ReportInfo, spec, lots: list[LotData]) -> list[list[str]]:
+    from_spec = getattr(spec, "extra", {}).get("conditions", {}) if spec is not None else {}
+    runs = {run.id: run for lot in lots for run in lot.runs}
+    rows = []
+    for key, label in CONDITIONS:
+        if info.conditions.get(key):
+            value, source = escape(info.conditions[key]), "given for this report"
+        elif from_spec.get(key):
+            value, source = escape(from_spec[key]), "the spec"
+        elif key == "profile" and runs:
+            texts = sorted({_profile_text(r.profile, r.target_cycles) for r in runs.values()})
+            value, source = "; ".join(texts), "recorded with the runs"
+        else:
+            value, source = '<span class="absent">not recorded</span>', "-"
+        rows.append([escape(label), value, escape(source)])
+    return rows
+
+
+def _benches_section(lots: list[LotData]) -> str:
+    runs = {run.id: run for lot in lots for run in lot.runs}
+    benches = {bid: b for lot in lots for bid, b in lot.benches.items()}
+    if not runs:
+        return "<p>No runs recorded for these lots.</p>"
+    rows = []
+    for bid in sorted({r.bench_id for r in runs.values()}):
+        b = benches.get(bid)
+        its = [r for r in runs.values() if r.bench_id == bid]
+        boards = sorted({r.board_id or (b.board_id if b else None) or "not recorded" for r in its})
+        protocols = sorted({str(r.protocol_version) for r in its if r.protocol_version is not None})
+        software = sorted({r.software_version for r in its if r.software_version})
+        rows.append(
+            [
+                escape(its[0].bench),
+                ", ".join(escape(x) for x in boards),
+                ", ".join(protocols) or '<span class="absent">not recorded</span>',
+                "-" if not b or not b.clock_hz else f"{b.clock_hz:,} Hz",
+                "-" if not b or not b.counter_bits else f"{b.counter_bits} bits",
+                "-" if not b or b.channels is None else str(b.channels),
+                ", ".join(str(r.id) for r in sorted(its, key=lambda r: r.id)),
+                ", ".join(escape(x) for x in software) or "-",
+            ]
+        )
+    return _table(
+        [
+            "bench",
+            "sampler board (as announced)",
+            "sampler protocol version",
+            "sampler clock",
+            "counter",
+            "channels",
+            "runs",
+            "benchlog version recording",
+        ],
+        rows,
+    )
+
+
+def _data_rows(lots: list[LotData], store: str, checksum: str) -> list[list[str]]:
+    runs = sorted({run.id for lot in lots for run in lot.runs})
+    values = sum(len(lot.actuations) for lot in lots)
+    units = sum(len(lot.serial_of) for lot in lots)
+    return [
+        ["store", f'<span class="mono">{escape(store or "-")}</span>'],
+        ["runs", ", ".join(str(r) for r in runs) or "none"],
+        ["lots", "; ".join(escape(lot.label) for lot in lots)],
+        [
+            "drawn",
+            f"{_count(units, 'unit')}, {_count(values, 'actuation')} (before leaving out incomplete ones)",
+        ],
+        [
+            "SHA-256 of the data",
+            f'<span class="mono">{checksum}</span><br><span class="small">over every actuation of every '
+            "unit (by serial, in cycle order) and the life table, as read from the store; the same data "
+            "gives the same sum in any store</span>",
+        ],
+    ]
+
+
+def _sign_off(info: ReportInfo) -> str:
+    rows = [
+        [escape(s.role), escape(s.name) if s.name else "", "", escape(s.date) if s.date else ""]
+        for s in info.sign_off
+    ]
+    return _table(["", "name", "signature", "date"], rows, num_from=9).replace(
+        "<table>", '<table class="sign">', 1
+    )
+
+
+def _page_style(info: ReportInfo, running: str) -> str:
+    size = {"a4": "size: A4;", "letter": "size: letter;"}.get(info.paper, "")
+    return f"<style>@page {{ {size} @top-left {{ content: {_css_string(running)}; }} }}</style>"
+
+
 def render_report(
     q: Qualification,
     incumbent: LotData,
@@ -418,43 +609,76 @@ def render_report(
     spec_name: str,
     spec_text: str,
     created: datetime | None = None,
+    spec=None,
+    store: str = "",
+    info: ReportInfo | None = None,
 ) -> str:
+    info = info or ReportInfo()
     created = created or datetime.now(UTC)
     lots = [incumbent, candidate]
     names = [incumbent.population.name, candidate.population.name]
     cls = _OUTCOME_CLASS[q.outcome]
-    counts = {o: sum(c.outcome == o for c in q.criteria) for o in (PASS, FAIL, UNDECIDED)}
+    checksum = data_checksum(lots)
+    title = f"Qualification: {candidate.label} against {incumbent.label}"
+    number = info.number or "not numbered"
+    revision = info.revision or "-"
+    running = f"{title} | report {number}, revision {revision} | data {checksum[:12]}"
     h = [
-        f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>Qualification: "
-        f"{escape(candidate.label)} against {escape(incumbent.label)}</title><style>{_CSS}</style></head>"
-        "<body><main>"
+        f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>{escape(title)}</title>"
+        f"<style>{_CSS}</style>{_page_style(info, running)}</head><body><main>"
     ]
-    h.append(f"<h1>Qualification: {escape(candidate.label)} against {escape(incumbent.label)}</h1>")
+    h.append(f"<h1>{escape(title)}</h1>")
     sup = " ".join(
         f'<span class="key" style="background:{COLOURS[i]}"></span>{escape(lot.label)}'
         f"{' - ' + escape(lot.supplier) if lot.supplier else ''} "
-        f"({'incumbent' if i == 0 else 'candidate'}, {lot.population.units} units)"
+        f"({'incumbent' if i == 0 else 'candidate'}, {_count(lot.population.units, 'unit')})"
         for i, lot in enumerate(lots)
     )
     h.append(
         f'<p class="sub">{sup}<br>Spec: {escape(spec_name)}. Every bound is one-sided at '
-        f"{q.requirements.confidence:.0%}. Written {created:%Y-%m-%d %H:%M} UTC by benchlog "
-        f"{escape(__version__)}.</p>"
+        f"{q.requirements.confidence:.0%}.</p>"
     )
+    absent = '<span class="absent">not assigned</span>'
     h.append(
-        f'<div class="banner b-{cls}">Verdict: {escape(q.outcome)}<small>{counts[PASS]} criteria pass, '
-        f"{counts[FAIL]} fail, {counts[UNDECIDED]} not yet decidable. Fail if any criterion fails; "
-        "pass only when all pass.</small></div>"
+        _table(
+            ["report", ""],
+            [
+                ["report number", escape(info.number) if info.number else absent],
+                ["revision", escape(info.revision) if info.revision else absent],
+                ["written", f"{created:%Y-%m-%d %H:%M} UTC by benchlog {escape(__version__)}"],
+                ["data checksum", f'<span class="mono">SHA-256 {checksum[:16]}...</span> (in full below)'],
+            ],
+            num_from=9,
+        ).replace("<table>", '<table class="ident">', 1)
     )
-    h.append("<h2>Verdict</h2>")
-    h.append(_verdict_section(q))
+    by = {o: [c.name for c in q.criteria if c.outcome == o] for o in (PASS, FAIL, UNDECIDED)}
+    named = ""
+    if by[FAIL]:
+        named += "<br>Failed: " + "; ".join(escape(n) for n in by[FAIL]) + "."
+    if by[UNDECIDED]:
+        named += "<br>Not yet decidable: " + "; ".join(escape(n) for n in by[UNDECIDED]) + "."
+    h.append(
+        f'<div class="banner b-{cls}">Verdict: {escape(q.outcome)}<small>'
+        f"{_tally(len(by[PASS]), len(by[FAIL]), len(by[UNDECIDED]))}.{named}<br>"
+        "Fail if any criterion fails; pass only when all pass.</small></div>"
+    )
+    h.append("<h2>Verdict</h2>" + _verdict_section(q))  # a long table: rows kept whole, not the table
     h.append(
         '<p class="small">Units, not actuations, are the experimental unit: population percentiles, '
         "rates and capability carry bounds from a bootstrap that resamples whole units; the "
         "distribution-free tests compare one summary value per unit. The Clopper-Pearson interval on "
         "the share beyond a limit treats these units' recorded actuations as independent trials and "
-        "is shown for those actuations only.</p>"
+        "is shown for those actuations only. Metric values are given to three significant figures "
+        "throughout, cycles in whole cycles.</p>"
     )
+    h.append(
+        _keep(
+            "<h2>Test conditions</h2>",
+            _table(["condition", "value", "from"], _conditions_rows(info, spec, lots)),
+        )
+    )
+    h.append(_keep("<h2>Benches and samplers</h2>", _benches_section(lots)))
+    h.append(_keep("<h2>Data</h2>", _table(["", ""], _data_rows(lots, store, checksum), num_from=9)))
     limits = {lim.metric: lim for lim in q.requirements.limits}
     h.append("<h2>Metrics</h2>")
     for metric, entry in q.comparisons.items():
@@ -462,7 +686,7 @@ def render_report(
         lim = limits.get(metric)
         if lim is None and metric not in ("make_bounce", "break_bounce", "operate_time", "release_time"):
             continue
-        h.append(f"<h3>{escape(m.label.capitalize())}</h3>")
+        head = f"<h3>{escape(m.label.capitalize())}</h3>"
         samples = [
             (n, lot.population.samples[metric])
             for n, lot in zip(names, lots, strict=True)
@@ -470,31 +694,37 @@ def render_report(
         ]
         if m.kind != "rate" and any(len(s) for _, s in samples):
             h.append(
-                _img(
-                    ecdf_png(metric, samples, lim.value if lim else None, lim.percentile if lim else None),
-                    f"{m.label} distributions",
+                _keep(
+                    head,
+                    _img(
+                        ecdf_png(
+                            metric, samples, lim.value if lim else None, lim.percentile if lim else None
+                        ),
+                        f"{m.label} distributions",
+                    ),
                 )
             )
             series = _trend_series(lots, metric)
             if series:
                 pct = min(lim.percentile, 99.0) if lim else 95.0
                 h.append(
-                    _img(
-                        trend_png(metric, series, names, lim.value if lim else None, pct),
-                        f"{m.label} per unit over life",
+                    _keep(
+                        _img(
+                            trend_png(metric, series, names, lim.value if lim else None, pct),
+                            f"{m.label} per unit over life",
+                        ),
+                        f'<p class="small">One line per unit: its p{pct:g} in each twentieth of the '
+                        "recorded life.</p>",
                     )
                 )
-                h.append(
-                    f'<p class="small">One line per unit: its p{pct:g} in each twentieth of the '
-                    "recorded life.</p>"
-                )
-        h.append(_metric_table(entry, names, metric))
-    h.append("<h2>Life</h2>")
-    h.append(_life_section(q, lots))
+            h.append(_metric_table(entry, names, metric))
+        else:
+            h.append(_keep(head, _metric_table(entry, names, metric)))
+    h.append(_life_section(q, lots, "<h2>Life</h2>"))
     h.append("<h2>Runs and incidents</h2>")
     h.append(_runs_section(lots))
-    h.append("<h2>Spec used</h2>")
-    h.append(f"<p>{escape(spec_name)}</p><pre>{escape(spec_text)}</pre>")
+    h.append(_keep("<h2>Spec used</h2>", f"<p>{escape(spec_name)}</p>"))
+    h.append(f"<pre>{escape(spec_text)}</pre>")
     h.append(
         "<h2>How to read this</h2><ul class=small>"
         "<li>pass: the bound on the unfavourable side already meets the requirement; fail: the bound "
@@ -512,5 +742,6 @@ def render_report(
         "load wiring done by qualified people. Local electrical codes and licensed practice take "
         "precedence.</p>"
     )
+    h.append(_keep("<h2>Sign-off</h2>", _sign_off(info)))
     h.append("</main></body></html>")
     return "\n".join(h)
