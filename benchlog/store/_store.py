@@ -36,14 +36,21 @@ def _pid_alive(pid: int) -> bool:
     return True
 
 
+def lock_path(db_path: str) -> str:
+    """The file beside a SQLite database that serialises opening it: `<database>.lock`."""
+    return db_path + ".lock"
+
+
 @contextlib.contextmanager
 def _opening_lock(engine: Engine, readonly: bool) -> Iterator[None]:
     """Serialise the schema check and migration of one SQLite file between processes.
 
     Several recorders started at once on a new file must not interleave "is it empty?", "which
-    revision?" and the migration itself. An flock on the database file does it; it is independent of
-    the POSIX locks SQLite takes on the same file. PostgreSQL serialises in the migration instead
-    (an advisory lock in db/env.py).
+    revision?" and the migration itself. They take an flock on `<database>.lock`, a file of its own:
+    never on the database file, because on POSIX closing any descriptor of a file drops every lock
+    the process holds on it, SQLite's included, and the next process to close a connection would then
+    delete this process's live write-ahead log. PostgreSQL serialises in the migration instead (an
+    advisory lock in db/env.py).
     """
     path = engine.url.database
     if (
@@ -55,16 +62,16 @@ def _opening_lock(engine: Engine, readonly: bool) -> Iterator[None]:
     ):
         yield
         return
+    lock = lock_path(path)
     try:
-        fh = open(path, "ab")  # noqa: SIM115 - held for the lock's lifetime
+        fd = os.open(lock, os.O_RDWR | os.O_CREAT | os.O_CLOEXEC, 0o666)
     except OSError as exc:
-        raise StoreError(f"cannot open the database {path}: {exc.strerror or exc}") from exc
-    with fh:
-        fcntl.flock(fh, fcntl.LOCK_EX)
-        try:
-            yield
-        finally:
-            fcntl.flock(fh, fcntl.LOCK_UN)
+        raise StoreError(f"cannot open the database's lock file {lock}: {exc.strerror or exc}") from exc
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(fd)  # closing releases the flock
 
 
 class Store(ReadAPI):
