@@ -237,24 +237,9 @@ class Store(ReadAPI):
         try:
             with self.engine.begin() as c:
                 row = c.execute(select(s.Bench).where(s.Bench.id == bench_id)).mappings().one()
-                stale = (
-                    row["lease_token"] is None
-                    or (row["lease_until"] or 0) < now
-                    or (row["lease_host"] == host and row["lease_pid"] and not _pid_alive(row["lease_pid"]))
-                )
-                if not stale:
-                    live = c.execute(
-                        select(s.Run.id)
-                        .where(s.Run.bench_id == bench_id, s.Run.ended_at.is_(None))
-                        .order_by(s.Run.id.desc())
-                    ).scalar()
-                    age = max(0.0, now - ((row["lease_until"] or now) - LEASE_SECONDS))
-                    raise StoreBusyError(
-                        f"bench {row['name']!r} is being recorded by process {row['lease_pid']} on "
-                        f"{row['lease_host']}"
-                        + (f" (run {live})" if live else "")
-                        + f", last heartbeat {age:.0f} s ago; stop that recorder first"
-                    )
+                busy = self._lease_busy(c, row, now)
+                if busy:
+                    raise StoreBusyError(busy)
                 # compare-and-set: only one of two racing recorders can win
                 won = c.execute(
                     update(s.Bench)
@@ -276,6 +261,42 @@ class Store(ReadAPI):
         except SQLAlchemyError as exc:
             raise _store_error("take the bench", exc) from exc
         return token
+
+    @staticmethod
+    def _lease_busy(c, row, now: float) -> str | None:
+        """Why the bench of `row` cannot be taken now (a live recorder holds it), or None."""
+        host = socket.gethostname()
+        stale = (
+            row["lease_token"] is None
+            or (row["lease_until"] or 0) < now
+            or (row["lease_host"] == host and row["lease_pid"] and not _pid_alive(row["lease_pid"]))
+        )
+        if stale:
+            return None
+        live = c.execute(
+            select(s.Run.id)
+            .where(s.Run.bench_id == row["id"], s.Run.ended_at.is_(None))
+            .order_by(s.Run.id.desc())
+        ).scalar()
+        age = max(0.0, now - ((row["lease_until"] or now) - LEASE_SECONDS))
+        return (
+            f"bench {row['name']!r} is being recorded by process {row['lease_pid']} on {row['lease_host']}"
+            + (f" (run {live})" if live else "")
+            + f", last heartbeat {age:.0f} s ago; stop that recorder first"
+        )
+
+    def check_bench_free(self, *, name: str | None = None, bench_id: int | None = None) -> None:
+        """Raise StoreBusyError when a live recorder holds the bench; reads only (the lease is taken
+        later, once the port has opened, so a failed start writes nothing)."""
+        cond = s.Bench.name == name if bench_id is None else s.Bench.id == bench_id
+        try:
+            with self.engine.connect() as c:
+                row = c.execute(select(s.Bench).where(cond)).mappings().first()
+                busy = None if row is None else self._lease_busy(c, row, time.time())
+        except SQLAlchemyError as exc:
+            raise _store_error("read the bench", exc) from exc
+        if busy:
+            raise StoreBusyError(busy)
 
     def release_bench(self, bench_id: int, token: str) -> None:
         with self.engine.begin() as c:
@@ -367,9 +388,8 @@ class Store(ReadAPI):
             raise StoreError(f"no run {run_id} in this database")
         if run["end_reason"] in (s.END_TARGET, s.END_ALL_FAILED):
             raise StoreError(f"run {run_id} is complete (ended: {run['end_reason']}); start a new run")
-        token = self.acquire_bench(run["bench_id"])
         try:
-            with self.engine.begin() as c:
+            with self.engine.connect() as c:
                 t_hi = max(
                     c.execute(
                         select(s.Actuation.t_start_ns)
@@ -386,6 +406,11 @@ class Store(ReadAPI):
                     ).scalar()
                     or 0,
                 )
+        except SQLAlchemyError as exc:
+            raise _store_error("resume the run", exc) from exc
+        token = self.acquire_bench(run["bench_id"])
+        try:
+            with self.engine.begin() as c:
                 # the next segment starts a second after the last data (sampler times restart at 0)
                 c.execute(
                     update(s.Run)
