@@ -73,18 +73,42 @@ def make_engine(url: str, *, readonly: bool = False) -> Engine:
     raise StoreError(f"unsupported database {backend!r}: use a SQLite file or a postgresql:// URL")
 
 
+# How a reader opens a SQLite file (`readonly_access`): plainly read-only; read-only in a place this
+# process may not write (it still follows a live writer's log); or as an unchanging snapshot.
+READ_ONLY = "read-only"
+READ_ONLY_HERE = "read-only here"
+SNAPSHOT = "snapshot"
+
+
+def readonly_access(path: str) -> str:
+    """How to open `path` for reading. SQLite needs to make the `-shm` file beside a WAL database to
+    read it; where the folder may not be written and no writer left a `-wal` there (so none can be
+    writing), the file is opened `immutable` instead: as a snapshot. With a `-wal` present, read-only
+    reading follows it (immutable would ignore it and miss committed data)."""
+    folder = os.path.dirname(os.path.abspath(path))
+    if os.path.exists(path + "-wal"):
+        return READ_ONLY if os.access(path, os.W_OK) else READ_ONLY_HERE
+    if not os.access(folder, os.W_OK):
+        return SNAPSHOT
+    return READ_ONLY if os.access(path, os.W_OK) else READ_ONLY_HERE
+
+
 def _sqlite_engine(parsed, readonly: bool) -> Engine:
     path = _sqlite_path(parsed)
     if path is not None and not readonly:
         parent = Path(path).parent
         if not parent.is_dir():
             raise StoreError(f"cannot create the database {path}: folder {parent} does not exist")
+    how = None
     if readonly:
         if path is None or not Path(path).exists():
             raise StoreError(f"no database at {path}")
         # A read-only URI connection never takes a write lock; query_only guards it once more.
-        parsed = parsed.set(database=f"file:{Path(path).as_posix()}?mode=ro", query={"uri": "true"})
+        how = readonly_access(path)
+        flags = "mode=ro&immutable=1" if how == SNAPSHOT else "mode=ro"
+        parsed = parsed.set(database=f"file:{Path(path).as_posix()}?{flags}", query={"uri": "true"})
     engine = create_engine(parsed, poolclass=NullPool if readonly else None)
+    engine.benchlog_access = how  # type: ignore[attr-defined]  # see readonly_access
 
     @event.listens_for(engine, "connect")
     def _set_pragmas(dbapi_connection, _record) -> None:

@@ -83,6 +83,23 @@ class Store(ReadAPI):
         self.url = url
         self.readonly = readonly
 
+    @property
+    def readonly_note(self) -> str | None:
+        """One line for a reader to show when the database could not be opened the usual way: a
+        file this process may not write, or one read as a snapshot. None otherwise."""
+        from ._engine import READ_ONLY_HERE, SNAPSHOT
+
+        how = getattr(self.engine, "benchlog_access", None)
+        shown = self._show(self.url)
+        if how == SNAPSHOT:
+            return (
+                f"{shown} is in a folder this user may not write: reading it as a snapshot, "
+                "as it was when opened"
+            )
+        if how == READ_ONLY_HERE:
+            return f"{shown} may not be written by this user: reading it read-only"
+        return None
+
     # -- opening ------------------------------------------------------------------------------------
     @classmethod
     def open(cls, db: str | None = None, *, readonly: bool = False, upgrade: bool = True) -> Store:

@@ -32,10 +32,14 @@ def run(args: argparse.Namespace) -> int:
         and not Path(parsed.database).exists()
     ):
         raise StoreError(f"no database at {shown}")
-    engine = make_engine(url)
+    engine = make_engine(url, readonly=args.action == "status")
     try:
         st = status(engine)
         if args.action == "status":
+            from benchlog.store import Store
+            from benchlog.views._notes import say_readonly
+
+            say_readonly(Store(engine, url, readonly=True))
             print(f"database  {shown}")
             print(f"revision  {st.current or 'none (no benchlog schema)'}")
             print(f"latest    {st.head}")

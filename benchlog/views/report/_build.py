@@ -8,6 +8,7 @@ from dataclasses import dataclass
 
 from benchlog.errors import ConfigError
 from benchlog.stats import Qualification, Requirements, qualify
+from benchlog.views._notes import say_readonly
 from benchlog.views.report._data import LotData, load_lot, spec_for
 
 __all__ = ["Evaluation", "evaluate", "write_report"]
@@ -61,6 +62,7 @@ def evaluate(
         raise ConfigError(f"an operation is a 'cycle' or an 'actuation', not {per!r}")
     operation = "coil cycle" if per == "cycle" else "make or break"
     store = Store.open(db, readonly=True)
+    say_readonly(store)
     try:
         inc = load_lot(store, incumbent, operation=operation, with_runs=with_runs)
         cand = load_lot(store, candidate, operation=operation, with_runs=with_runs)
