@@ -67,9 +67,11 @@ def make_engine(url: str, *, readonly: bool = False) -> Engine:
             connect_args["options"] = (given + " -c default_transaction_read_only=on").strip()
             parsed = parsed.difference_update_query(["options"])
         try:
-            return create_engine(parsed, connect_args=connect_args, pool_pre_ping=True)
+            engine = create_engine(parsed, connect_args=connect_args, pool_pre_ping=True)
         except (ImportError, SQLAlchemyError) as exc:
             raise StoreError(f"cannot use {parsed.render_as_string()}: {exc}") from exc
+        _report_damage(engine)
+        return engine
     raise StoreError(f"unsupported database {backend!r}: use a SQLite file or a postgresql:// URL")
 
 
@@ -124,7 +126,43 @@ def _sqlite_engine(parsed, readonly: bool) -> Engine:
         finally:
             cursor.close()
 
+    _report_damage(engine)
     return engine
+
+
+# What SQLite (and PostgreSQL) say when the file or a page of it is damaged.
+_DAMAGE_MARKS = ("malformed", "not a database", "disk image", "data_corrupted", "index corrupted", "corrupt")
+
+
+def damaged(exc: BaseException, where: str = "") -> StoreError | None:
+    """A StoreError naming `benchlog db check` when `exc` says the database is damaged, else None."""
+    text = _one_line(exc)
+    if not any(mark in text.lower() for mark in _DAMAGE_MARKS):
+        return None
+    at = f" {where}" if where else ""
+    opt = f" --db {where}" if where else ""
+    return StoreError(
+        f"the database{at} is damaged ({text}); run `benchlog db check{opt}` to see what is wrong"
+    )
+
+
+def _shown(url) -> str:
+    if url.get_backend_name() == "sqlite":
+        path = _sqlite_path(url) or ""
+        return path.split("?", 1)[0]
+    return url.render_as_string(hide_password=True)
+
+
+def _report_damage(engine: Engine) -> None:
+    """Every statement run through the engine that finds the database damaged raises one clear
+    StoreError (SQLAlchemy's handle_error event lets a listener raise its own exception instead)."""
+    where = _shown(engine.url)
+
+    @event.listens_for(engine, "handle_error")
+    def _on_error(context) -> None:
+        err = damaged(context.original_exception, where)
+        if err is not None:
+            raise err from context.original_exception
 
 
 def is_empty(engine: Engine) -> bool:

@@ -6,6 +6,7 @@ process (SQLite WAL readers never block the writer) and on a finished database a
 
 from __future__ import annotations
 
+import sqlite3
 import time
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -21,7 +22,7 @@ from benchlog.events import TimedEdges
 
 from . import _schema as s
 from ._codec import decode_edges
-from ._engine import _one_line
+from ._engine import _one_line, _shown, damaged
 from ._write import ACT_FIELDS, LEASE_SECONDS, STORED_ACTUATION_DTYPE
 
 KIND_NAMES = {MAKE: "make", BREAK: "break"}
@@ -273,8 +274,11 @@ class ReadAPI:
 
             def __exit__(self, et, ev, tb):
                 self.c.close()
-                if isinstance(ev, SQLAlchemyError):
-                    raise StoreError(f"cannot read {what}: {_one_line(ev)}") from ev
+                if isinstance(ev, StoreError):
+                    return False
+                if isinstance(ev, SQLAlchemyError | sqlite3.Error):
+                    bad = damaged(ev, _shown(store.engine.url))
+                    raise (bad or StoreError(f"cannot read {what}: {_one_line(ev)}")) from ev
                 return False
 
         return _Ctx()

@@ -26,7 +26,7 @@ from benchlog.events import Incident, TimedEdges
 
 from . import _schema as s
 from ._codec import encode_edges
-from ._engine import _one_line
+from ._engine import _one_line, damaged
 from ._rollup import RollupKeeper
 
 # unit_id, run_id, then the store's actuation columns with ACTUATION_DTYPE's own numpy types (a column
@@ -67,6 +67,11 @@ LEASE_SECONDS = 15.0
 
 
 def _store_error(action: str, exc: BaseException) -> StoreError:
+    if isinstance(exc, StoreError):
+        return exc
+    bad = damaged(exc)
+    if bad is not None:
+        return bad
     text = _one_line(exc)
     low = text.lower()
     if "disk is full" in low or "no space" in low or "disk full" in low:
