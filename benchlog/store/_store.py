@@ -102,11 +102,14 @@ class Store(ReadAPI):
 
     # -- opening ------------------------------------------------------------------------------------
     @classmethod
-    def open(cls, db: str | None = None, *, readonly: bool = False, upgrade: bool = True) -> Store:
+    def open(
+        cls, db: str | None = None, *, readonly: bool = False, upgrade: bool = True, inert_names: bool = False
+    ) -> Store:
         """Open the store at `db` (URL or SQLite path; default `$BENCHLOG_DB` or ./benchlog.sqlite).
 
         Writable: an empty database gets the schema; an older one is upgraded when `upgrade` (never
         recreated), else refused. Read-only: the schema must be at the current revision.
+        `inert_names`: names read back are for showing (control characters written out).
         """
         url = resolve_url(db)
         engine = make_engine(url, readonly=readonly)
@@ -119,7 +122,9 @@ class Store(ReadAPI):
         except SQLAlchemyError as exc:
             engine.dispose()
             raise _store_error(f"open the database {cls._show(url)}", exc) from exc
-        return cls(engine, url, readonly)
+        store = cls(engine, url, readonly)
+        store.inert_names = inert_names
+        return store
 
     @classmethod
     def _check_schema(cls, engine: Engine, url: str, readonly: bool, upgrade: bool) -> None:

@@ -31,7 +31,7 @@ def run(args: argparse.Namespace) -> int:
         from benchlog.views.tui._summary import summary_text
 
         try:
-            store = Store.open(args.db, readonly=True)
+            store = Store.open(args.db, readonly=True, inert_names=True)
         except StoreError as exc:
             print(f"benchlog: {exc}", file=sys.stderr)
             return exc.exit_code

@@ -61,7 +61,7 @@ def evaluate(
     if per not in ("cycle", "actuation"):
         raise ConfigError(f"an operation is a 'cycle' or an 'actuation', not {per!r}")
     operation = "coil cycle" if per == "cycle" else "make or break"
-    store = Store.open(db, readonly=True)
+    store = Store.open(db, readonly=True, inert_names=True)
     say_readonly(store)
     try:
         inc = load_lot(store, incumbent, operation=operation, with_runs=with_runs)

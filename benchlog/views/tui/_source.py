@@ -50,7 +50,7 @@ class StoreSource:
     def _open(self) -> Store:
         with self._lock:
             if self._store is None:
-                self._store = Store.open(self.url, readonly=True)
+                self._store = Store.open(self.url, readonly=True, inert_names=True)
                 if self.problem is not None:
                     self.reconnects += 1
             return self._store
