@@ -24,8 +24,10 @@ class BenchlogError(Exception):
 
     exit_code = 3
 
-    def __str__(self) -> str:  # one line, always
-        return " ".join(super().__str__().split())
+    def __str__(self) -> str:  # one line, always, with any control character written out
+        from benchlog._inert import inert
+
+        return inert(" ".join(super().__str__().split()))
 
 
 class PortError(BenchlogError):

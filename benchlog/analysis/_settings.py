@@ -127,13 +127,16 @@ class AnalysisSettings:
         )
 
 
+# key: (field, scale to ns, largest sensible value in the key's unit). The ranges are common
+# practice, no source: bounce lasts microseconds to tens of milliseconds, a sampler resolves
+# microseconds, a bench cycles at most tens of times a second; a value beyond is a typing slip.
 _SETTINGS_KEYS = {
-    "settle_ms": ("settle_ns", 1e6),
-    "quiet_ms": ("quiet_ns", 1e6),
-    "chatter_threshold_us": ("chatter_threshold_ns", 1e3),
-    "glitch_floor_us": ("glitch_floor_ns", 1e3),
-    "resolution_us": ("resolution_ns", 1e3),
-    "lateness_ms": ("lateness_ns", 1e6),
+    "settle_ms": ("settle_ns", 1e6, 1_000.0),
+    "quiet_ms": ("quiet_ns", 1e6, 10_000.0),
+    "chatter_threshold_us": ("chatter_threshold_ns", 1e3, 100_000.0),
+    "glitch_floor_us": ("glitch_floor_ns", 1e3, 1_000.0),
+    "resolution_us": ("resolution_ns", 1e3, 10_000.0),
+    "lateness_ms": ("lateness_ns", 1e6, 60_000.0),
 }
 
 
@@ -158,9 +161,9 @@ def load_settings(path: str, base: AnalysisSettings | None = None) -> AnalysisSe
         if key not in allowed:
             raise ConfigError(f"{path}: {key}: unknown key (expected one of {', '.join(sorted(allowed))})")
         if key in _SETTINGS_KEYS:
-            field_name, scale = _SETTINGS_KEYS[key]
-            if isinstance(value, bool) or not isinstance(value, int | float) or value < 0:
-                raise ConfigError(f"{path}: {key}: expected a number >= 0, got {value!r}")
+            field_name, scale, hi = _SETTINGS_KEYS[key]
+            if isinstance(value, bool) or not isinstance(value, int | float) or not 0 <= value <= hi:
+                raise ConfigError(f"{path}: {key}: expected a number from 0 to {hi:g}, got {value!r}")
             changes[field_name] = (
                 max(1, round(value * scale)) if field_name == "resolution_ns" else round(value * scale)
             )

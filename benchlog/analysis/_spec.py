@@ -104,6 +104,18 @@ class PartSpec:
 CONDITION_KEYS = ("operation", "profile", "load", "coil_voltage", "ambient")
 
 
+# Physically sensible ranges of the settings (common practice, no source: mechanical contacts bounce
+# for microseconds to tens of milliseconds, relays operate in milliseconds to a few hundred; a bench
+# cycles at most some tens of times a second). A value outside is a typing slip, not a part.
+SETTLE_MAX_US = 1_000_000.0  # a contact quiet for a second has settled
+CHATTER_THRESHOLD_MAX_US = 100_000.0  # an opening of 100 ms is a missed make, not chatter
+GLITCH_FLOOR_MAX_US = 1_000.0  # a floor above 1 ms would hide real bounce
+LIMIT_MAX_US = 10_000_000.0  # 10 s: no bounce, operate or release time of a contact is longer
+BOUNCE_COUNT_MAX = 100_000
+COUNT_MAX = 1_000_000_000
+LIFE_MAX_CYCLES = 10**12  # a billion-cycle life at ten cycles a second is three years
+
+
 class _Reader:
     def __init__(self, path: str) -> None:
         self.path = path
@@ -138,10 +150,10 @@ class _Reader:
             raise self.fail(f"{prefix}.{key}", f"a number {rng}", value)
         return float(value)
 
-    def integer(self, tbl: dict, prefix: str, key: str, lo: int) -> int:
+    def integer(self, tbl: dict, prefix: str, key: str, lo: int, hi: int) -> int:
         value = tbl[key]
-        if isinstance(value, bool) or not isinstance(value, int) or value < lo:
-            raise self.fail(f"{prefix}.{key}", f"a whole number >= {lo}", value)
+        if isinstance(value, bool) or not isinstance(value, int) or not lo <= value <= hi:
+            raise self.fail(f"{prefix}.{key}", f"a whole number from {lo:,} to {hi:,}", value)
         return int(value)
 
     def text(self, tbl: dict, prefix: str, key: str) -> str:
@@ -150,8 +162,11 @@ class _Reader:
             raise self.fail(f"{prefix}.{key}", "a string", value)
         return value
 
-    def duration_us(self, tbl: dict, prefix: str, stem: str, required: bool) -> float | None:
-        """`<stem>_ms` or `<stem>_us` (exactly one), in microseconds."""
+    def duration_us(
+        self, tbl: dict, prefix: str, stem: str, required: bool, hi_us: float, lo_open: bool = True
+    ) -> float | None:
+        """`<stem>_ms` or `<stem>_us` (exactly one), in microseconds, > 0 (>= 0 unless `lo_open`) and
+        at most `hi_us` (the error states the range in the key's own unit)."""
         keys = [k for k in (f"{stem}_ms", f"{stem}_us") if k in tbl]
         if len(keys) > 1:
             raise SpecError(f"{self.path}: {prefix}: expected one of {stem}_ms or {stem}_us, not both")
@@ -159,8 +174,9 @@ class _Reader:
             if required:
                 raise SpecError(f"{self.path}: {prefix}.{stem}_ms: expected a duration, but it is missing")
             return None
-        value = self.number(tbl, prefix, keys[0], 0.0)
-        return value * 1000.0 if keys[0].endswith("_ms") else value
+        in_ms = keys[0].endswith("_ms")
+        value = self.number(tbl, prefix, keys[0], 0.0, hi_us / 1000.0 if in_ms else hi_us, lo_open=lo_open)
+        return value * 1000.0 if in_ms else value
 
 
 def shipped_specs() -> list[str]:
@@ -230,18 +246,12 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
         },
     )
     if measure:
-        v = r.duration_us(measure, "measure", "settle", False)
+        v = r.duration_us(measure, "measure", "settle", False, SETTLE_MAX_US)
         settle_ns = settle_ns if v is None else round(v * 1000)
-        v = r.duration_us(measure, "measure", "chatter_threshold", False)
+        v = r.duration_us(measure, "measure", "chatter_threshold", False, CHATTER_THRESHOLD_MAX_US)
         chatter_ns = chatter_ns if v is None else round(v * 1000)
-        if any(k.startswith("glitch_floor") for k in measure):
-            keys = [k for k in measure if k.startswith("glitch_floor")]
-            if len(keys) > 1:
-                raise SpecError(
-                    f"{name}: measure: expected one of glitch_floor_ms or glitch_floor_us, not both"
-                )
-            v = r.number(measure, "measure", keys[0], 0.0, lo_open=False)
-            floor_ns = round(v * (1e6 if keys[0].endswith("_ms") else 1e3))
+        v = r.duration_us(measure, "measure", "glitch_floor", False, GLITCH_FLOOR_MAX_US, lo_open=False)
+        floor_ns = 0 if v is None else round(v * 1000)
 
     band = 0.1
     verdict = r.table(doc, "verdict", {"marginal_band", "max_missed"})
@@ -250,7 +260,7 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
         if "marginal_band" in verdict:
             band = r.number(verdict, "verdict", "marginal_band", 0.0, 0.9, lo_open=False)
         if "max_missed" in verdict:
-            max_missed = r.integer(verdict, "verdict", "max_missed", 0)
+            max_missed = r.integer(verdict, "verdict", "max_missed", 0, COUNT_MAX)
 
     limits: list[Limit] = []
     chatter = None
@@ -267,7 +277,8 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
                 if k not in tbl:
                     raise SpecError(f"{name}: {prefix}.{k}: expected a whole number, but it is missing")
             chatter = ChatterLimit(
-                r.integer(tbl, prefix, "max_events", 0), r.integer(tbl, prefix, "per_cycles", 1)
+                r.integer(tbl, prefix, "max_events", 0, COUNT_MAX),
+                r.integer(tbl, prefix, "per_cycles", 1, LIFE_MAX_CYCLES),
             )
             continue
         allowed = {"percentile", "marginal_band"} | (
@@ -281,9 +292,9 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
         if metric in _COUNT_METRICS:
             if "max" not in tbl:
                 raise SpecError(f"{name}: {prefix}.max: expected a whole number, but it is missing")
-            max_value = float(r.integer(tbl, prefix, "max", 0))
+            max_value = float(r.integer(tbl, prefix, "max", 0, BOUNCE_COUNT_MAX))
         else:
-            max_value = r.duration_us(tbl, prefix, "max", True)
+            max_value = r.duration_us(tbl, prefix, "max", True, LIMIT_MAX_US)
         pct = r.number(tbl, prefix, "percentile", 0.0, 100.0) if "percentile" in tbl else 100.0
         own_band = (
             r.number(tbl, prefix, "marginal_band", 0.0, 0.9, lo_open=False)
@@ -301,7 +312,7 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
         conf = life_tbl["confidence"]
         if isinstance(conf, bool) or not isinstance(conf, int | float) or not 0 < conf < 1:
             raise r.fail("life.confidence", "a fraction > 0 and < 1 (0.90 for 90 %)", conf)
-        life = LifeRequirement(r.integer(life_tbl, "life", "min_cycles", 1), float(conf))
+        life = LifeRequirement(r.integer(life_tbl, "life", "min_cycles", 1, LIFE_MAX_CYCLES), float(conf))
 
     conditions = r.table(doc, "conditions", set(CONDITION_KEYS)) or {}
     stated = {k: r.text(conditions, "conditions", k) for k in CONDITION_KEYS if k in conditions}

@@ -6,6 +6,7 @@ process (SQLite WAL readers never block the writer) and on a finished database a
 
 from __future__ import annotations
 
+import sqlite3
 import time
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -15,13 +16,14 @@ import numpy as np
 from sqlalchemy import and_, func, select
 from sqlalchemy.exc import SQLAlchemyError
 
+from benchlog._inert import inert
 from benchlog.analysis._types import BREAK, MAKE
 from benchlog.errors import DataError, StoreError
 from benchlog.events import TimedEdges
 
 from . import _schema as s
 from ._codec import decode_edges
-from ._engine import _one_line
+from ._engine import _one_line, _shown, damaged
 from ._write import ACT_FIELDS, LEASE_SECONDS, STORED_ACTUATION_DTYPE
 
 KIND_NAMES = {MAKE: "make", BREAK: "break"}
@@ -259,6 +261,12 @@ def _pg_binary_actuations(raw, sql: str, params: dict) -> np.ndarray | None:
 
 class ReadAPI:
     engine: object
+    # set for a store whose names are only shown (dashboard, report): serials, lot codes, bench and
+    # part names, suppliers and notes come back through `inert` (see benchlog/_inert.py)
+    inert_names: bool = False
+
+    def _nm(self, text):
+        return inert(text) if self.inert_names and text is not None else text
 
     def _read(self, what: str):
         store = self
@@ -273,8 +281,11 @@ class ReadAPI:
 
             def __exit__(self, et, ev, tb):
                 self.c.close()
-                if isinstance(ev, SQLAlchemyError):
-                    raise StoreError(f"cannot read {what}: {_one_line(ev)}") from ev
+                if isinstance(ev, StoreError):
+                    return False
+                if isinstance(ev, SQLAlchemyError | sqlite3.Error):
+                    bad = damaged(ev, _shown(store.engine.url))
+                    raise (bad or StoreError(f"cannot read {what}: {_one_line(ev)}")) from ev
                 return False
 
         return _Ctx()
@@ -284,7 +295,13 @@ class ReadAPI:
         with self._read("parts") as c:
             rows = c.execute(select(s.Part).order_by(s.Part.part_number)).mappings().all()
             return [
-                PartInfo(p["id"], p["part_number"], p["supplier"], p["spec_toml"], p["spec_json"])
+                PartInfo(
+                    p["id"],
+                    self._nm(p["part_number"]),
+                    self._nm(p["supplier"]),
+                    p["spec_toml"],
+                    p["spec_json"],
+                )
                 for p in rows
             ]
 
@@ -293,7 +310,8 @@ class ReadAPI:
         if part is not None:
             q = q.where(self._part_cond(part))
         with self._read("lots") as c:
-            return [LotInfo(*r) for r in c.execute(q.order_by(s.Part.part_number, s.Lot.code)).all()]
+            rows = c.execute(q.order_by(s.Part.part_number, s.Lot.code)).all()
+            return [LotInfo(r[0], r[1], self._nm(r[2]), self._nm(r[3])) for r in rows]
 
     def units(
         self, *, part: int | str | None = None, lot: int | str | None = None, ids: list[int] | None = None
@@ -322,7 +340,7 @@ class ReadAPI:
                 out.append(
                     BenchInfo(
                         b["id"],
-                        b["name"],
+                        self._nm(b["name"]),
                         b["board_id"],
                         b["clock_hz"],
                         b["counter_bits"],
@@ -610,17 +628,17 @@ class ReadAPI:
             .outerjoin(s.UnitLife, s.UnitLife.unit_id == s.Unit.id)
         )
 
-    @staticmethod
-    def _unit_info(r) -> UnitInfo:
+    def _unit_info(self, r) -> UnitInfo:
+        nm = self._nm
         return UnitInfo(
             r.id,
-            r.serial,
-            r.notes,
+            nm(r.serial),
+            nm(r.notes),
             r.lot_id,
-            r.code,
+            nm(r.code),
             r.part_id,
-            r.part_number,
-            r.supplier,
+            nm(r.part_number),
+            nm(r.supplier),
             r.status or s.ALIVE,
             int(r.cycles or 0),
             r.failed_at_cycle,
@@ -648,13 +666,12 @@ class ReadAPI:
             nfail.label("n_fail"),
         ).join(s.Bench, s.Run.bench_id == s.Bench.id)
 
-    @staticmethod
-    def _run_info(row) -> RunInfo:
+    def _run_info(self, row) -> RunInfo:
         r = row
         return RunInfo(
             r.id,
             r.bench_id,
-            row.bench_name,
+            self._nm(row.bench_name),
             _utc(r.started_at),
             _utc(r.ended_at),
             r.end_reason,
@@ -672,5 +689,5 @@ class ReadAPI:
             r.board_id,
             int(r.rollup_window),
             int(r.segments),
-            r.note or "",
+            self._nm(r.note or ""),
         )

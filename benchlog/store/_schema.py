@@ -178,7 +178,8 @@ class Actuation(Base):
     """One make or break of one unit: every column of ACTUATION_DTYPE plus unit and run."""
 
     __tablename__ = "actuations"
-    __table_args__ = (Index("ix_actuations_unit_cycle", "unit_id", "cycle"),)
+    # one make and one break per cycle of a unit's life: a second row of the same kind is refused
+    __table_args__ = (Index("ux_actuations_unit_cycle_kind", "unit_id", "cycle", "kind", unique=True),)
     id: Mapped[int] = mapped_column(BigKey, primary_key=True)
     run_id: Mapped[int] = mapped_column(ForeignKey("runs.id"))
     unit_id: Mapped[int] = mapped_column(ForeignKey("units.id"))

@@ -36,14 +36,21 @@ def _pid_alive(pid: int) -> bool:
     return True
 
 
+def lock_path(db_path: str) -> str:
+    """The file beside a SQLite database that serialises opening it: `<database>.lock`."""
+    return db_path + ".lock"
+
+
 @contextlib.contextmanager
 def _opening_lock(engine: Engine, readonly: bool) -> Iterator[None]:
     """Serialise the schema check and migration of one SQLite file between processes.
 
     Several recorders started at once on a new file must not interleave "is it empty?", "which
-    revision?" and the migration itself. An flock on the database file does it; it is independent of
-    the POSIX locks SQLite takes on the same file. PostgreSQL serialises in the migration instead
-    (an advisory lock in db/env.py).
+    revision?" and the migration itself. They take an flock on `<database>.lock`, a file of its own:
+    never on the database file, because on POSIX closing any descriptor of a file drops every lock
+    the process holds on it, SQLite's included, and the next process to close a connection would then
+    delete this process's live write-ahead log. PostgreSQL serialises in the migration instead (an
+    advisory lock in db/env.py).
     """
     path = engine.url.database
     if (
@@ -55,16 +62,16 @@ def _opening_lock(engine: Engine, readonly: bool) -> Iterator[None]:
     ):
         yield
         return
+    lock = lock_path(path)
     try:
-        fh = open(path, "ab")  # noqa: SIM115 - held for the lock's lifetime
+        fd = os.open(lock, os.O_RDWR | os.O_CREAT | os.O_CLOEXEC, 0o666)
     except OSError as exc:
-        raise StoreError(f"cannot open the database {path}: {exc.strerror or exc}") from exc
-    with fh:
-        fcntl.flock(fh, fcntl.LOCK_EX)
-        try:
-            yield
-        finally:
-            fcntl.flock(fh, fcntl.LOCK_UN)
+        raise StoreError(f"cannot open the database's lock file {lock}: {exc.strerror or exc}") from exc
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(fd)  # closing releases the flock
 
 
 class Store(ReadAPI):
@@ -76,13 +83,33 @@ class Store(ReadAPI):
         self.url = url
         self.readonly = readonly
 
+    @property
+    def readonly_note(self) -> str | None:
+        """One line for a reader to show when the database could not be opened the usual way: a
+        file this process may not write, or one read as a snapshot. None otherwise."""
+        from ._engine import READ_ONLY_HERE, SNAPSHOT
+
+        how = getattr(self.engine, "benchlog_access", None)
+        shown = self._show(self.url)
+        if how == SNAPSHOT:
+            return (
+                f"{shown} is in a folder this user may not write: reading it as a snapshot, "
+                "as it was when opened"
+            )
+        if how == READ_ONLY_HERE:
+            return f"{shown} may not be written by this user: reading it read-only"
+        return None
+
     # -- opening ------------------------------------------------------------------------------------
     @classmethod
-    def open(cls, db: str | None = None, *, readonly: bool = False, upgrade: bool = True) -> Store:
+    def open(
+        cls, db: str | None = None, *, readonly: bool = False, upgrade: bool = True, inert_names: bool = False
+    ) -> Store:
         """Open the store at `db` (URL or SQLite path; default `$BENCHLOG_DB` or ./benchlog.sqlite).
 
         Writable: an empty database gets the schema; an older one is upgraded when `upgrade` (never
         recreated), else refused. Read-only: the schema must be at the current revision.
+        `inert_names`: names read back are for showing (control characters written out).
         """
         url = resolve_url(db)
         engine = make_engine(url, readonly=readonly)
@@ -95,7 +122,9 @@ class Store(ReadAPI):
         except SQLAlchemyError as exc:
             engine.dispose()
             raise _store_error(f"open the database {cls._show(url)}", exc) from exc
-        return cls(engine, url, readonly)
+        store = cls(engine, url, readonly)
+        store.inert_names = inert_names
+        return store
 
     @classmethod
     def _check_schema(cls, engine: Engine, url: str, readonly: bool, upgrade: bool) -> None:
@@ -230,24 +259,9 @@ class Store(ReadAPI):
         try:
             with self.engine.begin() as c:
                 row = c.execute(select(s.Bench).where(s.Bench.id == bench_id)).mappings().one()
-                stale = (
-                    row["lease_token"] is None
-                    or (row["lease_until"] or 0) < now
-                    or (row["lease_host"] == host and row["lease_pid"] and not _pid_alive(row["lease_pid"]))
-                )
-                if not stale:
-                    live = c.execute(
-                        select(s.Run.id)
-                        .where(s.Run.bench_id == bench_id, s.Run.ended_at.is_(None))
-                        .order_by(s.Run.id.desc())
-                    ).scalar()
-                    age = max(0.0, now - ((row["lease_until"] or now) - LEASE_SECONDS))
-                    raise StoreBusyError(
-                        f"bench {row['name']!r} is being recorded by process {row['lease_pid']} on "
-                        f"{row['lease_host']}"
-                        + (f" (run {live})" if live else "")
-                        + f", last heartbeat {age:.0f} s ago; stop that recorder first"
-                    )
+                busy = self._lease_busy(c, row, now)
+                if busy:
+                    raise StoreBusyError(busy)
                 # compare-and-set: only one of two racing recorders can win
                 won = c.execute(
                     update(s.Bench)
@@ -269,6 +283,42 @@ class Store(ReadAPI):
         except SQLAlchemyError as exc:
             raise _store_error("take the bench", exc) from exc
         return token
+
+    @staticmethod
+    def _lease_busy(c, row, now: float) -> str | None:
+        """Why the bench of `row` cannot be taken now (a live recorder holds it), or None."""
+        host = socket.gethostname()
+        stale = (
+            row["lease_token"] is None
+            or (row["lease_until"] or 0) < now
+            or (row["lease_host"] == host and row["lease_pid"] and not _pid_alive(row["lease_pid"]))
+        )
+        if stale:
+            return None
+        live = c.execute(
+            select(s.Run.id)
+            .where(s.Run.bench_id == row["id"], s.Run.ended_at.is_(None))
+            .order_by(s.Run.id.desc())
+        ).scalar()
+        age = max(0.0, now - ((row["lease_until"] or now) - LEASE_SECONDS))
+        return (
+            f"bench {row['name']!r} is being recorded by process {row['lease_pid']} on {row['lease_host']}"
+            + (f" (run {live})" if live else "")
+            + f", last heartbeat {age:.0f} s ago; stop that recorder first"
+        )
+
+    def check_bench_free(self, *, name: str | None = None, bench_id: int | None = None) -> None:
+        """Raise StoreBusyError when a live recorder holds the bench; reads only (the lease is taken
+        later, once the port has opened, so a failed start writes nothing)."""
+        cond = s.Bench.name == name if bench_id is None else s.Bench.id == bench_id
+        try:
+            with self.engine.connect() as c:
+                row = c.execute(select(s.Bench).where(cond)).mappings().first()
+                busy = None if row is None else self._lease_busy(c, row, time.time())
+        except SQLAlchemyError as exc:
+            raise _store_error("read the bench", exc) from exc
+        if busy:
+            raise StoreBusyError(busy)
 
     def release_bench(self, bench_id: int, token: str) -> None:
         with self.engine.begin() as c:
@@ -360,9 +410,8 @@ class Store(ReadAPI):
             raise StoreError(f"no run {run_id} in this database")
         if run["end_reason"] in (s.END_TARGET, s.END_ALL_FAILED):
             raise StoreError(f"run {run_id} is complete (ended: {run['end_reason']}); start a new run")
-        token = self.acquire_bench(run["bench_id"])
         try:
-            with self.engine.begin() as c:
+            with self.engine.connect() as c:
                 t_hi = max(
                     c.execute(
                         select(s.Actuation.t_start_ns)
@@ -379,6 +428,11 @@ class Store(ReadAPI):
                     ).scalar()
                     or 0,
                 )
+        except SQLAlchemyError as exc:
+            raise _store_error("resume the run", exc) from exc
+        token = self.acquire_bench(run["bench_id"])
+        try:
+            with self.engine.begin() as c:
                 # the next segment starts a second after the last data (sampler times restart at 0)
                 c.execute(
                     update(s.Run)

@@ -20,13 +20,13 @@ import numpy as np
 from sqlalchemy import func, insert, select, update
 from sqlalchemy.exc import SQLAlchemyError
 
-from benchlog.analysis._types import ACTUATION_DTYPE
+from benchlog.analysis._types import ACTUATION_DTYPE, BREAK, MAKE
 from benchlog.errors import StoreBusyError, StoreError
 from benchlog.events import Incident, TimedEdges
 
 from . import _schema as s
 from ._codec import encode_edges
-from ._engine import _one_line
+from ._engine import _one_line, damaged
 from ._rollup import RollupKeeper
 
 # unit_id, run_id, then the store's actuation columns with ACTUATION_DTYPE's own numpy types (a column
@@ -67,6 +67,11 @@ LEASE_SECONDS = 15.0
 
 
 def _store_error(action: str, exc: BaseException) -> StoreError:
+    if isinstance(exc, StoreError):
+        return exc
+    bad = damaged(exc)
+    if bad is not None:
+        return bad
     text = _one_line(exc)
     low = text.lower()
     if "disk is full" in low or "no space" in low or "disk full" in low:
@@ -199,6 +204,12 @@ class RunWriter:
             self.cycles_done[a.channel] = int(a.cycles_done)
             self.cycle_base[a.channel] = int(a.cycle_base)
         self.status = {a.unit_id: life.get(a.unit_id, s.ALIVE) for a in assign}
+        # A segment may open on a break (the contact was closed when the last one ended). The analysis
+        # numbers it like the cycle after it; it belongs to the unit's previous cycle when that one
+        # has its make and no break stored, else it is a cycle of its own (its make went unseen).
+        self._lead_settled: set[int] = set()
+        self._shift = np.zeros(256, np.int64)
+        self._break_owed = self._cycles_owing_a_break(engine)
         self._rollups = RollupKeeper(self.window)
         self._acts: list[np.ndarray] = []  # ACTUATION_DTYPE, shifted to run time and life cycles
         self._act_units: list[np.ndarray] = []
@@ -244,7 +255,8 @@ class RunWriter:
             rows = conv
         else:
             rows = acts.copy()
-        rows["cycle"] += self._base[ch]
+        self._number_leading_breaks(rows, ch)
+        rows["cycle"] += self._base[ch] + self._shift[ch]
         off = np.int64(self.t_offset_ns)
         if off:
             for name in _TIME_FIELDS:
@@ -257,13 +269,43 @@ class RunWriter:
         chs, first = np.unique(ch[order], return_index=True)
         top = np.maximum.reduceat(acts["cycle"][order], first)
         for c, t in zip(chs.tolist(), top.tolist(), strict=True):
-            done = self.seg_start[c] + int(t) + 1
+            done = self.seg_start[c] + int(t) + 1 + int(self._shift[c])
             if done > self.cycles_done[c]:
                 self.cycles_done[c] = done
 
     def life_cycle(self, channel: int, analysis_cycle: int) -> int:
         """The unit's life cycle for an analysis cycle of this segment."""
-        return int(self._base[channel]) + int(analysis_cycle)
+        return int(self._base[channel]) + int(analysis_cycle) + int(self._shift[channel])
+
+    def _cycles_owing_a_break(self, engine) -> set[int]:
+        """Channels whose unit's last cycle before this segment has a make stored and no break."""
+        owed: set[int] = set()
+        with engine.connect() as c:
+            for ch, unit in self.units.items():
+                last = int(self._base[ch]) - 1
+                if last < 0:
+                    continue
+                kinds = set(
+                    c.execute(
+                        select(s.Actuation.kind).where(s.Actuation.unit_id == unit, s.Actuation.cycle == last)
+                    ).scalars()
+                )
+                if MAKE in kinds and BREAK not in kinds:
+                    owed.add(ch)
+        return owed
+
+    def _number_leading_breaks(self, rows: np.ndarray, ch: np.ndarray) -> None:
+        """Settle, on each channel's first actuation of the segment, whether it opens on a break; that
+        break goes to the previous cycle (owing one) or takes a cycle of its own (the rest shift by 1)."""
+        for c in np.unique(ch).tolist():
+            if c in self._lead_settled:
+                continue
+            self._lead_settled.add(c)
+            first = int(np.flatnonzero(ch == c)[0])
+            if rows["kind"][first] == BREAK:
+                rows["cycle"][first] -= 1
+                if c not in self._break_owed:
+                    self._shift[c] = 1
 
     def mark_failed(self, unit_id: int, cycle: int, mode: str, detail: str = "") -> None:
         """Record the unit as failed at life cycle `cycle` with `mode` (committed with the next flush)."""

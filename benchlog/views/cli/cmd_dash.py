@@ -27,14 +27,16 @@ def run(args: argparse.Namespace) -> int:
         # no terminal to draw on: print what the first screens would show
         from benchlog.errors import StoreError
         from benchlog.store import Store
+        from benchlog.views._notes import say_readonly
         from benchlog.views.tui._summary import summary_text
 
         try:
-            store = Store.open(args.db, readonly=True)
+            store = Store.open(args.db, readonly=True, inert_names=True)
         except StoreError as exc:
             print(f"benchlog: {exc}", file=sys.stderr)
             return exc.exit_code
         with store:
+            say_readonly(store)
             print(summary_text(store))
         return 0
     from benchlog.views.tui import BenchDashboard

@@ -39,10 +39,12 @@ def run(args: argparse.Namespace) -> int:
 
     from benchlog.errors import ConfigError
     from benchlog.store import Store
+    from benchlog.views._notes import say_readonly
     from benchlog.views.export import write_actuations_csv, write_vcd
 
     cycles = None if args.cycles is None else (int(args.cycles[0]), int(args.cycles[1]))
     with Store.open(args.db, readonly=True) as store:
+        say_readonly(store)
         out = open(args.out, "w", encoding="utf-8", newline="") if args.out else sys.stdout
         try:
             if args.what == "csv":

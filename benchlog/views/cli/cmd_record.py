@@ -49,7 +49,6 @@ def run(args: argparse.Namespace) -> int:
     import threading
 
     from benchlog.errors import ConfigError, StoreError
-    from benchlog.store import Store
     from benchlog.views.cli._signals import stop_signals
 
     if not args.port and not args.sim:
@@ -64,7 +63,7 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError("--sim-speed must be > 0")
 
     sim_cfg = _sim_config(args) if args.sim else None
-    store = Store.open(args.db)
+    store = _open_existing(args.db)  # a new SQLite file is made only once the sampler is heard
     stop = threading.Event()
     session = _Session(args, store, sim_cfg)
     try:
@@ -79,7 +78,37 @@ def run(args: argparse.Namespace) -> int:
         ) from exc
     finally:
         session.close()
-        store.close()
+
+
+def _open_existing(db):
+    """The store at `db`, or None when it is a SQLite file not made yet (checked it can be)."""
+    import os
+    from pathlib import Path
+
+    from sqlalchemy.engine import make_url
+
+    from benchlog.errors import StoreError
+    from benchlog.store import Store, resolve_url
+
+    url = make_url(resolve_url(db))
+    path = url.database if url.get_backend_name() == "sqlite" else None
+    if path and not path.startswith("file:") and path != ":memory:" and not Path(path).exists():
+        parent = Path(path).parent
+        if not parent.is_dir():
+            raise StoreError(f"cannot create the database {path}: folder {parent} does not exist")
+        if not os.access(parent, os.W_OK):
+            raise StoreError(f"cannot create the database {path}: folder {parent} is read-only")
+        return None
+    if path is None:  # a server database with no benchlog tables yet gets them only once heard
+        from benchlog.store._engine import is_empty, make_engine
+
+        engine = make_engine(url.render_as_string(hide_password=False))
+        try:
+            if is_empty(engine):
+                return None
+        finally:
+            engine.dispose()
+    return Store.open(db)
 
 
 def _sim_config(args):
@@ -118,6 +147,8 @@ class _Session:
             self.feed.close()
         if self.sim is not None:
             self.sim.stop()
+        if self.store is not None:
+            self.store.close()
 
     # -- what to record ------------------------------------------------------------------------------
     def _units(self):
@@ -141,17 +172,23 @@ class _Session:
             ]
         raise ConfigError("give the units: --units CH=SERIAL ... (with --part) or CH=PART/LOT/SERIAL")
 
-    def _prepare(self):
-        """(writer-to-be parameters) for a new run, or the reopened writer for --resume."""
-        from benchlog.errors import ConfigError
-        from benchlog.recorder import parse_profile, register_units
+    def _plan(self):
+        """Everything checked before the port opens, reading only: (units or None, profile, specs,
+        (on_ms, off_ms), the run to resume or None)."""
+        from benchlog.errors import ConfigError, StoreError
+        from benchlog.recorder import parse_profile
         from benchlog.recorder._setup import spec_for
 
         a = self.args
         if a.resume is not None:
-            run = self.store.run(a.resume)
             if a.profile:
                 raise ConfigError("--resume keeps the run's own profile: leave out --profile")
+            if self.store is None:
+                raise StoreError(f"no run {a.resume}: there is no database yet")
+            run = self.store.run(a.resume)
+            if run.end_reason in ("target", "all_failed"):
+                raise StoreError(f"run {run.id} is complete (ended: {run.end_reason}); start a new run")
+            self.store.check_bench_free(name=run.bench)
             prof = run.profile
             on_ms, off_ms = float(prof["on_ms"]), float(prof["off_ms"])
             specs = {}
@@ -164,14 +201,28 @@ class _Session:
             raise ConfigError("give --profile ON_MS:OFF_MS:CYCLES, e.g. 50:50:200000")
         profile = parse_profile(a.profile)
         units = self._units()
-        bench_id = self.store.register_bench(a.bench)
-        token = self.store.acquire_bench(bench_id)  # refuse a second recorder before touching the port
+        specs = {}
+        for u in units:  # a spec that does not parse stops here, before anything is written
+            specs[u.channel] = spec_for(u.part, a.spec)[0]
+        if self.store is not None:  # refuse a second recorder before touching the port
+            self.store.check_bench_free(name=a.bench)
+        return units, profile, specs, (profile.on_ms, profile.off_ms), None
+
+    def _prepare(self, units, profile):
+        """The first writes, once the sampler is heard: the store (made if new), bench, lease, units."""
+        from benchlog.recorder import register_units
+        from benchlog.store import Store
+
+        if self.store is None:
+            self.store = Store.open(self.args.db)
+        bench_id = self.store.register_bench(self.args.bench)
+        token = self.store.acquire_bench(bench_id)
         try:
-            ids, specs = register_units(self.store, units, a.spec)
+            ids, specs = register_units(self.store, units, self.args.spec)
         except BaseException:
             self.store.release_bench(bench_id, token)
             raise
-        return (bench_id, token, ids, profile), None, specs, (profile.on_ms, profile.off_ms), None
+        return (bench_id, token, ids, profile), specs
 
     # -- recording -----------------------------------------------------------------------------------
     def record(self, stop) -> int:
@@ -180,25 +231,24 @@ class _Session:
         from benchlog.recorder import Recorder
 
         a = self.args
-        new, _, specs, (on_ms, off_ms), resumed = self._prepare()
+        units, profile, specs, (on_ms, off_ms), resumed = self._plan()
+        speed = a.sim_speed if self.sim_cfg is not None else 1.0
+        url = a.port
+        if self.sim_cfg is not None:
+            from benchlog.sim import PtySampler
+
+            self.sim = PtySampler(self.sim_cfg, seed=a.sim_seed, speed=speed, keep_truth=False)
+            self.sim.start()
+            url = self.sim.path
+        self.feed = Feed(url, speed=speed)
+        self.feed.open()
+        early = self._await_announcement()
+        # the port is open and the sampler heard: only now is anything written
+        new = None
         if resumed is not None:
             self.writer = self.store.resume_run(resumed.id)
-        speed = a.sim_speed if self.sim_cfg is not None else 1.0
-        try:
-            url = a.port
-            if self.sim_cfg is not None:
-                from benchlog.sim import PtySampler
-
-                self.sim = PtySampler(self.sim_cfg, seed=a.sim_seed, speed=speed, keep_truth=False)
-                self.sim.start()
-                url = self.sim.path
-            self.feed = Feed(url, speed=speed)
-            self.feed.open()
-            early = self._await_announcement()
-        except BaseException:
-            if new is not None:
-                self.store.release_bench(new[0], new[1])
-            raise
+        else:
+            new, specs = self._prepare(units, profile)
         ann = self.feed.timeline.announcement
         if new is not None:
             bench_id, token, ids, profile = new

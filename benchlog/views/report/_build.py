@@ -8,6 +8,7 @@ from dataclasses import dataclass, field, replace
 
 from benchlog.errors import ConfigError
 from benchlog.stats import Qualification, Requirements, qualify
+from benchlog.views._notes import say_readonly
 from benchlog.views.report._data import LotData, load_lot, spec_for
 
 __all__ = ["CONDITIONS", "Evaluation", "ReportInfo", "SignOff", "evaluate", "write_report"]
@@ -87,7 +88,8 @@ def evaluate(
         raise ConfigError(f"bootstrap resamples must be at least 100, got {resamples}")
     if per not in ("cycle", "actuation"):
         raise ConfigError(f"an operation is a 'cycle' or an 'actuation', not {per!r}")
-    store = Store.open(db, readonly=True)
+    store = Store.open(db, readonly=True, inert_names=True)
+    say_readonly(store)
     try:
         inc = load_lot(store, incumbent, with_runs=with_runs)
         cand = load_lot(store, candidate, with_runs=with_runs)

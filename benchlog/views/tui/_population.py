@@ -105,7 +105,7 @@ class PopulationScreen(DataScreen):
         if [g for g in data.groups] != self._groups:
             self._groups = list(data.groups)
             ol.clear_options()
-            ol.add_options([Option(g.title, id=f"{g.kind}:{g.key}") for g in data.groups])
+            ol.add_options([Option(Text(g.title), id=f"{g.kind}:{g.key}") for g in data.groups])
         if data.group in self._groups:
             idx = self._groups.index(data.group)
             if ol.highlighted != idx:
@@ -135,7 +135,7 @@ class PopulationScreen(DataScreen):
             bad = sum(pu.verdict == FAIL for pu in pus)
             has = ~np.isnan(p95)
             summary.add_row(
-                lot,
+                Text(lot),
                 str(len(pus)),
                 Text(str(failed), style=FAIL_STYLE if failed else ""),
                 str(bad),
@@ -167,7 +167,7 @@ class PopulationScreen(DataScreen):
             f = pu.figures[self.metric]
             label = {0: "PASS", 1: "MARGINAL", 2: "FAIL"}.get(pu.verdict, "NO DATA")
             t.add_row(
-                pu.unit.serial[-NAME_W:],
+                Text(pu.unit.serial[-NAME_W:]),
                 strip(f.p50, f.p95, f.max, limit, top, width),
                 Text(label, style=VERDICT_STYLE.get(pu.verdict, DIM_STYLE)),
                 value_text(f.p95),

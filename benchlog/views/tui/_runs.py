@@ -80,7 +80,7 @@ class RunsScreen(DataScreen):
             units = Text(f"{r.units} ").append_text(failed)
             t.add_row(
                 str(r.id),
-                r.bench,
+                Text(r.bench),
                 state_text(row),
                 row.how,
                 f"{cycles_text(r.cycles_done)}/{target}",

@@ -57,7 +57,7 @@ class StoreSource:
             if self._closed:
                 raise BenchlogError("the dashboard is closing")
             if self._store is None:
-                self._store = Store.open(self.url, readonly=True)
+                self._store = Store.open(self.url, readonly=True, inert_names=True)
                 if self.problem is not None:
                     self.reconnects += 1
             return self._store

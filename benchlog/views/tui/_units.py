@@ -179,7 +179,7 @@ class UnitsScreen(DataScreen):
             f = u.figures
             t.add_row(
                 str(u.channel),
-                u.unit.serial,
+                Text(u.unit.serial),
                 cycles_text(u.unit.cycles),
                 life_text(u),
                 verdict_text(u),
