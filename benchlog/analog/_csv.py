@@ -1,0 +1,349 @@
+"""A numeric CSV reader for oscilloscope and data-logger exports, vectorised over bytes.
+
+How it works. The head of the file is sniffed with ordinary string code: the first line that is all
+numbers (and the few after it agree) starts the data; the lines above are the header, of any number
+and length, where column names and "interval" / "sample rate" / "start" entries are looked for. The
+data is then read in chunks of whole lines. Each chunk goes through one `bytes.translate` (the field
+delimiter becomes a space, a decimal comma a point), then numpy finds every token (a run of bytes above
+the space character) and parses all tokens of one layout at once: tokens are grouped by length, sign,
+and the position of the point and of the exponent, each group is gathered into a fixed-width byte
+matrix, and its digits become numbers through one matrix product with powers of ten. A file's columns
+are usually printed in a handful of layouts, so a chunk costs a few numpy passes, never a Python step
+per line or per number. Every line must have the same number of fields; the first line that does not,
+or a field that is not a number, is named in a one-line DataError.
+
+Values are correctly rounded when the mantissa has at most 15 significant digits and the decimal
+exponent is within 10^22 (one exact product or quotient of exact doubles); longer mantissas are within
+a few units in the last place.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from benchlog.errors import DataError
+
+CHUNK_BYTES = 4 << 20
+_HEAD_BYTES = 1 << 16
+_NUM = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
+_POW10 = 10.0 ** np.arange(0, 309)
+_SPECIAL = {"nan": np.nan, "+nan": np.nan, "-nan": np.nan, "inf": np.inf, "+inf": np.inf, "-inf": -np.inf}
+
+
+@dataclass(frozen=True, slots=True)
+class Layout:
+    """What the sniffer found: where data starts and how its fields are written."""
+
+    data_offset: int  # byte offset of the first data line
+    first_line: int  # its line number, from 1
+    delimiter: str  # "," ";" "\t" or " " (any run of blanks)
+    decimal_comma: bool
+    columns: int
+    names: tuple[str, ...]  # from the header, or "" per column
+    header: tuple[tuple[str, ...], ...]  # the header lines split into fields
+
+
+def _split(line: str, delim: str) -> list[str]:
+    if delim == " ":
+        return line.split()
+    return [f.strip().strip('"').strip() for f in line.split(delim)]
+
+
+def _numeric(fields: list[str], decimal_comma: bool) -> bool:
+    if not fields:
+        return False
+    for f in fields:
+        if f.lower() in _SPECIAL:
+            continue
+        if not _NUM.match(f):
+            return False
+        if ("," in f) != decimal_comma and ("," in f or decimal_comma and "." in f):
+            return False
+    return True
+
+
+def _line_layout(line: str) -> tuple[str, bool, int] | None:
+    """(delimiter, decimal comma, fields) if the line is all numbers in some convention, else None."""
+    text = line.strip()
+    if not text:
+        return None
+    for delim, dec_comma in (
+        (";", True),
+        (";", False),
+        ("\t", True),
+        ("\t", False),
+        (",", False),
+        (" ", False),
+    ):
+        if delim != " " and delim not in text:
+            continue
+        fields = _split(text, delim)
+        if fields and fields[-1] == "" and delim != " ":
+            fields = fields[:-1]  # a trailing delimiter
+        if _numeric(fields, dec_comma):
+            return delim, dec_comma, len(fields)
+    return None
+
+
+def sniff(path: Path) -> Layout:
+    """Find the header, the delimiter, the decimal mark and the column count."""
+    try:
+        with path.open("rb") as f:
+            head = f.read(_HEAD_BYTES)
+            # a long header: read on until a run of data lines is in view
+            while len(head) < (64 << 20):
+                if head.count(b"\n") > 8 and _find_data(head) is not None:
+                    break
+                more = f.read(len(head))
+                if not more:
+                    break
+                head += more
+    except OSError as exc:
+        raise DataError(f"{path}: cannot read ({exc.strerror or exc})") from exc
+    found = _find_data(head)
+    if found is None:
+        raise DataError(f"{path}: no lines of numbers found (is this a CSV export of a capture?)")
+    return _layout(head, *found)
+
+
+def _find_data(head: bytes) -> tuple[int, int, tuple[str, bool, int]] | None:
+    """The first line written the way most number lines of the head are, with numbers after it."""
+    text = head.decode("latin-1")
+    lines = text.split("\n")
+    complete = lines[:-1] if not head.endswith(b"\n") else lines
+    layouts = [_line_layout(ln.rstrip("\r")) for ln in complete]
+    seen = [lay for lay in layouts if lay is not None]
+    if not seen:
+        return None
+    common = max(set(seen), key=seen.count)
+    offset = 0
+    for i, line in enumerate(complete):
+        if layouts[i] == common:
+            follow = [lay for ln, lay in zip(complete[i + 1 :], layouts[i + 1 :], strict=True) if ln.strip()]
+            follow = follow[:5]
+            if all(lay is not None and lay[0] == common[0] for lay in follow):
+                return offset, i, common
+        offset += len(line) + 1
+    return None
+
+
+def _header_fields(line: str, delim: str) -> list[str]:
+    """A header line's fields: split on the data's delimiter (or any of , ; tab), then on : or =."""
+    text = line.strip()
+    parts = _split(text, delim) if delim != " " else [f.strip() for f in re.split(r"[,;\t]", text)]
+    if len(parts) == 1:
+        parts = [f.strip() for f in re.split(r"[:=]", text, maxsplit=1)]
+    return parts
+
+
+def _layout(head: bytes, offset: int, index: int, lay: tuple[str, bool, int]) -> Layout:
+    delim, dec_comma, ncols = lay
+    header_lines = head[:offset].decode("utf-8", errors="replace").splitlines()
+    header = tuple(tuple(_header_fields(ln, delim)) for ln in header_lines)
+    names: tuple[str, ...] = ("",) * ncols
+    for fields in reversed(header):
+        cells = [f for f in fields]
+        if cells and cells[-1] == "" and len(cells) == ncols + 1:
+            cells = cells[:-1]
+        if len(cells) == ncols and not _numeric(cells, dec_comma):
+            names = tuple(cells)
+            break
+    return Layout(offset, index + 1, delim, dec_comma, ncols, names, header)
+
+
+def _table(layout: Layout) -> bytes:
+    src, dst = b'"', b" "
+    if layout.delimiter in ",;\t":
+        src, dst = src + layout.delimiter.encode(), dst + b" "
+    if layout.decimal_comma:
+        src, dst = src + b",", dst + b"."
+    return bytes.maketrans(src, dst)
+
+
+def count_lines(path: Path, offset: int) -> int:
+    """Lines from `offset` to the end (a last line without a newline counts)."""
+    n = 0
+    last = b"\n"
+    with path.open("rb") as f:
+        f.seek(offset)
+        while block := f.read(CHUNK_BYTES):
+            n += block.count(b"\n")
+            last = block[-1:]
+    return n + (last != b"\n")
+
+
+def read_columns(path: Path, layout: Layout, keep: list[int]) -> list[np.ndarray]:
+    """The columns `keep` (indices) of the data, as float64 arrays."""
+    rows_max = count_lines(path, layout.data_offset)
+    out = [np.empty(rows_max, np.float64) for _ in keep]
+    table = _table(layout)
+    ncols = layout.columns
+    row = 0
+    line_no = layout.first_line
+    carry = b""
+    with path.open("rb") as f:
+        f.seek(layout.data_offset)
+        while True:
+            block = f.read(CHUNK_BYTES)
+            data = carry + block
+            if not data:
+                break
+            if block:
+                cut = data.rfind(b"\n") + 1
+                if cut == 0:  # one line longer than a chunk: read on
+                    carry = data
+                    continue
+                data, carry = data[:cut], data[cut:]
+            else:
+                carry = b""
+            values, lines = _parse_chunk(data.translate(table), ncols, path, line_no)
+            n = len(values) // ncols
+            if row + n > rows_max:
+                raise DataError(f"{path}: the file changed while it was read")
+            vals = values.reshape(n, ncols)
+            for dst, col in zip(out, keep, strict=True):
+                dst[row : row + n] = vals[:, col]
+            row += n
+            line_no += lines
+            if not block:
+                break
+    return [a[:row] for a in out]
+
+
+def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.ndarray, int]:
+    """All numbers of a chunk of whole lines (delimiters already spaces), checked ncols per line."""
+    c = np.frombuffer(b"\n" + data + b"\n", np.uint8)
+    lines = data.count(b"\n") + (not data.endswith(b"\n"))
+    word = c > 32
+    step = np.diff(word.view(np.int8))
+    starts = np.flatnonzero(step == 1) + 1
+    ends = np.flatnonzero(step == -1) + 1
+    t = len(starts)
+    if t == 0:
+        return np.zeros(0), lines
+    full = t % ncols == 0
+    if full:
+        firsts = starts[::ncols]
+        full = bool((c[firsts - 1] == 10).all()) and t // ncols == lines
+    if not full:
+        _check_lines(c, starts, ncols, path, line_no)
+    return _parse_tokens(c, starts, ends, path, line_no), lines
+
+
+def _line_of(c: np.ndarray, pos: int, line_no: int) -> int:
+    return line_no + int(np.count_nonzero(c[1:pos] == 10))
+
+
+def _check_lines(c: np.ndarray, starts: np.ndarray, ncols: int, path: Path, line_no: int) -> None:
+    """Slow path (a blank line, or a line with the wrong field count): allow blanks, name a bad line."""
+    nl = np.flatnonzero(c == 10)
+    line = np.searchsorted(nl, starts) - 1  # index of the line each token is on
+    counts = np.bincount(line, minlength=len(nl))
+    bad = np.flatnonzero((counts != 0) & (counts != ncols))
+    if len(bad):
+        k = int(bad[0])
+        text = bytes(c[nl[k] + 1 : nl[k + 1]]).decode("latin-1").strip() if k + 1 < len(nl) else ""
+        raise DataError(
+            f"{path}: line {line_no + k}: expected {ncols} fields, found {int(counts[k])} ({text[:60]!r})"
+        )
+
+
+def _parse_tokens(
+    c: np.ndarray, starts: np.ndarray, ends: np.ndarray, path: Path, line_no: int
+) -> np.ndarray:
+    lens = ends - starts
+    first = c[starts]
+    signed = (first == 45) | (first == 43)
+    if lens.max() > 60:
+        k = int(np.argmax(lens > 60))
+        raise DataError(
+            f"{path}: line {_line_of(c, int(starts[k]), line_no)}: a field of {int(lens[k])} characters "
+            "is not a number"
+        )
+    key = lens * 2 + signed
+    out = np.empty(len(starts))
+    bad = np.zeros(len(starts), bool)
+    present = np.flatnonzero(np.bincount(key))
+    for k in present:
+        sel = np.flatnonzero(key == k) if len(present) > 1 else np.arange(len(starts))
+        width, has_sign = int(k) // 2, int(k) & 1
+        g = c[starts[sel][:, None] + np.arange(width)]
+        dot = _position(g == 46, width)
+        exp = _position((g | 32) == 101, width)
+        sub = dot.astype(np.int64) * 64 + exp
+        kinds = np.flatnonzero(np.bincount(sub))
+        for s in kinds:
+            part = np.flatnonzero(sub == s) if len(kinds) > 1 else np.arange(len(sel))
+            out[sel[part]], bad[sel[part]] = _group(g[part], has_sign, int(s) // 64, int(s) % 64, width)
+    if bad.any():
+        _specials(c, starts, ends, out, bad, path, line_no)
+    return out
+
+
+def _position(hit: np.ndarray, width: int) -> np.ndarray:
+    """Column of the first hit per row (width when none)."""
+    pos = np.argmax(hit, axis=1).astype(np.int64)
+    pos[~hit[np.arange(len(hit)), pos]] = width
+    return pos
+
+
+def _group(g: np.ndarray, has_sign: int, dot: int, exp: int, width: int) -> tuple[np.ndarray, np.ndarray]:
+    """Tokens of one layout: fixed columns of sign, mantissa digits, point, exponent."""
+    mant_cols = [j for j in range(has_sign, min(exp, width)) if j != dot]
+    frac = max(exp - dot - 1, 0) if dot < exp else 0
+    digits = g[:, mant_cols] - np.uint8(48)
+    bad = (digits > 9).any(axis=1) if mant_cols else np.ones(len(g), bool)
+    weights = _POW10[len(mant_cols) - 1 :: -1][: len(mant_cols)] if mant_cols else np.zeros(0)
+    mant = digits @ weights if mant_cols else np.zeros(len(g))
+    power = np.full(len(g), -frac, np.int64)
+    if exp < width:
+        e0 = exp + 1
+        esign = np.ones(len(g), np.int64)
+        if e0 < width:
+            sign_char = g[:, e0]
+            has_esign = (sign_char == 45) | (sign_char == 43)
+            if has_esign.all():
+                esign = np.where(sign_char == 45, -1, 1)
+                e0 += 1
+            elif has_esign.any():
+                bad |= has_esign
+        edig = g[:, e0:] - np.uint8(48)
+        if edig.shape[1] == 0 or edig.shape[1] > 3:
+            bad[:] = True
+        else:
+            bad |= (edig > 9).any(axis=1)
+            ev = edig.astype(np.int64) @ (10 ** np.arange(edig.shape[1] - 1, -1, -1))
+            power += esign * ev
+    value = _scale(mant, power)
+    if has_sign:
+        value = np.where(g[:, 0] == 45, -value, value)
+    return value, bad
+
+
+def _scale(mant: np.ndarray, power: np.ndarray) -> np.ndarray:
+    """mant * 10**power: one exact product or quotient when |power| <= 300, two beyond (sub-normals)."""
+    first = np.clip(power, -300, 300)
+    with np.errstate(over="ignore", under="ignore"):
+        value = np.where(first >= 0, mant * _POW10[np.abs(first)], mant / _POW10[np.abs(first)])
+        rest = np.clip(power - first, -308, 308)
+        if rest.any():
+            value = np.where(rest >= 0, value * _POW10[np.abs(rest)], value / _POW10[np.abs(rest)])
+    return value
+
+
+def _specials(c, starts, ends, out, bad, path: Path, line_no: int) -> None:
+    """Tokens the layouts did not cover: nan / inf are taken, anything else is an error."""
+    for k in np.flatnonzero(bad)[:100_000]:
+        tok = bytes(c[starts[k] : ends[k]]).decode("latin-1")
+        value = _SPECIAL.get(tok.lower())
+        if value is None:
+            raise DataError(
+                f"{path}: line {_line_of(c, int(starts[k]), line_no)}: {tok[:40]!r} is not a number"
+            )
+        out[k] = value
+    if bad.sum() > 100_000:
+        raise DataError(f"{path}: more than 100000 fields are not plain numbers")
