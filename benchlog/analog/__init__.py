@@ -27,11 +27,34 @@ from benchlog.analog._edges import (
     open_circuit_level,
 )
 from benchlog.analog._measure import Measured, analyse_edges, measure_capture, run_ns
+from benchlog.analog._rc import (
+    Corner,
+    Score,
+    WaveformDesign,
+    corners,
+    design_from_waveform,
+    rc_node,
+    score,
+    windows,
+)
 from benchlog.analog._render import render_contact
+from benchlog.analog._sampler import Comparison, DigitalInput, compare, sampled_edges
 
 __all__ = [
     "CLOSED_FRACTION",
     "Capture",
+    "Comparison",
+    "Corner",
+    "DigitalInput",
+    "Score",
+    "WaveformDesign",
+    "compare",
+    "corners",
+    "design_from_waveform",
+    "rc_node",
+    "sampled_edges",
+    "score",
+    "windows",
     "Edges",
     "Levels",
     "MIL_MIN_NS",
