@@ -14,6 +14,7 @@ docs/analog.md.
 """
 
 from benchlog.analog._capture import Capture, read_capture, read_csv, read_npz, read_wav
+from benchlog.analog._demo import make_demo
 from benchlog.analog._edges import (
     CLOSED_FRACTION,
     MIL_MIN_NS,
@@ -27,6 +28,7 @@ from benchlog.analog._edges import (
     open_circuit_level,
 )
 from benchlog.analog._measure import Measured, analyse_edges, measure_capture, run_ns
+from benchlog.analog._plots import ChartData, chart_data, plot_capture, text_chart
 from benchlog.analog._rc import (
     Corner,
     Score,
@@ -38,9 +40,18 @@ from benchlog.analog._rc import (
     windows,
 )
 from benchlog.analog._render import render_contact
+from benchlog.analog._report import ScopeOptions, ScopeResult, scope_capture
 from benchlog.analog._sampler import Comparison, DigitalInput, compare, sampled_edges
 
 __all__ = [
+    "ChartData",
+    "ScopeOptions",
+    "ScopeResult",
+    "chart_data",
+    "make_demo",
+    "plot_capture",
+    "scope_capture",
+    "text_chart",
     "CLOSED_FRACTION",
     "Capture",
     "Comparison",

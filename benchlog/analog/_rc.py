@@ -190,7 +190,7 @@ def score(win: Windows, r: float, c: float, cs: list[Corner], margin_v: float) -
     ends = np.append(win.starts[1:], len(win.u))
     false_total = missed_total = 0
     worst_margin = np.inf
-    delay = {0: 0.0, 1: 0.0}
+    delay = {0: np.nan, 1: np.nan}
     times = _sample_times(win)
     crossings: dict[tuple[int, float, bool], np.ndarray] = {}
     for k in cs:
@@ -221,7 +221,7 @@ def score(win: Windows, r: float, c: float, cs: list[Corner], margin_v: float) -
             for kind in (0, 1):
                 m = win.expected[ok] == kind
                 if m.any():
-                    delay[kind] = max(delay[kind], float(d[m].max()))
+                    delay[kind] = float(np.fmax(delay[kind], d[m].max()))
             bounds = np.ravel(np.column_stack((first_into[ok], ends[ok])))
             if bounds[-1] >= len(row):
                 bounds = bounds[:-1]  # the last segment runs to the end of the array
