@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 
 from benchlog.errors import DataError
 
@@ -225,10 +226,13 @@ def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.
     t = len(starts)
     if t == 0:
         return np.zeros(0), lines
-    full = t % ncols == 0
+    rows = t // ncols
+    nl = np.flatnonzero(c == 10)  # the leading sentinel, every line end, the trailing sentinel
+    full = t % ncols == 0 and len(nl) == rows + 1 + data.endswith(b"\n")
     if full:
+        # each row's first token comes after its own line break and the previous row's last token before it
         firsts = starts[::ncols]
-        full = bool((c[firsts - 1] == 10).all()) and t // ncols == lines
+        full = bool((nl[:rows] < firsts).all()) and bool((nl[1:rows] >= ends[ncols - 1 : -1 : ncols]).all())
     if not full:
         _check_lines(c, starts, ncols, path, line_no)
     return _parse_tokens(c, starts, ends, path, line_no), lines
@@ -264,21 +268,35 @@ def _parse_tokens(
             f"{path}: line {_line_of(c, int(starts[k]), line_no)}: a field of {int(lens[k])} characters "
             "is not a number"
         )
-    key = lens * 2 + signed
+    # a leading sign is read apart, so a column printed with and without one is one layout
+    body = starts + signed
+    key = lens - signed
     out = np.empty(len(starts))
     bad = np.zeros(len(starts), bool)
     present = np.flatnonzero(np.bincount(key))
-    for k in present:
-        sel = np.flatnonzero(key == k) if len(present) > 1 else np.arange(len(starts))
-        width, has_sign = int(k) // 2, int(k) & 1
-        g = c[starts[sel][:, None] + np.arange(width)]
-        dot = _position(g == 46, width)
-        exp = _position((g | 32) == 101, width)
-        sub = dot.astype(np.int64) * 64 + exp
-        kinds = np.flatnonzero(np.bincount(sub))
-        for s in kinds:
-            part = np.flatnonzero(sub == s) if len(kinds) > 1 else np.arange(len(sel))
-            out[sel[part]], bad[sel[part]] = _group(g[part], has_sign, int(s) // 64, int(s) % 64, width)
+    for width in present.tolist():
+        sel = np.flatnonzero(key == width) if len(present) > 1 else None
+        g = sliding_window_view(c, width)[body if sel is None else body[sel]]
+        # most files print a column in one layout: take the first token's, check every token against it
+        row0 = g[0].tobytes().lower()
+        dot = row0.find(b".") if b"." in row0 else width
+        exp = row0.find(b"e") if b"e" in row0 else width
+        vals, wrong = _group(g, dot, exp, width)
+        if wrong.any():  # tokens in other layouts: group them by where their point and exponent sit
+            w = np.flatnonzero(wrong)
+            gw = g[w]
+            sub = _position(gw == 46, width) * 64 + _position((gw | 32) == 101, width)
+            for s_key in np.flatnonzero(np.bincount(sub)):
+                part = np.flatnonzero(sub == s_key)
+                vals[w[part]], wrong[w[part]] = _group(gw[part], int(s_key) // 64, int(s_key) % 64, width)
+        if sel is None:
+            out, bad = vals, wrong
+        else:
+            out[sel] = vals
+            bad[sel] = wrong
+    negative = first == 45
+    if negative.any():
+        np.negative(out, out=out, where=negative)
     if bad.any():
         _specials(c, starts, ends, out, bad, path, line_no)
     return out
@@ -291,16 +309,23 @@ def _position(hit: np.ndarray, width: int) -> np.ndarray:
     return pos
 
 
-def _group(g: np.ndarray, has_sign: int, dot: int, exp: int, width: int) -> tuple[np.ndarray, np.ndarray]:
-    """Tokens of one layout: fixed columns of sign, mantissa digits, point, exponent."""
-    mant_cols = [j for j in range(has_sign, min(exp, width)) if j != dot]
+def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, np.ndarray]:
+    """Unsigned tokens of one layout: fixed columns of mantissa digits, point, exponent."""
+    mant_cols = [j for j in range(min(exp, width)) if j != dot]
     frac = max(exp - dot - 1, 0) if dot < exp else 0
+    if not mant_cols:
+        return np.zeros(len(g)), np.ones(len(g), bool)
     digits = g[:, mant_cols] - np.uint8(48)
-    bad = (digits > 9).any(axis=1) if mant_cols else np.ones(len(g), bool)
-    weights = _POW10[len(mant_cols) - 1 :: -1][: len(mant_cols)] if mant_cols else np.zeros(0)
-    mant = digits @ weights if mant_cols else np.zeros(len(g))
-    power = np.full(len(g), -frac, np.int64)
+    over = digits > 9
+    if dot < exp:
+        point_ok = g[:, dot] == 46
+    bad = over.any(axis=1) if over.any() else np.zeros(len(g), bool)
+    if dot < exp and not point_ok.all():
+        bad |= ~point_ok
+    mant = digits @ _POW10[len(mant_cols) - 1 :: -1][: len(mant_cols)]
+    power = np.full(len(g), -frac, np.int64) if exp < width else None
     if exp < width:
+        bad |= (g[:, exp] | 32) != 101
         e0 = exp + 1
         esign = np.ones(len(g), np.int64)
         if e0 < width:
@@ -318,10 +343,8 @@ def _group(g: np.ndarray, has_sign: int, dot: int, exp: int, width: int) -> tupl
             bad |= (edig > 9).any(axis=1)
             ev = edig.astype(np.int64) @ (10 ** np.arange(edig.shape[1] - 1, -1, -1))
             power += esign * ev
-    value = _scale(mant, power)
-    if has_sign:
-        value = np.where(g[:, 0] == 45, -value, value)
-    return value, bad
+        return _scale(mant, power), bad
+    return (mant / _POW10[frac] if frac else mant), bad
 
 
 def _scale(mant: np.ndarray, power: np.ndarray) -> np.ndarray:
