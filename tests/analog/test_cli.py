@@ -107,3 +107,19 @@ def test_bad_captures_give_one_line_and_exit_10(tmp_path, capsys):
         assert main(["scope", str(path)]) == 10
         err = capsys.readouterr().err
         assert words in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_trace_high_when_closed_reads_the_same(demo, capsys, tmp_path):
+    # the same capture measured across the load instead of across the contact: 12 V minus the contact
+    with np.load(demo / "AG-MS5_cycles.npz") as cap:
+        np.savez(tmp_path / "load.npz", dt=cap["dt"], load=12.0 - cap["contact"].astype(np.float64))
+    across = run_json(capsys, str(demo / "AG-MS5_cycles.npz"), "--channel", "contact")["captures"][0]
+    load = run_json(capsys, str(tmp_path / "load.npz"), "--closed-high", "--open-v", "12")["captures"][0]
+    assert [r["bounce_count"] for r in load["actuations"]] == [
+        r["bounce_count"] for r in across["actuations"]
+    ]
+    assert np.allclose(
+        [r["bounce_us"] or 0 for r in load["actuations"]],
+        [r["bounce_us"] or 0 for r in across["actuations"]],
+        atol=2,
+    )

@@ -8,7 +8,9 @@ import math
 import sys
 from pathlib import Path
 
-from benchlog.views.cli._args import fraction, non_negative, positive
+from benchlog.views.cli._args import non_negative, number_within, positive
+
+tolerance = number_within(0, 1, low_inclusive=True)
 
 NAME = "scope"
 HELP = "Measure analog captures (CSV, .npz, WAV) by the voltage definitions; compare a sampler; design RC."
@@ -88,11 +90,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     dg.add_argument("--series", type=_ohms, default=10_000.0, metavar="OHMS", help="series R (10k)")
     dg.add_argument("--preferred", choices=("E12", "E24"), default="E12", help="preferred values for C")
     dg.add_argument(
-        "--series-tol", type=fraction, default=0.05, metavar="FRACTION", help="R tolerance (0.05)"
+        "--series-tol", type=tolerance, default=0.05, metavar="FRACTION", help="R tolerance (0.05)"
     )
-    dg.add_argument("--cap-tol", type=fraction, default=0.10, metavar="FRACTION", help="C tolerance (0.10)")
+    dg.add_argument("--cap-tol", type=tolerance, default=0.10, metavar="FRACTION", help="C tolerance (0.10)")
     dg.add_argument(
-        "--supply-tol", type=fraction, default=0.05, metavar="FRACTION", help="supply tol. (0.05)"
+        "--supply-tol", type=tolerance, default=0.05, metavar="FRACTION", help="supply tol. (0.05)"
     )
     dg.add_argument("--margin", type=non_negative, default=0.2, metavar="V", help="threshold margin (0.2 V)")
     out = p.add_argument_group("output")
