@@ -20,6 +20,8 @@ a few units in the last place.
 from __future__ import annotations
 
 import re
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -177,22 +179,17 @@ def count_lines(path: Path, offset: int) -> int:
     return n + (last != b"\n")
 
 
-def read_columns(path: Path, layout: Layout, keep: list[int]) -> list[np.ndarray]:
-    """The columns `keep` (indices) of the data, as float64 arrays."""
-    rows_max = count_lines(path, layout.data_offset)
-    out = [np.empty(rows_max, np.float64) for _ in keep]
-    table = _table(layout)
-    ncols = layout.columns
-    row = 0
-    line_no = layout.first_line
+def _chunks(path: Path, offset: int, first_line: int):
+    """(bytes of whole lines, line number of the first) in file order, CHUNK_BYTES at a time."""
     carry = b""
+    line_no = first_line
     with path.open("rb") as f:
-        f.seek(layout.data_offset)
+        f.seek(offset)
         while True:
             block = f.read(CHUNK_BYTES)
             data = carry + block
             if not data:
-                break
+                return
             if block:
                 cut = data.rfind(b"\n") + 1
                 if cut == 0:  # one line longer than a chunk: read on
@@ -201,17 +198,52 @@ def read_columns(path: Path, layout: Layout, keep: list[int]) -> list[np.ndarray
                 data, carry = data[:cut], data[cut:]
             else:
                 carry = b""
-            values, lines = _parse_chunk(data.translate(table), ncols, path, line_no)
-            n = len(values) // ncols
-            if row + n > rows_max:
-                raise DataError(f"{path}: the file changed while it was read")
-            vals = values.reshape(n, ncols)
-            for dst, col in zip(out, keep, strict=True):
-                dst[row : row + n] = vals[:, col]
-            row += n
-            line_no += lines
+            yield data, line_no
+            line_no += data.count(b"\n") + (not data.endswith(b"\n"))
             if not block:
-                break
+                return
+
+
+def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) -> list[np.ndarray]:
+    """The columns `keep` (indices) of the data, as float64 arrays.
+
+    Chunks are parsed by `workers` threads (numpy releases the interpreter lock in its loops), at most
+    `workers + 1` chunks in flight, and placed in file order."""
+    rows_max = count_lines(path, layout.data_offset)
+    out = [np.empty(rows_max, np.float64) for _ in keep]
+    table = _table(layout)
+    ncols = layout.columns
+    row = 0
+
+    def place(values: np.ndarray) -> None:
+        nonlocal row
+        n = len(values) // ncols
+        if row + n > rows_max:
+            raise DataError(f"{path}: the file changed while it was read")
+        vals = values.reshape(n, ncols)
+        for dst, col in zip(out, keep, strict=True):
+            dst[row : row + n] = vals[:, col]
+        row += n
+
+    def parse(data: bytes, line_no: int) -> np.ndarray:
+        return _parse_chunk(data.translate(table), ncols, path, line_no)[0]
+
+    if workers <= 1:
+        for data, line_no in _chunks(path, layout.data_offset, layout.first_line):
+            place(parse(data, line_no))
+    else:
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            pending: deque = deque()
+            try:
+                for data, line_no in _chunks(path, layout.data_offset, layout.first_line):
+                    pending.append(pool.submit(parse, data, line_no))
+                    if len(pending) > workers:
+                        place(pending.popleft().result())
+                while pending:
+                    place(pending.popleft().result())
+            finally:
+                for fut in pending:
+                    fut.cancel()
     return [a[:row] for a in out]
 
 
@@ -220,9 +252,9 @@ def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.
     c = np.frombuffer(b"\n" + data + b"\n", np.uint8)
     lines = data.count(b"\n") + (not data.endswith(b"\n"))
     word = c > 32
-    step = np.diff(word.view(np.int8))
-    starts = np.flatnonzero(step == 1) + 1
-    ends = np.flatnonzero(step == -1) + 1
+    # the buffer starts and ends with a line break, so changes alternate: token start, token end, ...
+    change = np.flatnonzero(word[1:] != word[:-1]) + 1
+    starts, ends = change[0::2], change[1::2]
     t = len(starts)
     if t == 0:
         return np.zeros(0), lines
@@ -340,8 +372,10 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
         if edig.shape[1] == 0 or edig.shape[1] > 3:
             bad[:] = True
         else:
-            bad |= (edig > 9).any(axis=1)
-            ev = edig.astype(np.int64) @ (10 ** np.arange(edig.shape[1] - 1, -1, -1))
+            e_over = edig > 9
+            if e_over.any():
+                bad |= e_over.any(axis=1)
+            ev = edig @ (10 ** np.arange(edig.shape[1] - 1, -1, -1, dtype=np.int64))
             power += esign * ev
         return _scale(mant, power), bad
     return (mant / _POW10[frac] if frac else mant), bad
@@ -349,6 +383,11 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
 
 def _scale(mant: np.ndarray, power: np.ndarray) -> np.ndarray:
     """mant * 10**power: one exact product or quotient when |power| <= 300, two beyond (sub-normals)."""
+    lo, hi = int(power.min()), int(power.max())
+    if -300 <= lo and hi <= 0:  # the usual case: a quotient by an exact power of ten
+        return mant / _POW10[-power]
+    if 0 <= lo and hi <= 300:
+        return mant * _POW10[power]
     first = np.clip(power, -300, 300)
     with np.errstate(over="ignore", under="ignore"):
         value = np.where(first >= 0, mant * _POW10[np.abs(first)], mant / _POW10[np.abs(first)])
