@@ -67,14 +67,20 @@ def test_any_header_length_and_tabs(tmp_path):
 
 
 def test_chunk_boundaries_do_not_matter(tmp_path, monkeypatch):
-    rows = "\n".join(f"{i * 1e-6:.9e},{(i * 7919) % 1000 / 100 - 5:.3f},{-i}" for i in range(5000))
+    rows = "\n".join(f"{i * 1e-6:.9e},{(i * 7919) % 1000 / 100 - 5:.3f},{-i}" for i in range(300))
     path = write(tmp_path / "c.csv", "t,a,b\n" + rows + "\n")
     whole = read_capture(path)
+    layout = csv_reader.sniff(tmp_path / "c.csv")
     for chunk in (7, 64, 1000, 4099):
         monkeypatch.setattr(csv_reader, "CHUNK_BYTES", chunk)
         part = read_capture(path)
         for x, y in zip(whole.volts, part.volts, strict=True):
             assert np.array_equal(x, y)
+        # one thread or several: the same columns in the same order
+        one = csv_reader.read_columns(tmp_path / "c.csv", layout, [0, 1, 2], workers=1)
+        three = csv_reader.read_columns(tmp_path / "c.csv", layout, [0, 1, 2], workers=3)
+        assert all(np.array_equal(a, b) for a, b in zip(one, three, strict=True))
+        assert np.array_equal(one[1], whole.volts[0])
 
 
 @settings(max_examples=60, deadline=None)
