@@ -4,13 +4,14 @@ How it works. The head of the file is sniffed with ordinary string code: the fir
 numbers (and the few after it agree) starts the data; the lines above are the header, of any number
 and length, where column names and "interval" / "sample rate" / "start" entries are looked for. The
 data is then read in chunks of whole lines. Each chunk goes through one `bytes.translate` (the field
-delimiter becomes a space, a decimal comma a point), then numpy finds every token (a run of bytes above
-the space character) and parses all tokens of one layout at once: tokens are grouped by length, sign,
-and the position of the point and of the exponent, each group is gathered into a fixed-width byte
-matrix, and its digits become numbers through one matrix product with powers of ten. A file's columns
-are usually printed in a handful of layouts, so a chunk costs a few numpy passes, never a Python step
-per line or per number. Every line must have the same number of fields; the first line that does not,
-or a field that is not a number, is named in a one-line DataError.
+delimiter becomes a space, a decimal comma a point). When every line of the chunk has one length and
+its fields sit at the same places (the way instruments print), the chunk is a byte matrix and each
+field a band of its columns: no token search at all. Otherwise numpy finds every token (a run of bytes
+above the space character) and parses all tokens of one layout at once: tokens are grouped by length,
+sign, and the position of the point and of the exponent, and each group is gathered into a fixed-width
+byte matrix. Either way the digit columns become numbers by Horner's rule, a few numpy passes per
+chunk, never a Python step per line or per number. Every line must have the same number of fields;
+the first line that does not, or a field that is not a number, is named in a one-line DataError.
 
 Values are correctly rounded when the mantissa has at most 15 significant digits and the decimal
 exponent is within 10^22 (one exact product or quotient of exact doubles); longer mantissas are within
@@ -247,8 +248,66 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
     return [a[:row] for a in out]
 
 
+def _fixed_rows(data: bytes, ncols: int) -> np.ndarray | None:
+    """The numbers of a chunk whose lines all have one length and one layout, as (rows, ncols); else None.
+
+    Instruments print each column with a fixed format, so every line is the same bytes at the same
+    places: the chunk is then a byte matrix, and each field a fixed band of its columns, parsed whole
+    with no token search. A sign may sit in a column that is blank in other lines. Anything else (lines
+    of other lengths, a blank line, nan, a field that moves) returns None for the general parse."""
+    width = data.find(b"\n") + 1
+    if width < 2 or len(data) % width or data.count(b"\n") != len(data) // width:
+        return None
+    m = np.frombuffer(data, np.uint8).reshape(-1, width)
+    if not (m[:, -1] == 10).all():
+        return None
+    row0 = m[0]
+    word = row0 > 32
+    change = np.flatnonzero(np.diff(np.concatenate(([False], word, [False])).astype(np.int8)))
+    starts, ends = change[0::2], change[1::2]
+    if len(starts) != ncols:
+        return None
+    gaps = np.flatnonzero(~word[:-1])
+    moved = gaps[~(m[:, gaps] <= 32).all(axis=0)] if len(gaps) else gaps
+    out = np.empty((len(m), ncols))
+    signs: list[int] = []
+
+    def moved_ok(cols: list[int], used: list[int]) -> bool:
+        return all(g in used and (g == 0 or (not word[g - 1] and g - 1 not in cols)) for g in cols)
+
+    for k, (s, e) in enumerate(zip(starts.tolist(), ends.tolist(), strict=True)):
+        sign_at = -1
+        if row0[s] in (43, 45):
+            sign_at, s = s, s + 1
+        elif s - 1 in moved:
+            sign_at = s - 1
+        if sign_at >= 0:
+            signs.append(sign_at)
+        if s >= e or e - s > 60:
+            return None
+        body = row0[s:e].tobytes().lower()
+        dot = body.find(b".") if b"." in body else e - s
+        exp = body.find(b"e") if b"e" in body else e - s
+        vals, bad = _group(m[:, s:e], dot, exp, e - s)
+        if bad.any():
+            return None
+        if sign_at >= 0:
+            sign = m[:, sign_at]
+            if not ((sign <= 32) | (sign == 43) | (sign == 45)).all():
+                return None
+            np.negative(vals, out=vals, where=sign == 45)
+        out[:, k] = vals
+    # a gap column that is not blank in every line must be a sign read above, with a blank before it
+    if not moved_ok(moved.tolist(), signs):
+        return None
+    return out
+
+
 def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.ndarray, int]:
     """All numbers of a chunk of whole lines (delimiters already spaces), checked ncols per line."""
+    fixed = _fixed_rows(data, ncols)
+    if fixed is not None:
+        return fixed.reshape(-1), len(fixed)
     c = np.frombuffer(b"\n" + data + b"\n", np.uint8)
     lines = data.count(b"\n") + (not data.endswith(b"\n"))
     word = c > 32
@@ -347,14 +406,18 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
     frac = max(exp - dot - 1, 0) if dot < exp else 0
     if not mant_cols:
         return np.zeros(len(g)), np.ones(len(g), bool)
-    digits = g[:, mant_cols] - np.uint8(48)
-    over = digits > 9
+    # the mantissa's digits sit in at most two runs of columns (before and after the point)
+    runs = [(0, min(dot, exp, width)), (dot + 1, min(exp, width))] if dot < exp else [(0, min(exp, width))]
+    over = [(g[:, a:b] - np.uint8(48)) > 9 for a, b in runs if b > a]
+    bad = np.zeros(len(g), bool)
+    for o in over:
+        if o.any():
+            bad |= o.any(axis=1)
     if dot < exp:
         point_ok = g[:, dot] == 46
-    bad = over.any(axis=1) if over.any() else np.zeros(len(g), bool)
-    if dot < exp and not point_ok.all():
-        bad |= ~point_ok
-    mant = digits @ _POW10[len(mant_cols) - 1 :: -1][: len(mant_cols)]
+        if not point_ok.all():
+            bad |= ~point_ok
+    mant = _mantissa(g, mant_cols)
     power = np.full(len(g), -frac, np.int64) if exp < width else None
     if exp < width:
         bad |= (g[:, exp] | 32) != 101
@@ -379,6 +442,22 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
             power += esign * ev
         return _scale(mant, power), bad
     return (mant / _POW10[frac] if frac else mant), bad
+
+
+def _mantissa(g: np.ndarray, cols: list[int]) -> np.ndarray:
+    """The integer the digit columns `cols` spell (bytes '0'..'9'; others give garbage, checked apart).
+
+    Horner's rule on the raw bytes, the '0' offsets taken off once at the end: exact while the sum of
+    bytes times powers of ten stays below 2**53, which holds for up to 15 digits. Longer mantissas go
+    through a product with powers of ten (within a few units in the last place)."""
+    if len(cols) > 15:
+        return (g[:, cols] - np.uint8(48)) @ _POW10[len(cols) - 1 :: -1][: len(cols)]
+    acc = g[:, cols[0]].astype(np.float64)
+    for j in cols[1:]:
+        acc *= 10.0
+        acc += g[:, j]
+    acc -= 48.0 * float("1" * len(cols))
+    return acc
 
 
 def _scale(mant: np.ndarray, power: np.ndarray) -> np.ndarray:

@@ -123,6 +123,64 @@ def test_bad_input_is_one_clear_line(tmp_path, text, message):
     assert message in str(err.value) and "\n" not in str(err.value)
 
 
+def _fixed_width_rows(n: int, decimal: str = ".") -> list[str]:
+    """Lines as a scope prints them: every field in a fixed format, a blank where a sign is not."""
+    rng = np.random.default_rng(7)
+    t = (np.arange(n) - n // 3) * 2.5e-7
+    a = np.clip(rng.normal(2.0, 3.0, n), -9.9, 9.9)  # one digit before the point
+    b = rng.normal(0.0, 0.01, n)
+    rows = [f"{x: .6E},{y: 8.4f},{z:+.3e}" for x, y, z in zip(t, a, b, strict=True)]
+    return [r.replace(".", decimal) if decimal != "." else r for r in rows]
+
+
+@pytest.mark.parametrize(("delimiter", "decimal"), [(",", "."), (";", ","), ("\t", ".")])
+def test_fixed_width_lines_are_read_as_a_byte_matrix(tmp_path, delimiter, decimal):
+    rows = _fixed_width_rows(5000)
+    assert len({len(r) for r in rows}) == 1  # the case the byte-matrix path is for
+    text = "\n".join(r.replace(",", delimiter) for r in rows).replace(".", decimal) + "\n"
+    path = write(tmp_path / "f.csv", "Sample Interval,2.5E-07\nTime,CH1,CH2\n" + text)
+    layout = csv_reader.sniff(tmp_path / "f.csv")
+    data = (tmp_path / "f.csv").read_bytes()[layout.data_offset :]
+    assert csv_reader._fixed_rows(data.translate(csv_reader._table(layout)), 3) is not None
+    cap = read_capture(path)
+    # reference: Python's float() on the printed text (correctly rounded)
+    ref = np.array([[float(f) for f in r.split(",")] for r in rows])
+    assert np.array_equal(cap.volts[0], ref[:, 1]) and np.array_equal(cap.volts[1], ref[:, 2])
+    assert cap.t_s is None and cap.dt_s == pytest.approx(2.5e-7, rel=1e-9)
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "message"),
+    [
+        (",", "-", "is not a number"),  # a missing delimiter next to a sign: one field of the same width
+        ("E", "X", "is not a number"),
+        ("5", "/", "is not a number"),  # a byte just below '0'
+        ("5", ":", "is not a number"),  # and just above '9'
+    ],
+)
+def test_fixed_width_lines_with_one_bad_field_name_it(tmp_path, old, new, message):
+    rows = _fixed_width_rows(3000)
+    k = next(i for i in range(2000, 3000) if old in rows[i][8:] and "-" not in rows[i][14:21])
+    at = rows[k].index(old, 8)
+    rows[k] = rows[k][:at] + new + rows[k][at + 1 :]
+    path = write(tmp_path / "bad.csv", "Time,CH1,CH2\n" + "\n".join(rows) + "\n")
+    with pytest.raises(DataError) as err:
+        read_capture(path)
+    assert f"line {k + 2}:" in str(err.value) and message in str(err.value)
+
+
+def test_fixed_width_lines_with_nan_or_a_wider_number_of_the_same_width(tmp_path):
+    rows = _fixed_width_rows(500)
+    rows[300] = rows[300][:14] + "     nan" + rows[300][22:]
+    k = next(i for i in range(400, 500) if rows[i][15] == " ")
+    rows[k] = rows[k][:15] + "7" + rows[k][16:]  # a digit where other lines have a blank or a sign
+    cap = read_capture(write(tmp_path / "n.csv", "Time,CH1,CH2\n" + "\n".join(rows) + "\n"))
+    assert np.isnan(cap.volts[0][300]) and np.isfinite(np.delete(cap.volts[0], 300)).all()
+    assert cap.volts[1][300] == float(rows[300].split(",")[2])
+    # reference: Python's float() on the printed text
+    assert cap.volts[0][k] == float(rows[k].split(",")[1]) and cap.volts[0][k] > 70
+
+
 def test_blank_lines_inside_data_are_skipped(tmp_path):
     cap = read_capture(write(tmp_path / "b.csv", "t,v\n0,1\n1,2\n\n2,3\n3,4\n4,5\n5,6\n\n\n"))
     assert np.array_equal(cap.volts[0], [1, 2, 3, 4, 5, 6])
