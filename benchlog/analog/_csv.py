@@ -181,7 +181,8 @@ def count_lines(path: Path, offset: int) -> int:
 
 
 def _chunks(path: Path, offset: int, first_line: int):
-    """(bytes of whole lines, line number of the first) in file order, CHUNK_BYTES at a time."""
+    """(bytes of whole lines, line number of the first, line breaks in it) in file order, CHUNK_BYTES at
+    a time."""
     carry = b""
     line_no = first_line
     with path.open("rb") as f:
@@ -199,8 +200,9 @@ def _chunks(path: Path, offset: int, first_line: int):
                 data, carry = data[:cut], data[cut:]
             else:
                 carry = b""
-            yield data, line_no
-            line_no += data.count(b"\n") + (not data.endswith(b"\n"))
+            breaks = data.count(b"\n")
+            yield data, line_no, breaks
+            line_no += breaks + (not data.endswith(b"\n"))
             if not block:
                 return
 
@@ -226,18 +228,22 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
             dst[row : row + n] = vals[:, col]
         row += n
 
-    def parse(data: bytes, line_no: int) -> np.ndarray:
-        return _parse_chunk(data.translate(table), ncols, path, line_no)[0]
+    def parse(data: bytes, line_no: int, breaks: int) -> np.ndarray:
+        text = data.translate(table)
+        fixed = _fixed_rows(text, ncols, breaks)
+        if fixed is not None:
+            return fixed.reshape(-1)
+        return _parse_chunk(text, ncols, path, line_no)[0]
 
     if workers <= 1:
-        for data, line_no in _chunks(path, layout.data_offset, layout.first_line):
-            place(parse(data, line_no))
+        for data, line_no, breaks in _chunks(path, layout.data_offset, layout.first_line):
+            place(parse(data, line_no, breaks))
     else:
         with ThreadPoolExecutor(max_workers=workers) as pool:
             pending: deque = deque()
             try:
-                for data, line_no in _chunks(path, layout.data_offset, layout.first_line):
-                    pending.append(pool.submit(parse, data, line_no))
+                for data, line_no, breaks in _chunks(path, layout.data_offset, layout.first_line):
+                    pending.append(pool.submit(parse, data, line_no, breaks))
                     if len(pending) > workers:
                         place(pending.popleft().result())
                 while pending:
@@ -248,7 +254,7 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
     return [a[:row] for a in out]
 
 
-def _fixed_rows(data: bytes, ncols: int) -> np.ndarray | None:
+def _fixed_rows(data: bytes, ncols: int, breaks: int | None = None) -> np.ndarray | None:
     """The numbers of a chunk whose lines all have one length and one layout, as (rows, ncols); else None.
 
     Instruments print each column with a fixed format, so every line is the same bytes at the same
@@ -256,7 +262,9 @@ def _fixed_rows(data: bytes, ncols: int) -> np.ndarray | None:
     with no token search. A sign may sit in a column that is blank in other lines. Anything else (lines
     of other lengths, a blank line, nan, a field that moves) returns None for the general parse."""
     width = data.find(b"\n") + 1
-    if width < 2 or len(data) % width or data.count(b"\n") != len(data) // width:
+    if breaks is None:
+        breaks = data.count(b"\n")
+    if width < 2 or len(data) % width or breaks != len(data) // width:
         return None
     m = np.frombuffer(data, np.uint8).reshape(-1, width)
     if not (m[:, -1] == 10).all():
@@ -305,9 +313,6 @@ def _fixed_rows(data: bytes, ncols: int) -> np.ndarray | None:
 
 def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.ndarray, int]:
     """All numbers of a chunk of whole lines (delimiters already spaces), checked ncols per line."""
-    fixed = _fixed_rows(data, ncols)
-    if fixed is not None:
-        return fixed.reshape(-1), len(fixed)
     c = np.frombuffer(b"\n" + data + b"\n", np.uint8)
     lines = data.count(b"\n") + (not data.endswith(b"\n"))
     word = c > 32
@@ -408,11 +413,12 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
         return np.zeros(len(g)), np.ones(len(g), bool)
     # the mantissa's digits sit in at most two runs of columns (before and after the point)
     runs = [(0, min(dot, exp, width)), (dot + 1, min(exp, width))] if dot < exp else [(0, min(exp, width))]
-    over = [(g[:, a:b] - np.uint8(48)) > 9 for a, b in runs if b > a]
     bad = np.zeros(len(g), bool)
-    for o in over:
-        if o.any():
-            bad |= o.any(axis=1)
+    for a, b in runs:
+        if b > a:
+            digits = g[:, a:b] - np.uint8(48)  # bytes below '0' wrap round to above 9
+            if digits.max() > 9:  # a max is cheaper than a comparison; rows only when something is wrong
+                bad |= (digits > 9).any(axis=1)
     if dot < exp:
         point_ok = g[:, dot] == 46
         if not point_ok.all():
@@ -435,10 +441,12 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
         if edig.shape[1] == 0 or edig.shape[1] > 3:
             bad[:] = True
         else:
-            e_over = edig > 9
-            if e_over.any():
-                bad |= e_over.any(axis=1)
-            ev = edig @ (10 ** np.arange(edig.shape[1] - 1, -1, -1, dtype=np.int64))
+            if edig.max() > 9:
+                bad |= (edig > 9).any(axis=1)
+            ev = edig[:, 0].astype(np.int64)
+            for j in range(1, edig.shape[1]):
+                ev *= 10
+                ev += edig[:, j]
             power += esign * ev
         return _scale(mant, power), bad
     return (mant / _POW10[frac] if frac else mant), bad
