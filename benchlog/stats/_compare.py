@@ -341,6 +341,15 @@ class UnitTests:
     anderson_p: float  # Anderson-Darling k-sample (midrank variant)
     anderson_capped: bool  # scipy's table bounds the p-value to [0.001, 0.25]: it lies beyond that
     kruskal_p: float  # Kruskal-Wallis, for any number of populations
+    mann_whitney_better_p: float = float("nan")  # one-sided: first population stochastically less
+
+    @property
+    def leaning(self) -> str:
+        """Which way the per-unit summaries lean: "worse" (candidate higher), "better" or "" (no test)."""
+        worse, better = self.mann_whitney_worse_p, self.mann_whitney_better_p
+        if math.isnan(worse) or math.isnan(better):
+            return ""
+        return "worse" if worse <= better else "better"
 
 
 def unit_tests(per_unit: list[np.ndarray], summary: str) -> UnitTests:
@@ -349,12 +358,13 @@ def unit_tests(per_unit: list[np.ndarray], summary: str) -> UnitTests:
         raise DataError("comparing populations needs at least two units in each of two populations")
     nan = float("nan")
     if np.ptp(np.concatenate(per_unit)) == 0:  # every unit alike (e.g. no chatter anywhere): no test
-        return UnitTests(summary, tuple(len(x) for x in per_unit), nan, nan, nan, nan, False, nan)
-    mw = mw_worse = ks = nan
+        return UnitTests(summary, tuple(len(x) for x in per_unit), nan, nan, nan, nan, False, nan, nan)
+    mw = mw_worse = mw_better = ks = nan
     if len(per_unit) == 2:
         a, b = per_unit
         mw = float(stats.mannwhitneyu(a, b, alternative="two-sided").pvalue)
         mw_worse = float(stats.mannwhitneyu(a, b, alternative="greater").pvalue)
+        mw_better = float(stats.mannwhitneyu(a, b, alternative="less").pvalue)
         ks = float(stats.ks_2samp(a, b).pvalue)
     capped = False
     try:
@@ -368,7 +378,7 @@ def unit_tests(per_unit: list[np.ndarray], summary: str) -> UnitTests:
         kw = float(stats.kruskal(*per_unit).pvalue)
     except ValueError:
         kw = nan
-    return UnitTests(summary, tuple(len(x) for x in per_unit), mw, mw_worse, ks, ad, capped, kw)
+    return UnitTests(summary, tuple(len(x) for x in per_unit), mw, mw_worse, ks, ad, capped, kw, mw_better)
 
 
 @dataclass(frozen=True)
