@@ -24,6 +24,9 @@ import numpy as np
 from scipy import stats
 
 from benchlog.errors import DataError
+from benchlog.stats._unit_effect import METHOD as EFFECT_METHOD
+from benchlog.stats._unit_effect import UnitEffect
+from benchlog.stats._unit_effect import bounds as effect_bounds
 
 __all__ = [
     "UnitSample",
@@ -213,12 +216,27 @@ def _bootstrap(samples, statistic, confidence, n_resamples, seed) -> tuple[float
 
 
 def pooled_percentile(
-    sample: UnitSample, percentile: float, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+    sample: UnitSample,
+    percentile: float,
+    *,
+    confidence: float = 0.9,
+    n_resamples: int = 2000,
+    seed: int = 0,
+    method: str = "auto",
 ) -> Interval:
-    """The population's pooled percentile with cluster-bootstrap bounds (units resampled)."""
+    """The population's pooled percentile with one-sided bounds at `confidence`.
+
+    `method`: "unit-effect" (generalized pivotal bounds of a log-normal random-unit-effect model,
+    `benchlog.stats._unit_effect`), "bootstrap" (cluster bootstrap over units), or "auto": the first
+    where every unit's median is positive (times), else the second (counts that are mostly 0).
+    """
     _check_units(sample)
     cdf = sample.pooled_cdf()
     est = float(cdf.quantile(np.ones(sample.n_units), percentile))
+    model = UnitEffect.of(sample) if method in ("auto", "unit-effect") else None
+    if model is not None:
+        low, high = effect_bounds(model.percentile_draws(percentile, n_resamples, seed), confidence)
+        return Interval(est, low, high, confidence, sample.n_units, EFFECT_METHOD)
 
     def stat(idx, axis=-1):
         return cdf.quantile(_weights(np.moveaxis(idx, axis, -1), sample.n_units), percentile)
@@ -249,10 +267,26 @@ def percentile_ratio(
     confidence: float = 0.9,
     n_resamples: int = 2000,
     seed: int = 0,
+    method: str = "auto",
 ) -> Interval:
-    """Ratio of two populations' pooled percentiles (candidate / reference), cluster bootstrap."""
+    """Ratio of two populations' pooled percentiles (candidate / reference): the random-unit-effect
+    model's pivotal draws of each (independent lots), else (`method="bootstrap"`, or a unit median of
+    0) the cluster bootstrap."""
     _check_units(candidate, reference)
     ca, cb = candidate.pooled_cdf(), reference.pooled_cdf()
+    models = (UnitEffect.of(candidate), UnitEffect.of(reference)) if method != "bootstrap" else (None,)
+    if all(m is not None for m in models):
+        est = float(ca.quantile(np.ones(candidate.n_units), percentile)) / float(
+            cb.quantile(np.ones(reference.n_units), percentile)
+        )
+        ss = np.random.SeedSequence(seed).spawn(2)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio_draws = models[0].percentile_draws(percentile, n_resamples, ss[0]) / models[
+                1
+            ].percentile_draws(percentile, n_resamples, ss[1])
+        low, high = effect_bounds(ratio_draws, confidence)
+        n = min(candidate.n_units, reference.n_units)
+        return Interval(est, low, high, confidence, n, EFFECT_METHOD)
 
     def ratio(wa, wb):
         with np.errstate(divide="ignore", invalid="ignore"):

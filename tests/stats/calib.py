@@ -126,3 +126,56 @@ def drift_figures(results: list[UnitDrift]) -> dict[str, float]:
         "old_flag_false_alarm": sum(r.old_flag for r in steady) / len(steady) if steady else nan,
         "projection_error": float(np.median(errs)) if errs else nan,
     }
+
+
+# -- populations for the intervals and the verdict --------------------------------------------------
+SIZE_SIGMA = 0.25  # log-sd of a unit's bounce size about its supplier's (invented for the harness)
+
+
+def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: float = 1.0, test_end=None):
+    """`units` units of `pop` (each with its own bounce size; `scale` multiplies every unit's bounce),
+    `n_cycles` cycles each (fewer when it fails first), through the simulator's physics. Returns a
+    `benchlog.stats.Population` whose life table suspends the units alive at `test_end`."""
+    from benchlog.analysis import empty_actuations
+    from benchlog.stats import LifeTable, Population
+
+    rows, ids, life = [], [], []
+    for i in range(units):
+        up = unit_population(pop, rng, pop.wear_per_100k, 0.0, SIZE_SIGMA)
+        up = replace(
+            up,
+            make=replace(
+                up.make, first_gap_us=up.make.first_gap_us * scale, dwell_us=up.make.dwell_us * scale
+            ),
+        )
+        serial = f"U{i:03d}"
+        u = draw_unit(rng, 0, serial, up)
+        n = int(max(1, min(n_cycles, np.floor(u.life))))
+        _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, n, 24, 2.0)
+        a = empty_actuations(len(truth))
+        for col in ("cycle", "kind", "transit_us", "bounce_us", "bounce_count", "chatter"):
+            a[col] = truth[col]
+        a["drive_level"] = np.where(truth["kind"] == 0, 1, 0)
+        rows.append(a)
+        ids.append(np.full(len(a), serial, dtype=object))
+        end = np.inf if test_end is None else test_end
+        failed = u.life <= end
+        life.append((serial, min(u.life, end), bool(failed), u.mode if failed else ""))
+    return Population.from_actuations("lot", np.concatenate(rows), np.concatenate(ids), LifeTable.of(life))
+
+
+def true_pooled_p95(pop, rng: np.random.Generator, units: int = 20_000, per_unit: int = 40) -> float:
+    """The population's true make bounce p95 (new units): a mixture over many simulated units."""
+    f = np.exp(SIZE_SIGMA * rng.standard_normal(units))
+    make = pop.make
+    out = []
+    for chunk in np.array_split(np.arange(units), 20):
+        k = len(chunk) * per_unit
+        scale = np.repeat(f[chunk], per_unit)
+        off, n, _ = _train(rng, make, np.ones(k), 24, 2.0, ON_NS / 1e3 - pop.operate.median_us)
+        out.append(scale * off[np.arange(k), 2 * n])
+    return float(np.percentile(np.concatenate(out), 95))
+
+
+def true_b10(pop) -> float:
+    return float(pop.life_scale * (-np.log(0.9)) ** (1.0 / pop.life_shape))

@@ -8,7 +8,17 @@ population's true percentiles and life), not a number from this project's statis
 from __future__ import annotations
 
 import numpy as np
-from calib import MAKE_LIMIT_US, demo_population, drift_figures, judge_unit_drift, unit_population
+from calib import (
+    MAKE_LIMIT_US,
+    demo_population,
+    draw_lot,
+    drift_figures,
+    judge_unit_drift,
+    true_pooled_p95,
+    unit_population,
+)
+
+from benchlog.stats import pooled_percentile
 
 
 def test_drift_flag_against_the_simulators_truth():
@@ -31,3 +41,25 @@ def test_drift_flag_against_the_simulators_truth():
     assert fig["projection_error"] <= 0.25
     # the earlier flag (a chart signal backed by a 90 % slope interval above zero) fails the same units
     assert fig["old_flag_false_alarm"] > 0.02
+
+
+def test_pooled_p95_bounds_cover_the_simulators_true_p95():
+    # 120 lots of 8 units (100 cycles each) from the demo population's physics with a log-normal unit
+    # size (log-sd 0.25); the true p95 is the mixture's over 20,000 simulated units. One-sided bounds
+    # at 90 %: each side should hold about 90 % of the time (binomial SD here 2.7 points).
+    rng = np.random.default_rng(7)
+    pop = demo_population()
+    truth = true_pooled_p95(pop, rng)
+    new = [0, 0]
+    old = [0, 0]
+    lots = 120
+    for i in range(lots):
+        s = draw_lot(pop, 8, 100, rng).samples["make_bounce"]
+        iv = pooled_percentile(s, 95.0, confidence=0.9, seed=i)
+        new[0] += iv.low <= truth
+        new[1] += truth <= iv.high
+        iv = pooled_percentile(s, 95.0, confidence=0.9, n_resamples=1000, seed=i, method="bootstrap")
+        old[0] += iv.low <= truth
+        old[1] += truth <= iv.high
+    assert min(new) / lots >= 0.84
+    assert old[1] / lots < 0.84  # the cluster bootstrap's upper bound falls short with 8 units
