@@ -49,9 +49,19 @@ class UnitEffect:
             raise ValueError("a unit's median is not positive")
         r = np.quantile(values / med[unit], (np.arange(_RESIDUAL_POINTS) + 0.5) / _RESIDUAL_POINTS)
         y = np.log(med)
+        self._set(float(y.mean()), float(y.std(ddof=1)) if n_units > 1 else 0.0, n_units, r)
+
+    @classmethod
+    def from_parts(cls, mu: float, sigma: float, n_units: int, residuals: np.ndarray) -> UnitEffect:
+        """The model with its parameters given (for planning: residuals known, no sample)."""
+        self = cls.__new__(cls)
+        self._set(mu, sigma, n_units, np.sort(np.asarray(residuals, np.float64)))
+        return self
+
+    def _set(self, mu: float, sigma: float, n_units: int, r: np.ndarray) -> None:
         self.n = n_units
-        self.mu = float(y.mean())
-        self.sigma = float(y.std(ddof=1)) if n_units > 1 else 0.0
+        self.mu = mu
+        self.sigma = sigma
         self.residuals = r
         with np.errstate(divide="ignore"):
             self._log_r = np.log(r)
@@ -81,10 +91,10 @@ class UnitEffect:
         sigma = np.atleast_1d(np.asarray(sigma, np.float64))
         top = float(sigma.max()) if len(sigma) else 0.0
         grid = np.linspace(0.0, top, _SIGMA_GRID) if top > 0 else np.zeros(1)
-        g = self._scale_quantile(grid, percentile / 100.0)
+        g = self.scale_quantile(grid, percentile / 100.0)
         return np.exp(mu + np.interp(sigma, grid, g))
 
-    def _scale_quantile(self, sigma: np.ndarray, p: float) -> np.ndarray:
+    def scale_quantile(self, sigma: np.ndarray, p: float) -> np.ndarray:
         """log of the p-quantile of r exp(sigma Z) for each sigma, by bisection."""
         from scipy.special import ndtr, ndtri
 

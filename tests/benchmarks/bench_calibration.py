@@ -110,6 +110,7 @@ def main() -> None:
     ap.add_argument("--oc", type=int, default=150, help="populations per point of the verdict's curve")
     ap.add_argument("--drift-units", type=int, default=60)
     ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--only", choices=("drift", "coverage", "oc"), help="one part alone")
     a = ap.parse_args()
     t_all = time.perf_counter()
     rng = np.random.default_rng(1)
@@ -121,119 +122,123 @@ def main() -> None:
         f"B10 {truth_b10:,.0f} cycles"
     )
     with Pool(a.jobs) as pool:
-        # -- drift ------------------------------------------------------------------------------
-        t0 = time.perf_counter()
-        res = pool.map(_drift_unit, range(1000, 1000 + a.drift_units))
-        f = drift_figures(res)
-        print(
-            f"\ndrift flag: {a.drift_units} units x 200,000 cycles, 1,000-cycle windows, re-judged every 2 "
-            f"windows ({f['crossing_units']} cross their limit, {f['steady_units']} steady; "
-            f"{time.perf_counter() - t0:.0f} s)"
-        )
-        _line(
-            "crossing units flagged before the true crossing",
-            f["detected_before"],
-            ">= 0.90",
-            f["detected_before"] >= 0.9,
-        )
-        _line(
-            "median lead, share of the cycles to the crossing",
-            f["median_lead"],
-            ">= 0.20",
-            f["median_lead"] >= 0.2,
-        )
-        _line("steady units ever flagged", f["false_alarm"], "<= 0.02", f["false_alarm"] <= 0.02)
-        _line("  (charts alone, for comparison)", f["chart_only_false_alarm"], "-", True)
-        _line("  (the earlier flag: chart + 90 % slope interval)", f["old_flag_false_alarm"], "-", True)
-        _line(
-            "median abs error of the projected crossing / true crossing",
-            f["projection_error"],
-            "reported",
-            True,
-        )
-
-        # -- interval coverage --------------------------------------------------------------------
-        t0 = time.perf_counter()
-        jobs = [
-            (n, 10_000 * n + i, truth_p95, truth_b10, i < a.old, i < a.life)
-            for n in SIZES
-            for i in range(a.populations)
-        ]
-        hits: dict[tuple[int, str], list[int]] = {}
-        for n, out, tp, tb in pool.imap_unordered(_coverage_one, jobs, chunksize=8):
-            for key, [(lo, hi)] in out.items():
-                truth = tb if key.startswith("b10") else (1.0 if "ratio" in key else tp)
-                h = hits.setdefault((n, key), [0, 0, 0])
-                h[0] += lo <= truth
-                h[1] += truth <= hi
-                h[2] += 1
-        print(f"\ninterval coverage ({a.populations} populations per size; {time.perf_counter() - t0:.0f} s)")
-        print(
-            "  target: within 2.5 points of nominal, never below by more; bounds one-sided at (1 + level) / 2"
-        )
-        for key, label in (
-            ("p95", "pooled p95, random unit effect"),
-            ("ratio", "p95 ratio, random unit effect (true ratio 1)"),
-            ("b10", "B10 lower bound, likelihood ratio, suspended at 300k"),
-            ("boot p95", "pooled p95, earlier cluster bootstrap"),
-            ("boot ratio", "p95 ratio, earlier cluster bootstrap"),
-        ):
-            for n in SIZES:
-                for lv in LEVELS:
-                    h = hits.get((n, f"{key} {lv}"))
-                    if not h:
-                        continue
-                    one = (1 + lv) / 2
-                    if key == "b10":  # the life criterion uses the lower bound only
-                        cov, nominal, what = h[0] / h[2], one, "lower side"
-                    else:
-                        cov, nominal, what = (h[0] + h[1] - h[2]) / h[2], lv, "two-sided"
-                    worst = min(h[0], h[1]) / h[2] if key != "b10" else cov
-                    ok = cov >= nominal - 0.025 and (key == "b10" or worst >= one - 0.025)
-                    _line(
-                        f"{label}, {n} units, {lv:.0%} ({what}, n={h[2]})",
-                        cov,
-                        f">= {nominal - 0.025:.3f}",
-                        ok,
-                    )
-                    if key != "b10":
-                        _line("    worse side alone", worst, f">= {one - 0.025:.3f}", worst >= one - 0.025)
-
-        # -- the verdict's operating characteristic ------------------------------------------------
-        t0 = time.perf_counter()
-        conf = 0.9
-        jobs = [
-            (n, d, 77 + 1000 * i + int(100 * d) + n, conf)
-            for n in SIZES
-            for d in OC_RATIOS
-            for i in range(a.oc)
-        ]
-        passes: dict[tuple[int, float], list[int]] = {}
-        for n, d, ok in pool.imap_unordered(_oc_one, jobs, chunksize=8):
-            p = passes.setdefault((n, d), [0, 0])
-            p[0] += ok
-            p[1] += 1
-        print(
-            f"\nverdict: P(PASS) of 'make bounce p95 candidate / incumbent <= {1 + MARGIN:.1f}' "
-            f"at {conf:.0%}, "
-            f"{a.oc} populations a point ({time.perf_counter() - t0:.0f} s)"
-        )
-        print("  true ratio " + "".join(f"{d:>7.2f}" for d in OC_RATIOS))
-        for n in SIZES:
-            print(
-                f"  {n:3d} units  "
-                + "".join(f"{passes[(n, d)][0] / passes[(n, d)][1]:7.2f}" for d in OC_RATIOS)
-            )
-        for n in SIZES:
-            p = passes[(n, 1.0 + MARGIN)]
-            share = p[0] / p[1]
-            _line(
-                f"P(PASS) at the guarded margin (ratio {1 + MARGIN:.1f}), {n} units",
-                share,
-                f"<= {1 - conf:.2f}",
-                share <= 1 - conf + 1e-12,
-            )
+        if a.only in (None, "drift"):
+            _drift_part(pool, a)
+        if a.only in (None, "coverage"):
+            _coverage_part(pool, a, truth_p95, truth_b10)
+        if a.only in (None, "oc"):
+            _oc_part(pool, a)
     print(f"\ntotal {time.perf_counter() - t_all:.0f} s")
+
+
+def _drift_part(pool, a) -> None:
+    t0 = time.perf_counter()
+    res = pool.map(_drift_unit, range(1000, 1000 + a.drift_units))
+    f = drift_figures(res)
+    print(
+        f"\ndrift flag: {a.drift_units} units x 200,000 cycles, 1,000-cycle windows, re-judged every 2 "
+        f"windows ({f['crossing_units']} cross their limit, {f['steady_units']} steady; "
+        f"{time.perf_counter() - t0:.0f} s)"
+    )
+    _line(
+        "crossing units flagged before the true crossing",
+        f["detected_before"],
+        ">= 0.90",
+        f["detected_before"] >= 0.9,
+    )
+    _line(
+        "median lead, share of the cycles to the crossing",
+        f["median_lead"],
+        ">= 0.20",
+        f["median_lead"] >= 0.2,
+    )
+    _line("steady units ever flagged", f["false_alarm"], "<= 0.02", f["false_alarm"] <= 0.02)
+    _line("  (charts alone, for comparison)", f["chart_only_false_alarm"], "-", True)
+    _line("  (the earlier flag: chart + 90 % slope interval)", f["old_flag_false_alarm"], "-", True)
+    _line(
+        "median abs error of the projected crossing / true crossing",
+        f["projection_error"],
+        "reported",
+        True,
+    )
+
+
+def _coverage_part(pool, a, truth_p95: float, truth_b10: float) -> None:
+    t0 = time.perf_counter()
+    jobs = [
+        (n, 10_000 * n + i, truth_p95, truth_b10, i < a.old, i < a.life)
+        for n in SIZES
+        for i in range(a.populations)
+    ]
+    hits: dict[tuple[int, str], list[int]] = {}
+    for n, out, tp, tb in pool.imap_unordered(_coverage_one, jobs, chunksize=8):
+        for key, [(lo, hi)] in out.items():
+            truth = tb if key.startswith("b10") else (1.0 if "ratio" in key else tp)
+            h = hits.setdefault((n, key), [0, 0, 0])
+            h[0] += lo <= truth
+            h[1] += truth <= hi
+            h[2] += 1
+    print(f"\ninterval coverage ({a.populations} populations per size; {time.perf_counter() - t0:.0f} s)")
+    print("  target: within 2.5 points of nominal, never below by more; bounds one-sided at (1 + level) / 2")
+    for key, label in (
+        ("p95", "pooled p95, random unit effect"),
+        ("ratio", "p95 ratio, random unit effect (true ratio 1)"),
+        ("b10", "B10 lower bound, likelihood ratio, suspended at 300k"),
+        ("boot p95", "pooled p95, earlier cluster bootstrap"),
+        ("boot ratio", "p95 ratio, earlier cluster bootstrap"),
+    ):
+        for n in SIZES:
+            for lv in LEVELS:
+                h = hits.get((n, f"{key} {lv}"))
+                if not h:
+                    continue
+                one = (1 + lv) / 2
+                if key == "b10":  # the life criterion uses the lower bound only
+                    cov, nominal, what = h[0] / h[2], one, "lower side"
+                else:
+                    cov, nominal, what = (h[0] + h[1] - h[2]) / h[2], lv, "two-sided"
+                worst = min(h[0], h[1]) / h[2] if key != "b10" else cov
+                ok = cov >= nominal - 0.025 and (key == "b10" or worst >= one - 0.025)
+                _line(
+                    f"{label}, {n} units, {lv:.0%} ({what}, n={h[2]})",
+                    cov,
+                    f">= {nominal - 0.025:.3f}",
+                    ok,
+                )
+                if key != "b10":
+                    _line("    worse side alone", worst, f">= {one - 0.025:.3f}", worst >= one - 0.025)
+
+
+def _oc_part(pool, a) -> None:
+    t0 = time.perf_counter()
+    conf = 0.9
+    jobs = [
+        (n, d, 77 + 1000 * i + int(100 * d) + n, conf) for n in SIZES for d in OC_RATIOS for i in range(a.oc)
+    ]
+    passes: dict[tuple[int, float], list[int]] = {}
+    for n, d, ok in pool.imap_unordered(_oc_one, jobs, chunksize=8):
+        p = passes.setdefault((n, d), [0, 0])
+        p[0] += ok
+        p[1] += 1
+    print(
+        f"\nverdict: P(PASS) of 'make bounce p95 candidate / incumbent <= {1 + MARGIN:.1f}' "
+        f"at {conf:.0%}, "
+        f"{a.oc} populations a point ({time.perf_counter() - t0:.0f} s)"
+    )
+    print("  true ratio " + "".join(f"{d:>7.2f}" for d in OC_RATIOS))
+    for n in SIZES:
+        print(
+            f"  {n:3d} units  " + "".join(f"{passes[(n, d)][0] / passes[(n, d)][1]:7.2f}" for d in OC_RATIOS)
+        )
+    for n in SIZES:
+        p = passes[(n, 1.0 + MARGIN)]
+        share = p[0] / p[1]
+        _line(
+            f"P(PASS) at the guarded margin (ratio {1 + MARGIN:.1f}), {n} units",
+            share,
+            f"<= {1 - conf:.2f}",
+            share <= 1 - conf + 1e-12,
+        )
 
 
 if __name__ == "__main__":
