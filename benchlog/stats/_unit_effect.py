@@ -19,9 +19,9 @@ The uncertainty is carried by the unit-level parameters (mu, sigma), estimated f
 *Statistical Tolerance Regions*, Wiley 2009, ch. 2 and 5). The bounds are quantiles of the percentile
 computed at each draw. With no within-unit spread this is the exact one-sided normal tolerance bound
 ybar + k s, whose factor k the tests check against the noncentral t distribution. Resampling the units
-instead (the cluster bootstrap) ran 8 to 15 points below nominal with 8 to 16 units in the calibration
-harness (tests/benchmarks/bench_calibration.py): its intervals miss the large units a small sample
-seldom draws.
+instead (the cluster bootstrap) falls short of nominal with 8 to 16 units in the calibration harness
+(tests/benchmarks/bench_calibration.py; docs/qualification.md quotes both): its intervals miss the
+large units a small sample seldom draws.
 """
 
 from __future__ import annotations
