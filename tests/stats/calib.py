@@ -47,9 +47,11 @@ def true_p95(pop, wear: np.ndarray, draws: int, rng: np.random.Generator) -> np.
     return out
 
 
-def measured_windows(pop, n_cycles: int, window: int, rng: np.random.Generator, chunk: int = 20_000):
-    """Make bounce p95 per window of `window` cycles, through the analysis stage, of one unit that
-    does not fail within `n_cycles`."""
+def measured_windows(
+    pop, n_cycles: int, window: int, rng: np.random.Generator, chunk: int = 20_000, column: str = "bounce_us"
+):
+    """Make bounce (or `column` of the makes) p95 per window of `window` cycles, through the analysis
+    stage, of one unit that does not fail within `n_cycles`."""
     unit = draw_unit(rng, 0, "U", pop)
     unit.life = 1e15
     unit.mode = "chatter"
@@ -65,7 +67,7 @@ def measured_windows(pop, n_cycles: int, window: int, rng: np.random.Generator, 
         drives = TimedDrives(t[~e], np.zeros(int((~e).sum()), np.uint8), level[~e])
         rows = measure(edges, drives, settings=SETTINGS)
         rows["cycle"] += start
-        parts.append(window_stats(rows[rows["kind"] == MAKE], window))
+        parts.append(window_stats(rows[rows["kind"] == MAKE], window, column=column))
     return np.concatenate(parts)
 
 
