@@ -73,6 +73,20 @@ def _p_text(p: float) -> str:
     return "< 0.0001" if p < 1e-4 else f"{p:.4f}"
 
 
+def rising_trend_p(values: np.ndarray) -> float:
+    """One-sided p-value of Kendall's tau for a rising trend of `values` in their order: the normal
+    approximation with the variance corrected for ties (Kendall, *Rank Correlation Methods*, 1948),
+    as scipy.stats.kendalltau(method="asymptotic") computes it, without its per-call overhead."""
+    from scipy.special import ndtr
+
+    y = np.asarray(values, np.float64)
+    n = len(y)
+    s = float(np.triu(np.sign(y[None, :] - y[:, None]), 1).sum())
+    _, t = np.unique(y, return_counts=True)
+    var = (n * (n - 1) * (2 * n + 5) - float((t * (t - 1) * (2 * t + 5)).sum())) / 18.0
+    return float(ndtr(-s / math.sqrt(var))) if var > 0 else math.nan
+
+
 def over_since(windows: np.ndarray, limit: float, last: int = OVER_WINDOWS) -> int | None:
     """The cycle since which the window statistic has stayed above `limit`, when its last `last`
     windows with data all are; else None."""
@@ -373,10 +387,8 @@ def drift(
     after = (np.arange(len(values)) >= base.windows) & has
     if after.sum() >= 3:
         trend = project(mid[after], values[after], math.inf if limit is None else limit, confidence)
-        if np.ptp(values[after]) > 0:
-            from scipy.stats import kendalltau
-
-            trend_p = float(kendalltau(mid[after], values[after], alternative="greater").pvalue)
+        if np.ptp(values[after]) > 0 and (e_sig.any() or c_sig.any()):  # a flag needs a signal anyway
+            trend_p = rising_trend_p(values[after])
     over = None if limit is None else over_since(windows, limit)
     proj = trend if limit is not None and failed_at is None and over is None else None
     return DriftReport(

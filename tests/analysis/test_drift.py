@@ -193,3 +193,16 @@ def test_a_slow_creep_that_stays_below_the_limit_within_the_life_is_no_flag():
     rep = drift(ws, limit=3000.0, baseline_windows=None, horizon=drift_horizon(n, 100_000))
     assert rep.rising and rep.projection.crossing_cycle > 100_000
     assert not rep.confirmed
+
+
+def test_trend_test_is_kendalls_tau_as_scipy_computes_it():
+    from scipy.stats import kendalltau
+
+    from benchlog.analysis._drift import rising_trend_p
+
+    rng = np.random.default_rng(0)
+    for n in (12, 40, 200):
+        y = np.round(rng.normal(size=n) + 0.01 * np.arange(n), 1)  # rounded: ties as well
+        # reference: scipy.stats.kendalltau, one-sided, normal approximation with tie correction
+        ref = kendalltau(np.arange(n), y, alternative="greater", method="asymptotic").pvalue
+        assert rising_trend_p(y) == pytest.approx(ref, rel=1e-9)
