@@ -6,9 +6,13 @@ adjustment and its wear. So:
 
 - tests between populations (Mann-Whitney, Kolmogorov-Smirnov, Anderson-Darling k-sample) compare
   one summary per unit (its p95, say), so their sample size is the number of units;
-- intervals for a population's pooled percentile, mean, share beyond a limit or capability index come
-  from a cluster bootstrap: scipy's `bootstrap` resamples the *units* with replacement and each
-  resample pools all actuations of the units drawn, so between-unit spread is in the interval.
+- bounds on a population's pooled percentile, and on the ratio of two, come from a random-unit-effect
+  model with generalized pivotal quantities (`_unit_effect`): the cluster bootstrap fell short of its
+  stated confidence with 8 to 32 units in the calibration harness;
+- intervals for a mean, share beyond a limit or capability index (and a percentile of counts whose
+  unit medians are 0) come from a cluster bootstrap: scipy's `bootstrap` resamples the *units* with
+  replacement and each resample pools all actuations of the units drawn, so between-unit spread is in
+  the interval.
 
 The pooled statistics are computed from per-unit cumulative counts on a common grid of values, so a
 resample is one matrix product, not a concatenation of millions of values.
