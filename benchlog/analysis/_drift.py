@@ -15,6 +15,21 @@ The statistic charted is a robust one per window of cycles (by default the p95 o
 1,000 cycles), so one wild actuation moves nothing. The projection fits Theil-Sen (scipy.stats.theilslopes)
 to the windows after the baseline and reports the cycle at which the line reaches the spec limit, with the
 range given by the slope's confidence interval.
+
+A chart signal alone is not a flag for a person: a baseline of a few windows misjudges sigma, and over a
+long life the charts signal on steady units now and then. The drift *flag* (`DriftReport.confirmed`)
+needs three pieces of evidence, each named in its words:
+
+- a chart signal (EWMA or CUSUM above its limit);
+- a rising trend: Kendall's tau of the windows after the baseline against their cycles, one-sided, at
+  `alpha` (default 0.001; Kendall, *Biometrika* 30, 1938; the test behind Sen's slope interval), so that
+  a unit watched over its whole life, re-judged window after window, is seldom flagged by chance;
+- with a limit: the Theil-Sen line reaches it within the horizon (the cycles the unit is meant to last).
+
+A unit whose statistic has already stayed above its limit is *past the limit* since a stated cycle, and a
+failed unit gets no projection. The calibration harness (tests/benchmarks/bench_calibration.py) measures
+the flag's detection, lead and false alarms against the simulator's true statistic; docs/metrics.md
+quotes the figures.
 """
 
 from __future__ import annotations
@@ -37,6 +52,51 @@ WINDOW_DTYPE = np.dtype(
 )
 
 D2_N2 = 1.128  # d2 for moving ranges of two (Montgomery, table of control chart constants)
+DEFAULT_ALPHA = 0.001  # one-sided level of the trend test behind a drift flag
+OVER_WINDOWS = 3  # the last this many windows above the limit: past the limit
+BASELINE_MIN, BASELINE_MAX = 5, 20  # automatic baseline: the first quarter of the windows, 5 to 20
+
+
+def auto_baseline(n_windows: int) -> int:
+    """The baseline for a series of `n_windows`: its first quarter, at least 5 and at most 20 windows."""
+    return max(BASELINE_MIN, min(BASELINE_MAX, n_windows // 4))
+
+
+def drift_horizon(last_cycle: float, life_cycles: float | None = None) -> float:
+    """How far ahead a projected crossing makes a flag: the unit's required life (the spec's), and at
+    least a quarter beyond the cycles already done. A crossing projected further out is no concern yet
+    (and a steady unit's slow creep must not raise a flag)."""
+    return max(float(life_cycles or 0.0), 1.25 * float(last_cycle))
+
+
+def _p_text(p: float) -> str:
+    return "< 0.0001" if p < 1e-4 else f"{p:.4f}"
+
+
+def rising_trend_p(values: np.ndarray) -> float:
+    """One-sided p-value of Kendall's tau for a rising trend of `values` in their order: the normal
+    approximation with the variance corrected for ties (Kendall, *Rank Correlation Methods*, 1948),
+    as scipy.stats.kendalltau(method="asymptotic") computes it, without its per-call overhead."""
+    from scipy.special import ndtr
+
+    y = np.asarray(values, np.float64)
+    n = len(y)
+    s = float(np.triu(np.sign(y[None, :] - y[:, None]), 1).sum())
+    _, t = np.unique(y, return_counts=True)
+    var = (n * (n - 1) * (2 * n + 5) - float((t * (t - 1) * (2 * t + 5)).sum())) / 18.0
+    return float(ndtr(-s / math.sqrt(var))) if var > 0 else math.nan
+
+
+def over_since(windows: np.ndarray, limit: float, last: int = OVER_WINDOWS) -> int | None:
+    """The cycle since which the window statistic has stayed above `limit`, when its last `last`
+    windows with data all are; else None."""
+    v = windows["value"]
+    has = np.flatnonzero(~np.isnan(v))
+    if len(has) < last or not (v[has[-last:]] > limit).all():
+        return None
+    below = has[v[has] <= limit]
+    first = has[0] if not len(below) else has[np.searchsorted(has, below[-1]) + 1]
+    return int(windows["cycle_start"][first])
 
 
 def window_stats(
@@ -189,6 +249,11 @@ class DriftReport:
     cusum_signal: np.ndarray  # bool per window
     projection: Projection | None
     trend: Projection | None = None  # the Theil-Sen fit after the baseline, with or without a limit
+    trend_p: float = math.nan  # one-sided Kendall's tau p-value of a rising trend after the baseline
+    alpha: float = DEFAULT_ALPHA
+    horizon: float | None = None  # a crossing beyond this cycle is no concern (None: any crossing)
+    over_since: int | None = None  # the statistic has stayed above the limit since this cycle
+    failed_at: int | None = None  # the unit failed here: no projection
 
     @property
     def signalled(self) -> bool:
@@ -196,18 +261,71 @@ class DriftReport:
 
     @property
     def rising(self) -> bool:
-        """The whole slope interval of the post-baseline trend lies above zero."""
-        return self.trend is not None and self.trend.slope_low > 0
+        """The post-baseline trend rises: Kendall's tau significant at `alpha`, one-sided."""
+        return self.trend is not None and self.trend_p < self.alpha and self.trend.slope_per_cycle > 0
+
+    @property
+    def past_limit(self) -> bool:
+        return self.over_since is not None
+
+    @property
+    def reaches_limit(self) -> bool:
+        """The trend reaches the limit within the horizon (always, without a limit or a horizon)."""
+        if self.projection is None:
+            return self.limit is None
+        c = self.projection.crossing_cycle
+        return c is not None and (self.horizon is None or c <= self.horizon)
+
+    @property
+    def limit(self) -> float | None:
+        return None if self.trend is None or math.isinf(self.trend.limit) else self.trend.limit
 
     @property
     def confirmed(self) -> bool:
-        """A chart signalled and the trend is rising: what a flag for a person should require.
+        """The drift flag: a chart signal, a rising trend and (with a limit) a crossing within the
+        horizon, or a statistic already past its limit after a rise. Measured against the simulator's
+        truth by tests/benchmarks/bench_calibration.py."""
+        if not (self.signalled and self.rising):
+            return False
+        return self.past_limit or self.failed_at is not None or self.reaches_limit
 
-        The charts alone, on a baseline of a few windows, also signal on steady units now and then (a
-        short baseline underestimates sigma); a signal backed by a rising trend is the wear that drift
-        monitoring is for.
-        """
-        return self.signalled and self.rising
+    @property
+    def evidence(self) -> list[str]:
+        """The flag's evidence, in words."""
+        out = []
+        ends = self.windows["cycle_end"]
+        if self.ewma_signal.any():
+            out.append(f"EWMA chart signal from cycle {int(ends[np.argmax(self.ewma_signal)]):,}")
+        if self.cusum_signal.any():
+            out.append(f"CUSUM chart signal from cycle {int(ends[np.argmax(self.cusum_signal)]):,}")
+        if self.rising:
+            out.append(f"rising trend (Kendall's tau, one-sided p {_p_text(self.trend_p)})")
+        return out
+
+    @property
+    def outlook(self) -> str:
+        """Where the unit stands against its limit, in words that cannot contradict each other."""
+        if self.failed_at is not None:
+            return f"failed at cycle {self.failed_at:,}: no projection"
+        lim = self.limit
+        if self.past_limit:
+            return f"past its limit since cycle {self.over_since:,}"
+        p = self.projection
+        if lim is None or p is None:
+            return ""
+        if p.crossing_cycle is None:
+            return "the trend does not reach the limit"
+        hi = "never" if p.crossing_high is None else f"{p.crossing_high:,.0f}"
+        lo = "-" if p.crossing_low is None else f"{p.crossing_low:,.0f}"
+        return f"trend reaches the limit near cycle {p.crossing_cycle:,.0f} ({lo} to {hi})"
+
+    @property
+    def words(self) -> str:
+        """The flag in one line: its evidence, then the outlook."""
+        parts = self.evidence
+        if self.outlook:
+            parts = [*parts, self.outlook]
+        return "; ".join(parts)
 
     @property
     def first_signal_cycle(self) -> int | None:
@@ -222,7 +340,9 @@ class DriftReport:
             out.append(f"EWMA above its limit from cycle {int(ends[np.argmax(self.ewma_signal)])}")
         if self.cusum_signal.any():
             out.append(f"CUSUM above its limit from cycle {int(ends[np.argmax(self.cusum_signal)])}")
-        if self.projection and self.projection.crossing_cycle is not None:
+        if self.past_limit:
+            out.append(f"past the limit since cycle {self.over_since}")
+        elif self.projection and self.projection.crossing_cycle is not None:
             p = self.projection
             out.append(f"trend reaches the limit near cycle {p.crossing_cycle:,.0f}")
         return out
@@ -231,19 +351,27 @@ class DriftReport:
 def drift(
     windows: np.ndarray,
     limit: float | None = None,
-    baseline_windows: int = 5,
+    baseline_windows: int | None = 5,
     lam: float = 0.2,
     width: float = 3.0,
     k: float = 0.5,
     h: float = 5.0,
     upward_only: bool = True,
     confidence: float = 0.9,
+    *,
+    alpha: float = DEFAULT_ALPHA,
+    horizon: float | None = None,
+    failed_at: int | None = None,
 ) -> DriftReport:
     """Charts and projection over window statistics (WINDOW_DTYPE from `window_stats`).
 
     Upward drift is what wear does to bounce, so by default only the upper side signals.
+    `baseline_windows=None` takes the first quarter of the windows (5 to 20). `horizon`: a projected
+    crossing beyond this cycle does not make a flag; `failed_at`: the unit failed there (no projection).
     """
     values = windows["value"].astype(np.float64)
+    if baseline_windows is None:
+        baseline_windows = auto_baseline(int(np.count_nonzero(~np.isnan(values))))
     base = baseline(values, baseline_windows)
     filled = np.where(np.isnan(values), base.mean, values)
     z, lo, hi = ewma(filled, base.mean, base.sigma, lam, width)
@@ -254,12 +382,34 @@ def drift(
     e_sig &= has
     c_sig &= has
     trend = None
+    trend_p = math.nan
     mid = (windows["cycle_start"] + windows["cycle_end"]) / 2.0
-    after = np.arange(len(values)) >= base.windows
+    after = (np.arange(len(values)) >= base.windows) & has
     if after.sum() >= 3:
         trend = project(mid[after], values[after], math.inf if limit is None else limit, confidence)
-    proj = trend if limit is not None else None
-    return DriftReport(windows, base, z, lo, hi, cp, cm, hh, e_sig, c_sig, proj, trend)
+        if np.ptp(values[after]) > 0 and (e_sig.any() or c_sig.any()):  # a flag needs a signal anyway
+            trend_p = rising_trend_p(values[after])
+    over = None if limit is None else over_since(windows, limit)
+    proj = trend if limit is not None and failed_at is None and over is None else None
+    return DriftReport(
+        windows,
+        base,
+        z,
+        lo,
+        hi,
+        cp,
+        cm,
+        hh,
+        e_sig,
+        c_sig,
+        proj,
+        trend,
+        trend_p,
+        alpha,
+        horizon,
+        over,
+        failed_at,
+    )
 
 
 class DriftMonitor:

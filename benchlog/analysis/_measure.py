@@ -156,7 +156,11 @@ def measure_windows(
     # levels alternate and the first edge goes toward the expected state: every second one is away
     out["bounce_count"] = np.where(moved & has_edges, (end_b - a) // 2, 0)
     out["longest_gap_us"] = np.where(moved & has_edges, longest / _NS_PER_US, np.nan)
-    out["wrong_state_us"] = np.where(moved & has_edges, (away_cum[end_b] - away_cum[a]) / _NS_PER_US, np.nan)
+    # A stuck contact never left the old state: all of its window was spent there (docs/metrics.md).
+    out["wrong_state_us"] = np.where(
+        has_edges, (away_cum[end_b] - away_cum[a]) / _NS_PER_US, (w_end - w_start) / _NS_PER_US
+    )
+    out["wrong_state_us"] = np.where(moved, out["wrong_state_us"], np.nan)
     # Chatter: excursions in the stable period (after the settle point, or the whole window when the
     # contact was already in the expected state).
     c_from = np.where(settled, j, np.where(moved, b, a))

@@ -18,6 +18,10 @@ def _dist(values: np.ndarray) -> dict[str, float | None]:
     return {"n": int(len(v)), "p50": float(p50), "p95": float(p95), "max": float(v.max())}
 
 
+def _counts(rows: np.ndarray) -> np.ndarray:
+    return rows["bounce_count"][(rows["flags"] & (MISSED | STUCK)) == 0].astype(np.float64)
+
+
 def summarize(actuations: np.ndarray, spec: PartSpec | None = None) -> list[dict[str, Any]]:
     """One dict per channel: counts, p50/p95/max (us) of bounce and transit times, and the verdict."""
     out = []
@@ -40,8 +44,9 @@ def summarize(actuations: np.ndarray, spec: PartSpec | None = None) -> list[dict
             "chatter_events": int(good["chatter"].clip(min=0).sum()),
             "make_bounce_us": _dist(makes["bounce_us"]),
             "break_bounce_us": _dist(breaks["bounce_us"]),
-            "make_bounce_count": _dist(makes["bounce_count"].astype(np.float64)),
-            "break_bounce_count": _dist(breaks["bounce_count"].astype(np.float64)),
+            # a missed or stuck actuation has no bounce to count, as it has no bounce time
+            "make_bounce_count": _dist(_counts(makes)),
+            "break_bounce_count": _dist(_counts(breaks)),
             "operate_us": _dist(good["transit_us"][good["drive_level"] == 1]),
             "release_us": _dist(good["transit_us"][good["drive_level"] == 0]),
             "transfer_us": _dist(good["transfer_us"]),

@@ -33,6 +33,7 @@ from benchlog.stats._life import (
     weibayes_bx_lower,
 )
 from benchlog.stats._metrics import METRICS, Metric, metric_samples
+from benchlog.stats._oc import Characteristic, UnitModel, operating_characteristic
 from benchlog.stats._planning import (
     LifeTopUp,
     life_top_up,
@@ -81,6 +82,9 @@ __all__ = [
     "same_life_test",
     "weibayes_bx_lower",
     "METRICS",
+    "Characteristic",
+    "UnitModel",
+    "operating_characteristic",
     "Metric",
     "metric_samples",
     "LifeTopUp",

@@ -6,7 +6,17 @@ import numpy as np
 import pytest
 from scipy.stats import theilslopes
 
-from benchlog.analysis import MAKE, DriftMonitor, cusum, drift, empty_actuations, ewma, project, window_stats
+from benchlog.analysis import (
+    MAKE,
+    DriftMonitor,
+    cusum,
+    drift,
+    drift_horizon,
+    empty_actuations,
+    ewma,
+    project,
+    window_stats,
+)
 
 # Montgomery, Introduction to Statistical Quality Control, tabular CUSUM example (Table 9.1 in the
 # editions I know): 30 observations, the first 20 from N(10, 1), the last 10 after a shift to mean 11.
@@ -129,3 +139,70 @@ def test_confirmed_needs_a_rising_trend_as_well_as_a_chart_signal():
     assert rep.confirmed and rep.projection is None and rep.trend.slope_low > 0
     mid = (ws["cycle_start"] + ws["cycle_end"]) / 2
     assert rep.trend.slope_per_cycle == pytest.approx(theilslopes(ws["value"][5:], mid[5:])[0])
+
+
+def _rejudged(series_windows, limit, life, every=5):
+    """Flag states of one series re-judged as its windows arrive (the dashboard re-reads them)."""
+    out = []
+    for n in range(8, len(series_windows) + 1, every):
+        rep = drift(
+            series_windows[:n], limit=limit, baseline_windows=None, horizon=drift_horizon(n * 100, life)
+        )
+        out.append(rep)
+    return out
+
+
+def test_steady_units_rejudged_over_their_life_are_seldom_flagged():
+    # 60 steady units (no trend at all), 6,000 cycles each, re-judged every 5 windows. A false alarm
+    # share at most 2 % is the target (issue 14); the charts alone fire on many of them, and the
+    # earlier flag (a chart signal with the 90 % slope interval above zero) on more than 2 %.
+    rng = np.random.default_rng(11)
+    charts = earlier = flagged = 0
+    for _ in range(60):
+        ws = window_stats(actuations(6_000, rng.lognormal(7, 0.3, 6_000)), 100)
+        reps = _rejudged(ws, 3000.0, 100_000)
+        charts += any(r.signalled for r in reps)
+        earlier += any(r.signalled and r.trend is not None and r.trend.slope_low > 0 for r in reps)
+        flagged += any(r.confirmed for r in reps)
+    assert charts >= 10 and earlier > 1  # what the flag used to show
+    assert flagged <= 1  # <= 2 % of 60
+
+
+def test_a_unit_past_its_limit_says_since_when_and_projects_nothing():
+    n = 8_000
+    rng = np.random.default_rng(5)
+    vals = 1000.0 * (1 + np.arange(n) / 2_000) * rng.lognormal(0, 0.05, n)  # passes 3,000 near 4,000
+    ws = window_stats(actuations(n, vals), 100)
+    rep = drift(ws, limit=3000.0, baseline_windows=None, horizon=100_000)
+    last_below = int(np.flatnonzero(ws["value"] <= 3000.0)[-1])
+    assert rep.past_limit and rep.over_since == int(ws["cycle_start"][last_below + 1])
+    assert rep.projection is None and rep.confirmed
+    assert f"past its limit since cycle {rep.over_since:,}" in rep.words
+    assert "reaches the limit" not in rep.words and "rising trend" in rep.words
+    # a unit that failed gets no projection either, and says so
+    rep = drift(ws[:30], limit=3000.0, baseline_windows=None, horizon=100_000, failed_at=3_000)
+    assert rep.projection is None and "failed at cycle 3,000: no projection" in rep.words
+
+
+def test_a_slow_creep_that_stays_below_the_limit_within_the_life_is_no_flag():
+    # rising for certain, but the line reaches the limit far beyond the unit's life: no flag
+    n = 10_000
+    rng = np.random.default_rng(8)
+    vals = 1000.0 * (1 + np.arange(n) / 200_000) * rng.lognormal(0, 0.05, n)
+    ws = window_stats(actuations(n, vals), 100)
+    rep = drift(ws, limit=3000.0, baseline_windows=None, horizon=drift_horizon(n, 100_000))
+    assert rep.rising and rep.projection.crossing_cycle > 100_000
+    assert not rep.confirmed
+
+
+def test_trend_test_is_kendalls_tau_as_scipy_computes_it():
+    from scipy.stats import kendalltau
+
+    from benchlog.analysis._drift import rising_trend_p
+
+    rng = np.random.default_rng(0)
+    for n in (12, 40, 200):
+        y = np.round(rng.normal(size=n) + 0.01 * np.arange(n), 1)  # rounded: ties as well
+        # reference: scipy.stats.kendalltau, one-sided, normal approximation with tie correction
+        ref = kendalltau(np.arange(n), y, alternative="greater", method="asymptotic").pvalue
+        assert rising_trend_p(y) == pytest.approx(ref, rel=1e-9)

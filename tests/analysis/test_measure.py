@@ -21,6 +21,7 @@ from benchlog.analysis import (
     AnalysisSettings,
     Analyzer,
     measure,
+    summarize,
 )
 from benchlog.errors import ConfigError
 from benchlog.events import DISCONNECT, Incident, TimedDrives, TimedEdges
@@ -105,6 +106,29 @@ def test_missed_make_and_stuck_contact():
     assert rows[1]["flags"] & NO_CHANGE
     assert rows[2]["flags"] & STUCK and rows[2]["flags"] & MISSED and rows[2]["t_first_ns"] == -1
     assert rows[2]["cycle"] == 1
+    # docs/metrics.md: a missed make's wrong_state_us runs to the end of the window; a stuck contact
+    # never left the old state, so all of its window (drive at 100 ms to the next at 150 ms) counts
+    assert rows[2]["wrong_state_us"] == 50_000.0
+
+
+def test_summary_counts_bounce_only_where_it_times_bounce():
+    # IEC 61810-1 bounce time (from memory) has no value for a make that never settled; the count of
+    # reopenings belongs to the same bounce, so a missed or stuck make is left out of both (hand count:
+    # a good make with two reopenings, a missed make, a stuck make -> one make counted, p50 2)
+    edges, _ = one_cycle()
+    later = [(105 * MS, 0, 1), (105 * MS + 200 * US, 0, 0)]  # cycle 1 touches, falls open: missed
+    # cycle 2 (drive on at 200 ms): no edge at all, stuck open
+    steps = [(k * 50 * MS, 0, 1 - k % 2) for k in range(7)]
+    rows = measure(
+        E(*zip(edges.t_ns.tolist(), edges.channel.tolist(), edges.level.tolist(), strict=True), *later),
+        D(*steps),
+        settings=SETTINGS,
+    )
+    makes = rows[rows["kind"] == MAKE]
+    assert makes["flags"][1] & MISSED and makes["flags"][2] & STUCK
+    (ch,) = summarize(rows)
+    assert ch["make_bounce_us"]["n"] == 1
+    assert ch["make_bounce_count"]["n"] == 1 and ch["make_bounce_count"]["p50"] == 2.0
 
 
 def test_welded_contact_never_opens():

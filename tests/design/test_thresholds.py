@@ -57,3 +57,10 @@ def test_malformed_tables(text, match, tmp_path):
 def test_missing_file():
     with pytest.raises(ConfigError, match="cannot read"):
         load_thresholds("/nonexistent/thresholds.toml")
+
+
+def test_hc_family_schmitt_hysteresis_at_4_5_v():
+    # HC-family (high-speed CMOS, JEDEC JESD7) Schmitt-trigger inverter datasheets, several makers:
+    # at VCC = 4.5 V the guaranteed hysteresis VT+ - VT- is 0.4 V minimum (from memory)
+    row = find_input(load_thresholds(), "HC-family Schmitt, 4.5 V")
+    assert row.supply == 4.5 and row.hysteresis_min == 0.4

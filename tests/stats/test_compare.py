@@ -32,6 +32,19 @@ def test_mann_whitney_on_the_scipy_documented_example():
     assert stats.mannwhitneyu(males, females, method="exact").statistic == 17.0
     # one-sided, males worse (greater): half the two-sided exact p-value here (U = 17 of 20)
     assert res.mann_whitney_worse_p == pytest.approx(0.1111111111111111 / 2)
+    assert res.leaning == "worse"
+
+
+def test_a_better_candidate_leans_better_with_its_own_one_sided_p():
+    # the same scipy documentation example the other way round: the lower group as the candidate.
+    # Exact one-sided p that it is stochastically less: 0.1111 / 2 (U = 3 of 20 from its side).
+    males, females = [19, 22, 16, 29, 24], [20, 11, 17, 12]
+    res = unit_tests([np.array(females, float), np.array(males, float)], "age")
+    assert res.leaning == "better"
+    assert res.mann_whitney_better_p == pytest.approx(0.1111111111111111 / 2)
+    ref = stats.mannwhitneyu(females, males, alternative="less", method="exact").pvalue
+    assert res.mann_whitney_better_p == pytest.approx(ref)
+    assert res.mann_whitney_worse_p > 0.9  # the one-sided test the report used to print alone
 
 
 def test_anderson_darling_k_sample_on_scholz_stephens_example():

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli._args import fraction, positive
+from benchlog.views.cli._args import fraction, non_negative, positive
 
 NAME = "plan"
 HELP = "Plan a life demonstration (success run, Weibayes) or say what would settle a running test."
@@ -14,6 +14,10 @@ EPILOG = """\
 Without --lot: how many units must all survive (success run), and with --life and --shape how long
 each must run (Weibayes, shape assumed known). With --lot (and --db): the lot's life so far from the
 store, and how many more cycles on its running units, with no further failure, would show the life.
+With --oc: the chance that the comparison with the incumbent passes (a percentile of the candidate at
+most 1 + --margin times the incumbent's, at the confidence) as a function of the candidate's true
+ratio, for 8, 16 and 32 units (or --units and its half and double), simulated from the incumbent's
+recorded units (--incumbent, from the store) or from assumed spreads (--unit-spread, --spread).
 """
 
 
@@ -39,6 +43,26 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--failures", type=int, default=0, help="failures the plan may allow (default 0)")
     p.add_argument("--lot", help="a running test's lot (PART:LOT, lot code or part number) in the store")
     p.add_argument("--db", help="store URL or SQLite path (default: $BENCHLOG_DB, then ./benchlog.sqlite)")
+    oc = p.add_argument_group("operating characteristic (--oc)")
+    oc.add_argument("--oc", action="store_true", help="simulate the chance the comparison passes")
+    oc.add_argument("--incumbent", metavar="LOT", help="the incumbent's lot in the store: its units' spread")
+    oc.add_argument(
+        "--metric", default=None, help="metric compared (default: the spec's first, else make_bounce)"
+    )
+    oc.add_argument("--margin", type=non_negative, default=0.2, help="how much worse may pass (default 0.2)")
+    oc.add_argument(
+        "--unit-spread",
+        type=non_negative,
+        default=0.25,
+        help="log-sd of unit medians, no data (default 0.25)",
+    )
+    oc.add_argument(
+        "--spread", type=positive, default=0.4, help="log-sd of one unit's actuations, no data (default 0.4)"
+    )
+    oc.add_argument(
+        "--populations", type=int, default=300, help="simulated pairs of lots a point (default 300)"
+    )
+    oc.add_argument("--seed", type=int, default=0, help="simulation seed (default 0)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -102,6 +126,8 @@ def run(args: argparse.Namespace) -> int:
             "\n(give --shape for a Weibayes plan: fewer units each running longer than the life, "
             "or the reverse)"
         )
+    if args.oc:
+        _operating_characteristic(args, conf)
     if args.lot:
         if not life:
             raise ConfigError("a running test needs the life to show: --life or --spec")
@@ -148,3 +174,90 @@ def run(args: argparse.Namespace) -> int:
         else:
             print("  no unit is still running: more units are needed")
     return 0
+
+
+def _operating_characteristic(args: argparse.Namespace, conf: float) -> None:
+    import sys
+
+    from benchlog.errors import ConfigError, DataError
+    from benchlog.stats import METRICS, UnitModel, operating_characteristic
+
+    metric, pct = args.metric, 95.0
+    if args.spec:
+        from benchlog.analysis import load_spec
+
+        spec = load_spec(args.spec)
+        lims = [lim for lim in spec.limits if lim.metric in METRICS and lim.percentile < 100]
+        if metric is None and lims:
+            metric, pct = lims[0].metric, float(lims[0].percentile)
+        else:
+            pct = next((float(lim.percentile) for lim in lims if lim.metric == metric), 95.0)
+    metric = metric or "make_bounce"
+    if metric not in METRICS or METRICS[metric].kind != "percentile":
+        known = ", ".join(k for k, m in METRICS.items() if m.kind == "percentile")
+        raise ConfigError(f"--metric: {metric!r} is not a percentile metric ({known})")
+    if args.populations < 20:
+        raise ConfigError("--populations must be at least 20")
+    if args.incumbent:
+        from benchlog.store import Store
+        from benchlog.views.report._data import load_lot
+
+        store = Store.open(args.db, readonly=True)
+        try:
+            lot = load_lot(store, args.incumbent, with_runs=False)
+        finally:
+            store.close()
+        sample = lot.population.samples.get(metric)
+        if sample is None or not len(sample):
+            raise DataError(f"{lot.label}: no {METRICS[metric].label} recorded")
+        model = UnitModel.from_sample(sample)
+    else:
+        model = UnitModel.assumed(args.unit_spread, args.spread)
+    if args.units:
+        units = tuple(sorted({max(3, args.units // 2), max(3, args.units), 2 * args.units}))
+    else:
+        units = (8, 16, 32)
+    tty = sys.stderr.isatty()
+
+    def progress(done: int, total: int) -> None:
+        if tty:
+            print(f"\rsimulating: {done}/{total} points", end="" if done < total else "\n", file=sys.stderr)
+
+    cycles = int(args.cycles) if args.cycles else 1000
+    oc = operating_characteristic(
+        model,
+        units,
+        cycles=cycles,
+        margin=args.margin,
+        confidence=conf,
+        percentile=pct,
+        populations=args.populations,
+        seed=args.seed,
+        progress=progress,
+    )
+    label = METRICS[metric].label
+    print(
+        f"\noperating characteristic: P(pass) of '{label} p{pct:g}, candidate / incumbent <= "
+        f"{1 + args.margin:.2f}' at {conf:.0%} confidence"
+    )
+    print(f"  units drawn from {model.source}; {args.populations} simulated pairs of lots a point")
+    print("  true ratio " + "".join(f"{d:>7.2f}" for d in oc.ratios))
+    for i, n in enumerate(oc.units):
+        print(f"  {n:4d} units " + "".join(f"{p:7.2f}" for p in oc.pass_share[i]))
+    print(f"\n  P(pass), {oc.units[-1]} units ('#') and {oc.units[0]} units ('.'), 0 to 1:")
+    width = 40
+    for j, d in enumerate(oc.ratios):
+        hi, lo = oc.pass_share[-1, j], oc.pass_share[0, j]
+        bar = "".join(
+            "#" if k < round(hi * width) else ("." if k < round(lo * width) else " ") for k in range(width)
+        )
+        guard = "  <- the guarded margin" if abs(d - (1 + args.margin)) < 1e-9 else ""
+        print(f"  {d:5.2f} |{bar}| {hi:.2f}{guard}")
+    at = [k for k, d in enumerate(oc.ratios) if abs(d - (1 + args.margin)) < 1e-9]
+    if at:
+        worst = float(oc.pass_share[:, at[0]].max())
+        print(
+            f"  at a true ratio of {1 + args.margin:.2f} it passes at most {worst:.0%} of the time "
+            f"(at most {1 - conf:.0%} intended, simulation error about "
+            f"{(conf * (1 - conf) / args.populations) ** 0.5:.0%})"
+        )

@@ -145,6 +145,17 @@ def _p(v) -> str:
     return "p < 0.001" if v < 0.001 else f"p = {v:.3f}"
 
 
+def _leaning(tests: dict) -> str:
+    """The one-sided Mann-Whitney test in the direction the units lean: never "candidate worse, p = 1"
+    for a candidate that is better."""
+    worse, better = tests.get("mann_whitney_worse_p"), tests.get("mann_whitney_better_p")
+    if worse is None or better is None or math.isnan(worse) or math.isnan(better):
+        return f"candidate worse, one-sided: {_p(worse)}"
+    if better < worse:
+        return f"candidate better, one-sided: {_p(better)}"
+    return f"candidate worse, one-sided: {_p(worse)}"
+
+
 def _table(head: list[str], rows: list[list[str]], num_from: int = 1) -> str:
     """A table; its head (when it has one) is repeated on every printed page the table runs onto."""
     out = ["<table>"]
@@ -255,7 +266,7 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
         out += (
             f'<p class="small">Distribution-free tests on one value per unit ({escape(t["summary"])}; '
             f"units {', '.join(str(u) for u in t['units'])}): Mann-Whitney {_p(t['mann_whitney_p'])} "
-            f"(candidate worse, one-sided: {_p(t['mann_whitney_worse_p'])}), Kolmogorov-Smirnov "
+            f"({_leaning(t)}), Kolmogorov-Smirnov "
             f"{_p(t['ks_p'])}, Anderson-Darling k-sample {_p(t['anderson_p'])}{cap}, "
             f"Kruskal-Wallis {_p(t['kruskal_p'])}.</p>"
         )

@@ -17,8 +17,9 @@ Statistics made from rollup windows (each window keeps count, p50, p95 and max o
 - **drift**: `benchlog.analysis.drift` over the windows' p95 (coarsened to at most `DRIFT_POINTS`
   points by taking medians of consecutive windows), baseline from the first windows, projection to
   the spec limit by Theil-Sen. The baseline is the first quarter of the windows (5 to 20). A unit is
-  flagged DRIFT when a chart signalled *and* the Theil-Sen slope's 90 % interval lies above zero: the
-  charts alone, on 100-cycle windows and a short baseline, signal on steady units too often.
+  flagged DRIFT by `DriftReport.confirmed`: a chart signal, a rising trend (Kendall's tau) and a
+  crossing within the spec's life (docs/metrics.md gives the flag's measured detection and false
+  alarms); a unit past its limit says since when, a failed one gets no projection.
 """
 
 from __future__ import annotations
@@ -41,6 +42,7 @@ from benchlog.analysis import (
     WINDOW_DTYPE,
     PartSpec,
     drift,
+    drift_horizon,
     parse_spec,
 )
 from benchlog.errors import BenchlogError
@@ -191,10 +193,13 @@ class DriftFlag:
     baseline: float
     limit: float | None
     last_cycle: int  # the last cycle the trend covers
+    over_since: int | None = None  # the statistic has stayed above the limit since this cycle
+    failed_at: int | None = None  # the unit failed: no projection
+    evidence: str = ""  # the flag's evidence in words (chart signal, rising trend)
 
     @property
     def past_limit(self) -> bool:
-        return self.crossing_cycle is not None and self.crossing_cycle <= self.last_cycle
+        return self.over_since is not None
 
     @property
     def short(self) -> str:
@@ -202,14 +207,19 @@ class DriftFlag:
             return ""
         head = f"DRIFT {self.words}"
         if self.past_limit:
-            return f"{head}, trend past the limit"
+            return f"{head}, past the limit since {cycles_text(self.over_since)}"
+        if self.failed_at is not None:
+            return head
         if self.crossing_cycle is not None:
             return f"{head} -> limit ~{cycles_text(self.crossing_cycle)}"
         return head
 
 
-def drift_of(trend: Trend, metric: str, spec: PartSpec | None) -> tuple[DriftFlag | None, object | None]:
-    """(flag, DriftReport) for one metric's trend, or (None, None) with too few windows."""
+def drift_of(
+    trend: Trend, metric: str, spec: PartSpec | None, failed_at: int | None = None
+) -> tuple[DriftFlag | None, object | None]:
+    """(flag, DriftReport) for one metric's trend, or (None, None) with too few windows. `failed_at`:
+    the unit failed at this cycle (its flag then carries no projection)."""
     lim = limit_for(spec, metric)
     stat = lim[1] if lim else "p95"
     w = windows_of(trend, stat)
@@ -217,7 +227,11 @@ def drift_of(trend: Trend, metric: str, spec: PartSpec | None) -> tuple[DriftFla
         return None, None
     n_base = max(DRIFT_BASELINE, min(DRIFT_BASELINE_MAX, len(w) // 4))
     try:
-        rep = drift(w, limit=lim[0] if lim else None, baseline_windows=n_base)
+        life = spec.life.min_cycles if spec is not None and spec.life is not None else None
+        horizon = drift_horizon(int(w["cycle_end"][-1]), life)
+        rep = drift(
+            w, limit=lim[0] if lim else None, baseline_windows=n_base, horizon=horizon, failed_at=failed_at
+        )
     except BenchlogError:
         return None, None
     p = rep.projection
@@ -232,6 +246,9 @@ def drift_of(trend: Trend, metric: str, spec: PartSpec | None) -> tuple[DriftFla
         rep.baseline.mean,
         lim[0] if lim else None,
         int(w["cycle_end"][-1]) - 1,
+        rep.over_since,
+        failed_at,
+        "; ".join(rep.evidence),
     )
     return flag, rep
 
@@ -520,6 +537,10 @@ def _spec_key(spec) -> tuple | None:
     return None if spec is None else (spec.number, spec.marginal_band, spec.limits)
 
 
+def _failed_at(unit: UnitInfo) -> int | None:
+    return (unit.failed_at_cycle or unit.cycles) if unit.status == FAILED else None
+
+
 def _unit_row(store, channel: int, unit: UnitInfo, run_cycles: int, run: RunInfo, cache: TrendCache, spec):
     figs: dict[str, Figures] = {}
     trends: dict[str, Trend] = {}
@@ -539,9 +560,12 @@ def _unit_row(store, channel: int, unit: UnitInfo, run_cycles: int, run: RunInfo
     recent = counts[0][1] + counts[1][1]
     verdict, reasons = judge_unit(unit, figs, recent, run.rollup_window, spec)
     flags = []
+    failed = _failed_at(unit)
     for key in ("make_bounce", "break_bounce", "operate_time", "release_time"):
         flag, _ = cache.derived(
-            (uid, key, "drift", _spec_key(spec)), trends[key], lambda t, k=key: drift_of(t, k, spec)
+            (uid, key, "drift", _spec_key(spec), failed),
+            trends[key],
+            lambda t, k=key: drift_of(t, k, spec, failed),
         )
         if flag is not None:
             flags.append(flag)
@@ -578,7 +602,7 @@ def read_history(store, unit_id: int, metric: str, span: tuple[int, int] | None,
     words, column, kind = CHART_METRICS[metric]
     trend = store.trend(unit_id, column, kind=kind)
     lim = limit_for(spec, metric)
-    flag, rep = drift_of(trend, metric, spec)
+    flag, rep = drift_of(trend, metric, spec, _failed_at(unit))
     sig = np.zeros(0, np.int64)
     if rep is not None:
         hit = rep.ewma_signal | rep.cusum_signal

@@ -106,7 +106,9 @@ class HistoryScreen(DataScreen):
             title.append("  DRIFT", style=DRIFT_STYLE)
             title.append(f" from cycle {cycles_text(data.flag.first_signal_cycle)}")
             if data.flag.past_limit:
-                title.append(", trend past the limit")
+                title.append(f", past the limit since {cycles_text(data.flag.over_since)}")
+            elif data.flag.failed_at is not None:
+                title.append(f", failed at {cycles_text(data.flag.failed_at)}")
             elif data.flag.crossing_cycle is not None:
                 title.append(f", limit reached near {cycles_text(data.flag.crossing_cycle)}")
         elif data.flag is not None:

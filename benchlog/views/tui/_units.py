@@ -67,6 +67,8 @@ def drift_cell(row: UnitRow) -> Text:
     names = "+".join(short.get(d.words, d.words) for d in sig)
     if first.past_limit:
         cross = " over"
+    elif first.failed_at is not None:
+        cross = ""
     else:
         cross = f" @{cycles_text(first.crossing_cycle)}" if first.crossing_cycle is not None else ""
     return Text(f"DRIFT {names}{cross}", style=DRIFT_STYLE)
@@ -249,10 +251,14 @@ class UnitsScreen(DataScreen):
 
     @staticmethod
     def _drift_words(d) -> str:
-        text = f"DRIFT {d.words}: chart signal from cycle {cycles_text(d.first_signal_cycle)}"
-        text += f", baseline {value_text(d.baseline)} ms"
+        text = (
+            f"DRIFT {d.words}: {d.evidence or 'chart signal from cycle ' + cycles_text(d.first_signal_cycle)}"
+        )
+        text += f"; baseline {value_text(d.baseline)} ms"
         if d.past_limit:
-            text += f", its trend is past the {value_text(d.limit)} ms limit"
+            text += f", past the {value_text(d.limit)} ms limit since cycle {cycles_text(d.over_since)}"
+        elif d.failed_at is not None:
+            text += f"; failed at cycle {cycles_text(d.failed_at)}: no projection"
         elif d.crossing_cycle is not None:
             text += f", reaches the {value_text(d.limit)} ms limit near cycle {cycles_text(d.crossing_cycle)}"
             lo = cycles_text(d.crossing_low) if d.crossing_low is not None else "-"

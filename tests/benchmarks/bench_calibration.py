@@ -1,0 +1,245 @@
+"""Calibration: every drift flag and every stated confidence measured against the simulator's truth.
+
+Populations are drawn from the simulator's physics (benchlog.sim: bounce trains, wear, Weibull lives
+and failure modes, suspensions at the end of the test; each unit with its own bounce size and, for
+drift, its own wear rate), without the pseudo-terminal. They are judged by the code the commands run:
+`benchlog.analysis.measure`, `window_stats` and `drift` (what `record` and `dash` use), and
+`benchlog.stats` (`pooled_percentile`, `percentile_ratio`, `fit_weibull` bounds, the criteria's
+`decide_at_most` - what `qualify`, `plan` and `report` use). Figures are printed beside their targets,
+MISSED where one misses.
+
+Run: python tests/benchmarks/bench_calibration.py [--populations N] [--drift-units N] [--jobs 2]
+(defaults: 1000 populations per size, 300 of them with a life fit and 200 with the earlier bootstrap,
+150 populations per point of the verdict's curve, 60 drift units).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from multiprocessing import Pool
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "tests" / "stats"))
+
+from calib import (  # noqa: E402
+    MAKE_LIMIT_US,
+    demo_population,
+    draw_lot,
+    drift_figures,
+    judge_unit_drift,
+    true_b10,
+    true_pooled_p95,
+    unit_population,
+)
+
+from benchlog.errors import DataError  # noqa: E402
+from benchlog.stats import decide_at_most, fit_weibull, percentile_ratio, pooled_percentile  # noqa: E402
+from benchlog.stats._unit_effect import UnitEffect, bounds  # noqa: E402
+
+SIZES = (8, 16, 32)
+LEVELS = (0.80, 0.90, 0.95)  # two-sided nominal; each bound one-sided at (1 + level) / 2
+CYCLES = 100  # recorded cycles per unit for the metric intervals
+TEST_END = 300_000.0  # life test length: units alive then are suspensions
+MARGIN = 0.2
+OC_RATIOS = (0.8, 0.9, 1.0, 1.1, 1.2, 1.3)
+
+
+def _line(name: str, value: float, target: str, ok: bool) -> None:
+    print(f"  {name:<58} {value:8.3f}   target {target:<16} {'' if ok else 'MISSED'}")
+
+
+def _drift_unit(seed: int):
+    rng = np.random.default_rng(seed)
+    unit = unit_population(demo_population(), rng, 0.6, 0.7, 0.1)
+    return judge_unit_drift(unit, 200_000, 1000, 2, MAKE_LIMIT_US, 100_000, rng)
+
+
+def _coverage_one(args):
+    units, seed, truth_p95, truth_b10, old, life = args
+    rng = np.random.default_rng(seed)
+    pop = demo_population()
+    lot = draw_lot(pop, units, CYCLES, rng, test_end=TEST_END)
+    ref = draw_lot(pop, units, CYCLES, rng)
+    s, r = lot.samples["make_bounce"], ref.samples["make_bounce"]
+    out: dict[str, list[tuple[float, float]]] = {}
+    # the draws pooled_percentile and percentile_ratio take, shared by the three levels
+    m_s, m_r = UnitEffect.of(s), UnitEffect.of(r)
+    d_s = m_s.percentile_draws(95.0, 2000, seed)
+    d_r = m_r.percentile_draws(95.0, 2000, seed + 1)
+    for lv in LEVELS:
+        c = (1 + lv) / 2
+        out[f"p95 {lv}"] = [bounds(d_s, c)]
+        out[f"ratio {lv}"] = [bounds(d_s / d_r, c)]
+        if old:
+            iv = pooled_percentile(s, 95.0, confidence=c, n_resamples=1000, seed=seed, method="bootstrap")
+            out[f"boot p95 {lv}"] = [(iv.low, iv.high)]
+            iv = percentile_ratio(s, r, 95.0, confidence=c, n_resamples=1000, seed=seed, method="bootstrap")
+            out[f"boot ratio {lv}"] = [(iv.low, iv.high)]
+    if not life:
+        return units, out, truth_p95, truth_b10
+    try:
+        fit = fit_weibull(lot.life)
+        for lv in LEVELS:
+            out[f"b10 {lv}"] = [fit.bx_bounds(10.0, (1 + lv) / 2)]
+    except DataError:
+        pass
+    return units, out, truth_p95, truth_b10
+
+
+def _oc_one(args):
+    units, ratio, seed, conf = args
+    rng = np.random.default_rng(seed)
+    pop = demo_population()
+    cand = draw_lot(pop, units, CYCLES, rng, scale=ratio).samples["make_bounce"]
+    inc = draw_lot(pop, units, CYCLES, rng).samples["make_bounce"]
+    iv = percentile_ratio(cand, inc, 95.0, confidence=conf, n_resamples=1000, seed=seed)
+    return units, ratio, decide_at_most(iv.low, iv.high, 1 + MARGIN) == "pass"
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--populations", type=int, default=1000)
+    ap.add_argument("--old", type=int, default=200, help="populations for the earlier bootstrap's figures")
+    ap.add_argument("--life", type=int, default=300, help="populations for the B10 bound's figures")
+    ap.add_argument("--oc", type=int, default=150, help="populations per point of the verdict's curve")
+    ap.add_argument("--drift-units", type=int, default=60)
+    ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--only", choices=("drift", "coverage", "oc"), help="one part alone")
+    a = ap.parse_args()
+    t_all = time.perf_counter()
+    rng = np.random.default_rng(1)
+    pop = demo_population()
+    truth_p95 = true_pooled_p95(pop, rng)
+    truth_b10 = true_b10(pop)
+    print(
+        f"truth (AG-MS5 physics, unit size log-sd 0.25): make bounce p95 {truth_p95:.1f} us, "
+        f"B10 {truth_b10:,.0f} cycles"
+    )
+    with Pool(a.jobs) as pool:
+        if a.only in (None, "drift"):
+            _drift_part(pool, a)
+        if a.only in (None, "coverage"):
+            _coverage_part(pool, a, truth_p95, truth_b10)
+        if a.only in (None, "oc"):
+            _oc_part(pool, a)
+    print(f"\ntotal {time.perf_counter() - t_all:.0f} s")
+
+
+def _drift_part(pool, a) -> None:
+    t0 = time.perf_counter()
+    res = pool.map(_drift_unit, range(1000, 1000 + a.drift_units))
+    f = drift_figures(res)
+    print(
+        f"\ndrift flag: {a.drift_units} units x 200,000 cycles, 1,000-cycle windows, re-judged every 2 "
+        f"windows ({f['crossing_units']} cross their limit, {f['steady_units']} steady; "
+        f"{time.perf_counter() - t0:.0f} s)"
+    )
+    _line(
+        "crossing units flagged before the true crossing",
+        f["detected_before"],
+        ">= 0.90",
+        f["detected_before"] >= 0.9,
+    )
+    _line(
+        "median lead, share of the cycles to the crossing",
+        f["median_lead"],
+        ">= 0.20",
+        f["median_lead"] >= 0.2,
+    )
+    _line("steady units ever flagged", f["false_alarm"], "<= 0.02", f["false_alarm"] <= 0.02)
+    _line("  (charts alone, for comparison)", f["chart_only_false_alarm"], "-", True)
+    _line("  (the earlier flag: chart + 90 % slope interval)", f["old_flag_false_alarm"], "-", True)
+    _line(
+        "median abs error of the projected crossing / true crossing",
+        f["projection_error"],
+        "reported",
+        True,
+    )
+
+
+def _coverage_part(pool, a, truth_p95: float, truth_b10: float) -> None:
+    t0 = time.perf_counter()
+    jobs = [
+        (n, 10_000 * n + i, truth_p95, truth_b10, i < a.old, i < a.life)
+        for n in SIZES
+        for i in range(a.populations)
+    ]
+    hits: dict[tuple[int, str], list[int]] = {}
+    for n, out, tp, tb in pool.imap_unordered(_coverage_one, jobs, chunksize=8):
+        for key, [(lo, hi)] in out.items():
+            truth = tb if key.startswith("b10") else (1.0 if "ratio" in key else tp)
+            h = hits.setdefault((n, key), [0, 0, 0])
+            h[0] += lo <= truth
+            h[1] += truth <= hi
+            h[2] += 1
+    print(f"\ninterval coverage ({a.populations} populations per size; {time.perf_counter() - t0:.0f} s)")
+    print("  target: within 2.5 points of nominal, never below by more; bounds one-sided at (1 + level) / 2")
+    for key, label in (
+        ("p95", "pooled p95, random unit effect"),
+        ("ratio", "p95 ratio, random unit effect (true ratio 1)"),
+        ("b10", "B10 lower bound, likelihood ratio, suspended at 300k"),
+        ("boot p95", "pooled p95, earlier cluster bootstrap"),
+        ("boot ratio", "p95 ratio, earlier cluster bootstrap"),
+    ):
+        for n in SIZES:
+            for lv in LEVELS:
+                h = hits.get((n, f"{key} {lv}"))
+                if not h:
+                    continue
+                one = (1 + lv) / 2
+                if key == "b10":  # the life criterion uses the lower bound only
+                    cov, nominal, what = h[0] / h[2], one, "lower side"
+                else:
+                    cov, nominal, what = (h[0] + h[1] - h[2]) / h[2], lv, "two-sided"
+                worst = min(h[0], h[1]) / h[2] if key != "b10" else cov
+                ok = cov >= nominal - 0.025 and (key == "b10" or worst >= one - 0.025)
+                _line(
+                    f"{label}, {n} units, {lv:.0%} ({what}, n={h[2]})",
+                    cov,
+                    f">= {nominal - 0.025:.3f}",
+                    ok,
+                )
+                if key != "b10":
+                    _line("    worse side alone", worst, f">= {one - 0.025:.3f}", worst >= one - 0.025)
+
+
+def _oc_part(pool, a) -> None:
+    t0 = time.perf_counter()
+    conf = 0.9
+    jobs = [
+        (n, d, 77 + 1000 * i + int(100 * d) + n, conf) for n in SIZES for d in OC_RATIOS for i in range(a.oc)
+    ]
+    passes: dict[tuple[int, float], list[int]] = {}
+    for n, d, ok in pool.imap_unordered(_oc_one, jobs, chunksize=8):
+        p = passes.setdefault((n, d), [0, 0])
+        p[0] += ok
+        p[1] += 1
+    print(
+        f"\nverdict: P(PASS) of 'make bounce p95 candidate / incumbent <= {1 + MARGIN:.1f}' "
+        f"at {conf:.0%}, "
+        f"{a.oc} populations a point ({time.perf_counter() - t0:.0f} s)"
+    )
+    print("  true ratio " + "".join(f"{d:>7.2f}" for d in OC_RATIOS))
+    for n in SIZES:
+        print(
+            f"  {n:3d} units  " + "".join(f"{passes[(n, d)][0] / passes[(n, d)][1]:7.2f}" for d in OC_RATIOS)
+        )
+    for n in SIZES:
+        p = passes[(n, 1.0 + MARGIN)]
+        share = p[0] / p[1]
+        _line(
+            f"P(PASS) at the guarded margin (ratio {1 + MARGIN:.1f}), {n} units",
+            share,
+            f"<= {1 - conf:.2f}",
+            share <= 1 - conf + 1e-12,
+        )
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,23 @@
+"""`benchlog plan --oc --incumbent LOT`: the characteristic simulated from the incumbent's recorded units."""
+
+import numpy as np
+import pytest
+from storefill import fill
+
+from benchlog.stats import UnitModel
+from benchlog.store import Store
+from benchlog.views.cli import main
+from benchlog.views.report._data import load_lot
+
+
+def test_plan_oc_from_the_incumbents_recorded_units(tmp_path, capsys):
+    db = fill(tmp_path / "lab.sqlite", units_per_lot=6, recorded=60, test_end=20_000, seed=3)
+    code = main(["plan", "--oc", "--incumbent", "AG-MS5:L1", "--db", db, "--populations", "30"])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "units drawn from the incumbent's 6 recorded units" in out
+    with Store.open(db, readonly=True) as store:
+        sample = load_lot(store, "AG-MS5:L1", with_runs=False).population.samples["make_bounce"]
+    # the model's unit spread is the log-sd of the units' own medians (numpy as the reference)
+    med = [np.median(sample.values[sample.unit == u]) for u in range(sample.n_units)]
+    assert UnitModel.from_sample(sample).sigma == pytest.approx(np.std(np.log(med), ddof=1))

@@ -1,0 +1,183 @@
+"""The calibration harness's machinery: populations drawn from the simulator's physics with known truth,
+judged by the same analysis, drift and statistics code that `record`, `dash`, `qualify` and `report` use.
+
+Shared by tests/benchmarks/bench_calibration.py (the full figures) and tests/stats/test_calibration.py
+(a reduced, seeded version in the suite). The serial path is bypassed: events from
+`benchlog.sim._physics.cycles` go straight to `benchlog.analysis.measure`.
+
+Unit spread: each unit is the supplier's population with its own bounce lengths (a log-normal factor)
+and its own wear rate, drawn here; the physics of one unit is the simulator's. These spreads are
+invented for the harness (the demo scenario's populations are the centre), never a reference value.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from benchlog.analysis import MAKE, AnalysisSettings, drift, drift_horizon, measure, window_stats
+from benchlog.events import TimedDrives, TimedEdges
+from benchlog.sim import load_preset
+from benchlog.sim._physics import EDGE, _train, cycles, draw_unit
+
+ON_NS = OFF_NS = 50_000_000
+SETTINGS = AnalysisSettings(settle_ns=5_000_000)
+MAKE_LIMIT_US = 3000.0  # the demo spec's make bounce p95 limit (VS-505 and AG-MS5: 3 ms)
+
+
+def demo_population(name: str = "AG-MS5"):
+    return load_preset("demo").populations[name]
+
+
+def unit_population(pop, rng: np.random.Generator, wear_median: float, wear_sigma: float, size_sigma: float):
+    """One unit: the population with its own bounce size and wear rate."""
+    f = float(np.exp(size_sigma * rng.standard_normal()))
+    wear = float(wear_median * np.exp(wear_sigma * rng.standard_normal()))
+    make = replace(pop.make, first_gap_us=pop.make.first_gap_us * f, dwell_us=pop.make.dwell_us * f)
+    return replace(pop, make=make, wear_per_100k=wear)
+
+
+def true_p95(pop, wear: np.ndarray, draws: int, rng: np.random.Generator) -> np.ndarray:
+    """The unit's true make bounce p95 at each wear level, from its physics (Monte Carlo, `draws` each)."""
+    out = np.empty(len(wear))
+    for i, w in enumerate(wear):
+        off, n, _ = _train(rng, pop.make, np.full(draws, w), 24, 2.0, ON_NS / 1e3 - pop.operate.median_us)
+        out[i] = np.percentile(off[np.arange(draws), 2 * n], 95)
+    return out
+
+
+def measured_windows(
+    pop, n_cycles: int, window: int, rng: np.random.Generator, chunk: int = 20_000, column: str = "bounce_us"
+):
+    """Make bounce (or `column` of the makes) p95 per window of `window` cycles, through the analysis
+    stage, of one unit that does not fail within `n_cycles`."""
+    unit = draw_unit(rng, 0, "U", pop)
+    unit.life = 1e15
+    unit.mode = "chatter"
+    parts = []
+    t0 = 0
+    for start in range(0, n_cycles, chunk):
+        k = min(chunk, n_cycles - start)
+        (t, kind, level), _ = cycles(rng, unit, t0, ON_NS, OFF_NS, k, 24, 2.0)
+        t0 += k * (ON_NS + OFF_NS)
+        e = kind == EDGE
+        zeros = np.zeros(int(e.sum()), np.uint8)
+        edges = TimedEdges(t[e], zeros, level[e])
+        drives = TimedDrives(t[~e], np.zeros(int((~e).sum()), np.uint8), level[~e])
+        rows = measure(edges, drives, settings=SETTINGS)
+        rows["cycle"] += start
+        parts.append(window_stats(rows[rows["kind"] == MAKE], window, column=column))
+    return np.concatenate(parts)
+
+
+@dataclass(frozen=True)
+class UnitDrift:
+    true_cross: float | None  # cycle at which the true p95 reaches the limit (None: not within the test)
+    true_max_share: float  # the true p95's highest value in the test, as a share of the limit
+    first_flag: int | None  # the first evaluation (cycle) at which the flag was up
+    projected_at_flag: float | None  # the projected crossing at the first flag
+    chart_only: bool  # the EWMA/CUSUM charts alone signalled at some evaluation
+    old_flag: bool  # the earlier flag (a chart signal and the 90 % slope interval above zero) at some point
+
+
+def judge_unit_drift(
+    pop, n_cycles: int, window: int, every: int, limit: float, life: float, rng: np.random.Generator
+) -> UnitDrift:
+    """Simulate one unit, re-judge its drift every `every` windows as the dashboard would (baseline the
+    first quarter, horizon from the spec's `life`), and compare with its truth."""
+    ws = measured_windows(pop, n_cycles, window, rng)
+    grid = np.linspace(0, n_cycles, 41)
+    truth = true_p95(pop, 1.0 + pop.wear_per_100k * grid / 1e5, 4000, rng)
+    above = np.flatnonzero(truth >= limit)
+    cross = None
+    if len(above):
+        i = int(above[0])
+        cross = 0.0 if i == 0 else float(np.interp(limit, truth[i - 1 : i + 1], grid[i - 1 : i + 1]))
+    first = proj = None
+    chart = old = False
+    for n in range(8, len(ws) + 1, every):
+        rep = drift(ws[:n], limit=limit, baseline_windows=None, horizon=drift_horizon(n * window, life))
+        chart |= rep.signalled
+        old |= rep.signalled and rep.trend is not None and rep.trend.slope_low > 0
+        if rep.confirmed and first is None:
+            first = n * window
+            p = rep.projection
+            proj = None if p is None else p.crossing_cycle
+    return UnitDrift(cross, float(truth.max() / limit), first, proj, chart, old)
+
+
+def drift_figures(results: list[UnitDrift]) -> dict[str, float]:
+    crossing = [r for r in results if r.true_cross is not None and r.true_cross > 0]
+    steady = [r for r in results if r.true_max_share < 0.8]
+    before = [r for r in crossing if r.first_flag is not None and r.first_flag < r.true_cross]
+    leads = [(r.true_cross - r.first_flag) / r.true_cross for r in crossing if r.first_flag is not None]
+    errs = [
+        abs(r.projected_at_flag - r.true_cross) / r.true_cross
+        for r in before
+        if r.projected_at_flag is not None
+    ]
+    nan = float("nan")
+    return {
+        "crossing_units": len(crossing),
+        "steady_units": len(steady),
+        "detected_before": len(before) / len(crossing) if crossing else nan,
+        "median_lead": float(np.median(leads)) if leads else nan,
+        "false_alarm": sum(r.first_flag is not None for r in steady) / len(steady) if steady else nan,
+        "chart_only_false_alarm": sum(r.chart_only for r in steady) / len(steady) if steady else nan,
+        "old_flag_false_alarm": sum(r.old_flag for r in steady) / len(steady) if steady else nan,
+        "projection_error": float(np.median(errs)) if errs else nan,
+    }
+
+
+# -- populations for the intervals and the verdict --------------------------------------------------
+SIZE_SIGMA = 0.25  # log-sd of a unit's bounce size about its supplier's (invented for the harness)
+
+
+def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: float = 1.0, test_end=None):
+    """`units` units of `pop` (each with its own bounce size; `scale` multiplies every unit's bounce),
+    `n_cycles` cycles each (fewer when it fails first), through the simulator's physics. Returns a
+    `benchlog.stats.Population` whose life table suspends the units alive at `test_end`."""
+    from benchlog.analysis import empty_actuations
+    from benchlog.stats import LifeTable, Population
+
+    rows, ids, life = [], [], []
+    for i in range(units):
+        up = unit_population(pop, rng, pop.wear_per_100k, 0.0, SIZE_SIGMA)
+        up = replace(
+            up,
+            make=replace(
+                up.make, first_gap_us=up.make.first_gap_us * scale, dwell_us=up.make.dwell_us * scale
+            ),
+        )
+        serial = f"U{i:03d}"
+        u = draw_unit(rng, 0, serial, up)
+        n = int(max(1, min(n_cycles, np.floor(u.life))))
+        _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, n, 24, 2.0)
+        a = empty_actuations(len(truth))
+        for col in ("cycle", "kind", "transit_us", "bounce_us", "bounce_count", "chatter"):
+            a[col] = truth[col]
+        a["drive_level"] = np.where(truth["kind"] == 0, 1, 0)
+        rows.append(a)
+        ids.append(np.full(len(a), serial, dtype=object))
+        end = np.inf if test_end is None else test_end
+        failed = u.life <= end
+        life.append((serial, min(u.life, end), bool(failed), u.mode if failed else ""))
+    return Population.from_actuations("lot", np.concatenate(rows), np.concatenate(ids), LifeTable.of(life))
+
+
+def true_pooled_p95(pop, rng: np.random.Generator, units: int = 20_000, per_unit: int = 40) -> float:
+    """The population's true make bounce p95 (new units): a mixture over many simulated units."""
+    f = np.exp(SIZE_SIGMA * rng.standard_normal(units))
+    make = pop.make
+    out = []
+    for chunk in np.array_split(np.arange(units), 20):
+        k = len(chunk) * per_unit
+        scale = np.repeat(f[chunk], per_unit)
+        off, n, _ = _train(rng, make, np.ones(k), 24, 2.0, ON_NS / 1e3 - pop.operate.median_us)
+        out.append(scale * off[np.arange(k), 2 * n])
+    return float(np.percentile(np.concatenate(out), 95))
+
+
+def true_b10(pop) -> float:
+    return float(pop.life_scale * (-np.log(0.9)) ** (1.0 / pop.life_shape))

@@ -1,0 +1,97 @@
+"""The calibration harness, reduced and seeded: the drift flag and the stated confidences measured
+against the simulator's truth (tests/benchmarks/bench_calibration.py prints the full figures).
+
+The references are the simulator's own ground truth (each unit's true p95 from its physics, each
+population's true percentiles and life), not a number from this project's statistics.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from calib import (
+    MAKE_LIMIT_US,
+    demo_population,
+    draw_lot,
+    drift_figures,
+    judge_unit_drift,
+    true_pooled_p95,
+    unit_population,
+)
+
+from benchlog.stats import pooled_percentile
+
+
+def test_drift_flag_against_the_simulators_truth():
+    # Aged units (10x the demo population's wear over 20,000 cycles, 100-cycle windows, the spec's
+    # life scaled to 10,000 cycles), re-judged every 4 windows as the dashboard re-reads them.
+    rng = np.random.default_rng(2024)
+    pop = demo_population()
+    wear = [0.0, 1.0, 2.0, 3.0, 4.0, 9.0, 11.0, 13.0, 16.0, 20.0]  # per 100k cycles, aged
+    results = []
+    for r in wear:
+        unit = unit_population(pop, rng, r, 0.0, 0.1)
+        results.append(judge_unit_drift(unit, 20_000, 100, 4, MAKE_LIMIT_US, 10_000, rng))
+    fig = drift_figures(results)
+    assert fig["crossing_units"] >= 4 and fig["steady_units"] >= 4  # the truth gives both kinds
+    # targets of the harness: >= 90 % flagged before the true crossing, median lead >= 20 % of the
+    # cycles to the crossing, <= 2 % of steady units ever flagged (none of these few)
+    assert fig["detected_before"] >= 0.9
+    assert fig["median_lead"] >= 0.2
+    assert fig["false_alarm"] == 0.0
+    assert fig["projection_error"] <= 0.25
+    # the earlier flag (a chart signal backed by a 90 % slope interval above zero) fails the same units
+    assert fig["old_flag_false_alarm"] > 0.02
+
+
+def test_pooled_p95_bounds_cover_the_simulators_true_p95():
+    # 120 lots of 8 units (100 cycles each) from the demo population's physics with a log-normal unit
+    # size (log-sd 0.25); the true p95 is the mixture's over 20,000 simulated units. One-sided bounds
+    # at 90 %: each side should hold about 90 % of the time (binomial SD here 2.7 points).
+    rng = np.random.default_rng(7)
+    pop = demo_population()
+    truth = true_pooled_p95(pop, rng)
+    new = [0, 0]
+    old = [0, 0]
+    lots = 120
+    for i in range(lots):
+        s = draw_lot(pop, 8, 100, rng).samples["make_bounce"]
+        iv = pooled_percentile(s, 95.0, confidence=0.9, seed=i)
+        new[0] += iv.low <= truth
+        new[1] += truth <= iv.high
+        iv = pooled_percentile(s, 95.0, confidence=0.9, n_resamples=1000, seed=i, method="bootstrap")
+        old[0] += iv.low <= truth
+        old[1] += truth <= iv.high
+    assert min(new) / lots >= 0.84
+    assert old[1] / lots < 0.84  # the cluster bootstrap's upper bound falls short with 8 units
+
+
+def test_the_demo_flags_drift_only_where_the_simulator_wears_toward_the_limit():
+    # The demo's populations aged as `benchlog demo` ages them (3,000 cycles standing for 200,000),
+    # judged once at the end as its summary does. Truth from the physics: bounce grows with wear,
+    # operate time does not wear at all; the same units with no wear are a control.
+    from dataclasses import replace
+
+    from calib import measured_windows, true_p95
+
+    from benchlog.analysis import drift, drift_horizon
+    from benchlog.sim import load_preset
+    from benchlog.views.cli.cmd_demo import aged
+
+    cycles, window, life = 3000, 100, 100_000  # the demo spec's life (VS-505, AG-MS5): 100,000 cycles
+    cfg = aged(load_preset("demo"), cycles)
+    rng = np.random.default_rng(17)
+    flagged_worn = 0
+    for name, pop in cfg.populations.items():
+        for wear in (pop.wear_per_100k, 0.0):
+            unit = replace(pop, wear_per_100k=wear)
+            for _ in range(2):
+                horizon = drift_horizon(cycles, life)
+                mk = measured_windows(unit, cycles, window, rng)
+                rep = drift(mk, limit=MAKE_LIMIT_US, baseline_windows=None, horizon=horizon)
+                op = measured_windows(unit, cycles, window, rng, column="transit_us")
+                assert not drift(op, limit=12_000.0, baseline_windows=None, horizon=horizon).confirmed, name
+                truth = true_p95(unit, np.array([1.0 + wear * horizon / 1e5]), 4000, rng)[0]
+                if rep.confirmed:  # flagged: the truth reaches the limit within the horizon
+                    assert wear > 0 and truth >= MAKE_LIMIT_US, (name, wear)
+                    flagged_worn += 1
+    assert flagged_worn >= 3  # and the worn units are flagged

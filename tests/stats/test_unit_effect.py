@@ -1,0 +1,52 @@
+"""The random-unit-effect bounds on a pooled percentile, against exact results outside the project."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from benchlog.stats import UnitSample, pooled_percentile
+from benchlog.stats._unit_effect import METHOD, UnitEffect, bounds
+
+
+def test_without_within_unit_spread_the_bound_is_the_normal_tolerance_bound():
+    # Every actuation of a unit at its median: the bound on the p95 is exp(ybar + k s), k the one-sided
+    # normal tolerance factor. Exact k = nct.ppf(C, n - 1, z_p sqrt(n)) / sqrt(n) (scipy); for n = 10,
+    # p = 0.95, C = 0.95 tables print 2.911 (Natrella, NBS Handbook 91, one-sided factors; from memory).
+    rng = np.random.default_rng(0)
+    n = 10
+    med = np.exp(rng.normal(0.0, 0.5, n))
+    s = UnitSample.of(np.repeat(med, 50), np.repeat(np.arange(n), 50))
+    model = UnitEffect.of(s)
+    _, high = bounds(model.percentile_draws(95.0, 40_000, 1), 0.95)
+    y = np.log(med)
+    k = (math.log(high) - y.mean()) / y.std(ddof=1)
+    exact = stats.nct.ppf(0.95, n - 1, stats.norm.ppf(0.95) * math.sqrt(n)) / math.sqrt(n)
+    assert exact == pytest.approx(2.911, abs=0.001)
+    assert k == pytest.approx(exact, rel=0.01)  # Monte Carlo over 40,000 pivotal draws
+
+
+def test_mixture_of_lognormals_is_the_lognormal_of_the_summed_variances():
+    # log of (unit median x residual) is a sum of independent normals, so the population is log-normal
+    # with sigma = hypot(between, within): its p95 is exp(mu + 1.645 hypot(...)) (exact identity)
+    within = 0.3
+    resid = np.exp(within * stats.norm.ppf((np.arange(20_000) + 0.5) / 20_000))
+    s = UnitSample.of(np.concatenate([resid, 2 * resid]), np.repeat([0, 1], 20_000))
+    model = UnitEffect.of(s)
+    got = model.quantile(np.array([0.1]), np.array([0.4]), 95.0)[0]
+    want = math.exp(0.1 + stats.norm.ppf(0.95) * math.hypot(0.4, within))
+    assert got == pytest.approx(want, rel=0.005)
+
+
+def test_the_default_method_and_its_fallback_for_counts():
+    rng = np.random.default_rng(3)
+    unit = np.repeat(np.arange(8), 200)
+    times = UnitSample.of(np.exp(rng.normal(np.repeat(rng.normal(7, 0.3, 8), 200), 0.2)), unit)
+    iv = pooled_percentile(times, 95.0)
+    assert iv.method == METHOD and iv.low < iv.estimate < iv.high
+    counts = UnitSample.of(rng.poisson(0.3, len(unit)).astype(float), unit)  # unit medians are 0
+    iv = pooled_percentile(counts, 95.0)
+    assert iv.method != METHOD and "bootstrap" in iv.method
