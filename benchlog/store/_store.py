@@ -134,12 +134,34 @@ class Store(ReadAPI):
                 what = "has no benchlog schema" if st.current is None else f"is at revision {st.current}"
                 raise StoreError(f"the database {cls._show(url)} {what}; run `benchlog db upgrade`")
             if st.current is None and not is_empty(engine):
-                raise StoreError(f"the database {cls._show(url)} holds other tables and no benchlog schema")
+                st = cls._await_other_creator(engine, st)
+                if st.up_to_date:
+                    return
+                if st.current is None:
+                    raise StoreError(
+                        f"the database {cls._show(url)} holds other tables and no benchlog schema"
+                    )
             if st.current is not None and not upgrade:
                 raise StoreError(
                     f"the database {cls._show(url)} is at revision {st.current}; run `benchlog db upgrade`"
                 )
             schema_upgrade(engine)
+
+    @staticmethod
+    def _await_other_creator(engine: Engine, st, wait_s: float = 30.0):
+        """Tables but no revision: on PostgreSQL another recorder may be creating the schema right now
+        (its tables became visible between our two reads). When the tables are benchlog's own, wait
+        for its revision to appear; a database of other tables is refused at once."""
+
+        from sqlalchemy import inspect
+
+        if engine.dialect.name == "sqlite" or "actuations" not in inspect(engine).get_table_names():
+            return st
+        end = time.monotonic() + wait_s
+        while st.current is None and time.monotonic() < end:
+            time.sleep(0.2)
+            st = schema_status(engine)
+        return st
 
     @staticmethod
     def _show(url: str) -> str:
