@@ -495,7 +495,7 @@ class Timeline:
     def _on_announce(self, rec: Announce, host_ns: int) -> None:
         prev = self.announcement
         self.announcement = rec
-        if rec.version != PROTOCOL_VERSION:
+        if not 1 <= rec.version <= PROTOCOL_VERSION:
             t = self._run_hi_ns
             self._incidents.append(
                 Incident(
@@ -505,7 +505,7 @@ class Timeline:
                     host_ns,
                     host_ns,
                     detail=f"sampler speaks protocol version {rec.version}; this host knows "
-                    f"{PROTOCOL_VERSION} and decodes what it can",
+                    f"1 to {PROTOCOL_VERSION} and decodes what it can",
                 )
             )
         changed = prev is not None and (
