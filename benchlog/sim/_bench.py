@@ -143,7 +143,7 @@ class Bench:
         self._reset_done = False
         self._buffer_level = 0.0
         self._buffer_bin = -1
-        self._encoders = {"line": LineEncoder(), "packed": PackedEncoder()}
+        self._encoders = {"line": LineEncoder(version=PROTOCOL_VERSION), "packed": PackedEncoder()}
         self.started = False
         self.edges_generated = 0
 
@@ -400,7 +400,7 @@ class Bench:
         self._buffer_level = 0.0
         self._buffer_bin = -1
         self.form = s.form
-        self._encoders = {"line": LineEncoder(), "packed": PackedEncoder()}
+        self._encoders = {"line": LineEncoder(version=PROTOCOL_VERSION), "packed": PackedEncoder()}
         self._fresh = True
         # the count restarts with the sampler; a cycle driver that runs on counts from here
         done = {ch: n for ch, n in self.cycles_done.items() if ch in self._running}
