@@ -69,8 +69,8 @@ class _Running:
 
 class Truth:
     """What the simulator really did: units' lives and modes, every actuation, every edge it sent, and
-    `cycles`: per channel, the cycles the sampler completed (switched its actuator off), over every
-    plan and reset; a unit's true cycle count."""
+    `cycles`: per channel, the cycles the sampler started (switched its actuator on), over every plan and
+    reset; a unit's true cycle count (a started cycle completes unless the board loses power)."""
 
     def __init__(self, units: list[UnitState]) -> None:
         self.units = units
@@ -371,11 +371,13 @@ class Bench:
         return self._reset()
 
     def _count_cycles(self, kind: np.ndarray, chan: np.ndarray, level: np.ndarray, cyc: np.ndarray) -> None:
-        """Drive-offs complete cycles: in the truth, and in the sampler's count."""
-        off = (kind == DRIVE) & (level == 0)
-        for ch, c in zip(chan[off].tolist(), cyc[off].tolist(), strict=True):
-            self.truth.cycles[ch] = self.truth.cycles.get(ch, 0) + 1
-            if ch in self.cycles_done:
+        """A drive-on starts a cycle of the unit (the truth: its coil was energised, its contact moved
+        even when power failed before the drive-off); a drive-off completes it (the sampler's count)."""
+        drive = kind == DRIVE
+        for ch, lv, c in zip(chan[drive].tolist(), level[drive].tolist(), cyc[drive].tolist(), strict=True):
+            if lv:
+                self.truth.cycles[ch] = self.truth.cycles.get(ch, 0) + 1
+            elif ch in self.cycles_done:
                 self.cycles_done[ch] = c - self._cycle_base.get(ch, 0)
 
     def _reset(self) -> list:
@@ -462,10 +464,8 @@ class Bench:
                 ch, lv = int(chan[idx]), int(level[idx])
                 cycle = int(cyc[idx]) - self._cycle_base.get(ch, 0)
                 out.append(Drive(ch, lv, int(wrapped[idx]), max(cycle, 0) & 0xFFFFFFFF))
-                if lv == 0:
-                    self._count_cycles(
-                        kind[idx : idx + 1], chan[idx : idx + 1], level[idx : idx + 1], cyc[idx : idx + 1]
-                    )
+                one = slice(idx, idx + 1)
+                self._count_cycles(kind[one], chan[one], level[one], cyc[one])
                 pos = idx + 1
             else:
                 k = int(np.searchsorted(edge_t, bt, side="left"))

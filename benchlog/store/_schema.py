@@ -158,6 +158,8 @@ class RunUnit(Base):
     unit_id: Mapped[int] = mapped_column(ForeignKey("units.id"), index=True)
     cycle_base: Mapped[int] = mapped_column(BigInteger, default=0)
     cycles_done: Mapped[int] = mapped_column(BigInteger, default=0)  # highest cycle recorded in the run
+    # run cycles done when the sampler's current plan started (its count + this = run cycles done)
+    sampler_base: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
 
 
 class UnitLife(Base):
@@ -216,6 +218,7 @@ class Incident(Base):
     edges_lost: Mapped[int | None] = mapped_column(BigInteger)
     channel: Mapped[int | None] = mapped_column(SmallInteger)
     detail: Mapped[str] = mapped_column(Text, default="")
+    cycles_lost: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
 
 
 class EdgeChunk(Base):

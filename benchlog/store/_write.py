@@ -175,7 +175,11 @@ class RunWriter:
             self.window = int(run["rollup_window"])
             assign = c.execute(
                 select(
-                    s.RunUnit.channel, s.RunUnit.unit_id, s.RunUnit.cycle_base, s.RunUnit.cycles_done
+                    s.RunUnit.channel,
+                    s.RunUnit.unit_id,
+                    s.RunUnit.cycle_base,
+                    s.RunUnit.cycles_done,
+                    s.RunUnit.sampler_base,
                 ).where(s.RunUnit.run_id == run_id)
             ).all()
             life = dict(
@@ -192,7 +196,10 @@ class RunWriter:
         self.seg_start = {}  # channel -> run cycles done before this segment
         self.cycles_done = {}  # channel -> run cycles done so far
         self.cycle_base = {}
+        # run cycles done when the sampler's current plan started (protocol version 2), None: unknown
+        self.sampler_base: dict[int, int | None] = {}
         for a in assign:
+            self.sampler_base[a.channel] = None if a.sampler_base is None else int(a.sampler_base)
             self._lut[a.channel] = a.unit_id
             self._base[a.channel] = a.cycle_base + a.cycles_done
             self.seg_start[a.channel] = int(a.cycles_done)
@@ -424,7 +431,7 @@ class RunWriter:
             conn.execute(
                 update(s.RunUnit)
                 .where(s.RunUnit.run_id == self.run_id, s.RunUnit.channel == ch)
-                .values(cycles_done=cyc)
+                .values(cycles_done=cyc, sampler_base=self.sampler_base.get(ch))
             )
             unit = self.units[ch]
             values = self._life.get(unit)
@@ -449,6 +456,7 @@ class RunWriter:
             "edges_lost": None if inc.edges_lost is None else int(inc.edges_lost),
             "channel": inc.channel,
             "detail": inc.detail,
+            "cycles_lost": getattr(inc, "cycles_lost", None),
         }
 
     def _chunks(self) -> list[dict]:
