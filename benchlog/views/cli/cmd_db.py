@@ -9,7 +9,12 @@ HELP = "Show the database's schema revision (status) or apply pending migrations
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("action", choices=("status", "upgrade"), help="status: show revisions; upgrade: migrate")
+    p.add_argument(
+        "action",
+        metavar="ACTION",
+        choices=("status", "upgrade"),
+        help="status: show revisions; upgrade: migrate",
+    )
     p.add_argument("--db", help="database URL or SQLite file (default: $BENCHLOG_DB or ./benchlog.sqlite)")
 
 

@@ -4,23 +4,32 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli.cmd_qualify import EPILOG, add_common
+from benchlog.views.cli._args import add_output
+from benchlog.views.cli.cmd_qualify import add_common
 
 NAME = "report"
 HELP = "Write a self-contained HTML qualification report (verdict, plots, life, runs, the spec used)."
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.epilog = EPILOG.replace("Exit status", "Exit status (as for qualify)")
-    p.formatter_class = argparse.RawDescriptionHelpFormatter
+    p.epilog = (
+        "The verdict is the exit status, as for qualify: 0 pass, 1 fail, 2 not yet decidable.\n"
+        "An existing FILE is kept unless --force is given."
+    )
     add_common(p)
-    p.add_argument("-o", "--output", default="qualification.html", help="HTML file to write")
+    add_output(p, "the HTML file to write (default: qualification.html)", default="qualification.html")
+    p.add_argument("--force", action="store_true", help="replace FILE if it exists")
 
 
 def run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from benchlog.errors import UsageError
     from benchlog.views.cli.cmd_qualify import evaluate
     from benchlog.views.report import write_report
 
+    if Path(args.output).exists() and not args.force:
+        raise UsageError(f"{args.output} exists: give --force to replace it, or -o another file")
     ev = evaluate(args, with_runs=True)
     write_report(args.output, ev)
     q = ev.qualification
