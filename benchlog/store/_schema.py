@@ -253,6 +253,27 @@ class Rollup(Base):
     sum: Mapped[float | None] = mapped_column(Float)
 
 
+class Summary(Base):
+    """Per run, unit, series (`make.bounce_us`, `cycle.chatter`, ...) and window of SUMMARY_WINDOW life
+    cycles: a mergeable distribution summary (benchlog/store/_summary.py). `bins` and `counts` are
+    zlib (RFC 1950) of little-endian int64 arrays: the occupied histogram bins and their exact counts."""
+
+    __tablename__ = "summaries"
+    run_id: Mapped[int] = mapped_column(ForeignKey("runs.id"), primary_key=True)
+    unit_id: Mapped[int] = mapped_column(ForeignKey("units.id"), primary_key=True)
+    series: Mapped[str] = mapped_column(String(32), primary_key=True)
+    window_no: Mapped[int] = mapped_column(BigInteger, primary_key=True)
+    count: Mapped[int] = mapped_column(BigInteger)
+    sum: Mapped[float] = mapped_column(Float)
+    sumsq: Mapped[float] = mapped_column(Float)
+    min: Mapped[float] = mapped_column(Float)
+    max: Mapped[float] = mapped_column(Float)
+    bins: Mapped[bytes] = mapped_column(LargeBinary)
+    counts: Mapped[bytes] = mapped_column(LargeBinary)
+
+    __table_args__ = (Index("ix_summaries_unit", "unit_id", "series"),)
+
+
 # Metrics the rollups keep (all float-valued columns of ACTUATION_DTYPE plus the counts).
 ROLLUP_METRICS = (
     "transit_us",

@@ -28,6 +28,7 @@ from . import _schema as s
 from ._codec import encode_edges
 from ._engine import _one_line
 from ._rollup import RollupKeeper
+from ._summary import SummaryKeeper
 
 # unit_id, run_id, then the store's actuation columns with ACTUATION_DTYPE's own numpy types (a column
 # the analysis adds later and the store does not know yet fails tests/store/test_migrate.py).
@@ -200,6 +201,7 @@ class RunWriter:
             self.cycle_base[a.channel] = int(a.cycle_base)
         self.status = {a.unit_id: life.get(a.unit_id, s.ALIVE) for a in assign}
         self._rollups = RollupKeeper(self.window)
+        self._summaries = SummaryKeeper(run_id)
         self._acts: list[np.ndarray] = []  # ACTUATION_DTYPE, shifted to run time and life cycles
         self._act_units: list[np.ndarray] = []
         self._sqlite_insert = {ch: sqlite_actuation_insert(run_id, u) for ch, u in self.units.items()}
@@ -305,6 +307,7 @@ class RunWriter:
         def prepare() -> None:
             try:
                 side["rollups"] = self._rollups.add(units, acts, final=final)
+                self._summaries.add(units, acts, final=final)
                 side["chunks"] = self._chunks()
             except BaseException as exc:  # re-raised in the flushing thread
                 side["error"] = exc
@@ -333,6 +336,7 @@ class RunWriter:
                 if self._incidents:
                     conn.execute(insert(s.Incident), [self._incident_row(i) for i in self._incidents])
                 bulk_insert_rollups(conn, [r[:3] + (self.run_id,) + r[4:] for r in rollups])
+                self._summaries.write(conn, final=final)
                 self._write_progress(conn, now, done)
         except DB_ERRORS as exc:
             raise _store_error("write to the database", exc) from exc

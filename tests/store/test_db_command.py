@@ -20,12 +20,12 @@ def test_db_status_and_upgrade(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "revision  0001" in out and "pending   0002" in out
     assert main(["db", "upgrade", "--db", db]) == 0
-    assert "upgraded from 0001 to 0003 (0002, 0003)" in capsys.readouterr().out
+    assert "upgraded from 0001 to 0007 (0002, 0003, 0007)" in capsys.readouterr().out
     assert main(["db", "status", "--db", db]) == 0
     assert main(["db", "upgrade", "--db", db]) == 0
-    assert "already at revision 0003" in capsys.readouterr().out
+    assert "already at revision 0007" in capsys.readouterr().out
     engine = make_engine(f"sqlite:///{db}")
-    assert current_revision(engine) == "0003"
+    assert current_revision(engine) == "0007"
     engine.dispose()
 
 

@@ -46,4 +46,4 @@ def test_installed_wheel_finds_its_migrations_in_benchlog_db(tmp_path):
     )
     assert out.returncode == 0, out.stderr
     pkg, migrations, head = out.stdout.split()
-    assert pkg.startswith(str(site)) and migrations == str(site / "benchlog" / "_db") and head == "0003"
+    assert pkg.startswith(str(site)) and migrations == str(site / "benchlog" / "_db") and head == "0007"

@@ -15,7 +15,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchlog.errors import DataError, SpecError
-from benchlog.stats import LifeTable, Population, metric_samples
+from benchlog.stats import METRICS, LifeTable, Population
+from benchlog.views.report._samples import SERIES_OF_METRIC, summary_samples
 
 __all__ = ["LotData", "load_lot", "resolve_lot", "spec_for"]
 
@@ -27,11 +28,12 @@ class LotData:
     supplier: str
     lot_codes: list[str]
     population: Population
-    actuations: np.ndarray  # the store's STORED_ACTUATION_DTYPE rows
     serial_of: dict[int, str]  # unit id -> serial
     runs: list = field(default_factory=list)  # RunInfo of every run that held one of its units
     incidents: dict[int, list] = field(default_factory=dict)  # run id -> IncidentInfo list
     spec_toml: str | None = None
+    # metric -> [(serial, window mid cycles, {percentile: values per window})], for the report's trends
+    trends: dict[str, list] = field(default_factory=dict)
 
     @property
     def label(self) -> str:
@@ -69,8 +71,7 @@ def load_lot(store, ident: str, *, operation: str = "coil cycle", with_runs: boo
     lot_ids = [lo.id for lo in lots]
     units = [u for lo in lots for u in store.units(lot=lo.id)]
     serial_of = {u.id: u.serial for u in units}
-    acts = store.actuations(lots=lot_ids)
-    labels = np.array([serial_of.get(int(i), str(i)) for i in acts["unit_id"]], dtype=object)
+    samples = summary_samples(store.summaries(lots=lot_ids), serial_of)
     rows: list[tuple[object, float, bool, str]] = []
     for lo in lots:
         lt = store.life_table(lot=lo.id)
@@ -78,19 +79,41 @@ def load_lot(store, ident: str, *, operation: str = "coil cycle", with_runs: boo
             if cycles > 0:  # a unit that never cycled tells nothing about life
                 rows.append((serial, float(cycles), bool(failed), mode or "unknown"))
     life = LifeTable.of(rows) if rows else None
-    pop = Population(
-        part if len(lots) > 1 else f"{part}:{lots[0].code}", metric_samples(acts, labels), life, operation
-    )
+    pop = Population(part if len(lots) > 1 else f"{part}:{lots[0].code}", samples, life, operation)
     supplier = units[0].supplier if units else ""
     spec_toml = next((p.spec_toml for p in store.parts() if p.part_number == part), None)
-    data = LotData(ident, part, supplier, [lo.code for lo in lots], pop, acts, serial_of, spec_toml=spec_toml)
+    data = LotData(ident, part, supplier, [lo.code for lo in lots], pop, serial_of, spec_toml=spec_toml)
     if with_runs:
+        data.trends = _trends(store, serial_of)
         ids = set(serial_of)
         for run in store.runs():
             if any(ru.unit.id in ids for ru in store.run_units(run.id)):
                 data.runs.append(run)
                 data.incidents[run.id] = store.incidents(run.id)
     return data
+
+
+TREND_PERCENTILES = (50.0, 90.0, 95.0, 99.0)
+
+
+def _trends(store, serial_of: dict[int, str]) -> dict[str, list]:
+    """Per metric and unit, the percentiles of each summary window (window by window over life)."""
+    from benchlog.store import SUMMARY_WINDOW
+
+    out: dict[str, list] = {}
+    for key, m in METRICS.items():
+        if m.kind == "rate" or not serial_of:
+            continue
+        unit, window, _, pct = store.summary_windows(
+            SERIES_OF_METRIC[key], units=list(serial_of), percentiles=TREND_PERCENTILES
+        )
+        rows = []
+        for u in np.unique(unit).tolist():
+            sel = unit == u
+            mid = (window[sel] + 0.5) * SUMMARY_WINDOW
+            rows.append((serial_of[u], mid, {p: pct[sel, j] for j, p in enumerate(TREND_PERCENTILES)}))
+        out[key] = rows
+    return out
 
 
 def spec_for(spec_arg: str | None, candidate: LotData):
