@@ -129,9 +129,7 @@ def main() -> int:
     args = ap.parse_args()
     if args.build_only:
         secs = build(Path(args.keep), args.actuations)
-        print(
-            f"  built in {secs:,.0f} s ({args.actuations / secs:,.0f} actuations/s through the writer)"
-        )
+        print(f"  built in {secs:,.0f} s ({args.actuations / secs:,.0f} actuations/s through the writer)")
         return 0
     tmp = None
     if args.keep:
