@@ -155,7 +155,7 @@ class _Merger:
             m[4] = max(m[4], hi)
         self.parts.append((np.full(len(bins), unit, np.int64), bins, counts))
         self.size += len(bins)
-        if self.size > 1_000_000:
+        if self.size > 100_000:
             self._compact()
 
     def _compact(self) -> None:
