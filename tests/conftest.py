@@ -13,6 +13,7 @@ Tests wait on the event they need (a line printed, a row committed, a file writt
 
 from __future__ import annotations
 
+import ast
 import gc
 import os
 import shutil
@@ -22,6 +23,7 @@ import sys
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
+from pathlib import Path
 
 import pytest
 
@@ -58,6 +60,19 @@ def need_postgres_url() -> str:
     if os.environ.get("BENCHLOG_REQUIRE_ALL"):
         pytest.fail(message)
     pytest.skip(message)
+
+
+def imports_of(package: str) -> set[str]:
+    """Every module that the files of `benchlog/<package>` import (for the layering tests)."""
+    root = Path(__file__).resolve().parents[1] / "benchlog" / package
+    names: set[str] = set()
+    for path in root.glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom) and node.module:
+                names.add(node.module)
+            elif isinstance(node, ast.Import):
+                names.update(a.name for a in node.names)
+    return names
 
 
 def wait_until(predicate: Callable[[], object], what: str, ceiling_s: float = HANG_S, every_s: float = 0.05):

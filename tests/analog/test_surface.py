@@ -2,23 +2,8 @@
 
 from __future__ import annotations
 
-import ast
-from pathlib import Path
-
 import benchlog.analog
-
-ROOT = Path(benchlog.analog.__file__).parents[1]
-
-
-def imports_of(package: str) -> set[str]:
-    names: set[str] = set()
-    for path in (ROOT / package).glob("*.py"):
-        for node in ast.walk(ast.parse(path.read_text())):
-            if isinstance(node, ast.ImportFrom) and node.module:
-                names.add(node.module)
-            elif isinstance(node, ast.Import):
-                names.update(a.name for a in node.names)
-    return names
+from tests.conftest import imports_of
 
 
 def test_public_surface():

@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import ast
 from pathlib import Path
 
 import benchlog.ingest
 import benchlog.link
 import benchlog.sim
+from tests.conftest import imports_of
 
 ROOT = Path(benchlog.sim.__file__).parents[1]
 
@@ -20,17 +20,6 @@ def test_public_surfaces():
     assert set(benchlog.ingest.__all__) == {"Feed", "FeedCounters", "merge_timed", "empty_timed"}
     for mod in (benchlog.sim, benchlog.link, benchlog.ingest):
         assert all(hasattr(mod, name) for name in mod.__all__)
-
-
-def imports_of(package: str) -> set[str]:
-    names: set[str] = set()
-    for path in (ROOT / package).glob("*.py"):
-        for node in ast.walk(ast.parse(path.read_text())):
-            if isinstance(node, ast.ImportFrom) and node.module:
-                names.add(node.module)
-            elif isinstance(node, ast.Import):
-                names.update(a.name for a in node.names)
-    return names
 
 
 def test_layering():
