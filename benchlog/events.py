@@ -23,7 +23,17 @@ SEQUENCE_GAP = "sequence_gap"
 OVERFLOW = "overflow"
 LOST_EDGES = "lost_edges"
 CLOCK = "clock"
-INCIDENT_KINDS = (DISCONNECT, RESET, DECODE_FAULT, SEQUENCE_GAP, OVERFLOW, LOST_EDGES, CLOCK)
+CYCLES_NOT_OBSERVED = "cycles_not_observed"  # the sampler did cycles the host has no record of
+INCIDENT_KINDS = (
+    DISCONNECT,
+    RESET,
+    DECODE_FAULT,
+    SEQUENCE_GAP,
+    OVERFLOW,
+    LOST_EDGES,
+    CLOCK,
+    CYCLES_NOT_OBSERVED,
+)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -65,11 +75,14 @@ class TimedEdges:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class TimedDrives:
-    """Actuator switchings in run time: `t_ns` int64, `channel` uint8, `level` uint8 (1 = energised)."""
+    """Actuator switchings in run time: `t_ns` int64, `channel` uint8, `level` uint8 (1 = energised);
+    `cycle` int64: the cycle of the channel's plan as the sampler counts it (protocol version 2), -1
+    where the sampler did not say (None: nowhere)."""
 
     t_ns: np.ndarray
     channel: np.ndarray
     level: np.ndarray
+    cycle: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.t_ns)
@@ -93,7 +106,8 @@ class Incident:
 
     `t_start_ns`/`t_end_ns` bound, in run time, the stretch whose data is missing or doubtful (equal
     when it is a point). `edges_lost` is how many edges are known lost (None when unknown). `channel` is
-    None when the incident concerns the whole bench.
+    None when the incident concerns the whole bench. `cycles_lost` (CYCLES_NOT_OBSERVED): how many cycles
+    of the channel's unit the sampler did that the host has no measurement of.
     """
 
     kind: str
@@ -104,6 +118,7 @@ class Incident:
     edges_lost: int | None = None
     channel: int | None = None
     detail: str = ""
+    cycles_lost: int | None = None
 
 
 __all__ = [
@@ -118,4 +133,5 @@ __all__ = [
     "OVERFLOW",
     "LOST_EDGES",
     "CLOCK",
+    "CYCLES_NOT_OBSERVED",
 ]

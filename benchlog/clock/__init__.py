@@ -5,12 +5,22 @@ See docs/clock.md.
 
 from benchlog.clock._convert import signed_delta, ticks_to_ns, ticks_to_ns_array
 from benchlog.clock._drift import DriftEstimator
-from benchlog.clock._timeline import Timed, TimedBeats, TimedNotice, TimedPong, Timeline
+from benchlog.clock._timeline import (
+    Timed,
+    TimedAccepted,
+    TimedBeats,
+    TimedCounts,
+    TimedNotice,
+    TimedPong,
+    Timeline,
+)
 
 __all__ = [
     "Timeline",
     "Timed",
+    "TimedAccepted",
     "TimedBeats",
+    "TimedCounts",
     "TimedNotice",
     "TimedPong",
     "DriftEstimator",

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 MIN_BEATS = 8
 MIN_SPAN_NS = 10 * 1_000_000_000
@@ -53,6 +52,8 @@ class DriftEstimator:
         sampler = np.asarray(self._sampler, np.int64)
         x = (host - host[0]).astype(np.float64)
         y = (sampler - sampler[0]).astype(np.float64)
+        from scipy import stats  # imported on first use: `analyze` and `record` start without it
+
         slope = stats.theilslopes(y, x).slope
         self._cached = float((slope - 1.0) * 1e6)
         return self._cached

@@ -61,7 +61,9 @@ from benchlog.wire import (
     Drive,
     Edges,
     Fault,
+    GoAccepted,
     Notice,
+    PlanAccepted,
     Pong,
     Record,
     SequenceGap,
@@ -119,6 +121,28 @@ class Timed:
     beats: TimedBeats
     notices: list[TimedNotice] = field(default_factory=list)
     pongs: list[TimedPong] = field(default_factory=list)
+    counts: list[TimedCounts] = field(default_factory=list)  # protocol version 2 beats' counts
+    accepted: list[TimedAccepted] = field(default_factory=list)  # PLAN and GO acknowledged (v2)
+
+
+@dataclass(frozen=True, slots=True)
+class TimedCounts:
+    """A version 2 beat's counts: (channel, cycles completed since its plan started) pairs, and pulses
+    too short to resolve since the sampler's reset."""
+
+    t_ns: int
+    host_ns: int
+    cycles: tuple[tuple[int, int], ...]
+    short: int
+
+
+@dataclass(frozen=True, slots=True)
+class TimedAccepted:
+    """A `PlanAccepted` or `GoAccepted` record, placed in run time."""
+
+    t_ns: int
+    host_ns: int
+    record: PlanAccepted | GoAccepted
 
 
 _EDGE, _DRIVE, _BEAT = 0, 1, 2
@@ -141,6 +165,7 @@ class _Segment:
         "one_ch",
         "one_lv",
         "beats",
+        "drive_cycles",
         "markers",
         "n",
     )
@@ -155,6 +180,7 @@ class _Segment:
         self.one_ch: list[int] = []
         self.one_lv: list[int] = []
         self.beats: list[tuple[int, int, int]] = []  # (position, captured, dropped)
+        self.drive_cycles: list[int] = []  # the sampler's cycle of each drive, in order (-1: none)
         self.markers: list[tuple[int, Record]] = []  # (position, record) of records without a tick
         self.n = 0
 
@@ -259,6 +285,9 @@ class Timeline:
         self._d_t: list[np.ndarray] = []
         self._d_ch: list[np.ndarray] = []
         self._d_lv: list[np.ndarray] = []
+        self._d_cy: list[np.ndarray] = []
+        self._counts: list[TimedCounts] = []
+        self._accepted: list[TimedAccepted] = []
         self._beats: list[tuple[int, int, int, int]] = []
         self._incidents: list[Incident] = []
         self._announcements: list[Announce] = []
@@ -327,9 +356,14 @@ class Timeline:
                     seg.add_edges(rec)
             elif isinstance(rec, Drive):
                 seg.add_one(_DRIVE, rec.tick, rec.channel, rec.level)
+                seg.drive_cycles.append(-1 if rec.cycle is None else rec.cycle)
             elif isinstance(rec, Beat):
                 seg.beats.append((seg.n, rec.captured, rec.dropped))
                 seg.add_one(_BEAT, rec.tick, 0, 0)
+                if rec.short is not None:
+                    seg.markers.append((seg.n, rec))  # placed at the beat's own run time
+            elif isinstance(rec, PlanAccepted | GoAccepted):
+                seg.markers.append((seg.n, rec))
             elif isinstance(rec, Announce):
                 self._place_segment(seg, host_ns)
                 seg = _Segment()
@@ -364,6 +398,10 @@ class Timeline:
             self._notices.append(TimedNotice(t, host_ns, rec.text))
         elif isinstance(rec, Pong):
             self._pongs.append(TimedPong(t, host_ns, rec.token))
+        elif isinstance(rec, Beat):
+            self._counts.append(TimedCounts(t, host_ns, rec.cycles, rec.short or 0))
+        elif isinstance(rec, PlanAccepted | GoAccepted):
+            self._accepted.append(TimedAccepted(t, host_ns, rec))
 
     # -- output -------------------------------------------------------------------------------------------
 
@@ -376,7 +414,12 @@ class Timeline:
             edges = TimedEdges.empty()
         out = Timed(
             edges,
-            TimedDrives(np.concatenate(self._d_t), np.concatenate(self._d_ch), np.concatenate(self._d_lv))
+            TimedDrives(
+                np.concatenate(self._d_t),
+                np.concatenate(self._d_ch),
+                np.concatenate(self._d_lv),
+                np.concatenate(self._d_cy),
+            )
             if self._d_t
             else TimedDrives.empty(),
             self._incidents,
@@ -384,7 +427,10 @@ class Timeline:
             TimedBeats.of(self._beats),
             self._notices,
             self._pongs,
+            self._counts,
+            self._accepted,
         )
+        self._counts, self._accepted, self._d_cy = [], [], []
         self._e_t, self._e_ch, self._e_lv, self._beats = [], [], [], []
         self._d_t, self._d_ch, self._d_lv = [], [], []
         self._incidents, self._announcements, self._notices, self._pongs = [], [], [], []
@@ -495,7 +541,7 @@ class Timeline:
     def _on_announce(self, rec: Announce, host_ns: int) -> None:
         prev = self.announcement
         self.announcement = rec
-        if rec.version != PROTOCOL_VERSION:
+        if not 1 <= rec.version <= PROTOCOL_VERSION:
             t = self._run_hi_ns
             self._incidents.append(
                 Incident(
@@ -505,7 +551,7 @@ class Timeline:
                     host_ns,
                     host_ns,
                     detail=f"sampler speaks protocol version {rec.version}; this host knows "
-                    f"{PROTOCOL_VERSION} and decodes what it can",
+                    f"1 to {PROTOCOL_VERSION} and decodes what it can",
                 )
             )
         changed = prev is not None and (
@@ -634,6 +680,9 @@ class Timeline:
                 self._d_t.append(t[is_drive])
                 self._d_ch.append(channel[a:b][is_drive])
                 self._d_lv.append(level[a:b][is_drive])
+                first = int(np.count_nonzero(kind[:a] == _DRIVE))
+                cycles = seg.drive_cycles[first : first + int(np.count_nonzero(is_drive))]
+                self._d_cy.append(np.asarray(cycles, np.int64))
         beats = [bt for bt in seg.beats if a <= bt[0] < b]
         prev = 0  # offset in the piece where edges stop counting towards the pending beat's "late"
         edges_before = np.cumsum(is_edge) if beats else None

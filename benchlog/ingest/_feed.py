@@ -64,12 +64,16 @@ def merge_timed(parts: list[Timed]) -> Timed:
         return parts[0]
     drives = [p.drives for p in parts if len(p.drives)]
     beats = [p.beats for p in parts if len(p.beats)]
+    with_cycles = any(d.cycle is not None for d in drives)
     return Timed(
         TimedEdges.concat([p.edges for p in parts if len(p.edges)]),
         TimedDrives(
             np.concatenate([d.t_ns for d in drives]),
             np.concatenate([d.channel for d in drives]),
             np.concatenate([d.level for d in drives]),
+            np.concatenate([np.full(len(d), -1, np.int64) if d.cycle is None else d.cycle for d in drives])
+            if with_cycles
+            else None,
         )
         if drives
         else TimedDrives.empty(),
@@ -85,6 +89,8 @@ def merge_timed(parts: list[Timed]) -> Timed:
         else TimedBeats.of([]),
         [n for p in parts for n in p.notices],
         [q for p in parts for q in p.pongs],
+        [c for p in parts for c in p.counts],
+        [a for p in parts for a in p.accepted],
     )
 
 

@@ -29,6 +29,7 @@ from benchlog.store import (
     RunWriter,
 )
 
+from ._count import SamplerCount
 from ._life import LifeJudge
 
 FLUSH_EVERY_S = 0.5
@@ -95,15 +96,21 @@ class Recorder:
         self._last_flush = time.monotonic()
         self.failures: list = []
         self.last_drive_at: float | None = None  # monotonic time of the latest drive record
+        self.count = SamplerCount(writer)  # the sampler's own cycle count (protocol version 2)
+        self._profile: tuple[int, int] | None = None  # (on_us, off_us) of the plans sent
+        self.pending: list = []  # commands to send the sampler (plans again after a reset)
 
     # -- what to send -------------------------------------------------------------------------------
     def plans(self, on_us: int, off_us: int):
         """One PLAN per channel of the run, for the cycles still to do (0 = endless)."""
         from benchlog.wire import Plan
 
+        self._profile = (int(on_us), int(off_us))
         out = []
         target = self.writer.target_cycles
         for ch in sorted(self.writer.units):
+            if self.writer.status.get(self.writer.units[ch]) != "alive":
+                continue
             left = 0 if not target else max(1, target - self.writer.cycles_done[ch])
             out.append(Plan(ch, int(on_us), int(off_us), int(left)))
         return out
@@ -118,8 +125,29 @@ class Recorder:
         if beats is not None and len(beats):
             # a beat says the sampler's clock reached its tick: quiet channels can be finished too
             until = int(beats.t_ns.max()) - self.analyzer.settings.lateness_ns
-        rows = self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
-        self._take(rows, timed.edges if self.keep_edges else None, timed.incidents)
+        unseen = self.count.push(timed)
+        rows = self.count.number(
+            self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
+        )
+        self._take(rows, timed.edges if self.keep_edges else None, list(timed.incidents) + unseen)
+        if self.count.replan:
+            self.count.replan = False
+            if self._profile is not None and not self.target_reached():
+                from benchlog.wire import Go
+
+                # the sampler reset and forgot its plans: the cycles still due, again
+                self.pending = [*self.plans(*self._profile), Go()]
+
+    def send_pending(self, feed) -> None:
+        """Send the commands the recorder owes the sampler; those the port refuses wait for the next call."""
+        while self.pending:
+            try:
+                feed.send(self.pending[0])
+            except (PortError, OSError):
+                return
+            self.pending.pop(0)
+            if self.last_drive_at is not None:
+                self.last_drive_at = time.monotonic()  # a new plan: its first drive is yet to come
 
     def _take(self, rows: np.ndarray, edges, incidents) -> None:
         if len(rows):
@@ -187,7 +215,7 @@ class Recorder:
     # -- ending -------------------------------------------------------------------------------------
     def finish(self, reason: str, detail: str = "") -> None:
         """End of data: finish the analysis, judge the last cycles, write everything, end the run."""
-        rows = self.analyzer.flush()
+        rows = self.count.number(self.analyzer.flush())
         self._take(rows, None, [])
         for f in self.life.finish():
             self._fail(f)
@@ -221,8 +249,12 @@ class Recorder:
                     timed = None
                 if timed is not None:
                     self.push(timed)
+                if self.pending:
+                    self.send_pending(feed)
                 self.maybe_flush()
                 now = time.monotonic()
+                if self.last_drive_at is not None and not getattr(feed, "connected", True):
+                    self.last_drive_at = now  # the sampler's silence counts from the reconnection
                 if on_progress and now - last_progress >= progress_every_s:
                     last_progress = now
                     on_progress(self.progress(getattr(feed, "connected", True)))

@@ -20,12 +20,14 @@ from benchlog.wire import (
     Drive,
     Edges,
     Go,
+    GoAccepted,
     Halt,
     LineEncoder,
     Notice,
     PackedEncoder,
     Ping,
     Plan,
+    PlanAccepted,
     Pong,
     SetForm,
     Who,
@@ -66,10 +68,13 @@ class _Running:
 
 
 class Truth:
-    """What the simulator really did: units' lives and modes, every actuation, every edge it sent."""
+    """What the simulator really did: units' lives and modes, every actuation, every edge it sent, and
+    `cycles`: per channel, the cycles the sampler started (switched its actuator on), over every plan and
+    reset; a unit's true cycle count (a started cycle completes unless the board loses power)."""
 
     def __init__(self, units: list[UnitState]) -> None:
         self.units = units
+        self.cycles: dict[int, int] = {}
         self._act: list[np.ndarray] = []
         self._sent: list[np.ndarray] = []
         self.resets: list[int] = []  # true time of each reset
@@ -127,12 +132,18 @@ class Bench:
             np.zeros(0, np.uint8),
             np.zeros(0, np.uint8),
             np.zeros(0, np.uint8),
+            np.zeros(0, np.int64),  # the event's cycle in its channel's run (1 = first after GO)
         )
+        # the sampler's own count: cycles completed per channel since its plan started (reported in
+        # beats), and per channel the run cycle its count restarted from at a reset
+        self.cycles_done: dict[int, int] = {}
+        self._cycle_base: dict[int, int] = {}
+        self._fresh = True  # nothing sent since reset: a packed stream starts with a 0x00
         self._reset_at: int | None = None
         self._reset_done = False
         self._buffer_level = 0.0
         self._buffer_bin = -1
-        self._encoders = {"line": LineEncoder(), "packed": PackedEncoder()}
+        self._encoders = {"line": LineEncoder(version=PROTOCOL_VERSION), "packed": PackedEncoder()}
         self.started = False
         self.edges_generated = 0
 
@@ -149,7 +160,16 @@ class Bench:
         return Announce(PROTOCOL_VERSION, s.clock_hz, s.counter_bits, s.channels, s.board_id)
 
     def _beat(self, t_ns: int) -> Beat:
-        return Beat(self._tick(t_ns), self.captured & 0xFFFFFFFF, self.dropped & 0xFFFFFFFF)
+        return Beat(
+            self._tick(t_ns),
+            self.captured & 0xFFFFFFFF,
+            self.dropped & 0xFFFFFFFF,
+            0,  # the model widens a pulse too short for the input stage instead of missing it
+            self._counts(),
+        )
+
+    def _counts(self) -> tuple[tuple[int, int], ...]:
+        return tuple((c, n & 0xFFFFFFFF) for c, n in sorted(self.cycles_done.items()))
 
     # -- commands ----------------------------------------------------------------------------------
     def start(self) -> list:
@@ -180,26 +200,32 @@ class Bench:
             case Ping(token):
                 return [Pong(token)]
             case SetForm(form):
-                self.form = "line" if form == "L" else "packed"
+                new = "line" if form == "L" else "packed"
+                self._fresh = self._fresh or (new == "packed" and self.form != "packed")
+                self.form = new
                 return []
             case Plan():
                 if cmd.channel >= self.config.sampler.channels:
                     return [Notice(f"no channel {cmd.channel}")]
                 self.plans[cmd.channel] = cmd
-                return []
+                return [PlanAccepted(cmd.channel, cmd.on_us, cmd.off_us, cmd.cycles)]
             case Go():
                 start = self.now_ns + 100_000
                 first = True
+                started = []
                 for ch, p in sorted(self.plans.items()):
                     if ch in self._running:
                         continue
                     run = _Running(start, p.on_us * 1000, p.off_us * 1000, p.cycles)
                     self._running[ch] = run
+                    self.cycles_done[ch] = 0
+                    self._cycle_base[ch] = 0
+                    started.append(ch)
                     n = self.config.faults.reset_at_cycle
                     if first and n >= 0 and not self._reset_done and (not p.cycles or n < p.cycles):
                         self._reset_at = start + n * run.period - run.off_ns // 2
                     first = False
-                return []
+                return [GoAccepted(tuple(started), self._tick(start))]
             case Halt():
                 # the cycle in progress finishes (its drive-off is already scheduled); no new cycle starts
                 for ch, run in list(self._running.items()):
@@ -218,7 +244,7 @@ class Bench:
         extra = run.generated - started
         if extra:
             cut_ns = run.start_ns + started * run.period
-            t, _, chan, _ = self._pending
+            t, _, chan, _, _ = self._pending
             keep = ~((chan == ch) & (t >= cut_ns))
             self._pending = tuple(a[keep] for a in self._pending)  # type: ignore[assignment]
             run.generated = started
@@ -272,14 +298,15 @@ class Bench:
                 )
                 if self.keep_truth:
                     self.truth._act.append(truth)
-            parts.append((t, kind, np.full(len(t), ch, np.uint8), level))
+            cyc = (t - run.start_ns) // run.period + 1
+            parts.append((t, kind, np.full(len(t), ch, np.uint8), level, cyc))
         if len(parts) > 1:
             t = np.concatenate([p[0] for p in parts])
             order = np.argsort(t, kind="stable")
-            self._pending = tuple(np.concatenate([p[i] for p in parts])[order] for i in range(4))  # type: ignore[assignment]
+            self._pending = tuple(np.concatenate([p[i] for p in parts])[order] for i in range(5))  # type: ignore[assignment]
         return known
 
-    def _take(self, t_end: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _take(self, t_end: int) -> tuple[np.ndarray, ...]:
         cut = int(np.searchsorted(self._pending[0], t_end, side="left"))
         taken = tuple(a[:cut] for a in self._pending)
         self._pending = tuple(a[cut:] for a in self._pending)  # type: ignore[assignment]
@@ -343,6 +370,16 @@ class Bench:
         self.now_ns += int(off_ns)
         return self._reset()
 
+    def _count_cycles(self, kind: np.ndarray, chan: np.ndarray, level: np.ndarray, cyc: np.ndarray) -> None:
+        """A drive-on starts a cycle of the unit (the truth: its coil was energised, its contact moved
+        even when power failed before the drive-off); a drive-off completes it (the sampler's count)."""
+        drive = kind == DRIVE
+        for ch, lv, c in zip(chan[drive].tolist(), level[drive].tolist(), cyc[drive].tolist(), strict=True):
+            if lv:
+                self.truth.cycles[ch] = self.truth.cycles.get(ch, 0) + 1
+            elif ch in self.cycles_done:
+                self.cycles_done[ch] = c - self._cycle_base.get(ch, 0)
+
     def _reset(self) -> list:
         """The sampler restarts: blind for `boot_ms`, counter from 0, counts from 0, default form."""
         s = self.config.sampler
@@ -353,6 +390,7 @@ class Bench:
         self._reset_done = True
         self._generate(t + boot)
         blind = self._take(t + boot)
+        self._count_cycles(blind[1], blind[2], blind[3], blind[4])
         lost = int(np.count_nonzero(blind[1] == EDGE))
         self.truth.lost_in_reset += lost
         self.edges_generated += lost
@@ -364,12 +402,17 @@ class Bench:
         self._buffer_level = 0.0
         self._buffer_bin = -1
         self.form = s.form
-        self._encoders = {"line": LineEncoder(), "packed": PackedEncoder()}
+        self._encoders = {"line": LineEncoder(version=PROTOCOL_VERSION), "packed": PackedEncoder()}
+        self._fresh = True
+        # the count restarts with the sampler; a cycle driver that runs on counts from here
+        done = {ch: n for ch, n in self.cycles_done.items() if ch in self._running}
+        self._cycle_base = {ch: self._cycle_base.get(ch, 0) + n for ch, n in done.items()}
+        self.cycles_done = dict.fromkeys(done, 0)
         self._next_beat = self.now_ns + self.beat_ns
         return [self.announcement(), self._beat(self.now_ns)]
 
     def _emit(self, ev: tuple[np.ndarray, ...], t_from: int, t_to: int) -> list:
-        t, kind, chan, level = ev
+        t, kind, chan, level, cyc = ev
         is_edge = kind == EDGE
         edge_t = t[is_edge]
         self.edges_generated += len(edge_t)
@@ -382,7 +425,14 @@ class Bench:
         cum_cap = np.arange(1, len(edge_t) + 1)
         cum_drop = np.cumsum(dropped)
         ticks = self.ticks(t)
-        t, kind, chan, level, ticks = t[keep], kind[keep], chan[keep], level[keep], ticks[keep]
+        t, kind, chan, level, ticks, cyc = (
+            t[keep],
+            kind[keep],
+            chan[keep],
+            level[keep],
+            ticks[keep],
+            cyc[keep],
+        )
         is_edge = kind == EDGE
         if self.keep_truth and is_edge.any():
             sent = np.zeros(int(is_edge.sum()), SENT_DTYPE)
@@ -411,13 +461,17 @@ class Bench:
                     out.append(Edges(chan[sel][e], level[sel][e], wrapped[sel][e]))
                 pos = end
             if typ == 0:
-                out.append(Drive(int(chan[idx]), int(level[idx]), int(wrapped[idx])))
+                ch, lv = int(chan[idx]), int(level[idx])
+                cycle = int(cyc[idx]) - self._cycle_base.get(ch, 0)
+                out.append(Drive(ch, lv, int(wrapped[idx]), max(cycle, 0) & 0xFFFFFFFF))
+                one = slice(idx, idx + 1)
+                self._count_cycles(kind[one], chan[one], level[one], cyc[one])
                 pos = idx + 1
             else:
                 k = int(np.searchsorted(edge_t, bt, side="left"))
                 cap = base_cap + k
                 drp = base_drop + (int(cum_drop[k - 1]) if k else 0)
-                out.append(Beat(self._tick(bt), cap & 0xFFFFFFFF, drp & 0xFFFFFFFF))
+                out.append(Beat(self._tick(bt), cap & 0xFFFFFFFF, drp & 0xFFFFFFFF, 0, self._counts()))
         if pos < len(t):
             e = is_edge[pos:]
             if e.any():
@@ -429,7 +483,12 @@ class Bench:
     # -- bytes -------------------------------------------------------------------------------------
     def encode(self, records: list) -> bytes:
         enc = self._encoders[self.form]
-        return b"".join(enc.encode(r) for r in records)
+        data = b"".join(enc.encode(r) for r in records)
+        if data and self._fresh:
+            self._fresh = False
+            if self.form == "packed":  # whatever came before, the first frame starts clean
+                data = b"\0" + data
+        return data
 
     def damage(self, data: bytes, t_ns: int | None = None) -> bytes:
         """Byte faults (drop / flip at the configured rates) on bytes the sampler sends at `t_ns`."""

@@ -23,7 +23,7 @@ from pathlib import Path
 from benchlog.errors import ConfigError, PortError
 from benchlog.sim._bench import Bench
 from benchlog.sim._config import SimConfig
-from benchlog.wire import Announce, LineEncoder, PackedEncoder
+from benchlog.wire import PROTOCOL_VERSION, Announce, LineEncoder, PackedEncoder
 
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
 STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
@@ -222,7 +222,7 @@ class PtySampler:
             return
         announces = [r for r in records if isinstance(r, Announce)]
         if announces:
-            enc = LineEncoder() if bench.form == "line" else PackedEncoder()
+            enc = LineEncoder(version=PROTOCOL_VERSION) if bench.form == "line" else PackedEncoder()
             self._sticky = enc.encode(announces[-1])
         if data:
             self._held.append((bench.now_ns, data, bool(announces)))

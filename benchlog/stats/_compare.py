@@ -57,37 +57,73 @@ _BATCH = 250
 
 @dataclass(frozen=True, eq=False)
 class UnitSample:
-    """Values of one metric in one population, each tagged with the unit it came from."""
+    """Values of one metric in one population, each tagged with the unit it came from.
+
+    `weights` (optional) says how many times each value occurred: a sample read from the store's
+    distribution summaries is one value per occupied histogram bin with its exact count. Every
+    statistic treats a value of weight k as k equal values."""
 
     values: np.ndarray  # float64
     unit: np.ndarray  # int64 codes 0 .. n_units - 1
     unit_names: tuple[str, ...]
+    weights: np.ndarray | None = None  # float64 counts, None = 1 each
+    # exact per-unit sum and sum of squares (2, n_units) when the values are a summary's bins
+    moments: np.ndarray | None = None
 
     @classmethod
-    def of(cls, values, units) -> UnitSample:
+    def of(cls, values, units, weights=None) -> UnitSample:
         v = np.asarray(values, dtype=np.float64)
         u = np.asarray(units)
         if v.shape != u.shape or v.ndim != 1:
             raise DataError("values and unit labels must be one-dimensional and of equal length")
         keep = np.isfinite(v)
+        w = None
+        if weights is not None:
+            w = np.asarray(weights, dtype=np.float64)
+            if w.shape != v.shape:
+                raise DataError("one weight per value is needed")
+            keep &= w > 0
+            w = w[keep]
         v, u = v[keep], u[keep]
         names, codes = np.unique(u.astype(str), return_inverse=True)
-        return cls(v, codes.astype(np.int64), tuple(str(n) for n in names))
+        return cls(v, codes.astype(np.int64), tuple(str(n) for n in names), w)
 
     @property
     def n_units(self) -> int:
         return len(self.unit_names)
 
     def __len__(self) -> int:
-        return len(self.values)
+        return len(self.values) if self.weights is None else int(round(self.weights.sum()))
+
+    def unit_sums(self, values: np.ndarray | None = None, *, power: int = 1) -> np.ndarray:
+        """Per unit: the sum of `values` (default: the sample's own values to `power`, exact when the
+        sample carries its moments), each counted by its weight."""
+        if values is None:
+            if self.moments is not None:
+                return self.moments[power - 1]
+            values = self.values if power == 1 else self.values**power
+        w = values if self.weights is None else values * self.weights
+        return np.bincount(self.unit, w, self.n_units)
+
+    def unit_counts(self) -> np.ndarray:
+        """Per unit: how many values (weights included), as float64."""
+        return np.bincount(self.unit, self.weights, self.n_units).astype(np.float64)
 
     def per_unit(self, percentile: float) -> np.ndarray:
         """Each unit's own percentile (one summary value per unit)."""
         order = np.lexsort((self.values, self.unit))
         v = self.values[order]
         bounds = np.searchsorted(self.unit[order], np.arange(self.n_units + 1))
+        if self.weights is None:
+            return np.array(
+                [np.percentile(v[a:b], percentile) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+            )
+        w = self.weights[order]
         return np.array(
-            [np.percentile(v[a:b], percentile) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+            [
+                _weighted_percentile(v[a:b], w[a:b], percentile)
+                for a, b in zip(bounds[:-1], bounds[1:], strict=True)
+            ]
         )
 
     def pooled_cdf(self) -> _PooledCdf:
@@ -99,7 +135,17 @@ class UnitSample:
         return cdf
 
     def per_unit_mean(self) -> np.ndarray:
-        return np.bincount(self.unit, self.values, self.n_units) / np.bincount(self.unit, None, self.n_units)
+        return self.unit_sums() / self.unit_counts()
+
+
+def _weighted_percentile(v: np.ndarray, w: np.ndarray, percentile: float) -> float:
+    """numpy's default (linear) percentile of sorted values `v` each repeated `w` times."""
+    cum = np.cumsum(w)
+    h = (cum[-1] - 1.0) * percentile / 100.0
+    lo, hi = np.floor(h), np.ceil(h)
+    a = v[min(int(np.searchsorted(cum, lo, side="right")), len(v) - 1)]
+    b = v[min(int(np.searchsorted(cum, hi, side="right")), len(v) - 1)]
+    return float(a + (h - lo) * (b - a))
 
 
 @dataclass(frozen=True)
@@ -126,18 +172,30 @@ class _PooledCdf:
             p = np.unique(
                 np.concatenate([np.linspace(0, 1, _MAX_GRID // 2), 1 - np.logspace(-6, -1, _MAX_GRID // 2)])
             )
-            pooled = np.unique(np.quantile(sample.values, p, method="inverted_cdf"))
+            pooled = np.unique(np.quantile(sample.values, p, method="inverted_cdf", weights=sample.weights))
         self.grid = pooled
         order = np.lexsort((sample.values, sample.unit))
         v = sample.values[order]
         bounds = np.searchsorted(sample.unit[order], np.arange(sample.n_units + 1))
-        self.counts = np.stack(
-            [
-                np.searchsorted(v[a:b], self.grid, side="right")
-                for a, b in zip(bounds[:-1], bounds[1:], strict=True)
-            ]
-        ).astype(np.float64)
-        self.n = np.diff(bounds).astype(np.float64)
+        if sample.weights is None:
+            self.counts = np.stack(
+                [
+                    np.searchsorted(v[a:b], self.grid, side="right")
+                    for a, b in zip(bounds[:-1], bounds[1:], strict=True)
+                ]
+            ).astype(np.float64)
+            self.n = np.diff(bounds).astype(np.float64)
+        else:
+            cw = np.cumsum(sample.weights[order])
+            at = np.stack(
+                [
+                    a + np.searchsorted(v[a:b], self.grid, side="right")
+                    for a, b in zip(bounds[:-1], bounds[1:], strict=True)
+                ]
+            )
+            base = np.r_[0.0, cw][bounds[:-1]]
+            self.counts = np.r_[0.0, cw][at] - base[:, None]
+            self.n = np.r_[0.0, cw][bounds[1:]] - base
         self._windows: dict[float, tuple[int, int]] = {}
 
     def _window(self, percentile: float) -> tuple[int, int]:
@@ -305,8 +363,8 @@ def pooled_mean(
 ) -> Interval:
     """Pooled mean over all values (a rate when values are per-cycle counts), cluster bootstrap."""
     _check_units(sample)
-    sums = np.bincount(sample.unit, sample.values, sample.n_units)
-    n = np.bincount(sample.unit, None, sample.n_units).astype(np.float64)
+    sums = sample.unit_sums()
+    n = sample.unit_counts()
 
     def stat(idx, axis=-1):
         w = _weights(np.moveaxis(idx, axis, -1), sample.n_units)
@@ -318,10 +376,7 @@ def pooled_mean(
 
 def _pooled_means(candidate: UnitSample, reference: UnitSample):
     """Both populations' pooled means as a function of unit weights (sums and counts per unit)."""
-    (sa, na), (sb, nb) = (
-        (np.bincount(s.unit, s.values, s.n_units), np.bincount(s.unit, None, s.n_units).astype(float))
-        for s in (candidate, reference)
-    )
+    (sa, na), (sb, nb) = ((s.unit_sums(), s.unit_counts()) for s in (candidate, reference))
 
     def means(wa, wb):
         return (wa @ sa) / (wa @ na), (wb @ sb) / (wb @ nb)
@@ -439,9 +494,9 @@ def capability(
 ) -> Capability:
     _check_units(sample)
     u = sample.n_units
-    s1 = np.bincount(sample.unit, sample.values, u)
-    s2 = np.bincount(sample.unit, sample.values**2, u)
-    n = np.bincount(sample.unit, None, u).astype(np.float64)
+    s1 = sample.unit_sums()
+    s2 = sample.unit_sums(power=2)
+    n = sample.unit_counts()
 
     def ppk(w):
         m = (w @ s1) / (w @ n)
@@ -507,11 +562,11 @@ def share_beyond(
     if len(sample) == 0:
         raise DataError("no measured values")
     over = sample.values > limit
-    k, n = int(over.sum()), len(sample)
+    k, n = int(round(sample.unit_sums(over.astype(np.float64)).sum())), len(sample)
     ci = stats.binomtest(k, n).proportion_ci(confidence_level=confidence, method="exact")
     if sample.n_units >= 3:
         iv = pooled_mean(
-            UnitSample(over.astype(np.float64), sample.unit, sample.unit_names),
+            UnitSample(over.astype(np.float64), sample.unit, sample.unit_names, sample.weights),
             confidence=confidence,
             n_resamples=n_resamples,
             seed=seed,

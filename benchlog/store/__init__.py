@@ -13,6 +13,8 @@ Read API (all on `Store`; see docs/store.md):
 - `edges(unit_id, run_id=None, t_ns=None, cycles=None)` -> TimedEdges
 - `incidents(run_id, kind=None)` -> list[IncidentInfo]
 - `life_table(part=None, lot=None)` -> LifeTable (cycles, failed, mode per unit: failures and suspensions)
+- `summaries(units=, lots=, parts=, runs=, series=)` -> {series: SeriesSummary} (merged histograms)
+- `summary_windows(series, units=, percentiles=)` -> per unit and window: count and percentiles
 
 Writing: `register_part/lot/unit/bench`, `start_run(...)` / `resume_run(run_id)` -> RunWriter.
 """
@@ -51,6 +53,7 @@ from ._schema import (
     ROLLUP_METRICS,
 )
 from ._store import Store
+from ._summary import RESOLUTION, SERIES, SUMMARY_WINDOW, SeriesSummary
 from ._write import LEASE_SECONDS, STORED_ACTUATION_DTYPE, FlushStats, RunWriter
 
 __all__ = [
@@ -72,6 +75,10 @@ __all__ = [
     "LIFE_DTYPE",
     "KIND_NAMES",
     "ROLLUP_METRICS",
+    "RESOLUTION",
+    "SERIES",
+    "SUMMARY_WINDOW",
+    "SeriesSummary",
     "LIFE_STATUSES",
     "ALIVE",
     "FAILED",

@@ -158,6 +158,7 @@ class IncidentInfo:
     edges_lost: int | None
     channel: int | None
     detail: str
+    cycles_lost: int | None = None
 
     @property
     def duration_s(self) -> float:

@@ -158,6 +158,8 @@ class RunUnit(Base):
     unit_id: Mapped[int] = mapped_column(ForeignKey("units.id"), index=True)
     cycle_base: Mapped[int] = mapped_column(BigInteger, default=0)
     cycles_done: Mapped[int] = mapped_column(BigInteger, default=0)  # highest cycle recorded in the run
+    # run cycles done when the sampler's current plan started (its count + this = run cycles done)
+    sampler_base: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
 
 
 class UnitLife(Base):
@@ -217,6 +219,7 @@ class Incident(Base):
     edges_lost: Mapped[int | None] = mapped_column(BigInteger)
     channel: Mapped[int | None] = mapped_column(SmallInteger)
     detail: Mapped[str] = mapped_column(Text, default="")
+    cycles_lost: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
 
 
 class EdgeChunk(Base):
@@ -252,6 +255,27 @@ class Rollup(Base):
     p95: Mapped[float | None] = mapped_column(Float)
     max: Mapped[float | None] = mapped_column(Float)
     sum: Mapped[float | None] = mapped_column(Float)
+
+
+class Summary(Base):
+    """Per run, unit, series (`make.bounce_us`, `cycle.chatter`, ...) and window of SUMMARY_WINDOW life
+    cycles: a mergeable distribution summary (benchlog/store/_summary.py). `bins` and `counts` are
+    zlib (RFC 1950) of little-endian int64 arrays: the occupied histogram bins and their exact counts."""
+
+    __tablename__ = "summaries"
+    run_id: Mapped[int] = mapped_column(ForeignKey("runs.id"), primary_key=True)
+    unit_id: Mapped[int] = mapped_column(ForeignKey("units.id"), primary_key=True)
+    series: Mapped[str] = mapped_column(String(32), primary_key=True)
+    window_no: Mapped[int] = mapped_column(BigInteger, primary_key=True)
+    count: Mapped[int] = mapped_column(BigInteger)
+    sum: Mapped[float] = mapped_column(Float)
+    sumsq: Mapped[float] = mapped_column(Float)
+    min: Mapped[float] = mapped_column(Float)
+    max: Mapped[float] = mapped_column(Float)
+    bins: Mapped[bytes] = mapped_column(LargeBinary)
+    counts: Mapped[bytes] = mapped_column(LargeBinary)
+
+    __table_args__ = (Index("ix_summaries_unit", "unit_id", "series"),)
 
 
 # Metrics the rollups keep (all float-valued columns of ACTUATION_DTYPE plus the counts).

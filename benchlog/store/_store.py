@@ -23,6 +23,8 @@ from ._engine import _one_line, is_empty, make_engine, resolve_url
 from ._migrate import status as schema_status
 from ._migrate import upgrade as schema_upgrade
 from ._read import ReadAPI
+from ._stream_read import StreamReadAPI
+from ._summary_read import SummaryReadAPI
 from ._write import LEASE_SECONDS, RunWriter, _store_error
 
 
@@ -74,7 +76,7 @@ def _opening_lock(engine: Engine, readonly: bool) -> Iterator[None]:
         os.close(fd)  # closing releases the flock
 
 
-class Store(ReadAPI):
+class Store(ReadAPI, SummaryReadAPI, StreamReadAPI):
     """One benchlog database. `Store.open(db)` for recording, `Store.open(db, readonly=True)` for the
     dashboard, reports and statistics (never takes a write lock)."""
 

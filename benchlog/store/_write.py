@@ -28,6 +28,7 @@ from . import _schema as s
 from ._codec import encode_edges
 from ._engine import _one_line, damaged
 from ._rollup import RollupKeeper
+from ._summary import SummaryKeeper
 
 # unit_id, run_id, then the store's actuation columns with ACTUATION_DTYPE's own numpy types (a column
 # the analysis adds later and the store does not know yet fails tests/store/test_migrate.py).
@@ -180,7 +181,11 @@ class RunWriter:
             self.window = int(run["rollup_window"])
             assign = c.execute(
                 select(
-                    s.RunUnit.channel, s.RunUnit.unit_id, s.RunUnit.cycle_base, s.RunUnit.cycles_done
+                    s.RunUnit.channel,
+                    s.RunUnit.unit_id,
+                    s.RunUnit.cycle_base,
+                    s.RunUnit.cycles_done,
+                    s.RunUnit.sampler_base,
                 ).where(s.RunUnit.run_id == run_id)
             ).all()
             life = dict(
@@ -197,7 +202,10 @@ class RunWriter:
         self.seg_start = {}  # channel -> run cycles done before this segment
         self.cycles_done = {}  # channel -> run cycles done so far
         self.cycle_base = {}
+        # run cycles done when the sampler's current plan started (protocol version 2), None: unknown
+        self.sampler_base: dict[int, int | None] = {}
         for a in assign:
+            self.sampler_base[a.channel] = None if a.sampler_base is None else int(a.sampler_base)
             self._lut[a.channel] = a.unit_id
             self._base[a.channel] = a.cycle_base + a.cycles_done
             self.seg_start[a.channel] = int(a.cycles_done)
@@ -211,6 +219,7 @@ class RunWriter:
         self._shift = np.zeros(256, np.int64)
         self._break_owed = self._cycles_owing_a_break(engine)
         self._rollups = RollupKeeper(self.window)
+        self._summaries = SummaryKeeper(run_id)
         self._acts: list[np.ndarray] = []  # ACTUATION_DTYPE, shifted to run time and life cycles
         self._act_units: list[np.ndarray] = []
         self._sqlite_insert = {ch: sqlite_actuation_insert(run_id, u) for ch, u in self.units.items()}
@@ -347,6 +356,7 @@ class RunWriter:
         def prepare() -> None:
             try:
                 side["rollups"] = self._rollups.add(units, acts, final=final)
+                self._summaries.add(units, acts, final=final)
                 side["chunks"] = self._chunks()
             except BaseException as exc:  # re-raised in the flushing thread
                 side["error"] = exc
@@ -375,6 +385,7 @@ class RunWriter:
                 if self._incidents:
                     conn.execute(insert(s.Incident), [self._incident_row(i) for i in self._incidents])
                 bulk_insert_rollups(conn, [r[:3] + (self.run_id,) + r[4:] for r in rollups])
+                self._summaries.write(conn, final=final)
                 self._write_progress(conn, now, done)
         except DB_ERRORS as exc:
             raise _store_error("write to the database", exc) from exc
@@ -466,7 +477,7 @@ class RunWriter:
             conn.execute(
                 update(s.RunUnit)
                 .where(s.RunUnit.run_id == self.run_id, s.RunUnit.channel == ch)
-                .values(cycles_done=cyc)
+                .values(cycles_done=cyc, sampler_base=self.sampler_base.get(ch))
             )
             unit = self.units[ch]
             values = self._life.get(unit)
@@ -491,6 +502,7 @@ class RunWriter:
             "edges_lost": None if inc.edges_lost is None else int(inc.edges_lost),
             "channel": inc.channel,
             "detail": inc.detail,
+            "cycles_lost": getattr(inc, "cycles_lost", None),
         }
 
     def _chunks(self) -> list[dict]:

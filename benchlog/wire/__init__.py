@@ -16,7 +16,8 @@ from benchlog.wire._commands import (
 )
 from benchlog.wire._decoder import MAX_FRAME, MAX_LINE, Decoder
 from benchlog.wire._encoders import LineEncoder, PackedEncoder
-from benchlog.wire._framing import DecodeError, cobs_decode, cobs_encode, crc32
+from benchlog.wire._framing import DecodeError, cobs_decode, cobs_encode, crc16, crc32
+from benchlog.wire._lineform import line_check
 from benchlog.wire._records import (
     PROTOCOL_VERSION,
     Announce,
@@ -25,7 +26,9 @@ from benchlog.wire._records import (
     Drive,
     Edges,
     Fault,
+    GoAccepted,
     Notice,
+    PlanAccepted,
     Pong,
     Record,
     SequenceGap,
@@ -40,6 +43,8 @@ __all__ = [
     "Drive",
     "Edges",
     "Fault",
+    "GoAccepted",
+    "PlanAccepted",
     "Notice",
     "Pong",
     "Record",
@@ -53,6 +58,8 @@ __all__ = [
     "cobs_encode",
     "cobs_decode",
     "crc32",
+    "crc16",
+    "line_check",
     "DecodeError",
     "Command",
     "Who",

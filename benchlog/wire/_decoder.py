@@ -32,12 +32,23 @@ from benchlog.wire._encoders import (
     TYPE_BEAT,
     TYPE_DRIVE,
     TYPE_EDGES,
+    TYPE_GO_ACCEPTED,
     TYPE_NOTICE,
+    TYPE_PLAN_ACCEPTED,
     TYPE_PONG,
     check_board_id,
 )
 from benchlog.wire._framing import DecodeError, cobs_decode
-from benchlog.wire._lineform import MAX_LINE, TOO_LONG, LineContext, fast_edge_lines, parse_line
+from benchlog.wire._lineform import (
+    CHECK_CRC,
+    CHECK_NONE,
+    MAX_LINE,
+    MAX_LINE_V2,
+    TOO_LONG,
+    LineContext,
+    fast_edge_lines,
+    parse_line,
+)
 from benchlog.wire._records import (
     Announce,
     Beat,
@@ -45,7 +56,9 @@ from benchlog.wire._records import (
     Drive,
     Edges,
     Fault,
+    GoAccepted,
     Notice,
+    PlanAccepted,
     Pong,
     Record,
     SequenceGap,
@@ -67,7 +80,8 @@ RANGE = "value out of range"
 
 _EDGE_HEAD = np.dtype([("base", "<u8"), ("count", "u1")])
 _TERMINATOR = re.compile(rb"[\n\x00]")
-_FIXED_PAYLOAD = {TYPE_DRIVE: 10, TYPE_BEAT: 16, TYPE_PONG: 2}
+_V2_CHECK = re.compile(rb"\*[0-9a-fA-F]{6}\r?\n")
+_FIXED_PAYLOAD = {TYPE_PONG: 2, TYPE_PLAN_ACCEPTED: 13, TYPE_GO_ACCEPTED: 10}
 
 
 class _EdgeRun:
@@ -164,7 +178,7 @@ class Decoder:
             if nl < 0:
                 return None
             line = buf[st : nl - 1 if nl > st and buf[nl - 1] == 13 else nl]
-            if b"\0" not in line and not isinstance(parse_line(line, self._ctx), str | Unknown):
+            if b"\0" not in line and not isinstance(parse_line(line, self._ctx)[0], str | Unknown):
                 return st
         return None
 
@@ -189,6 +203,7 @@ class Decoder:
         if self._bad_units >= REDETECT_FAULTS or self._bad_bytes >= REDETECT_BYTES:
             self.form = None
             self._expected_seq = None
+            self._ctx.check_level = CHECK_NONE  # a sampler that restarted may be an older one
             self._bad_units = self._bad_bytes = 0
             return True
         return False
@@ -203,9 +218,12 @@ class Decoder:
             self._edges(rec, 1)
             return
         elif isinstance(rec, Announce):
-            self._ctx.version = rec.version
-            self._ctx.counter_bits = rec.counter_bits
-            self._ctx.channels = rec.channels
+            ctx = self._ctx
+            ctx.version = rec.version
+            ctx.counter_bits = rec.counter_bits
+            ctx.channels = rec.channels
+            if rec.version >= 2:
+                ctx.check_level = CHECK_CRC
         self._out.append(rec)
 
     def _edges(self, rec: Edges, units: int) -> None:
@@ -268,7 +286,7 @@ class Decoder:
                 frame_start = line_start = p + 1
             else:
                 line = buf[line_start : p - 1 if p > line_start and buf[p - 1] == 13 else p]
-                rec = parse_line(line, self._ctx)
+                rec = parse_line(line, self._ctx)[0]
                 if not isinstance(rec, str | Unknown):
                     found = ("line", line_start)
                     break
@@ -299,8 +317,44 @@ class Decoder:
             buf = rest
         last = buf.rfind(b"\n")
         if last < 0:
-            return self._hold(buf, MAX_LINE + 1, b"\n")
+            return self._hold(buf, MAX_LINE_V2 + 1, b"\n")
         body, tail = buf[: last + 1], buf[last + 1 :]
+        while body:
+            cut = self._block_end(body)
+            rest = self._line_block(body[:cut])
+            if rest is not None:  # back to undecided
+                return rest + body[cut:] + tail
+            body = body[cut:]
+        return self._hold(tail, MAX_LINE_V2 + 1, b"\n")
+
+    def _block_end(self, body: bytes) -> int:
+        """How many bytes of `body` (whole lines) decode with the context as it is now: up to and
+        including the first line that may change it (an announcement, a stronger check than the stream
+        has carried). So results never depend on how the stream was split into reads."""
+        level = self._ctx.check_level
+        if body[:1] != b"A" and b"\nA" not in body[:-1]:  # the usual case, found at C speed
+            if level == CHECK_CRC or (
+                b"*" not in body if level == CHECK_NONE else not _V2_CHECK.search(body)
+            ):
+                return len(body)
+        a = np.frombuffer(body, np.uint8)
+        nl = np.flatnonzero(a == 0x0A)
+        starts = np.empty_like(nl)
+        starts[0] = 0
+        starts[1:] = nl[:-1] + 1
+        changes = a[starts] == 0x41
+        if self._ctx.check_level < CHECK_CRC:
+            ends = nl - ((nl > starts) & (a[nl - 1] == 0x0D))
+            length = ends - starts
+            v2 = (length >= 7) & (a[np.maximum(ends - 7, 0)] == 0x2A)
+            v1 = (length >= 3) & (a[np.maximum(ends - 3, 0)] == 0x2A)
+            kind = np.where(v2, 2, np.where(v1, 1, 0))
+            changes |= kind > self._ctx.check_level
+        hit = np.flatnonzero(changes[:-1])  # the last line ends the block anyway
+        return int(nl[hit[0]]) + 1 if len(hit) else len(body)
+
+    def _line_block(self, body: bytes) -> bytes | None:
+        """Decode whole lines with one context; the unread rest when a fault run ends the line form."""
         a = np.frombuffer(body, np.uint8)
         nl = np.flatnonzero(a == 0x0A)
         starts = np.empty_like(nl)
@@ -308,7 +362,10 @@ class Decoder:
         starts[1:] = nl[:-1] + 1
         ends = nl - ((nl > starts) & (a[nl - 1] == 0x0D))
         line_xor = np.bitwise_xor.reduceat(a, starts)
-        fast, is_drive, channel, level, tick = fast_edge_lines(a, line_xor, starts, ends, nl, self._ctx)
+        ctx = self._ctx
+        fast, is_drive, channel, level, tick, kind = fast_edge_lines(a, line_xor, starts, ends, nl, ctx)
+        if len(kind):
+            ctx.check_level = max(ctx.check_level, int(kind.max()))  # only the block's last line can raise
         n_lines = len(nl)
         is_edge_line = np.zeros(n_lines + 1, bool)
         is_edge_line[fast[~is_drive]] = True
@@ -338,14 +395,15 @@ class Decoder:
                 out.append(Drive(int(channel[f]), int(level[f]), int(tick[f])))
                 continue
             line_start = int(starts[j])
-            rec = parse_line(body[line_start : int(ends[j])], self._ctx)
+            rec, check = parse_line(body[line_start : int(ends[j])], ctx)
             if isinstance(rec, str):
                 line_end = int(nl[j]) + 1
                 if self._fault(rec, line_end - line_start):
-                    return body[line_end:] + tail
+                    return body[line_end:]
             else:
+                ctx.check_level = max(ctx.check_level, check)
                 self._good(rec)
-        return self._hold(tail, MAX_LINE + 1, b"\n")
+        return None
 
     def _hold(self, tail: bytes, limit: int, terminator: bytes) -> bytes:
         """Keep an unfinished unit, or start skipping it when it is already too long."""
@@ -442,21 +500,52 @@ class Decoder:
 
     def _record(self, kind: int, payload: bytes, version: int) -> Record | str:
         n = len(payload)
+        later = version > 2
         fixed = _FIXED_PAYLOAD.get(kind)
         if fixed is not None and (n < fixed or (n > fixed and version <= 1)):
             return PAYLOAD
         ctx = self._ctx
         if kind == TYPE_DRIVE:
+            # version 1: 10 bytes; version 2 adds the cycle (14); a later version may add more
+            if not (n == 10 or n == 14 or (n > 14 and later)):
+                return PAYLOAD
             channel, level, tick = payload[0], payload[1], int.from_bytes(payload[2:10], "little")
             if channel >= ctx.channels or level > 1 or tick >> ctx.counter_bits:
                 return RANGE
-            return Drive(channel, level, tick)
+            cycle = int.from_bytes(payload[10:14], "little") if n >= 14 else None
+            return Drive(channel, level, tick, cycle)
         if kind == TYPE_BEAT:
+            if n < 16 or (16 < n < 21 and not later):
+                return PAYLOAD
             tick = int.from_bytes(payload[0:8], "little")
             if tick >> ctx.counter_bits:
                 return RANGE
             captured = int.from_bytes(payload[8:12], "little")
-            return Beat(tick, captured, int.from_bytes(payload[12:16], "little"))
+            dropped = int.from_bytes(payload[12:16], "little")
+            if n == 16 or n < 21:
+                return Beat(tick, captured, dropped)
+            count = payload[20]
+            size = 21 + 5 * count
+            if n < size or (n > size and not later):
+                return PAYLOAD
+            cycles = tuple(
+                (payload[i], int.from_bytes(payload[i + 1 : i + 5], "little")) for i in range(21, size, 5)
+            )
+            chans = [c for c, _ in cycles]
+            if any(c >= ctx.channels for c in chans) or chans != sorted(set(chans)):
+                return RANGE
+            return Beat(tick, captured, dropped, int.from_bytes(payload[16:20], "little"), cycles)
+        if kind == TYPE_PLAN_ACCEPTED:
+            channel = payload[0]
+            on_us, off_us, cycles = (int.from_bytes(payload[i : i + 4], "little") for i in (1, 5, 9))
+            if channel >= ctx.channels or not on_us or not off_us:
+                return RANGE
+            return PlanAccepted(channel, on_us, off_us, cycles)
+        if kind == TYPE_GO_ACCEPTED:
+            mask, tick = payload[0] | payload[1] << 8, int.from_bytes(payload[2:10], "little")
+            if mask >> ctx.channels or tick >> ctx.counter_bits:
+                return RANGE
+            return GoAccepted(tuple(c for c in range(16) if mask >> c & 1), tick)
         if kind == TYPE_PONG:
             return Pong(int.from_bytes(payload[0:2], "little"))
         if kind == TYPE_NOTICE:

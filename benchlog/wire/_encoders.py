@@ -11,8 +11,8 @@ import struct
 import numpy as np
 
 from benchlog.errors import ProtocolError
-from benchlog.wire._framing import cobs_encode, crc32
-from benchlog.wire._records import Announce, Beat, Drive, Edges, Notice, Pong
+from benchlog.wire._framing import CRC16_TABLE, cobs_encode, crc16, crc32
+from benchlog.wire._records import Announce, Beat, Drive, Edges, GoAccepted, Notice, PlanAccepted, Pong
 
 HEX_DIGITS = np.frombuffer(b"0123456789abcdef", np.uint8)
 
@@ -21,6 +21,8 @@ TYPE_DRIVE = 0x02
 TYPE_BEAT = 0x03
 TYPE_NOTICE = 0x04
 TYPE_PONG = 0x05
+TYPE_PLAN_ACCEPTED = 0x06
+TYPE_GO_ACCEPTED = 0x07
 TYPE_ANNOUNCE = 0x10
 
 MAX_NOTICE = 120
@@ -30,7 +32,12 @@ MAX_DELTA = 0xFFFF
 
 _EDGES_HEAD = struct.Struct("<BHQB")
 _DRIVE = struct.Struct("<BBQ")
+_DRIVE_V2 = struct.Struct("<BBQI")
 _BEAT = struct.Struct("<QII")
+_BEAT_V2 = struct.Struct("<QIIIB")
+_CYCLES = struct.Struct("<BI")
+_PLAN_ACCEPTED = struct.Struct("<BIII")
+_GO_ACCEPTED = struct.Struct("<HQ")
 _PONG = struct.Struct("<H")
 _ANNOUNCE = struct.Struct("<BIBB")
 
@@ -90,6 +97,40 @@ def _check_beat(rec: Beat, counter_bits: int) -> None:
         _fail(f"beat tick {rec.tick} does not fit the {counter_bits}-bit counter")
     if not (0 <= rec.captured < 2**32 and 0 <= rec.dropped < 2**32):
         _fail("beat counts must be 0 to 2**32-1")
+    if rec.short is None:
+        if rec.cycles:
+            _fail("a version 1 beat carries no cycle counts")
+        return
+    if not 0 <= rec.short < 2**32:
+        _fail("beat short-pulse count must be 0 to 2**32-1")
+    chans = [c for c, _ in rec.cycles]
+    if chans != sorted(set(chans)) or any(not 0 <= c <= 15 for c in chans):
+        _fail("beat cycle counts must be for distinct channels 0-15 in ascending order")
+    if any(not 0 <= n < 2**32 for _, n in rec.cycles):
+        _fail("beat cycle counts must be 0 to 2**32-1")
+
+
+def _check_cycle(cycle: int) -> None:
+    if not 0 <= cycle < 2**32:
+        _fail(f"drive cycle {cycle} is not 0 to 2**32-1")
+
+
+def _check_plan_accepted(rec: PlanAccepted) -> None:
+    if not 0 <= rec.channel <= 15:
+        _fail(f"channel {rec.channel} outside 0-15")
+    if not (0 < rec.on_us < 2**32 and 0 < rec.off_us < 2**32 and 0 <= rec.cycles < 2**32):
+        _fail("accepted plan times must be 1 to 2**32-1 us and its cycles 0 to 2**32-1")
+
+
+def _go_mask(rec: GoAccepted, counter_bits: int) -> int:
+    if any(not 0 <= c <= 15 for c in rec.channels):
+        _fail("GO accepted channels must be 0-15")
+    if not 0 <= rec.tick < 2**counter_bits:
+        _fail(f"tick {rec.tick} does not fit the {counter_bits}-bit counter")
+    mask = 0
+    for c in rec.channels:
+        mask |= 1 << c
+    return mask
 
 
 # two lowercase hex digits per byte value, first digit in the low byte (little-endian uint16)
@@ -119,37 +160,59 @@ def _hex_width(max_value: int) -> int:
 
 
 class LineEncoder:
-    """Records to line-form bytes, every line with its `*hh` checksum.
+    """Records to line-form bytes, every line with its check: `*hh` (version 1) or `*LLCCCC` (version 2:
+    length and CRC-16), as the last `Announce` encoded (or `version`) says.
 
     Ticks are written with a fixed number of hex digits: `tick_digits`, which an `Announce` sets from
     its counter width (8 digits for 32 bits), widened for a tick that does not fit.
     """
 
-    def __init__(self, tick_digits: int = 8, counter_bits: int = 64) -> None:
+    def __init__(self, tick_digits: int = 8, counter_bits: int = 64, version: int = 1) -> None:
         self.tick_digits = tick_digits
         self.counter_bits = counter_bits
+        self.version = version
 
     def _line(self, text: str) -> bytes:
         body = text.encode("ascii")
+        if self.version >= 2:
+            if len(body) > 255:
+                _fail("a version 2 line body is at most 255 bytes")
+            return b"%s*%02x%04x\n" % (body, len(body), crc16(body))
         return b"%s*%02x\n" % (body, _xor(body))
 
     def _tick(self, tick: int) -> str:
         return format(tick, f"0{self.tick_digits}x")
 
-    def encode(self, record: Announce | Edges | Drive | Beat | Notice | Pong) -> bytes:
+    def encode(
+        self, record: Announce | Edges | Drive | Beat | Notice | Pong | PlanAccepted | GoAccepted
+    ) -> bytes:
         match record:
             case Edges():
                 return self._edges(record)
-            case Drive(channel, level, tick):
+            case Drive(channel, level, tick, cycle):
                 _check_single(channel, level, tick, self.counter_bits)
-                return self._line(f"D {channel:x} {level} {self._tick(tick)}")
-            case Beat(tick, captured, dropped):
+                text = f"D {channel:x} {level} {self._tick(tick)}"
+                if cycle is not None:
+                    _check_cycle(cycle)
+                    text += f" {cycle}"
+                return self._line(text)
+            case Beat(tick, captured, dropped, short, cycles):
                 _check_beat(record, self.counter_bits)
-                return self._line(f"B {self._tick(tick)} {captured} {dropped}")
+                text = f"B {self._tick(tick)} {captured} {dropped}"
+                if short is not None:
+                    text += f" {short}" + "".join(f" {c:x}:{n:x}" for c, n in cycles)
+                return self._line(text)
+            case PlanAccepted(channel, on_us, off_us, cycles):
+                _check_plan_accepted(record)
+                return self._line(f"K {channel} {on_us} {off_us} {cycles}")
+            case GoAccepted(_, tick):
+                mask = _go_mask(record, self.counter_bits)
+                return self._line(f"G {mask:x} {self._tick(tick)}")
             case Announce(version, clock_hz, counter_bits, channels, board_id):
                 _check_announce(record)
                 self.counter_bits = counter_bits
                 self.tick_digits = (counter_bits + 3) // 4
+                self.version = version
                 return self._line(f"A {version} {clock_hz} {counter_bits} {channels} {board_id}")
             case Notice(text):
                 if len(text) > MAX_NOTICE or not (text.isascii() and text.isprintable()):
@@ -171,6 +234,8 @@ class LineEncoder:
         if n == 0:
             return b""
         width = max(self.tick_digits, _hex_width(int(tick.max())))
+        if self.version >= 2:
+            return self._edges_v2(rec, tick, width)
         out = np.empty((n, 10 + width), np.uint8)
         out[:, 0] = ord("E")
         out[:, 1] = out[:, 3] = out[:, 5] = ord(" ")
@@ -182,6 +247,26 @@ class LineEncoder:
         out[:, 7 + width] = HEX_DIGITS[check >> 4]
         out[:, 8 + width] = HEX_DIGITS[check & 0xF]
         out[:, 9 + width] = ord("\n")
+        return out.tobytes()
+
+    def _edges_v2(self, rec: Edges, tick: np.ndarray, width: int) -> bytes:
+        n = len(tick)
+        body = 6 + width
+        out = np.empty((n, body + 8), np.uint8)
+        out[:, 0] = ord("E")
+        out[:, 1] = out[:, 3] = out[:, 5] = ord(" ")
+        out[:, 2] = HEX_DIGITS[np.asarray(rec.channel, np.intp)]
+        out[:, 4] = np.asarray(rec.level, np.uint8) + ord("0")
+        out[:, 6:body] = _hex_columns(tick, width)
+        crc = np.full(n, 0xFFFF, np.uint16)
+        for k in range(body):
+            crc = (crc << np.uint16(8)) ^ CRC16_TABLE[(crc >> np.uint16(8)) ^ out[:, k]]
+        out[:, body] = ord("*")
+        out[:, body + 1] = HEX_DIGITS[body >> 4]
+        out[:, body + 2] = HEX_DIGITS[body & 0xF]
+        for k in range(4):
+            out[:, body + 3 + k] = HEX_DIGITS[(crc >> np.uint16(12 - 4 * k)) & np.uint16(0xF)]
+        out[:, body + 7] = ord("\n")
         return out.tobytes()
 
 
@@ -204,16 +289,30 @@ class PackedEncoder:
         self.sequence = (self.sequence + 1) & 0xFFFF
         return cobs_encode(raw + crc32(raw).to_bytes(4, "little")) + b"\0"
 
-    def encode(self, record: Announce | Edges | Drive | Beat | Notice | Pong) -> bytes:
+    def encode(
+        self, record: Announce | Edges | Drive | Beat | Notice | Pong | PlanAccepted | GoAccepted
+    ) -> bytes:
         match record:
             case Edges():
                 return self._edges(record)
-            case Drive(channel, level, tick):
+            case Drive(channel, level, tick, cycle):
                 _check_single(channel, level, tick, self.counter_bits)
-                return self._frame(TYPE_DRIVE, _DRIVE.pack(channel, level, tick))
-            case Beat(tick, captured, dropped):
+                if cycle is None:
+                    return self._frame(TYPE_DRIVE, _DRIVE.pack(channel, level, tick))
+                _check_cycle(cycle)
+                return self._frame(TYPE_DRIVE, _DRIVE_V2.pack(channel, level, tick, cycle))
+            case Beat(tick, captured, dropped, short, cycles):
                 _check_beat(record, self.counter_bits)
-                return self._frame(TYPE_BEAT, _BEAT.pack(tick, captured, dropped))
+                if short is None:
+                    return self._frame(TYPE_BEAT, _BEAT.pack(tick, captured, dropped))
+                head = _BEAT_V2.pack(tick, captured, dropped, short, len(cycles))
+                return self._frame(TYPE_BEAT, head + b"".join(_CYCLES.pack(c, k) for c, k in cycles))
+            case PlanAccepted(channel, on_us, off_us, cycles):
+                _check_plan_accepted(record)
+                return self._frame(TYPE_PLAN_ACCEPTED, _PLAN_ACCEPTED.pack(channel, on_us, off_us, cycles))
+            case GoAccepted(_, tick):
+                mask = _go_mask(record, self.counter_bits)
+                return self._frame(TYPE_GO_ACCEPTED, _GO_ACCEPTED.pack(mask, tick))
             case Announce(version, clock_hz, counter_bits, channels, board_id):
                 _check_announce(record)
                 self.counter_bits = counter_bits

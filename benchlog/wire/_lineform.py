@@ -13,9 +13,26 @@ import re
 import numpy as np
 
 from benchlog.wire._encoders import MAX_NOTICE, check_board_id
-from benchlog.wire._records import Announce, Beat, Drive, Edges, Notice, Pong, Record, Unknown
+from benchlog.wire._framing import crc16, crc16_spans
+from benchlog.wire._records import (
+    Announce,
+    Beat,
+    Drive,
+    Edges,
+    GoAccepted,
+    Notice,
+    PlanAccepted,
+    Pong,
+    Record,
+    Unknown,
+)
 
-MAX_LINE = 160
+MAX_LINE = 160  # a line without a check or with the version 1 `*hh` check
+MAX_BODY_V2 = 255  # the bytes before `*` of a line with the version 2 `*LLCCCC` check
+MAX_LINE_V2 = MAX_BODY_V2 + 7
+
+# strength of a line's check; a stream is held to the strongest it has carried (docs/protocol.md)
+CHECK_NONE, CHECK_XOR, CHECK_CRC = 0, 1, 2
 
 HEX_VALUE = np.full(256, 255, np.uint8)
 for _i, _c in enumerate(b"0123456789abcdef"):
@@ -24,12 +41,15 @@ for _i, _c in enumerate(b"ABCDEF"):
     HEX_VALUE[_c] = 10 + _i
 
 _HEX = re.compile(r"[0-9a-fA-F]{1,16}")
+_HEX8 = re.compile(r"[0-9a-fA-F]{1,8}")
 _DEC = re.compile(r"[0-9]{1,10}")
 _CHECK = re.compile(r"[0-9a-fA-F]{2}")
+_CHECK_V2 = re.compile(rb"[0-9a-fA-F]{6}")
 _U32 = 2**32
 
 # fault reasons
 CHECKSUM = "checksum"
+MISSING_CHECK = "checksum missing"
 SYNTAX = "syntax"
 TOO_LONG = "line too long"
 NOT_TEXT = "not printable ASCII"
@@ -38,14 +58,15 @@ RANGE = "value out of range"
 
 
 class LineContext:
-    """What parsing needs from the last announcement."""
+    """What parsing needs from the last announcement, and the check the stream is held to."""
 
-    __slots__ = ("version", "counter_bits", "channels")
+    __slots__ = ("version", "counter_bits", "channels", "check_level")
 
     def __init__(self) -> None:
         self.version = 1
         self.counter_bits = 64
         self.channels = 16
+        self.check_level = CHECK_NONE
 
 
 def _xor(text: bytes) -> int:
@@ -55,22 +76,50 @@ def _xor(text: bytes) -> int:
     return x
 
 
-def parse_line(line: bytes, ctx: LineContext) -> Record | str:
-    """One line without its `\\r\\n`: the record, or the fault reason (a str)."""
-    if len(line) > MAX_LINE:
-        return TOO_LONG
-    if not line:
-        return EMPTY
-    if not (line.isascii() and line.decode("ascii").isprintable()):
-        return NOT_TEXT
-    if len(line) >= 3 and line[-3] == 0x2A:  # "*hh"
-        check = line[-2:].decode("ascii")
-        line = line[:-3]
-        if not _CHECK.fullmatch(check) or _xor(line) != int(check, 16):
+def line_check(body: bytes) -> bytes:
+    """The version 2 check of a line body: `*`, its length (2 hex digits), its CRC-16 (4 hex digits)."""
+    return b"*%02x%04x" % (len(body), crc16(body))
+
+
+def split_check(line: bytes) -> tuple[bytes, int] | str:
+    """(body, check strength) of a line without its `\r\n`, or the fault reason when its check fails."""
+    n = len(line)
+    if n >= 7 and line[-7] == 0x2A and _CHECK_V2.fullmatch(line, n - 6):
+        body = line[:-7]
+        if int(line[-6:-4], 16) != len(body) or int(line[-4:], 16) != crc16(body):
             return CHECKSUM
-        if not line:
-            return SYNTAX
-    text = line.decode("ascii")
+        return body, CHECK_CRC
+    if n > MAX_LINE:
+        return TOO_LONG
+    if n >= 3 and line[-3] == 0x2A:  # "*hh"
+        body = line[:-3]
+        check = line[-2:].decode("ascii")
+        if not _CHECK.fullmatch(check) or _xor(body) != int(check, 16):
+            return CHECKSUM
+        return body, CHECK_XOR
+    return line, CHECK_NONE
+
+
+def parse_line(line: bytes, ctx: LineContext) -> tuple[Record | str, int]:
+    """One line without its `\r\n`: (the record or the fault reason, the strength of its check)."""
+    if len(line) > MAX_LINE_V2:
+        return TOO_LONG, CHECK_NONE
+    if not line:
+        return EMPTY, CHECK_NONE
+    if not (line.isascii() and line.decode("ascii").isprintable()):
+        return NOT_TEXT, CHECK_NONE
+    checked = split_check(line)
+    if isinstance(checked, str):
+        return checked, CHECK_NONE
+    line, kind = checked
+    if kind < ctx.check_level:
+        return MISSING_CHECK, kind
+    if not line:
+        return SYNTAX, kind
+    return _parse_body(line.decode("ascii"), ctx, kind), kind
+
+
+def _parse_body(text: str, ctx: LineContext, kind: int) -> Record | str:
     code = text[0]
     if not ("A" <= code <= "Z" or "a" <= code <= "z"):
         return SYNTAX
@@ -80,9 +129,12 @@ def parse_line(line: bytes, ctx: LineContext) -> Record | str:
         body = text[2:]
         return Notice(body) if len(body) <= MAX_NOTICE else TOO_LONG
     fields = text.split(" ")
-    later = ctx.version > 1
-    if code in "ED":
-        if len(fields) < 4 or (len(fields) > 4 and not later):
+    # a version 2 check proves a version 2 sampler even when its announcement was missed
+    version = max(ctx.version, 2 if kind == CHECK_CRC else 1)
+    later = ctx.version > 2
+    if code == "E" or code == "D":
+        n = 5 if code == "D" and version >= 2 else 4
+        if len(fields) < n or (len(fields) > n and not later):
             return SYNTAX
         ch, lv, tk = fields[1:4]
         if not (len(ch) == 1 and _HEX.fullmatch(ch) and lv in ("0", "1") and _HEX.fullmatch(tk)):
@@ -91,10 +143,16 @@ def parse_line(line: bytes, ctx: LineContext) -> Record | str:
         if channel >= ctx.channels or tick >> ctx.counter_bits:
             return RANGE
         if code == "D":
+            if n == 5:
+                if not _DEC.fullmatch(fields[4]):
+                    return SYNTAX
+                cycle = int(fields[4])
+                return Drive(channel, level, tick, cycle) if cycle < _U32 else RANGE
             return Drive(channel, level, tick)
         return Edges(np.array([channel], np.uint8), np.array([level], np.uint8), np.array([tick], np.uint64))
     if code == "B":
-        if len(fields) < 4 or (len(fields) > 4 and not later):
+        n = 5 if version >= 2 else 4
+        if len(fields) < n or (len(fields) > 4 and version < 2):
             return SYNTAX
         tk, cap, drop = fields[1:4]
         if not (_HEX.fullmatch(tk) and _DEC.fullmatch(cap) and _DEC.fullmatch(drop)):
@@ -102,7 +160,36 @@ def parse_line(line: bytes, ctx: LineContext) -> Record | str:
         tick, captured, dropped = int(tk, 16), int(cap), int(drop)
         if tick >> ctx.counter_bits or captured >= _U32 or dropped >= _U32:
             return RANGE
-        return Beat(tick, captured, dropped)
+        if n == 4:
+            return Beat(tick, captured, dropped)
+        if not _DEC.fullmatch(fields[4]):
+            return SYNTAX
+        short = int(fields[4])
+        counts = _cycle_counts(fields[5:], ctx.channels, later)
+        if isinstance(counts, str):
+            return counts
+        return Beat(tick, captured, dropped, short, counts) if short < _U32 else RANGE
+    if code == "K":
+        if (
+            len(fields) < 5
+            or (len(fields) > 5 and not later)
+            or not all(_DEC.fullmatch(f) for f in fields[1:5])
+        ):
+            return SYNTAX
+        channel, on_us, off_us, cycles = (int(f) for f in fields[1:5])
+        if channel >= ctx.channels or not (0 < on_us < _U32 and 0 < off_us < _U32 and cycles < _U32):
+            return RANGE
+        return PlanAccepted(channel, on_us, off_us, cycles)
+    if code == "G":
+        if len(fields) < 3 or (len(fields) > 3 and not later):
+            return SYNTAX
+        mask, tk = fields[1:3]
+        if not (len(mask) <= 4 and _HEX.fullmatch(mask) and _HEX.fullmatch(tk)):
+            return SYNTAX
+        bits, tick = int(mask, 16), int(tk, 16)
+        if bits >> ctx.channels or tick >> ctx.counter_bits:
+            return RANGE
+        return GoAccepted(tuple(c for c in range(16) if bits >> c & 1), tick)
     if code == "P":
         if len(fields) < 2 or (len(fields) > 2 and not later) or not _DEC.fullmatch(fields[1]):
             return SYNTAX
@@ -112,15 +199,36 @@ def parse_line(line: bytes, ctx: LineContext) -> Record | str:
         if len(fields) < 6 or not all(_DEC.fullmatch(f) for f in fields[1:5]):
             return SYNTAX
         version, clock_hz, bits, channels = (int(f) for f in fields[1:5])
-        if len(fields) > 6 and version <= 1:
+        if len(fields) > 6 and version <= 2:
             return SYNTAX
         board = fields[5]
         if not (1 <= version <= 255 and 1 <= clock_hz < _U32 and 16 <= bits <= 64 and 1 <= channels <= 16):
             return RANGE
         if not check_board_id(board):
             return SYNTAX
+        if version >= 2 and kind < CHECK_CRC:
+            return MISSING_CHECK  # a version 2 sampler checks every line
         return Announce(version, clock_hz, bits, channels, board)
     return Unknown(code)
+
+
+def _cycle_counts(words: list[str], channels: int, later: bool) -> tuple[tuple[int, int], ...] | str:
+    """`c:n` words of a version 2 beat: channel (one hex digit), cycles (hex, 1-8 digits), channels
+    ascending."""
+    out = []
+    last = -1
+    for w in words:
+        ch, sep, n = w.partition(":")
+        if not (sep and len(ch) == 1 and _HEX.fullmatch(ch) and _HEX8.fullmatch(n)):
+            if later:
+                break
+            return SYNTAX
+        c = int(ch, 16)
+        if c <= last or c >= channels:
+            return RANGE
+        last = c
+        out.append((c, int(n, 16)))
+    return tuple(out)
 
 
 def fast_edge_lines(
@@ -131,33 +239,52 @@ def fast_edge_lines(
     newlines: np.ndarray,
     ctx: LineContext,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Vectorised `E` and `D` lines (same layout). `a` is the buffer, `starts`/`ends` bound each line
+    """Vectorised `E` and version 1 `D` lines (same layout), with any of the three checks.
+
+    `a` is the buffer, `starts`/`ends` bound each line
     (without `\\r\\n`), `newlines` are the positions of the `\\n`s, `line_xor` the XOR of each whole
     line (its `\\n` included).
 
-    Returns (line indices accepted, is_drive, channel, level, tick), in line order.
+    Returns (line indices accepted, is_drive, channel, level, tick, check strength), in line order.
     """
     length = ends - starts
     first = a[starts]
-    cand = np.flatnonzero((length >= 7) & (length <= 25) & ((first == 0x45) | (first == 0x44)))
+    cand = np.flatnonzero((length >= 7) & (length <= 29) & ((first == 0x45) | (first == 0x44)))
     s, e = starts[cand], ends[cand]
     ok = (a[s + 1] == 0x20) & (a[s + 3] == 0x20) & (a[s + 5] == 0x20)
     channel = HEX_VALUE[a[s + 2]]
     ok &= channel < ctx.channels
     level = a[s + 4] - np.uint8(0x30)
     ok &= level <= 1
-    has_check = a[e - 3] == 0x2A
-    tick_end = np.where(has_check, e - 3, e)
+    check_digits = [HEX_VALUE[a[e - k]] for k in range(6, 0, -1)]  # the six after a version 2 `*`
+    has_crc = (e - s >= 13) & (a[e - 7] == 0x2A)
+    for d in check_digits:
+        has_crc &= d < 16
+    has_xor = ~has_crc & (a[e - 3] == 0x2A)
+    kind = np.where(has_crc, CHECK_CRC, np.where(has_xor, CHECK_XOR, CHECK_NONE))
+    ok &= kind >= ctx.check_level
+    # a version 2 drive carries its cycle: never the four-field layout of this fast path
+    ok &= ~((first[cand] == 0x44) & (has_crc | (ctx.version >= 2)))
+    tick_end = np.where(has_crc, e - 7, np.where(has_xor, e - 3, e))
     ndig = tick_end - (s + 6)
     ok &= (ndig >= 1) & (ndig <= 16)
     hi, lo = HEX_VALUE[a[e - 2]], HEX_VALUE[a[e - 1]]
     # XOR of the bytes before '*': the whole line's XOR without '*', the two digits, '\r' and '\n'
     cr = np.where(e != newlines[cand], np.uint8(0x0D), np.uint8(0))
     xor = line_xor[cand] ^ a[e - 3] ^ a[e - 2] ^ a[e - 1] ^ cr ^ np.uint8(0x0A)
-    ok &= ~has_check | ((hi < 16) & (lo < 16) & (xor == ((hi << 4) | lo)))
+    ok &= ~has_xor | ((hi < 16) & (lo < 16) & (xor == ((hi << 4) | lo)))
+    if has_crc.any():
+        crc_rows = np.flatnonzero(has_crc & ok)
+        body_len = (tick_end - s)[crc_rows]
+        said_len = (check_digits[0][crc_rows].astype(np.int64) << 4) | check_digits[1][crc_rows]
+        said_crc = np.zeros(len(crc_rows), np.uint16)
+        for d in check_digits[2:]:
+            said_crc = (said_crc << np.uint16(4)) | d[crc_rows].astype(np.uint16)
+        good = (said_len == body_len) & (crc16_spans(a, s[crc_rows], body_len) == said_crc)
+        ok[crc_rows[~good]] = False
     tick = np.zeros(len(cand), np.uint64)
     if not len(cand):
-        return cand, cand.astype(bool), channel, level, tick
+        return cand, cand.astype(bool), channel, level, tick, kind
     max_digits = int(ndig.max())
     if max_digits == int(ndig.min()):  # the usual case: every tick has the same width; no masking
         for k in range(1, max_digits + 1):
@@ -173,4 +300,4 @@ def fast_edge_lines(
             tick |= np.where(used, digit, 0).astype(np.uint64) << np.uint64(4 * (k - 1))
     if ctx.counter_bits < 64:
         ok &= (tick >> np.uint64(ctx.counter_bits)) == 0
-    return cand[ok], first[cand[ok]] == 0x44, channel[ok], level[ok], tick[ok]
+    return cand[ok], first[cand[ok]] == 0x44, channel[ok], level[ok], tick[ok], kind[ok]

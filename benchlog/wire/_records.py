@@ -6,7 +6,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-PROTOCOL_VERSION = 1
+PROTOCOL_VERSION = 2
+KNOWN_VERSIONS = (1, 2)
 
 
 @dataclass(frozen=True, slots=True)
@@ -52,16 +53,45 @@ class Edges:
 
 @dataclass(frozen=True, slots=True)
 class Drive:
+    """The sampler switched channel `channel`'s actuator. `cycle` (version 2) is the cycle of the
+    channel's plan this switching belongs to, as the sampler counts it (1 = the first cycle after GO);
+    None from a version 1 sampler."""
+
     channel: int
     level: int
     tick: int
+    cycle: int | None = None
 
 
 @dataclass(frozen=True, slots=True)
 class Beat:
+    """`captured`/`dropped`: edges since reset. Version 2 adds `short` (pulses too short to resolve,
+    since reset) and `cycles`: (channel, cycles completed since its plan started) for every channel with
+    a plan since the last reset, in channel order. Counts are modulo 2**32."""
+
     tick: int
     captured: int
     dropped: int
+    short: int | None = None
+    cycles: tuple[tuple[int, int], ...] = ()
+
+
+@dataclass(frozen=True, slots=True)
+class PlanAccepted:
+    """Version 2: the sampler took `PLAN` as these values (the cycle count it will run, 0 = no end)."""
+
+    channel: int
+    on_us: int
+    off_us: int
+    cycles: int
+
+
+@dataclass(frozen=True, slots=True)
+class GoAccepted:
+    """Version 2: `GO` started these channels (those with a plan, not already cycling) at `tick`."""
+
+    channels: tuple[int, ...]
+    tick: int
 
 
 @dataclass(frozen=True, slots=True)
@@ -99,7 +129,19 @@ class SequenceGap:
     frames_lost: int
 
 
-Record = Announce | Edges | Drive | Beat | Notice | Pong | Unknown | Fault | SequenceGap
+Record = (
+    Announce
+    | Edges
+    | Drive
+    | Beat
+    | Notice
+    | Pong
+    | PlanAccepted
+    | GoAccepted
+    | Unknown
+    | Fault
+    | SequenceGap
+)
 
 
 @dataclass(slots=True)

@@ -25,6 +25,19 @@ uint32_t bl_crc32(const uint8_t *data, uint16_t n)
     return bl_crc32_update(0xFFFFFFFFu, data, n) ^ 0xFFFFFFFFu;
 }
 
+uint8_t bl_wire_version = BL_PROTOCOL_VERSION;
+
+uint16_t bl_crc16(const uint8_t *data, uint16_t n)
+{
+    uint16_t c = 0xFFFFu;
+    while (n--) {
+        c ^= (uint16_t)((uint16_t)*data++ << 8);
+        for (uint8_t k = 0; k < 8u; k++)
+            c = (c & 0x8000u) ? (uint16_t)((c << 1) ^ 0x1021u) : (uint16_t)(c << 1);
+    }
+    return c;
+}
+
 uint16_t bl_cobs_put(const uint8_t *raw, uint16_t n, bl_put_fn put)
 {
     uint16_t pos = 0, written = 0;
@@ -119,7 +132,7 @@ uint16_t bl_pack_notice(uint8_t *raw, const char *text)
 uint16_t bl_pack_announce(uint8_t *raw, uint32_t clock_hz, uint8_t bits, uint8_t channels, const char *id)
 {
     uint16_t n = 0;
-    raw[BL_HDR] = BL_PROTOCOL_VERSION;
+    raw[BL_HDR] = bl_wire_version;
     bl_le32(raw + BL_HDR + 1, clock_hz);
     raw[BL_HDR + 5] = bits;
     raw[BL_HDR + 6] = channels;
@@ -171,6 +184,15 @@ char *bl_put_fstr(char *out, const char *flash_text, uint8_t max)
 
 static uint8_t line_end(char *buf, char *end)
 {
+    uint8_t len = (uint8_t)(end - buf);
+    if (bl_wire_version >= 2) { /* "*LLCCCC": the body's length and CRC-16 */
+        uint16_t crc = bl_crc16((const uint8_t *)buf, len);
+        *end++ = '*';
+        end = bl_put_hex(end, len, 2);
+        end = bl_put_hex(end, crc, 4);
+        *end++ = '\n';
+        return (uint8_t)(end - buf);
+    }
     uint8_t x = 0;
     for (char *p = buf; p < end; p++)
         x ^= (uint8_t)*p;
@@ -237,7 +259,7 @@ uint8_t bl_line_announce(char *buf, uint32_t clock_hz, uint8_t bits, uint8_t cha
     char *p = buf;
     *p++ = 'A';
     *p++ = ' ';
-    p = bl_put_dec(p, BL_PROTOCOL_VERSION);
+    p = bl_put_dec(p, bl_wire_version);
     *p++ = ' ';
     p = bl_put_dec(p, clock_hz);
     *p++ = ' ';
@@ -246,4 +268,106 @@ uint8_t bl_line_announce(char *buf, uint32_t clock_hz, uint8_t bits, uint8_t cha
     p = bl_put_dec(p, channels);
     *p++ = ' ';
     return line_end(buf, bl_put_str(p, id, 32));
+}
+
+/* ---- version 2 records ---- */
+
+uint16_t bl_pack_drive2(uint8_t *raw, uint8_t channel, uint8_t level, uint32_t tick, uint32_t cycle)
+{
+    uint16_t len = bl_pack_drive(raw, channel, level, tick);
+    bl_le32(raw + len, cycle);
+    return (uint16_t)(len + 4u);
+}
+
+uint16_t bl_pack_beat2(uint8_t *raw, uint32_t tick, uint32_t captured, uint32_t dropped, uint32_t short_pulses,
+                       uint8_t n, const uint8_t *chans, const uint32_t *cycles)
+{
+    uint16_t len = bl_pack_beat(raw, tick, captured, dropped);
+    bl_le32(raw + len, short_pulses);
+    raw[len + 4] = n;
+    len += 5u;
+    for (uint8_t i = 0; i < n; i++) {
+        raw[len] = chans[i];
+        bl_le32(raw + len + 1, cycles[i]);
+        len += 5u;
+    }
+    return len;
+}
+
+uint16_t bl_pack_plan_ok(uint8_t *raw, uint8_t channel, uint32_t on_us, uint32_t off_us, uint32_t cycles)
+{
+    raw[BL_HDR] = channel;
+    bl_le32(raw + BL_HDR + 1, on_us);
+    bl_le32(raw + BL_HDR + 5, off_us);
+    bl_le32(raw + BL_HDR + 9, cycles);
+    return BL_HDR + 13u;
+}
+
+uint16_t bl_pack_go_ok(uint8_t *raw, uint16_t mask, uint32_t tick)
+{
+    bl_le16(raw + BL_HDR, mask);
+    bl_le64_from32(raw + BL_HDR + 2, tick);
+    return BL_HDR + 10u;
+}
+
+static uint8_t hex_len(uint32_t v)
+{
+    uint8_t n = 1;
+    while (v >>= 4)
+        n++;
+    return n;
+}
+
+uint8_t bl_line_drive2(char *buf, uint8_t channel, uint8_t level, uint32_t tick, uint8_t hex_digits, uint32_t cycle)
+{
+    char *p = chan_level(buf, 'D', channel, level);
+    p = bl_put_hex(p, tick, hex_digits);
+    *p++ = ' ';
+    return line_end(buf, bl_put_dec(p, cycle));
+}
+
+uint8_t bl_line_beat2(char *buf, uint32_t tick, uint32_t captured, uint32_t dropped, uint8_t hex_digits,
+                      uint32_t short_pulses, uint8_t n, const uint8_t *chans, const uint32_t *cycles)
+{
+    char *p = buf;
+    *p++ = 'B';
+    *p++ = ' ';
+    p = bl_put_hex(p, tick, hex_digits);
+    *p++ = ' ';
+    p = bl_put_dec(p, captured);
+    *p++ = ' ';
+    p = bl_put_dec(p, dropped);
+    *p++ = ' ';
+    p = bl_put_dec(p, short_pulses);
+    for (uint8_t i = 0; i < n; i++) {
+        *p++ = ' ';
+        p = bl_put_hex(p, chans[i], 1);
+        *p++ = ':';
+        p = bl_put_hex(p, cycles[i], hex_len(cycles[i]));
+    }
+    return line_end(buf, p);
+}
+
+uint8_t bl_line_plan_ok(char *buf, uint8_t channel, uint32_t on_us, uint32_t off_us, uint32_t cycles)
+{
+    char *p = buf;
+    *p++ = 'K';
+    *p++ = ' ';
+    p = bl_put_dec(p, channel);
+    *p++ = ' ';
+    p = bl_put_dec(p, on_us);
+    *p++ = ' ';
+    p = bl_put_dec(p, off_us);
+    *p++ = ' ';
+    return line_end(buf, bl_put_dec(p, cycles));
+}
+
+uint8_t bl_line_go_ok(char *buf, uint16_t mask, uint32_t tick, uint8_t hex_digits)
+{
+    char *p = buf;
+    *p++ = 'G';
+    *p++ = ' ';
+    p = bl_put_hex(p, mask, hex_len(mask));
+    *p++ = ' ';
+    return line_end(buf, bl_put_hex(p, tick, hex_digits));
 }

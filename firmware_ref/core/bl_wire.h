@@ -1,6 +1,8 @@
 /*
- * Encoders for docs/protocol.md, version 1: CRC-32/ISO-HDLC, COBS, and the record layouts of both
- * forms. They only fill buffers; the core decides when the bytes go out.
+ * Encoders for docs/protocol.md, versions 1 and 2: CRC-32/ISO-HDLC, COBS, the CRC-16 line check, and
+ * the record layouts of both forms. They only fill buffers; the core decides when the bytes go out.
+ * `bl_wire_version` chooses the version the announcement states and the line check (version 1: `*hh`,
+ * version 2: `*LLCCCC`); the core itself still runs version 1.
  */
 #ifndef BL_WIRE_H
 #define BL_WIRE_H
@@ -17,6 +19,8 @@ enum {
     BL_T_BEAT = 0x03,
     BL_T_NOTICE = 0x04,
     BL_T_PONG = 0x05,
+    BL_T_PLAN_OK = 0x06,
+    BL_T_GO_OK = 0x07,
     BL_T_ANNOUNCE = 0x10
 };
 
@@ -30,6 +34,11 @@ enum {
 #define BL_COBS_MAX(n) ((n) + (n) / 254u + 2u)
 
 typedef void (*bl_put_fn)(uint8_t byte);
+
+extern uint8_t bl_wire_version; /* 1 or 2; starts at BL_PROTOCOL_VERSION */
+
+/* CRC-16/IBM-3740 (0x1021, init 0xFFFF, not reflected): the version 2 line check (0x29B1 for "123456789") */
+uint16_t bl_crc16(const uint8_t *data, uint16_t n);
 
 uint32_t bl_crc32(const uint8_t *data, uint16_t n);
 uint32_t bl_crc32_update(uint32_t state, const uint8_t *data, uint16_t n);
@@ -51,6 +60,12 @@ uint16_t bl_pack_beat(uint8_t *raw, uint32_t tick, uint32_t captured, uint32_t d
 uint16_t bl_pack_pong(uint8_t *raw, uint16_t token);
 uint16_t bl_pack_notice(uint8_t *raw, const char *text);
 uint16_t bl_pack_announce(uint8_t *raw, uint32_t clock_hz, uint8_t bits, uint8_t channels, const char *id);
+/* version 2 */
+uint16_t bl_pack_drive2(uint8_t *raw, uint8_t channel, uint8_t level, uint32_t tick, uint32_t cycle);
+uint16_t bl_pack_beat2(uint8_t *raw, uint32_t tick, uint32_t captured, uint32_t dropped, uint32_t short_pulses,
+                       uint8_t n, const uint8_t *chans, const uint32_t *cycles);
+uint16_t bl_pack_plan_ok(uint8_t *raw, uint8_t channel, uint32_t on_us, uint32_t off_us, uint32_t cycles);
+uint16_t bl_pack_go_ok(uint8_t *raw, uint16_t mask, uint32_t tick);
 
 /* Line form: each writes one whole line with "*hh\n" into buf, returns its length (<= 160). */
 uint8_t bl_line_edge(char *buf, uint8_t channel, uint8_t level, uint32_t tick, uint8_t hex_digits);
@@ -59,6 +74,12 @@ uint8_t bl_line_beat(char *buf, uint32_t tick, uint32_t captured, uint32_t dropp
 uint8_t bl_line_pong(char *buf, uint16_t token);
 uint8_t bl_line_notice(char *buf, const char *text);
 uint8_t bl_line_announce(char *buf, uint32_t clock_hz, uint8_t bits, uint8_t channels, const char *id);
+/* version 2 (a beat line is at most 6 + 8 + 3 * 11 + 16 * 11 + 7 bytes: give it 240) */
+uint8_t bl_line_drive2(char *buf, uint8_t channel, uint8_t level, uint32_t tick, uint8_t hex_digits, uint32_t cycle);
+uint8_t bl_line_beat2(char *buf, uint32_t tick, uint32_t captured, uint32_t dropped, uint8_t hex_digits,
+                      uint32_t short_pulses, uint8_t n, const uint8_t *chans, const uint32_t *cycles);
+uint8_t bl_line_plan_ok(char *buf, uint8_t channel, uint32_t on_us, uint32_t off_us, uint32_t cycles);
+uint8_t bl_line_go_ok(char *buf, uint16_t mask, uint32_t tick, uint8_t hex_digits);
 
 /* Small text helpers (no printf on the target). Each returns the new end of the text. */
 char *bl_put_dec(char *out, uint32_t v);

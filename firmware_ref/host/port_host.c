@@ -356,20 +356,66 @@ static int encode(void)
                 len = bl_pack_announce(raw, (uint32_t)hz, (uint8_t)a, (uint8_t)b, id);
             else
                 ll = bl_line_announce(text, (uint32_t)hz, (uint8_t)a, (uint8_t)b, id);
+        } else if (!strcmp(word, "version")) {
+            bl_wire_version = (uint8_t)atoi(rest);
+            continue;
         } else if (!strcmp(word, "drive")) {
-            if (sscanf(rest, "%u %u %lu", &a, &b, &t) != 3)
-                return fail("drive CH LEVEL TICK", no);
-            if (packed)
+            unsigned long cyc;
+            int got = sscanf(rest, "%u %u %lu %lu", &a, &b, &t, &cyc);
+            if (got < 3)
+                return fail("drive CH LEVEL TICK [CYCLE]", no);
+            if (got == 4 && packed)
+                len = bl_pack_drive2(raw, (uint8_t)a, (uint8_t)b, (uint32_t)t, (uint32_t)cyc);
+            else if (got == 4)
+                ll = bl_line_drive2(text, (uint8_t)a, (uint8_t)b, (uint32_t)t, digits, (uint32_t)cyc);
+            else if (packed)
                 len = bl_pack_drive(raw, (uint8_t)a, (uint8_t)b, (uint32_t)t);
             else
                 ll = bl_line_drive(text, (uint8_t)a, (uint8_t)b, (uint32_t)t, digits);
         } else if (!strcmp(word, "beat")) {
-            if (sscanf(rest, "%lu %lu %lu", &t, &c, &d) != 3)
-                return fail("beat TICK CAPTURED DROPPED", no);
-            if (packed)
+            /* beat TICK CAPTURED DROPPED [SHORT CH:CYCLES ...] */
+            unsigned long sp;
+            int k = 0;
+            if (sscanf(rest, "%lu %lu %lu%n", &t, &c, &d, &k) != 3)
+                return fail("beat TICK CAPTURED DROPPED [SHORT CH:CYCLES ...]", no);
+            const char *q = rest + k;
+            int k2 = 0;
+            if (sscanf(q, " %lu%n", &sp, &k2) == 1) {
+                uint8_t chans[16];
+                uint32_t cycles[16];
+                uint8_t n = 0;
+                unsigned ch;
+                unsigned long cy;
+                q += k2;
+                while (n < 16 && sscanf(q, " %u:%lu%n", &ch, &cy, &k2) == 2) {
+                    chans[n] = (uint8_t)ch;
+                    cycles[n++] = (uint32_t)cy;
+                    q += k2;
+                }
+                if (packed)
+                    len = bl_pack_beat2(raw, (uint32_t)t, (uint32_t)c, (uint32_t)d, (uint32_t)sp, n, chans, cycles);
+                else
+                    ll = bl_line_beat2(text, (uint32_t)t, (uint32_t)c, (uint32_t)d, digits, (uint32_t)sp, n, chans,
+                                       cycles);
+            } else if (packed)
                 len = bl_pack_beat(raw, (uint32_t)t, (uint32_t)c, (uint32_t)d);
             else
                 ll = bl_line_beat(text, (uint32_t)t, (uint32_t)c, (uint32_t)d, digits);
+        } else if (!strcmp(word, "planok")) {
+            unsigned long on, off, cy;
+            if (sscanf(rest, "%u %lu %lu %lu", &a, &on, &off, &cy) != 4)
+                return fail("planok CH ON_US OFF_US CYCLES", no);
+            if (packed)
+                len = bl_pack_plan_ok(raw, (uint8_t)a, (uint32_t)on, (uint32_t)off, (uint32_t)cy);
+            else
+                ll = bl_line_plan_ok(text, (uint8_t)a, (uint32_t)on, (uint32_t)off, (uint32_t)cy);
+        } else if (!strcmp(word, "gook")) {
+            if (sscanf(rest, "%u %lu", &a, &t) != 2)
+                return fail("gook MASK TICK", no);
+            if (packed)
+                len = bl_pack_go_ok(raw, (uint16_t)a, (uint32_t)t);
+            else
+                ll = bl_line_go_ok(text, (uint16_t)a, (uint32_t)t, digits);
         } else if (!strcmp(word, "pong")) {
             if (sscanf(rest, "%u", &a) != 1)
                 return fail("pong TOKEN", no);
@@ -407,7 +453,7 @@ static int encode(void)
                     break;
                 p += k;
                 if (!packed) {
-                    char l[40];
+                    char l[48];
                     fwrite(l, 1, bl_line_edge(l, (uint8_t)ch, (uint8_t)lv, (uint32_t)tick, digits), stdout);
                     continue;
                 }
@@ -429,7 +475,8 @@ static int encode(void)
                 const char *w;
                 uint8_t t;
             } types[] = {{"announce", BL_T_ANNOUNCE}, {"drive", BL_T_DRIVE}, {"beat", BL_T_BEAT},
-                         {"pong", BL_T_PONG}, {"notice", BL_T_NOTICE}};
+                         {"pong", BL_T_PONG},         {"notice", BL_T_NOTICE}, {"planok", BL_T_PLAN_OK},
+                         {"gook", BL_T_GO_OK}};
             uint8_t type = 0;
             for (unsigned k = 0; k < sizeof types / sizeof types[0]; k++)
                 if (!strcmp(word, types[k].w))

@@ -38,6 +38,8 @@ int bl_selftest(void)
     /* CRC catalogue, CRC-32/ISO-HDLC: check value of ASCII "123456789" (also docs/protocol.md) */
     check(bl_crc32((const uint8_t *)"123456789", 9) == 0xCBF43926u, "CRC-32 check value");
     check(bl_crc32((const uint8_t *)"", 0) == 0x00000000u, "CRC-32 of nothing");
+    /* CRC-16/IBM-3740 check value from the CRC catalogue */
+    check(bl_crc16((const uint8_t *)"123456789", 9) == 0x29B1u, "CRC-16 check value");
     /* incremental CRC equals the one-shot CRC */
     uint32_t c = bl_crc32_update(0xFFFFFFFFu, (const uint8_t *)"1234", 4);
     c = bl_crc32_update(c, (const uint8_t *)"56789", 5) ^ 0xFFFFFFFFu;

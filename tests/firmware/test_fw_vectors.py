@@ -30,14 +30,23 @@ def encode_script(vector: dict, form: str) -> str:
     for r in vector["records"]:
         kind = r["type"]
         if kind == "announce":
-            assert r["version"] == 1
+            assert r["version"] in (1, 2)
+            lines.append(f"version {r['version']}")
             lines.append(f"announce {r['clock_hz']} {r['counter_bits']} {r['channels']} {r['board_id']}")
         elif kind == "edges":
             lines.append("edges " + " ".join(f"{ch}:{lv}:{tick}" for ch, lv, tick in r["edges"]))
         elif kind == "drive":
-            lines.append(f"drive {r['channel']} {r['level']} {r['tick']}")
+            cycle = f" {r['cycle']}" if "cycle" in r else ""
+            lines.append(f"drive {r['channel']} {r['level']} {r['tick']}{cycle}")
         elif kind == "beat":
-            lines.append(f"beat {r['tick']} {r['captured']} {r['dropped']}")
+            counts = ""
+            if "short" in r:
+                counts = f" {r['short']}" + "".join(f" {c}:{n}" for c, n in r["cycles"])
+            lines.append(f"beat {r['tick']} {r['captured']} {r['dropped']}{counts}")
+        elif kind == "plan_accepted":
+            lines.append(f"planok {r['channel']} {r['on_us']} {r['off_us']} {r['cycles']}")
+        elif kind == "go_accepted":
+            lines.append(f"gook {sum(1 << c for c in r['channels'])} {r['tick']}")
         elif kind == "notice":
             lines.append(f"notice {r['text']}")
         elif kind == "pong":

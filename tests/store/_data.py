@@ -40,3 +40,15 @@ def edges(channels, n: int, *, t0: int = 0, step: int = 1000) -> TimedEdges:
         np.repeat(chans, n),
         np.tile((np.arange(n) % 2).astype(np.uint8), len(chans)),
     )
+
+
+def downgrade_to(engine, revision: str) -> None:
+    """Take a store down to an older schema revision, as a store written by that revision holds it.
+
+    Rows are written first with today's `Store` (whose models are the head's), then the schema is
+    taken down: the only way to write an old store through the store's own code."""
+    from alembic import command
+
+    from benchlog.store._migrate import _config
+
+    command.downgrade(_config(engine), revision)

@@ -12,7 +12,7 @@ from sqlalchemy import text
 from benchlog.store import Store
 from benchlog.views.cli import main
 from tests.report.storefill import fill
-from tests.store._data import actuations
+from tests.store._data import actuations, downgrade_to
 
 
 @pytest.fixture(scope="module")
@@ -102,13 +102,14 @@ def test_duplicate_rows_are_found(db_url, capsys):
 
     engine = make_engine(db_url)
     try:
-        upgrade(engine, "0003")  # before the unique key
+        upgrade(engine)
         old = Store(engine, db_url, readonly=False)
         part = old.register_part("AG-R12", "Ashgrove Components")
         unit = old.register_unit(old.register_lot(part, "L1"), "R-001")
         w = old.start_run(old.register_bench("b"), {0: unit}, profile={})
         w.add(actuations=actuations([0], range(3)))
         w.close("stopped")
+        downgrade_to(engine, "0003")  # before the unique key
         with engine.begin() as c:
             bulk_insert_actuations(
                 c, to_stored(actuations([0], [1]), np.array([unit, unit]), w.run_id).tolist()

@@ -42,7 +42,7 @@ def test_old_database_is_upgraded_with_its_data(db_url):
     try:
         upgrade(engine, "0001")
         assert current_revision(engine) == "0001"
-        assert status(engine).pending == ("0002", "0003", "0004")
+        assert status(engine).pending == ("0002", "0003", "0004", "0005", "0006")
         with engine.begin() as c:
             c.execute(text("INSERT INTO benches (name, created_at) VALUES ('bench A', '2026-01-01')"))
         assert "note" not in {col["name"] for col in inspect(engine).get_columns("runs")}

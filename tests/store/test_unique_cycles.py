@@ -11,7 +11,7 @@ from benchlog.store import Store, head_revision
 from benchlog.store._engine import make_engine
 from benchlog.store._migrate import upgrade
 from benchlog.store._write import bulk_insert_actuations, to_stored
-from tests.store._data import actuations
+from tests.store._data import actuations, downgrade_to
 
 
 def _bench(store):
@@ -84,13 +84,14 @@ def test_the_schema_refuses_a_second_row_of_the_same_cycle_and_kind(store):
 def test_upgrade_keeps_one_of_each_duplicate_of_an_old_store(db_url):
     engine = make_engine(db_url)
     try:
-        upgrade(engine, "0003")
-        old = Store(engine, db_url, readonly=False)  # a store as revision 0003 wrote it
+        upgrade(engine)
+        old = Store(engine, db_url, readonly=False)
         bench, unit = _bench(old)
         w = old.start_run(bench, {0: unit}, profile={})
         w.add(actuations=actuations([0], range(3)))
         w.flush()
         w.close("stopped")
+        downgrade_to(engine, "0003")  # a store as revision 0003 holds it
         dup = actuations([0], [2])[1:]  # the break of cycle 2 once more, written later
         dup["bounce_us"] = 12345.0
         with engine.begin() as c:

@@ -33,9 +33,11 @@ from benchlog.wire import (  # noqa: E402
     Decoder,
     Drive,
     Edges,
+    GoAccepted,
     LineEncoder,
     Notice,
     PackedEncoder,
+    PlanAccepted,
     Pong,
     cobs_decode,
 )
@@ -86,6 +88,30 @@ STREAMS = {
         ],
         32,
     ),
+    "v2_32bit": (
+        "Protocol version 2: plan and GO accepted, drives with their cycle, beats with the short-pulse "
+        "count and per-channel cycles; every line with its length and CRC-16.",
+        32,
+        [
+            Announce(2, 2_000_000, 32, 8, "blref-avr8"),
+            Beat(0x00000010, 0, 0, 0, ()),
+            PlanAccepted(3, 50_000, 50_000, 2),
+            PlanAccepted(5, 20_000, 80_000, 0),
+            GoAccepted((3, 5), 0x00030D40),
+            Drive(3, 1, 0x00030D40, 1),
+            Drive(5, 1, 0x00030D41, 1),
+            Edges.of([(3, 1, 0x0003D090), (3, 0, 0x0003D1F4), (3, 1, 0x0003D2A8)]),
+            Drive(5, 0, 0x0005B8D8, 1),
+            Drive(3, 0, 0x0004A380, 1),
+            Edges.of([(3, 0, 0x0004B0C0)]),
+            Beat(0x000F4240, 4, 0, 3, ((3, 1), (5, 1))),
+            Drive(3, 1, 0x00063A00, 2),
+            Notice("coil supply low"),
+            Pong(42),
+            Beat(0xFFFFFFF0, 4294967295, 17, 4294967295, ((0, 0xFFFFFFFF), (3, 2), (7, 7))),
+        ],
+        32,
+    ),
 }
 
 
@@ -109,16 +135,33 @@ def stream_vector(description: str, bits: int, records: list, max_edges: int) ->
 
 def decode_vectors() -> dict[str, dict]:
     good = LineEncoder().encode_all([Announce(1, 1_000_000, 32, 8, "AVR8-REF-01"), Beat(0x10, 0, 0)])
+    # version 2 damage: each kind of single-byte error the line check must always catch
     line_damaged = (
         b"\x00\x7f~noise\n"  # garbage before the first record
         + good
         + b"E 3 1 0003d090*00\n"  # wrong checksum
-        + b"E 3 1 0003d091\n"  # no checksum: allowed
+        + b"E 3 1 0003d091\n"  # no checksum after lines with one: a fault (a dropped '*' looks so)
         + b"E 3 2 0003d092*38\n"  # bad level
         + b"Z some future record*00\n"  # unknown record type (checksum wrong, so a fault)
-        + b"Q 1 2 3\n"  # unknown record type, no checksum: skipped and counted
+        + b"Q 1 2 3*41\n"  # unknown record type: skipped and counted
         + b"e 3 1 0003D093\r\n"  # unknown ('e' is not 'E'); \r\n line end
         + b"E 2 0 0003D094\r\n"  # uppercase hex, \r\n
+    )
+    v2 = LineEncoder()
+    intact = v2.encode_all(
+        [Announce(2, 1_000_000, 32, 8, "AVR8-REF-02"), Beat(0x10, 0, 0, 0, ()), Drive(1, 1, 0x20, 1)]
+    )
+    damaged = [v2.encode(Edges.of([(1, 1, 0x30 + i)])) for i in range(6)]
+    damaged[0] = damaged[0][:4] + damaged[0][5:]  # a byte dropped
+    damaged[1] = damaged[1][:7] + bytes([damaged[1][7] ^ 0x01]) + damaged[1][8:]  # a byte flipped
+    damaged[2] = damaged[2][:6] + b"0" + damaged[2][6:]  # a byte inserted
+    damaged[3] = damaged[3].split(b"*")[0] + b"\n"  # the check dropped
+    damaged[4] = damaged[4][:-1] + b"n"  # a newline flipped: this line runs into the next
+    line_v2_damaged = (
+        intact
+        + b"".join(damaged)
+        + b"E 1 0 00000040*0e\n"  # a version 1 check in a version 2 stream: a fault
+        + v2.encode_all([Drive(1, 0, 0x50, 1), Beat(0x60, 7, 0, 0, ((1, 1),))])
     )
     enc = PackedEncoder()
     frames = [
@@ -133,7 +176,17 @@ def decode_vectors() -> dict[str, dict]:
     packed_damaged = b"\x13\x37" + b"\0" + frames[0] + frames[1] + bytes(flipped) + frames[4]
     out = {}
     for name, data, note in (
-        ("decode_line_damaged", line_damaged, "Line form with garbage, bad checksums, unknown records."),
+        (
+            "decode_line_damaged",
+            line_damaged,
+            "Line form with garbage, bad and missing checksums, unknown records.",
+        ),
+        (
+            "decode_line_v2_damaged",
+            line_v2_damaged,
+            "Version 2 line form: a dropped byte, a flipped byte, an inserted byte, a missing and a "
+            "version 1 check, two lines run together; only the intact lines decode.",
+        ),
         (
             "decode_packed_damaged",
             packed_damaged,

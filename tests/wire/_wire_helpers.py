@@ -8,7 +8,9 @@ from benchlog.wire import (
     Drive,
     Edges,
     Fault,
+    GoAccepted,
     Notice,
+    PlanAccepted,
     Pong,
     SequenceGap,
     Unknown,
@@ -55,9 +57,26 @@ def record_to_json(r) -> dict:
                 ],
             }
         case Drive():
-            return {"type": "drive", "channel": r.channel, "level": r.level, "tick": r.tick}
+            d = {"type": "drive", "channel": r.channel, "level": r.level, "tick": r.tick}
+            if r.cycle is not None:
+                d["cycle"] = r.cycle
+            return d
         case Beat():
-            return {"type": "beat", "tick": r.tick, "captured": r.captured, "dropped": r.dropped}
+            d = {"type": "beat", "tick": r.tick, "captured": r.captured, "dropped": r.dropped}
+            if r.short is not None:
+                d["short"] = r.short
+                d["cycles"] = [[c, n] for c, n in r.cycles]
+            return d
+        case PlanAccepted():
+            return {
+                "type": "plan_accepted",
+                "channel": r.channel,
+                "on_us": r.on_us,
+                "off_us": r.off_us,
+                "cycles": r.cycles,
+            }
+        case GoAccepted():
+            return {"type": "go_accepted", "channels": list(r.channels), "tick": r.tick}
         case Notice():
             return {"type": "notice", "text": r.text}
         case Pong():
@@ -74,9 +93,14 @@ def record_from_json(d: dict):
     if kind == "edges":
         return Edges.of([tuple(e) for e in d["edges"]])
     if kind == "drive":
-        return Drive(d["channel"], d["level"], d["tick"])
+        return Drive(d["channel"], d["level"], d["tick"], d.get("cycle"))
     if kind == "beat":
-        return Beat(d["tick"], d["captured"], d["dropped"])
+        cycles = tuple((c, n) for c, n in d.get("cycles", []))
+        return Beat(d["tick"], d["captured"], d["dropped"], d.get("short"), cycles)
+    if kind == "plan_accepted":
+        return PlanAccepted(d["channel"], d["on_us"], d["off_us"], d["cycles"])
+    if kind == "go_accepted":
+        return GoAccepted(tuple(d["channels"]), d["tick"])
     if kind == "notice":
         return Notice(d["text"])
     if kind == "pong":

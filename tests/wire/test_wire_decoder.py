@@ -223,9 +223,8 @@ def test_unknown_types_are_counted_and_lengths_follow_the_version():
 
 
 def test_absurd_values_are_faults():
-    enc = LineEncoder()
     dec = Decoder()
-    dec.feed(enc.encode(Announce(1, 1_000_000, 16, 4, "SMALL")))
+    dec.feed(b"A 1 1000000 16 4 SMALL\n")  # a minimal version 1 port: no checksums
     out = dec.feed(b"E 9 1 0010\nE 1 1 10000\nE 1 1 00ff\nB 0010 4294967296 0\n")
     assert flatten(out) == [("E", 1, 1, 0xFF)]
     assert dec.counters.by_reason.get("value out of range") == 3
@@ -233,22 +232,24 @@ def test_absurd_values_are_faults():
 
 def test_line_rules_from_the_protocol():
     dec = Decoder()
-    dec.feed(LineEncoder().encode(ANNOUNCE))
+    dec.feed(b"A 1 1000000 32 8 AVR8-REF-01\n")  # version 1 without checksums
     lines = [
         b"E 1 1 0a\r\n",  # \r before \n is ignored; checksum optional; 1-16 digits
         b"E 1 1 0000000b*37\r\n",  # a checksum and \r\n
         b"E 1 0 0000000b*37\r\n",  # the same checksum on a changed line: fault
-        b"E 1 0 ABCDEF01\n",  # uppercase hex
-        b"E 1 1 00000000000000001\n",  # 17 digits: fault
-        b"X anything at all\n",  # unknown letter: skipped and counted
-        b"7 not a letter\n",  # fault
-        b"N " + b"n" * 121 + b"\n",  # notice too long: fault
-        b"E  1 1 0a\n",  # two spaces: fault
+        b"E 1 0 ABCDEF01*62\n",  # uppercase hex
+        b"E 1 1 00000000000000001*54\n",  # 17 digits: fault
+        b"X anything at all*06\n",  # unknown letter: skipped and counted
+        b"7 not a letter*1d\n",  # fault
+        b"N " + b"n" * 121 + b"*00\n",  # notice too long: fault
+        b"E  1 1 0a*14\n",  # two spaces: fault
         b"E 1 1 0a" + b" " * 160 + b"\n",  # longer than 160 bytes: fault
+        b"E 1 1 0c\n",  # no checksum after lines that carried one: fault (the dropped-'*' case)
     ]
     out = dec.feed(b"".join(lines))
     assert flatten(out) == [("E", 1, 1, 0x0A), ("E", 1, 1, 0x0B), ("E", 1, 0, 0xABCDEF01), ("Unknown", "X")]
-    assert dec.counters.faults == 6
+    assert dec.counters.faults == 7
+    assert dec.counters.by_reason["checksum missing"] == 1
     assert dec.counters.unknown == 1
 
 

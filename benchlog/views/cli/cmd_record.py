@@ -10,7 +10,7 @@ HELP = "Cycle the units on a sampler bench and record every make and break into 
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("port", nargs="?", help="the sampler's port: a device, pty path or any pyserial URL")
+    p.add_argument("port", nargs="?", help="a device, pty path, pyserial URL, or a capture file")
     p.add_argument("--sim", metavar="PRESET", help="start the simulated sampler (a preset or TOML file)")
     p.add_argument("--bench", help="bench name (registered on first use)")
     p.add_argument("--profile", metavar="ON_MS:OFF_MS:CYCLES", help="cycle profile, e.g. 50:50:200000")
@@ -240,7 +240,13 @@ class _Session:
             self.sim = PtySampler(self.sim_cfg, seed=a.sim_seed, speed=speed, keep_truth=False)
             self.sim.start()
             url = self.sim.path
-        self.feed = Feed(url, speed=speed)
+        if self.sim_cfg is None and _is_capture(url):
+            from benchlog.ingest import CaptureFeed
+
+            self.feed = CaptureFeed(url)  # a capture file: read as a port, nothing sent
+            stop = _Either(stop, self.feed.ended)
+        else:
+            self.feed = Feed(url, speed=speed)
         self.feed.open()
         early = self._await_announcement()
         # the port is open and the sampler heard: only now is anything written
@@ -319,3 +325,24 @@ class _Session:
             timed = self.feed.poll(0.1)
             got.append(timed)
         return got
+
+
+def _is_capture(url: str) -> bool:
+    """A regular file (a capture saved by another logger), not a device, pty or URL."""
+    import os
+    import stat
+
+    try:
+        return stat.S_ISREG(os.stat(url).st_mode)
+    except (OSError, ValueError):
+        return False
+
+
+class _Either:
+    """Stop when either event is set (Ctrl-C, or the end of a capture file)."""
+
+    def __init__(self, a, b) -> None:
+        self.a, self.b = a, b
+
+    def is_set(self) -> bool:
+        return self.a.is_set() or self.b.is_set()

@@ -16,10 +16,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchlog.errors import DataError, SpecError
-from benchlog.stats import LifeTable, Population, metric_samples
-from benchlog.store import STORED_ACTUATION_DTYPE
-
-STORED_FIELDS = STORED_ACTUATION_DTYPE.names
+from benchlog.stats import METRICS, LifeTable, Population
+from benchlog.views.report._samples import SERIES_OF_METRIC, summary_samples
 
 __all__ = ["LotData", "data_checksum", "load_lot", "resolve_lot", "spec_for"]
 
@@ -31,12 +29,14 @@ class LotData:
     supplier: str
     lot_codes: list[str]
     population: Population
-    actuations: np.ndarray  # the store's STORED_ACTUATION_DTYPE rows
     serial_of: dict[int, str]  # unit id -> serial
     runs: list = field(default_factory=list)  # RunInfo of every run that held one of its units
     incidents: dict[int, list] = field(default_factory=dict)  # run id -> IncidentInfo list
     spec_toml: str | None = None
     benches: dict = field(default_factory=dict)  # bench id -> BenchInfo of the runs' benches
+    # metric -> [(serial, window mid cycles, {percentile: values per window})], for the report's trends
+    trends: dict[str, list] = field(default_factory=dict)
+    measured: int = 0  # make and break actuations measured (the summaries leave out incomplete ones)
 
     @property
     def label(self) -> str:
@@ -74,8 +74,13 @@ def load_lot(store, ident: str, *, operation: str = "coil cycle", with_runs: boo
     lot_ids = [lo.id for lo in lots]
     units = [u for lo in lots for u in store.units(lot=lo.id)]
     serial_of = {u.id: u.serial for u in units}
-    acts = store.actuations(lots=lot_ids)
-    labels = np.array([serial_of.get(int(i), str(i)) for i in acts["unit_id"]], dtype=object)
+    summaries = store.summaries(lots=lot_ids)
+    samples = summary_samples(summaries, serial_of)
+    measured = sum(
+        int(summaries[f"{kind}.bounce_us"].count.sum())
+        for kind in ("make", "break")
+        if f"{kind}.bounce_us" in summaries
+    )
     rows: list[tuple[object, float, bool, str]] = []
     for lo in lots:
         lt = store.life_table(lot=lo.id)
@@ -83,13 +88,21 @@ def load_lot(store, ident: str, *, operation: str = "coil cycle", with_runs: boo
             if cycles > 0:  # a unit that never cycled tells nothing about life
                 rows.append((serial, float(cycles), bool(failed), mode or "unknown"))
     life = LifeTable.of(rows) if rows else None
-    pop = Population(
-        part if len(lots) > 1 else f"{part}:{lots[0].code}", metric_samples(acts, labels), life, operation
-    )
+    pop = Population(part if len(lots) > 1 else f"{part}:{lots[0].code}", samples, life, operation)
     supplier = units[0].supplier if units else ""
     spec_toml = next((p.spec_toml for p in store.parts() if p.part_number == part), None)
-    data = LotData(ident, part, supplier, [lo.code for lo in lots], pop, acts, serial_of, spec_toml=spec_toml)
+    data = LotData(
+        ident,
+        part,
+        supplier,
+        [lo.code for lo in lots],
+        pop,
+        serial_of,
+        spec_toml=spec_toml,
+        measured=measured,
+    )
     if with_runs:
+        data.trends = _trends(store, serial_of)
         ids = set(serial_of)
         benches = {b.id: b for b in store.benches()}
         for run in store.runs():
@@ -99,6 +112,29 @@ def load_lot(store, ident: str, *, operation: str = "coil cycle", with_runs: boo
                 if run.bench_id in benches:
                     data.benches[run.bench_id] = benches[run.bench_id]
     return data
+
+
+TREND_PERCENTILES = (50.0, 90.0, 95.0, 99.0)
+
+
+def _trends(store, serial_of: dict[int, str]) -> dict[str, list]:
+    """Per metric and unit, the percentiles of each summary window (window by window over life)."""
+    from benchlog.store import SUMMARY_WINDOW
+
+    out: dict[str, list] = {}
+    for key, m in METRICS.items():
+        if m.kind == "rate" or not serial_of:
+            continue
+        unit, window, _, pct = store.summary_windows(
+            SERIES_OF_METRIC[key], units=list(serial_of), percentiles=TREND_PERCENTILES
+        )
+        rows = []
+        for u in np.unique(unit).tolist():
+            sel = unit == u
+            mid = (window[sel] + 0.5) * SUMMARY_WINDOW
+            rows.append((serial_of[u], mid, {p: pct[sel, j] for j, p in enumerate(TREND_PERCENTILES)}))
+        out[key] = rows
+    return out
 
 
 def spec_for(spec_arg: str | None, candidate: LotData):
@@ -118,22 +154,27 @@ def spec_for(spec_arg: str | None, candidate: LotData):
 
 
 def data_checksum(lots: list[LotData]) -> str:
-    """SHA-256 of the data a report is drawn from: per lot, its part and lot codes, then every unit's
-    actuations (by serial, in cycle order; the store's row ids left out, so the same data in another
-    store gives the same sum) and its life table row. Recomputing it from the store shows whether
-    the data changed since the report was written."""
+    """SHA-256 of the data a report is drawn from: per lot, its part and lot codes, then per metric
+    every unit's sample as read from the store's distribution summaries (by serial: the values of its
+    histogram bins, their exact counts and the unit's exact sum and sum of squares; the store's row ids
+    left out, so the same data in another store gives the same sum), and the life table. Recomputing
+    it from the store shows whether the data changed since the report was written. It reads no more
+    than the report does (the summaries, not every actuation)."""
     h = hashlib.sha256()
-    cols = [n for n in STORED_FIELDS if n not in ("unit_id", "run_id")]
     for lot in lots:
         h.update(f"lot\0{lot.part_number}\0{','.join(lot.lot_codes)}\0".encode())
-        a = lot.actuations
-        serials = np.array([lot.serial_of.get(int(u), str(u)) for u in a["unit_id"]], dtype=object)
-        for serial in sorted(set(serials.tolist())):
-            rows = a[serials == serial]
-            rows = rows[np.lexsort((rows["kind"], rows["t_start_ns"], rows["cycle"]))]
-            h.update(f"unit\0{serial}\0{len(rows)}\0".encode())
-            for c in cols:
-                h.update(np.ascontiguousarray(rows[c]).astype(rows.dtype[c].newbyteorder("<")).tobytes())
+        for metric in sorted(lot.population.samples):
+            sample = lot.population.samples[metric]
+            weights = np.ones(len(sample.values)) if sample.weights is None else sample.weights
+            for code in np.argsort(np.array(sample.unit_names, dtype=str), kind="stable"):
+                mine = sample.unit == code
+                values, counts = sample.values[mine], weights[mine]
+                order = np.lexsort((counts, values))
+                h.update(f"{metric}\0{sample.unit_names[code]}\0{int(mine.sum())}\0".encode())
+                h.update(np.ascontiguousarray(values[order], dtype="<f8").tobytes())
+                h.update(np.ascontiguousarray(counts[order], dtype="<f8").tobytes())
+                if sample.moments is not None:
+                    h.update(np.ascontiguousarray(sample.moments[:, code], dtype="<f8").tobytes())
         life = lot.population.life
         if life is not None:
             for i in np.argsort(np.array([str(u) for u in life.unit]), kind="stable"):

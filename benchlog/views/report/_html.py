@@ -14,9 +14,9 @@ from html import escape
 import numpy as np
 
 from benchlog import __version__
-from benchlog.analysis import INCOMPLETE, MISSED, NO_CHANGE, STUCK
 from benchlog.errors import DataError
 from benchlog.stats import FAIL, METRICS, PASS, UNDECIDED, Qualification, fit_weibull
+from benchlog.store import SUMMARY_WINDOW
 from benchlog.views.report._build import CONDITIONS, ReportInfo
 from benchlog.views.report._data import LotData, data_checksum
 from benchlog.views.report._plots import COLOURS, Plot, ecdf_png, trend_png, weibull_png
@@ -273,28 +273,15 @@ def _metric_table(entry: dict, names: list[str], metric: str) -> str:
     return out
 
 
-def _trend_series(lots: list[LotData], metric: str) -> list[tuple[str, int, np.ndarray, np.ndarray]]:
-    m = METRICS[metric]
+def _trend_series(
+    lots: list[LotData], metric: str, percentile: float
+) -> list[tuple[str, int, np.ndarray, np.ndarray]]:
+    """Per unit: (serial, lot index, window mid cycles, the percentile in each summary window)."""
     out = []
     for i, lot in enumerate(lots):
-        a = lot.actuations
-        if not len(a) or not m.column:
-            continue
-        if m.rows in ("make", "break"):
-            sel = a["kind"] == (0 if m.rows == "make" else 1)
-        else:
-            sel = a["drive_level"] == (1 if m.rows == "operate" else 0)
-        sel &= np.isfinite(a[m.column]) & ((a["flags"] & (INCOMPLETE | MISSED | STUCK | NO_CHANGE)) == 0)
-        for uid in np.unique(a["unit_id"][sel]):
-            u = sel & (a["unit_id"] == uid)
-            out.append(
-                (
-                    lot.serial_of.get(int(uid), str(uid)),
-                    i,
-                    a["cycle"][u].astype(float),
-                    a[m.column][u].astype(float),
-                )
-            )
+        for serial, cycles, by_pct in lot.trends.get(metric, []):
+            near = min(by_pct, key=lambda p: abs(p - percentile))
+            out.append((serial, i, np.asarray(cycles, float), np.asarray(by_pct[near], float)))
     return out
 
 
@@ -578,7 +565,7 @@ def _benches_section(lots: list[LotData]) -> str:
 
 def _data_rows(lots: list[LotData], store: str, checksum: str) -> list[list[str]]:
     runs = sorted({run.id for lot in lots for run in lot.runs})
-    values = sum(len(lot.actuations) for lot in lots)
+    values = sum(lot.measured for lot in lots)
     units = sum(len(lot.serial_of) for lot in lots)
     return [
         ["store", f'<span class="mono">{escape(store or "-")}</span>'],
@@ -586,13 +573,13 @@ def _data_rows(lots: list[LotData], store: str, checksum: str) -> list[list[str]
         ["lots", "; ".join(escape(lot.label) for lot in lots)],
         [
             "drawn",
-            f"{_count(units, 'unit')}, {_count(values, 'actuation')} (before leaving out incomplete ones)",
+            f"{_count(units, 'unit')}, {_count(values, 'measured actuation')} (incomplete ones left out)",
         ],
         [
             "SHA-256 of the data",
-            f'<span class="mono">{checksum}</span><br><span class="small">over every actuation of every '
-            "unit (by serial, in cycle order) and the life table, as read from the store; the same data "
-            "gives the same sum in any store</span>",
+            f'<span class="mono">{checksum}</span><br><span class="small">over every unit\'s distribution '
+            "summaries (by serial: histogram bins, exact counts, sums and sums of squares) and the life "
+            "table, as read from the store; the same data gives the same sum in any store</span>",
         ],
     ]
 
@@ -715,17 +702,17 @@ def render_report(
                     ),
                 )
             )
-            series = _trend_series(lots, metric)
+            pct = min(lim.percentile, 99.0) if lim else 95.0
+            series = _trend_series(lots, metric, pct)
             if series:
-                pct = min(lim.percentile, 99.0) if lim else 95.0
                 h.append(
                     _keep(
                         _img(
                             trend_png(metric, series, names, lim.value if lim else None, pct),
                             f"{m.label} per unit over life",
                         ),
-                        f'<p class="small">One line per unit: its p{pct:g} in each twentieth of the '
-                        "recorded life.</p>",
+                        f'<p class="small">One line per unit: its p{pct:g} in each window of '
+                        f"{SUMMARY_WINDOW:,} life cycles (from the store's distribution summaries).</p>",
                     )
                 )
             h.append(_metric_table(entry, names, metric))

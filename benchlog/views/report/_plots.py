@@ -75,10 +75,12 @@ def ecdf_png(
     for i, (name, s) in enumerate(samples):
         if not len(s):
             continue
-        x = np.sort(s.values) * k
-        y = np.arange(1, len(x) + 1) / len(x)
-        floor = min(floor, 1.0 / len(x))
-        beyond = int(np.count_nonzero(x > x_hi))
+        order = np.argsort(s.values, kind="stable")
+        x = s.values[order] * k
+        w = np.ones(len(x)) if s.weights is None else s.weights[order]
+        y = np.cumsum(w) / w.sum()
+        floor = min(floor, 1.0 / w.sum())
+        beyond = int(round(w[x > x_hi].sum()))
         if len(x) > 4000:  # thin for drawing only; every value is still in the statistics
             idx = np.unique(
                 np.concatenate(
@@ -132,24 +134,16 @@ def trend_png(
     percentile: float,
 ) -> Plot:
     """Per unit, the `percentile` of the metric in windows of cycles; one line per unit, coloured by
-    population. `series`: (unit label, population index, cycles, values)."""
+    population. `series`: (unit label, population index, window cycles, the percentile per window)."""
     m = METRICS[metric]
     k = m.display_scale
     fig = Figure(figsize=(9.6, 2.9))
     ax = fig.add_subplot(1, 1, 1)
-    top = max((float(c.max()) for _, _, c, _ in series if len(c)), default=1.0)
-    edges = np.linspace(0, top + 1, 21)
     seen: set[int] = set()
     for _, pop, cyc, val in series:
-        if len(cyc) < 10:
+        if len(cyc) < 2:
             continue
-        which = np.clip(np.searchsorted(edges, cyc, side="right") - 1, 0, len(edges) - 2)
-        xs, ys = [], []
-        for b in np.unique(which):
-            v = val[which == b]
-            if len(v) >= 5:
-                xs.append(0.5 * (edges[b] + edges[b + 1]))
-                ys.append(np.percentile(v, percentile) * k)
+        xs, ys = cyc, np.asarray(val) * k
         ax.plot(
             xs,
             ys,
