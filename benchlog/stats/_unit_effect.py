@@ -40,14 +40,29 @@ METHOD = "random unit effect (log-normal unit medians), generalized pivotal boun
 class UnitEffect:
     """The model fitted to one unit-tagged sample (values > 0 at every unit's median)."""
 
-    def __init__(self, values: np.ndarray, unit: np.ndarray, n_units: int) -> None:
+    def __init__(
+        self, values: np.ndarray, unit: np.ndarray, n_units: int, weights: np.ndarray | None = None
+    ) -> None:
+        """`weights` (optional): how many times each value occurred; the fit is then exactly the fit
+        to the values repeated that many times (a sample read from the store's summaries)."""
         order = np.lexsort((values, unit))
         v = values[order]
+        w = None if weights is None else np.asarray(weights, np.float64)[order]
         bounds = np.searchsorted(unit[order], np.arange(n_units + 1))
-        med = np.array([np.median(v[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)])
+        spans = zip(bounds[:-1], bounds[1:], strict=True)
+        if w is None:
+            med = np.array([np.median(v[a:b]) for a, b in spans])
+        else:
+            med = np.array([_repeated_quantiles(v[a:b], w[a:b], np.array([0.5]))[0] for a, b in spans])
         if not (med > 0).all():
             raise ValueError("a unit's median is not positive")
-        r = np.quantile(values / med[unit], (np.arange(_RESIDUAL_POINTS) + 0.5) / _RESIDUAL_POINTS)
+        q = (np.arange(_RESIDUAL_POINTS) + 0.5) / _RESIDUAL_POINTS
+        ratio = values / med[unit]
+        if weights is None:
+            r = np.quantile(ratio, q)
+        else:
+            o = np.argsort(ratio, kind="stable")
+            r = _repeated_quantiles(ratio[o], np.asarray(weights, np.float64)[o], q)
         y = np.log(med)
         self._set(float(y.mean()), float(y.std(ddof=1)) if n_units > 1 else 0.0, n_units, r)
 
@@ -72,7 +87,7 @@ class UnitEffect:
     def of(cls, sample) -> UnitEffect | None:
         """The model for a `UnitSample`, or None where it does not apply (a unit's median is 0)."""
         try:
-            return cls(sample.values, sample.unit, sample.n_units)
+            return cls(sample.values, sample.unit, sample.n_units, getattr(sample, "weights", None))
         except ValueError:
             return None
 
@@ -114,6 +129,18 @@ class UnitEffect:
     def percentile_draws(self, percentile: float, count: int, seed) -> np.ndarray:
         mu, sigma = self.draws(count, np.random.default_rng(seed))
         return self.quantile(mu, sigma, percentile)
+
+
+def _repeated_quantiles(v: np.ndarray, w: np.ndarray, q: np.ndarray) -> np.ndarray:
+    """numpy's default (linear) quantiles `q` of sorted values `v`, each repeated `w` times (whole
+    counts), without building the repeated array."""
+    cum = np.cumsum(w)
+    h = (cum[-1] - 1.0) * q
+    lo, hi = np.floor(h), np.ceil(h)
+    last = len(v) - 1
+    a = v[np.minimum(np.searchsorted(cum, lo, side="right"), last)]
+    b = v[np.minimum(np.searchsorted(cum, hi, side="right"), last)]
+    return a + (h - lo) * (b - a)
 
 
 def bounds(draws: np.ndarray, confidence: float) -> tuple[float, float]:

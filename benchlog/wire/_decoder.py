@@ -112,6 +112,7 @@ class Decoder:
         self._bad_bytes = 0
         self._expected_seq: int | None = None
         self._undecided = 0  # bytes dropped while undecided, reported as one fault at the decision
+        self._idle = 0  # of those, lone 0x00 delimiters (a packed sampler's idle or sync bytes)
         self._out: list[Record] = []
         self._form_asked: str | None = None  # the host asked for this form (FORM L / FORM P)
 
@@ -277,10 +278,13 @@ class Decoder:
     def _detect(self, buf: bytes) -> bytes:
         frame_start = line_start = 0
         found: tuple[str, int] | None = None
+        idle = 0
         for m in _TERMINATOR.finditer(buf):
             p = m.start()
             if buf[p] == 0:
-                if self._valid_frame(buf[frame_start:p]):
+                if p == frame_start:  # an empty frame: a delimiter sent to mark where frames start
+                    idle += 1
+                elif self._valid_frame(buf[frame_start:p]):
                     found = ("packed", frame_start)
                     break
                 frame_start = line_start = p + 1
@@ -291,19 +295,23 @@ class Decoder:
                     found = ("line", line_start)
                     break
                 line_start = p + 1
+        self._idle += idle  # every one of them lies before frame_start, so before keep and start
         if found is None:
             keep = max(frame_start, len(buf) - MAX_ENCODED)
             self._undecided += keep
             if self._undecided >= REDETECT_BYTES:  # report long noise now, not only once it ends
-                self._fault(BEFORE_FIRST, self._undecided)
-                self._undecided = 0
+                if self._undecided > self._idle:
+                    self._fault(BEFORE_FIRST, self._undecided - self._idle)
+                self._undecided = self._idle = 0
             return buf[keep:]
         self.form, start = found
         self._form_asked = None
         self._undecided += start
-        if self._undecided:
-            self._fault(BEFORE_FIRST, self._undecided)
-            self._undecided = 0
+        # delimiters ahead of the first frame are how a packed stream starts, not noise
+        noise = self._undecided - (self._idle if self.form == "packed" else 0)
+        if noise:
+            self._fault(BEFORE_FIRST, noise)
+        self._undecided = self._idle = 0
         self._bad_units = self._bad_bytes = 0
         return buf[start:]
 

@@ -19,5 +19,8 @@ def test_plan_oc_from_the_incumbents_recorded_units(tmp_path, capsys):
     with Store.open(db, readonly=True) as store:
         sample = load_lot(store, "AG-MS5:L1", with_runs=False).population.samples["make_bounce"]
     # the model's unit spread is the log-sd of the units' own medians (numpy as the reference)
-    med = [np.median(sample.values[sample.unit == u]) for u in range(sample.n_units)]
+    # (a sample read from the store's summaries carries a count per value: numpy.repeat expands it)
+    counts = np.ones(len(sample.values), int) if sample.weights is None else sample.weights.astype(int)
+    values, unit = np.repeat(sample.values, counts), np.repeat(sample.unit, counts)
+    med = [np.median(values[unit == u]) for u in range(sample.n_units)]
     assert UnitModel.from_sample(sample).sigma == pytest.approx(np.std(np.log(med), ddof=1))

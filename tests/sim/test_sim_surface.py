@@ -17,7 +17,8 @@ def test_public_surfaces():
         benchlog.sim.__all__
     )
     assert set(benchlog.link.__all__) == {"Chunk", "Link", "Outage", "PortInfo", "list_ports"}
-    assert set(benchlog.ingest.__all__) == {"Feed", "FeedCounters", "merge_timed", "empty_timed"}
+    ingest = {"CaptureFeed", "Feed", "FeedCounters", "merge_timed", "empty_timed"}
+    assert set(benchlog.ingest.__all__) == ingest
     for mod in (benchlog.sim, benchlog.link, benchlog.ingest):
         assert all(hasattr(mod, name) for name in mod.__all__)
 

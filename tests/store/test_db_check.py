@@ -22,23 +22,29 @@ def sound_db(tmp_path_factory):
     )
 
 
-def _damage(src: str, dst, table: str) -> str:
-    """A copy of `src` with one leaf page of `table` overwritten in the middle of the file (SQLite's
-    dbstat virtual table says which pages hold the table)."""
+def _damage(src: str, dst, *tables: str) -> str:
+    """A copy of `src` with one leaf page of each of `tables` overwritten in the middle of the file
+    (SQLite's dbstat virtual table says which pages hold a table)."""
     shutil.copy(src, dst)
     con = sqlite3.connect(dst)
     try:
         page_size = con.execute("PRAGMA page_size").fetchone()[0]
-        pages = [
-            r[0]
-            for r in con.execute("SELECT pageno FROM dbstat WHERE name = ? AND pagetype = 'leaf'", (table,))
+        leaves = [
+            [
+                r[0]
+                for r in con.execute(
+                    "SELECT pageno FROM dbstat WHERE name = ? AND pagetype = 'leaf'", (table,)
+                )
+            ]
+            for table in tables
         ]
     finally:
         con.close()
-    assert len(pages) >= 3
     with open(dst, "r+b") as fh:
-        fh.seek((pages[len(pages) // 2] - 1) * page_size)
-        fh.write(b"\xab" * page_size)
+        for pages in leaves:
+            assert len(pages) >= 3
+            fh.seek((pages[len(pages) // 2] - 1) * page_size)
+            fh.write(b"\xab" * page_size)
     return str(dst)
 
 
@@ -79,7 +85,8 @@ def test_db_check_finds_rollups_that_disagree_with_their_rows(db_url, capsys):
 
 
 def test_a_damaged_store_is_one_line_naming_db_check_everywhere(sound_db, tmp_path, capsys):
-    db = _damage(sound_db, tmp_path / "damaged.sqlite", "actuations")
+    # both what export reads (the actuations) and what qualify reads (the per-window summaries)
+    db = _damage(sound_db, tmp_path / "damaged.sqlite", "actuations", "summaries")
     assert main(["db", "check", "--db", db]) == 1
     out = capsys.readouterr().out
     assert "FAILED  integrity" in out and "result  damaged" in out

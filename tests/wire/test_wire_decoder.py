@@ -278,6 +278,20 @@ def test_undecided_bytes_before_the_first_record_are_faults():
     assert out[1] == ANNOUNCE
 
 
+@pytest.mark.parametrize("sizes", [[10**6], [1] * 64])
+def test_delimiters_ahead_of_the_first_frame_are_not_faults(sizes):
+    # COBS framing: a 0x00 delimiter ends a frame, and a sender may send one first to mark where
+    # frames start (Cheshire and Baker, "Consistent Overhead Byte Stuffing", IEEE/ACM Transactions
+    # on Networking 7(2), 1999). A packed recording starts that way; an empty frame is not noise.
+    data = b"\x00\x00" + PackedEncoder().encode(ANNOUNCE) + PackedEncoder().encode(Pong(3))
+    out, dec = decode_chunks(data, sizes)
+    assert dec.form == "packed" and dec.counters.faults == 0
+    assert out[0] == ANNOUNCE and not any(isinstance(r, Fault) for r in out)
+    # noise ahead of them still is, and counts only the noise bytes
+    out = Decoder().feed(b"\x00\x01\x02\x00" + PackedEncoder().encode(ANNOUNCE))
+    assert isinstance(out[0], Fault) and out[0].nbytes == 3
+
+
 @pytest.mark.parametrize("first, second, asked", [("line", "packed", "packed"), ("packed", "line", "line")])
 def test_a_requested_form_switch_loses_no_record(first, second, asked):
     # docs/protocol.md: FORM L / FORM P switch the sampler's form mid-stream; the host is told.

@@ -239,7 +239,16 @@ def _check(jobs: list[BenchJob]) -> None:
             raise StoreError(f"the demo's bench {job.name} stopped: {type(job.error).__name__}: {job.error}")
 
 
+def _finish(thread: threading.Thread) -> None:
+    """Wait for the recording thread to end its runs (no deadline: a run cut off by a timer would be
+    left without its end)."""
+    while thread.is_alive():
+        thread.join(0.2)
+
+
 def run(args: argparse.Namespace) -> int:
+    from benchlog.views.cli._signals import stop_signals
+
     path = _fresh_path(args.db)
     db = str(path.resolve())
     print(
@@ -248,12 +257,10 @@ def run(args: argparse.Namespace) -> int:
     t0 = time.monotonic()
     jobs, stop, thread = start_demo(db, args.cycles, args.seed)
     if args.no_dash or not sys.stdout.isatty():
-        try:
-            while thread.is_alive():
-                thread.join(0.2)
-        except KeyboardInterrupt:
-            stop.set()
-            thread.join(15)
+        # Ctrl-C, SIGTERM or SIGHUP: the recording ends its run as "stopped" however long that takes
+        # on a loaded machine; a second signal stops at once
+        with stop_signals(stop):
+            _finish(thread)
         _check(jobs)
         from benchlog.store import Store
         from benchlog.views.tui._summary import summary_text
@@ -269,7 +276,8 @@ def run(args: argparse.Namespace) -> int:
         BenchDashboard(db, refresh_s=1.0, quit_on_signals=True).run()
     finally:
         stop.set()
-        thread.join(15)
+        with stop_signals(stop):
+            _finish(thread)
     _check(jobs)
     _stalls(jobs)
     print(f"demo database: {path} (open it again with: benchlog dash --db {path})")
