@@ -5,14 +5,20 @@ The rule (docs/store.md, "Life status"):
 - Each cycle of a unit gets one sign from its make and break:
   - `welded`: the break is flagged STUCK or MISSED (the contact would not open);
   - `missed_make`: the make is flagged STUCK or MISSED (the contact would not close);
-  - `chatter`: the cycle has chatter events and the unit's chatter over the last `per_cycles`
-    cycles exceeds the spec's `max_events` (no chatter limit in the spec: any chatter event);
   - `neutral`: nothing measurable (every row INCOMPLETE, or NO_CHANGE: driven while the contact
     already sat in the expected state, which is how the other half of a welded or missed cycle shows);
-  - `clean` otherwise. Precedence: welded > missed_make > chatter > clean > neutral.
-- A unit fails when `fail_after` consecutive cycles (neutral ones skipped, gaps in the cycle numbers
-  ignored) carry the same failure sign; it is recorded as failed at the *first* cycle of that streak
-  with that mode. A clean cycle, or a different sign, restarts the count.
+  - `clean` otherwise (a cycle with chatter included). Precedence: welded > missed_make > clean >
+    neutral.
+- A unit fails by a weld or a missed make when `fail_after` consecutive cycles (neutral ones skipped,
+  gaps in the cycle numbers ignored) carry the same sign; it is recorded as failed at the *first*
+  cycle of that streak with that mode. A clean cycle, or the other sign, restarts the count.
+- A unit fails by chatter when its chatter goes over the spec's allowance (`[limits.chatter]`: more
+  than `max_events` events within the last `per_cycles` cycles; no chatter limit in the spec: any
+  event within 1,000 cycles) and stays over it for `fail_after` cycles with chatter. It is recorded as
+  failed at the cycle whose events first took it over the allowance. Chatter comes and goes from cycle
+  to cycle (a worn contact opens on some cycles and not on others), so it is judged over the
+  allowance's window, not on consecutive cycles: a consecutive-cycle rule dated chatter failures
+  hundreds of cycles after the simulator's true onset (tests/recorder/test_chatter_life.py).
 """
 
 from __future__ import annotations
@@ -28,6 +34,7 @@ NEUTRAL, CLEAN, CHATTER_SIGN, MISSED_MAKE, WELDED = -1, 0, 1, 2, 3
 MODE_NAMES = {WELDED: "welded", MISSED_MAKE: "missed_make", CHATTER_SIGN: "chatter"}
 FAILURE_MODES = tuple(MODE_NAMES.values())
 _ORDER_CHATTER = 0.5  # between clean (0) and missed make (2): provisional code for "has chatter"
+ANY_CHATTER_WINDOW = 1000  # cycles: the allowance's window when the spec sets no chatter limit
 
 
 @dataclass(frozen=True, slots=True)
@@ -47,6 +54,8 @@ class _Channel:
         "start",
         "count",
         "recent",
+        "over_start",
+        "over_cycles",
         "failed",
     )
 
@@ -58,6 +67,8 @@ class _Channel:
         self.start = 0
         self.count = 0
         self.recent: deque[tuple[int, int]] = deque()  # (cycle, chatter events) of chatter cycles
+        self.over_start: int | None = None  # the cycle that took the chatter over the allowance
+        self.over_cycles = 0  # chatter cycles since then, the allowance still exceeded
         self.failed = False
 
 
@@ -151,22 +162,48 @@ class LifeJudge:
             return None
         ccode = ccode.astype(np.float64)
         has_chatter = np.flatnonzero(ccode == _ORDER_CHATTER)
+        chatter = self._chatter(c, st, ucyc, cchat, has_chatter)
+        ccode[has_chatter] = CLEAN
+        keep = np.flatnonzero(ccode != NEUTRAL)
+        streak = self._streaks(c, st, ucyc[keep], ccode[keep].astype(np.int64))
+        if streak is not None:
+            streak = (int(keep[streak[0]]), streak[1])
+        found = [f for f in (chatter, streak) if f is not None]
+        if not found:
+            return None
+        st.failed = True
+        return min(found, key=lambda f: f[0])[1]  # whichever became certain first
+
+    def _chatter(self, c: int, st: _Channel, ucyc, cchat, has_chatter) -> tuple[int, Failure] | None:
+        """(position, failure) where the chatter allowance's rule fails the unit, or None."""
         limit = self.chatter.get(c)
+        max_events, per_cycles = limit if limit is not None else (0, ANY_CHATTER_WINDOW)
         for i in has_chatter.tolist():  # only cycles with chatter: rare until a unit wears out
             cy, ev = int(ucyc[i]), int(cchat[i])
-            if limit is None:
-                ccode[i] = CHATTER_SIGN
-                continue
-            max_events, per_cycles = limit
             st.recent.append((cy, ev))
             while st.recent and st.recent[0][0] <= cy - per_cycles:
                 st.recent.popleft()
-            ccode[i] = CHATTER_SIGN if sum(e for _, e in st.recent) > max_events else CLEAN
-        keep = ccode != NEUTRAL
-        ucyc, ccode = ucyc[keep], ccode[keep].astype(np.int64)
+            if sum(e for _, e in st.recent) <= max_events:
+                st.over_start, st.over_cycles = None, 0
+                continue
+            if st.over_start is None:
+                st.over_start, st.over_cycles = cy, 0
+            st.over_cycles += 1
+            if st.over_cycles >= self.fail_after:
+                allowance = f"{max_events} per {per_cycles:,} cycles"
+                return i, Failure(
+                    c,
+                    st.over_start,
+                    "chatter",
+                    f"chatter over its allowance ({allowance}) from cycle {st.over_start},"
+                    f" on {self.fail_after} cycles",
+                )
+        return None
+
+    def _streaks(self, c: int, st: _Channel, ucyc, ccode) -> tuple[int, Failure] | None:
+        """(position, failure) where `fail_after` consecutive like signs fail the unit, or None."""
         if not len(ucyc):
             return None
-        # runs of equal signs
         cut = np.flatnonzero(np.r_[True, ccode[1:] != ccode[:-1]])
         lengths = np.diff(np.r_[cut, len(ccode)])
         for k, n in zip(cut.tolist(), lengths.tolist(), strict=True):
@@ -174,14 +211,14 @@ class LifeJudge:
             if sign == CLEAN:
                 st.mode, st.count = CLEAN, 0
                 continue
-            if sign == st.mode:
-                st.count += n
-            else:
-                st.mode, st.start, st.count = sign, int(ucyc[k]), n
+            before = st.count if sign == st.mode else 0
+            if sign != st.mode:
+                st.mode, st.start = sign, int(ucyc[k])
+            st.count = before + n
             if st.count >= self.fail_after:
-                st.failed = True
                 name = MODE_NAMES[sign]
-                return Failure(
+                at = k + (self.fail_after - before) - 1
+                return at, Failure(
                     c, st.start, name, f"{name} on {self.fail_after} consecutive cycles from cycle {st.start}"
                 )
         return None
