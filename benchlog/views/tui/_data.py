@@ -449,6 +449,12 @@ class TrendCache:
         self.deferred = 0  # re-reads put off in the current refresh
         self.missing = 0  # trends not read yet (left for the next refresh)
 
+    @classmethod
+    def complete(cls) -> TrendCache:
+        """A cache without time budgets, for a one-off read (a printed summary, a report): every trend
+        is read however long the store takes, so what is printed never depends on the machine's load."""
+        return cls(min_age_s=0.0, budget_s=math.inf, first_budget_s=math.inf)
+
     def begin(self) -> None:
         """A new refresh: its budgets start afresh."""
         self._spent = 0.0
@@ -512,7 +518,7 @@ def _layout(store, run: RunInfo, cache: TrendCache) -> list[_Seat]:
 
 def read_run(store, run_id: int, cache: TrendCache | None = None, specs: dict | None = None) -> RunDetail:
     t0 = time.perf_counter()
-    cache = cache or TrendCache()
+    cache = cache or TrendCache.complete()
     cache.begin()
     run = store.run(run_id)
     seats = _layout(store, run, cache)
@@ -671,7 +677,7 @@ POP_METRICS = ("make_bounce", "break_bounce", "operate_time")
 
 def read_population(store, group: Group | None, cache: TrendCache | None = None) -> Population:
     t0 = time.perf_counter()
-    cache = cache or TrendCache()
+    cache = cache or TrendCache.complete()
     cache.begin()
     parts = store.parts()
     groups = [Group("all", 0, "parts")] if len(parts) > 1 else []
