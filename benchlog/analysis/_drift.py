@@ -53,7 +53,7 @@ WINDOW_DTYPE = np.dtype(
 
 D2_N2 = 1.128  # d2 for moving ranges of two (Montgomery, table of control chart constants)
 DEFAULT_ALPHA = 0.001  # one-sided level of the trend test behind a drift flag
-OVER_WINDOWS = 3  # the last this many windows above the limit: past the limit
+OVER_WINDOWS = 3  # the running median of this many windows above the limit: past the limit
 BASELINE_MIN, BASELINE_MAX = 5, 20  # automatic baseline: the first quarter of the windows, 5 to 20
 
 
@@ -88,15 +88,26 @@ def rising_trend_p(values: np.ndarray) -> float:
 
 
 def over_since(windows: np.ndarray, limit: float, last: int = OVER_WINDOWS) -> int | None:
-    """The cycle since which the window statistic has stayed above `limit`, when its last `last`
-    windows with data all are; else None."""
+    """The cycle since which the window statistic has stayed above `limit`, judged on the running
+    median of `last` windows (a percentile of one window of a hundred cycles scatters by several per
+    cent, so one window dipping below the limit does not bring a unit well past it back); None when
+    that median is not above the limit now."""
     v = windows["value"]
     has = np.flatnonzero(~np.isnan(v))
-    if len(has) < last or not (v[has[-last:]] > limit).all():
+    if len(has) < last:
         return None
-    below = has[v[has] <= limit]
-    first = has[0] if not len(below) else has[np.searchsorted(has, below[-1]) + 1]
-    return int(windows["cycle_start"][first])
+    vals = v[has]
+    run = np.median(np.lib.stride_tricks.sliding_window_view(vals, last), axis=1)  # ends at i+last-1
+    if not run[-1] > limit:
+        return None
+    below = np.flatnonzero(run <= limit)
+    # the first window of the last stretch whose running median stays above the limit
+    first = 0 if not len(below) else int(below[-1]) + 1
+    first = min(first, len(has) - 1)
+    # from there, the first window itself above the limit
+    above = np.flatnonzero(vals[first:] > limit)
+    first += int(above[0]) if len(above) else 0
+    return int(windows["cycle_start"][has[first]])
 
 
 def window_stats(
@@ -287,7 +298,15 @@ class DriftReport:
         truth by tests/benchmarks/bench_calibration.py."""
         if not (self.signalled and self.rising):
             return False
-        return self.past_limit or self.failed_at is not None or self.reaches_limit
+        if self.past_limit:
+            return True
+        if self.failed_at is not None and self.limit is not None:
+            # failed (by a weld, a missed make, chatter): no projection is stated, but the flag still
+            # needs the trend to have been heading for the limit within the horizon; a unit that
+            # failed for another reason while far below its limit is not drifting toward it
+            c = self.trend.crossing_cycle if self.trend is not None else None
+            return c is not None and (self.horizon is None or c <= self.horizon)
+        return self.reaches_limit
 
     @property
     def evidence(self) -> list[str]:

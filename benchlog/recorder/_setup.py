@@ -118,16 +118,36 @@ def spec_for(part: str, explicit: str | None):
     return spec, spec_text(source)
 
 
+def aged_spec(sp, text: str | None, factor: float):
+    """(spec, TOML text) with the life requirement stated in the cycles of parts that age `factor`
+    times faster than real ones (the demo's simulated benches): `min_cycles / factor`. The limits on
+    each actuation stay as they are."""
+    import re
+    from dataclasses import replace
+
+    if sp is None or sp.life is None or factor == 1.0:
+        return sp, text
+    real = sp.life.min_cycles
+    cycles = max(1, round(real / factor))
+    sp = replace(sp, life=replace(sp.life, min_cycles=cycles))
+    if text is not None:
+        note = f"min_cycles = {cycles}  # simulated parts aged x{factor:.3g}: {real} cycles of a real part"
+        text = re.sub(r"(?m)^min_cycles\s*=\s*[0-9_]+", lambda m: note, text, count=1)
+    return sp, text
+
+
 def register_units(
-    store, units: list[UnitAssignment], spec: str | None = None
+    store, units: list[UnitAssignment], spec: str | None = None, *, ageing: float = 1.0
 ) -> tuple[dict[int, int], dict]:
-    """Register (or reuse) parts, lots and units; returns ({channel: unit_id}, {channel: PartSpec})."""
+    """Register (or reuse) parts, lots and units; returns ({channel: unit_id}, {channel: PartSpec}).
+    `ageing`: the parts age this many times faster than real ones (simulated), so the life
+    requirement is stored in their cycles (`aged_spec`)."""
     ids: dict[int, int] = {}
     specs: dict[int, object] = {}
     by_part: dict[str, tuple[int, object]] = {}
     for u in units:
         if u.part not in by_part:
-            sp, text = spec_for(u.part, spec)
+            sp, text = aged_spec(*spec_for(u.part, spec), ageing)
             doc = _spec_doc(sp)
             supplier = u.supplier or (getattr(sp, "supplier", "") if sp is not None else "")
             by_part[u.part] = (store.register_part(u.part, supplier, spec_toml=text, spec=doc), sp)

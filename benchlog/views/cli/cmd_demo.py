@@ -125,7 +125,7 @@ def record_bench(db: str, job: BenchJob, aged_for: int, stop: threading.Event) -
             for u in cfg.units
         ]
         bench_id = store.register_bench(job.name)
-        ids, specs = register_units(store, units, None)
+        ids, specs = register_units(store, units, None, ageing=ageing(aged_for))
         sim = PtySampler(cfg, seed=job.seed, speed=SPEED, keep_truth=False)
         sim.start()
         feed = Feed(sim.path, speed=SPEED)
