@@ -69,3 +69,37 @@ def test_a_spec_that_does_not_parse_stops_before_the_port_and_the_store(tmp_path
     err = capsys.readouterr().err
     assert code == 8 and err.count("\n") == 1  # SpecError
     assert not db.exists()
+
+
+def test_a_port_where_no_sampler_answers_writes_nothing(tmp_path, children):
+    # the port opens (a pseudo-terminal nobody drives: an unpowered or wrong board) but nothing
+    # answers; the recorder waits without writing, says so, and a stop ends it in one line
+    import os
+    import pty
+    import signal
+
+    master, slave = pty.openpty()
+    try:
+        db = tmp_path / "never.sqlite"
+        p = children.benchlog(
+            "record",
+            os.ttyname(slave),
+            "--bench",
+            "Q",
+            "--profile",
+            "50:50:10",
+            "--units",
+            "0=AG-MS5/L1/Q-001",
+            "--db",
+            str(db),
+            sigint="ignored",
+        )
+        p.wait_line("no reply from a sampler", stream="stderr")
+        p.signal(signal.SIGTERM)
+        rc, out, err = p.finish()
+        assert rc == 4, err  # PortError
+        assert err.strip().splitlines()[-1].startswith("benchlog: error: no sampler answered")
+        assert "Traceback" not in err and not db.exists()
+    finally:
+        os.close(master)
+        os.close(slave)

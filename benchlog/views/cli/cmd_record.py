@@ -248,7 +248,7 @@ class _Session:
         else:
             self.feed = Feed(url, speed=speed)
         self.feed.open()
-        early = self._await_announcement()
+        early = self._await_sampler(url, stop)
         # the port is open and the sampler heard: only now is anything written
         new = None
         if resumed is not None:
@@ -316,14 +316,35 @@ class _Session:
         )
         return 0
 
-    def _await_announcement(self, timeout_s: float = 5.0):
+    def _await_sampler(self, url: str, stop, announce_s: float = 5.0):
+        """The batches read until the sampler announces itself (up to `announce_s`: an older sampler
+        does not), and in any case until it has said anything at all: a port where nothing answers
+        (wrong port, sampler unpowered or still flashing) gets nothing written, however long the
+        wait, and ends in one line when the user stops it."""
         import time
 
+        from benchlog.errors import PortError
+
         got = []
-        t_end = time.monotonic() + timeout_s
-        while self.feed.timeline.announcement is None and time.monotonic() < t_end:
-            timed = self.feed.poll(0.1)
-            got.append(timed)
+        t_end = time.monotonic() + announce_s
+        told = False
+        while self.feed.timeline.announcement is None:
+            heard = self.feed.counters.records > 0
+            if heard and time.monotonic() >= t_end:
+                break
+            if stop.is_set():
+                if heard:
+                    break
+                raise PortError(f"no sampler answered on {url}; nothing was written")
+            if not heard and not told and time.monotonic() >= t_end:
+                told = True
+                print(
+                    f"benchlog: no reply from a sampler on {url} yet; waiting (nothing is written"
+                    " until it answers; Ctrl-C stops)",
+                    file=sys.stderr,
+                    flush=True,
+                )
+            got.append(self.feed.poll(0.1))
         return got
 
 
