@@ -43,6 +43,7 @@ class SamplerCount:
                 done = max(0, int(writer.cycles_done[ch]) - b)
                 self.count[ch] = self.seen[ch] = done
         self._drives: dict[int, deque[tuple[int, int]]] = {}  # channel -> (t_ns, run cycle index)
+        self._first_drive: dict[int, int] = {}  # channel -> time of its first numbered drive heard
         self.replan = False  # a reset ended the sampler's plans: plan the cycles still due again
         self.not_observed = 0
 
@@ -122,6 +123,7 @@ class SamplerCount:
         if upto > seen:
             self._gap(t, ch, b, seen, upto, host_ns, out)
         self.seen[ch] = max(seen, c)
+        self._first_drive.setdefault(ch, t)
         q = self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES))
         q.append((t, b + c - 1))
         if level == 0:
@@ -166,11 +168,21 @@ class SamplerCount:
         )
 
     # -- numbering ----------------------------------------------------------------------------------
-    def number(self, rows: np.ndarray) -> np.ndarray:
+    def number(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Actuation rows renumbered by the sampler's cycle of the drive that started them (rows whose
-        drive carried no cycle keep the analysis' number)."""
+        drive carried no cycle keep the analysis' number), and which rows were (for `RunWriter.add`).
+
+        Rows before a channel's first numbered drive (a recorder that started listening within a
+        cycle: the contact's edges with no drive-on before them) are dropped: they belong to a cycle
+        whose drive-on the host did not see, which is reported not observed (their edges are kept)."""
+        numbered = np.zeros(len(rows), bool)
         if not len(rows) or not self._drives:
-            return rows
+            return rows, numbered
+        early = np.zeros(len(rows), bool)
+        for ch, t0 in self._first_drive.items():
+            early |= (rows["channel"] == ch) & (rows["t_start_ns"] < t0)
+        if early.any():
+            rows, numbered = rows[~early], numbered[~early]
         rows = rows.copy()
         for ch, q in self._drives.items():
             sel = np.flatnonzero(rows["channel"] == ch)
@@ -184,7 +196,8 @@ class SamplerCount:
             i = np.clip(np.searchsorted(t, at), 0, len(t) - 1)
             hit = t[i] == at
             rows["cycle"][sel[hit]] = run_cycle[i[hit]] - self.writer.seg_start[ch]
-        return rows
+            numbered[sel[hit]] = True
+        return rows, numbered
 
 
 def item_host(timed) -> int:

@@ -126,10 +126,10 @@ class Recorder:
             # a beat says the sampler's clock reached its tick: quiet channels can be finished too
             until = int(beats.t_ns.max()) - self.analyzer.settings.lateness_ns
         unseen = self.count.push(timed)
-        rows = self.count.number(
+        rows, numbered = self.count.number(
             self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
         )
-        self._take(rows, timed.edges if self.keep_edges else None, list(timed.incidents) + unseen)
+        self._take(rows, timed.edges if self.keep_edges else None, list(timed.incidents) + unseen, numbered)
         if self.count.replan:
             self.count.replan = False
             if self._profile is not None and not self.target_reached():
@@ -149,14 +149,14 @@ class Recorder:
             if self.last_drive_at is not None:
                 self.last_drive_at = time.monotonic()  # a new plan: its first drive is yet to come
 
-    def _take(self, rows: np.ndarray, edges, incidents) -> None:
+    def _take(self, rows: np.ndarray, edges, incidents, numbered: np.ndarray | None = None) -> None:
         if len(rows):
             rows = self._judge(rows)
             for f in self.life.push(rows):
                 self._fail(f)
         self.incidents += len(incidents)
         self.actuations += len(rows)
-        self.writer.add(actuations=rows, edges=edges, incidents=list(incidents))
+        self.writer.add(actuations=rows, edges=edges, incidents=list(incidents), numbered=numbered)
 
     def _judge(self, rows: np.ndarray) -> np.ndarray:
         if not self.specs:
@@ -215,8 +215,8 @@ class Recorder:
     # -- ending -------------------------------------------------------------------------------------
     def finish(self, reason: str, detail: str = "") -> None:
         """End of data: finish the analysis, judge the last cycles, write everything, end the run."""
-        rows = self.count.number(self.analyzer.flush())
-        self._take(rows, None, [])
+        rows, numbered = self.count.number(self.analyzer.flush())
+        self._take(rows, None, [], numbered)
         for f in self.life.finish():
             self._fail(f)
         self.writer.close(reason, detail)

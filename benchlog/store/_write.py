@@ -240,20 +240,26 @@ class RunWriter:
         actuations: np.ndarray | None = None,
         edges: TimedEdges | None = None,
         incidents: list[Incident] | tuple[Incident, ...] = (),
+        numbered: np.ndarray | None = None,
     ) -> None:
+        """`numbered` (one flag per actuation): rows whose cycle is the sampler's own number (run cycle
+        minus the segment's start, protocol version 2), final as given: the renumbering of a segment's
+        leading break below is for the analysis' numbers, which count from the segment's first
+        actuation."""
         if actuations is not None and len(actuations):
-            self._add_actuations(actuations)
+            self._add_actuations(actuations, numbered)
         if edges is not None and len(edges):
             self._edges.append(edges)
         self._incidents.extend(incidents)
 
-    def _add_actuations(self, acts: np.ndarray) -> None:
+    def _add_actuations(self, acts: np.ndarray, numbered: np.ndarray | None = None) -> None:
         ch = acts["channel"].astype(np.intp)
         unit = self._lut[ch]
+        numbered = np.zeros(len(acts), bool) if numbered is None else np.asarray(numbered, bool)
         keep = unit >= 0
         if not keep.all():
             self.dropped_unassigned += int((~keep).sum())
-            acts, ch, unit = acts[keep], ch[keep], unit[keep]
+            acts, ch, unit, numbered = acts[keep], ch[keep], unit[keep], numbered[keep]
             if not len(acts):
                 return
         if acts.dtype != ACTUATION_DTYPE:
@@ -264,8 +270,9 @@ class RunWriter:
             rows = conv
         else:
             rows = acts.copy()
-        self._number_leading_breaks(rows, ch)
-        rows["cycle"] += self._base[ch] + self._shift[ch]
+        self._number_leading_breaks(rows, ch, numbered)
+        shift = np.where(numbered, 0, self._shift[ch])
+        rows["cycle"] += self._base[ch] + shift
         off = np.int64(self.t_offset_ns)
         if off:
             for name in _TIME_FIELDS:
@@ -273,12 +280,12 @@ class RunWriter:
                 col[col >= 0] += off
         self._acts.append(rows)
         self._act_units.append(unit)
-        # progress per channel: run cycles = segment start + analysis cycle + 1
+        # progress per channel: run cycles = segment start + (shifted) analysis cycle + 1
         order = np.argsort(ch, kind="stable")
         chs, first = np.unique(ch[order], return_index=True)
-        top = np.maximum.reduceat(acts["cycle"][order], first)
+        top = np.maximum.reduceat((acts["cycle"] + shift)[order], first)
         for c, t in zip(chs.tolist(), top.tolist(), strict=True):
-            done = self.seg_start[c] + int(t) + 1 + int(self._shift[c])
+            done = self.seg_start[c] + int(t) + 1
             if done > self.cycles_done[c]:
                 self.cycles_done[c] = done
 
@@ -303,15 +310,18 @@ class RunWriter:
                     owed.add(ch)
         return owed
 
-    def _number_leading_breaks(self, rows: np.ndarray, ch: np.ndarray) -> None:
+    def _number_leading_breaks(self, rows: np.ndarray, ch: np.ndarray, numbered: np.ndarray) -> None:
         """Settle, on each channel's first actuation of the segment, whether it opens on a break; that
-        break goes to the previous cycle (owing one) or takes a cycle of its own (the rest shift by 1)."""
+        break goes to the previous cycle (owing one) or takes a cycle of its own (the rest shift by 1).
+
+        A break the sampler numbered (by the drive-off of its cycle) is already its cycle's: moving it
+        back and shifting the rest would count one cycle more than the sampler ran."""
         for c in np.unique(ch).tolist():
             if c in self._lead_settled:
                 continue
             self._lead_settled.add(c)
             first = int(np.flatnonzero(ch == c)[0])
-            if rows["kind"][first] == BREAK:
+            if rows["kind"][first] == BREAK and not numbered[first]:
                 rows["cycle"][first] -= 1
                 if c not in self._break_owed:
                     self._shift[c] = 1
