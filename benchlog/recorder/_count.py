@@ -15,6 +15,13 @@ run cycle `base + c - 1` (0-based), and a count `n` means `base + n` run cycles 
   or by an incident; a recorder killed before a commit leaves cycles the next one reports as a gap.
 - A sampler reset ends the plan (its count starts again from 0): the run cycles done so far become the
   base, and the recorder plans the cycles still due again (`replan`).
+- A cycle whose drive records were damaged may get no actuation row although its drive-on arrived (the
+  analysis measures from drive to drive: a lost drive-off merges the cycle with the next one, and the
+  last drive of a channel is measured only when a later one comes, or at the end of data). Such cycles
+  are reported not observed too: when a later cycle's rows are numbered (`holes`), and at the end of
+  data up to the sampler's own count (`settle`), so a unit's life count ends equal to the sampler's.
+- `reported`: the run cycles the sampler says a channel completed; the recorder's target is reached on
+  it (rows of the last cycle may wait for the end of data, see above).
 """
 
 from __future__ import annotations
@@ -27,6 +34,7 @@ from benchlog.events import CYCLES_NOT_OBSERVED, RESET, Incident
 from benchlog.wire import GoAccepted
 
 KEEP_DRIVES = 8192  # recent drives per channel kept to number the actuations they start
+_LOST_DRIVES = ": no actuation measured, its drive records were damaged"
 
 
 class SamplerCount:
@@ -44,6 +52,9 @@ class SamplerCount:
                 self.count[ch] = self.seen[ch] = done
         self._drives: dict[int, deque[tuple[int, int]]] = {}  # channel -> (t_ns, run cycle index)
         self._first_drive: dict[int, int] = {}  # channel -> time of its first numbered drive heard
+        self._count_at: dict[int, int] = {}  # channel -> run time at which `count` last changed
+        self._t_last = 0  # latest run time of a counted event, and its host time (for incidents)
+        self._host_last = 0
         self.replan = False  # a reset ended the sampler's plans: plan the cycles still due again
         self.not_observed = 0
 
@@ -71,29 +82,33 @@ class SamplerCount:
             return []
         events.sort(key=lambda e: (e[0], e[1]))
         out: list[Incident] = []
+        host = item_host(timed)
         for t, kind, item in events:
             if kind == 0:
-                self._reset()
+                self._reset(t)
             elif kind == 1:
-                self._go(item.record.channels)  # type: ignore[attr-defined]
+                self._go(t, item.record.channels)  # type: ignore[attr-defined]
             elif kind == 2:
                 ch, lv, c = item  # type: ignore[misc]
-                self._drive(t, ch, lv, c, item_host(timed), out)
+                self._drive(t, ch, lv, c, host, out)
             else:
                 for ch, n in item.cycles:  # type: ignore[attr-defined]
                     self._counted(t, ch, n, item.host_ns, out)  # type: ignore[attr-defined]
+        self._t_last = max(self._t_last, events[-1][0])
+        self._host_last = host
         return out
 
-    def _reset(self) -> None:
+    def _reset(self, t: int) -> None:
         for ch in list(self.base):
             b = self.base[ch]
             if b is not None:  # a cycle the host saw start counts (power may fail before its drive-off)
                 self.base[ch] = b + max(self.count.get(ch, 0), self.seen.get(ch, 0))
                 self.writer.sampler_base[ch] = self.base[ch]
             self.count[ch] = self.seen[ch] = 0
+            self._count_at[ch] = t
         self.replan = True
 
-    def _go(self, channels: tuple[int, ...]) -> None:
+    def _go(self, t: int, channels: tuple[int, ...]) -> None:
         for ch in channels:
             if ch not in self.writer.units:
                 continue
@@ -102,8 +117,9 @@ class SamplerCount:
             self.base[ch] = done
             self.writer.sampler_base[ch] = done
             self.count[ch] = self.seen[ch] = 0
+            self._count_at[ch] = t
 
-    def _ensure_base(self, ch: int, counted: int) -> int | None:
+    def _ensure_base(self, t: int, ch: int, counted: int) -> int | None:
         """The base of a channel the host saw no GO for (acknowledgement lost): assume no gap."""
         b = self.base.get(ch)
         if b is None and ch in self.writer.units:
@@ -111,47 +127,51 @@ class SamplerCount:
             self.base[ch] = b
             self.writer.sampler_base[ch] = b
             self.count[ch] = self.seen[ch] = counted
+            self._count_at[ch] = t
         return b
 
     def _drive(self, t: int, ch: int, level: int, c: int, host_ns: int, out: list[Incident]) -> None:
-        b = self._ensure_base(ch, max(c - 1, 0))
+        b = self._ensure_base(t, ch, max(c - 1, 0))
         if b is None:
             return
         seen = self.seen.get(ch, 0)
         # a cycle is seen when its drive-on arrives: a drive-off alone means its drive-on was lost
         upto = c - 1 if level else c
         if upto > seen:
-            self._gap(t, ch, b, seen, upto, host_ns, out)
+            self._gap(t, ch, b + seen, b + upto, host_ns, out)
         self.seen[ch] = max(seen, c)
         self._first_drive.setdefault(ch, t)
         q = self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES))
         q.append((t, b + c - 1))
         if level == 0:
-            self._completed(ch, c)
+            self._completed(t, ch, c)
 
     def _counted(self, t: int, ch: int, n: int, host_ns: int, out: list[Incident]) -> None:
-        b = self._ensure_base(ch, n)
+        b = self._ensure_base(t, ch, n)
         if b is None:
             return
         seen = self.seen.get(ch, 0)
         if n > seen:
-            self._gap(t, ch, b, seen, n, host_ns, out)
+            self._gap(t, ch, b + seen, b + n, host_ns, out)
             self.seen[ch] = n
-        self._completed(ch, n)
+        self._completed(t, ch, n)
 
-    def _completed(self, ch: int, n: int) -> None:
+    def _completed(self, t: int, ch: int, n: int) -> None:
         if n > self.count.get(ch, 0):
             self.count[ch] = n
+            self._count_at[ch] = t
 
-    def _gap(self, t: int, ch: int, b: int, seen: int, upto: int, host_ns: int, out: list[Incident]) -> None:
-        """Plan cycles seen+1 .. upto happened without the host seeing them."""
-        k = upto - seen
+    def _gap(
+        self, t: int, ch: int, lo: int, hi: int, host_ns: int, out: list[Incident], why: str = ""
+    ) -> None:
+        """Run cycles lo .. hi - 1 (0-based) happened without the host measuring them."""
+        k = hi - lo
         if k <= 0 or ch not in self.writer.units:
             return
         self.not_observed += k
         # they count in the unit's life; the cycles seen count as their actuations are written
-        self.writer.cycles_done[ch] = max(self.writer.cycles_done[ch], b + upto)
-        first = self.writer.cycle_base[ch] + b + seen  # life cycles numbered from 0, as actuations are
+        self.writer.cycles_done[ch] = max(self.writer.cycles_done[ch], hi)
+        first = self.writer.cycle_base[ch] + lo  # life cycles numbered from 0, as actuations are
         last = first + k - 1
         span = f"cycle {first:,}" if k == 1 else f"cycles {first:,}-{last:,}"
         out.append(
@@ -163,9 +183,51 @@ class SamplerCount:
                 host_ns,
                 channel=ch,
                 cycles_lost=k,
-                detail=f"{k:,} cycle(s) of channel {ch} not observed ({span} of the unit's life)",
+                detail=f"{k:,} cycle(s) of channel {ch} not observed ({span} of the unit's life){why}",
             )
         )
+
+    # -- what the sampler reported --------------------------------------------------------------------
+    def reported(self, ch: int, by_ns: int) -> int | None:
+        """Run cycles the sampler has said channel `ch` completed, as it said so at or before run time
+        `by_ns` (None: no count of this plan heard, or only later)."""
+        b = self.base.get(ch)
+        if b is None or self._count_at.get(ch, by_ns + 1) > by_ns:
+            return None
+        return b + self.count.get(ch, 0)
+
+    def holes(self, rows: np.ndarray, numbered: np.ndarray) -> list[Incident]:
+        """Cycles before the numbered rows of `rows` (from `number`, not yet written) that have no row
+        and were not reported: their drive records were lost, so the analysis measured no actuation for
+        them (rows come per channel in cycle order). They are reported not observed."""
+        out: list[Incident] = []
+        sel = numbered.copy()
+        if not sel.any():
+            return out
+        for ch in np.unique(rows["channel"][sel]).tolist():
+            if ch not in self.writer.units:
+                continue
+            mine = rows[sel & (rows["channel"] == ch)]
+            run_cycle = mine["cycle"].astype(np.int64) + self.writer.seg_start[ch]
+            cycles, first = np.unique(run_cycle, return_index=True)
+            done = int(self.writer.cycles_done[ch])  # every cycle before it is measured or reported
+            lo = np.maximum(np.concatenate(([done], cycles[:-1] + 1)), done)
+            for a, b, i in zip(lo.tolist(), cycles.tolist(), first.tolist(), strict=True):
+                if b > a:  # reported at the start of the first cycle measured after them
+                    self._gap(int(mine["t_start_ns"][i]), ch, a, b, self._host_last, out, _LOST_DRIVES)
+        return out
+
+    def settle(self) -> list[Incident]:
+        """End of data, once the analysis' last rows are written: the cycles the sampler reported
+        completed beyond the last one measured have no measurement (their drive records were lost);
+        they are reported not observed, so each unit's life count is the sampler's."""
+        out: list[Incident] = []
+        for ch in self.writer.units:
+            n = self.reported(ch, self._t_last)
+            done = int(self.writer.cycles_done[ch])
+            if n is not None and n > done:
+                self._gap(self._t_last, ch, done, n, self._host_last, out, _LOST_DRIVES)
+        return out
 
     # -- numbering ----------------------------------------------------------------------------------
     def number(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -97,6 +97,7 @@ class Recorder:
         self.failures: list = []
         self.last_drive_at: float | None = None  # monotonic time of the latest drive record
         self.count = SamplerCount(writer)  # the sampler's own cycle count (protocol version 2)
+        self._heard_ns = -(1 << 62)  # latest run time of a record heard (edges, drives, beats)
         self._profile: tuple[int, int] | None = None  # (on_us, off_us) of the plans sent
         self.pending: list = []  # commands to send the sampler (plans again after a reset)
 
@@ -125,10 +126,14 @@ class Recorder:
         if beats is not None and len(beats):
             # a beat says the sampler's clock reached its tick: quiet channels can be finished too
             until = int(beats.t_ns.max()) - self.analyzer.settings.lateness_ns
+        for t in (timed.edges.t_ns, timed.drives.t_ns, beats.t_ns if beats is not None else ()):
+            if len(t):
+                self._heard_ns = max(self._heard_ns, int(np.max(t)))
         unseen = self.count.push(timed)
         rows, numbered = self.count.number(
             self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
         )
+        unseen += self.count.holes(rows, numbered)
         self._take(rows, timed.edges if self.keep_edges else None, list(timed.incidents) + unseen, numbered)
         if self.count.replan:
             self.count.replan = False
@@ -188,7 +193,16 @@ class Recorder:
         if not target:
             return False
         alive = [c for c, u in self.writer.units.items() if self.writer.status.get(u) == "alive"]
-        return bool(alive) and all(self.writer.cycles_done[c] >= target for c in alive)
+        return bool(alive) and all(self.cycles_done(c) >= target for c in alive)
+
+    def cycles_done(self, channel: int) -> int:
+        """Run cycles done on `channel`: those written, or the sampler's own count once every record of
+        its cycles is due (the analysis' lateness after it said so). The rows of the last cycles may wait
+        for the end of data (its drive-off lost: the analysis measures a cycle when a later drive comes),
+        where `finish` writes them or reports the cycles not observed."""
+        done = int(self.writer.cycles_done[channel])
+        said = self.count.reported(channel, self._heard_ns - self.analyzer.settings.lateness_ns)
+        return done if said is None else max(done, said)
 
     def all_failed(self) -> bool:
         return not self.writer.alive_units()
@@ -216,7 +230,9 @@ class Recorder:
     def finish(self, reason: str, detail: str = "") -> None:
         """End of data: finish the analysis, judge the last cycles, write everything, end the run."""
         rows, numbered = self.count.number(self.analyzer.flush())
-        self._take(rows, None, [], numbered)
+        self._take(rows, None, self.count.holes(rows, numbered), numbered)
+        # cycles the sampler completed and the analysis measured nothing of: reported, and counted
+        self._take(rows[:0], None, self.count.settle())
         for f in self.life.finish():
             self._fail(f)
         self.writer.close(reason, detail)
