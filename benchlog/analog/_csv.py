@@ -3,23 +3,26 @@
 How it works. The head of the file is sniffed with ordinary string code: the first line that is all
 numbers (and the few after it agree) starts the data; the lines above are the header, of any number
 and length, where column names and "interval" / "sample rate" / "start" entries are looked for. The
-data is then read in chunks of whole lines. Each chunk goes through one `bytes.translate` (the field
-delimiter becomes a space, a decimal comma a point). When every line of the chunk has one length and
-its fields sit at the same places (the way instruments print), the chunk is a byte matrix and each
-field a band of its columns: no token search at all. Otherwise numpy finds every token (a run of bytes
-above the space character) and parses all tokens of one layout at once: tokens are grouped by length,
-sign, and the position of the point and of the exponent, and each group is gathered into a fixed-width
-byte matrix. Either way the digit columns become numbers by Horner's rule, a few numpy passes per
-chunk, never a Python step per line or per number. Every line must have the same number of fields;
-the first line that does not, or a field that is not a number, is named in a one-line DataError.
+data is then read in blocks of whole lines (about CHUNK_BYTES each, read into reused buffers), parsed
+by two threads and placed in file order. When every line of a block has one length and its fields sit
+at the same places (the way instruments print), the block is a byte matrix (_FixedWidth): one range
+check over all its bytes, then each run of up to 8 digit columns becomes integers through one 64-bit
+word per line (the SWAR method), with no token search and no translation. Otherwise the block goes
+through one `bytes.translate` (the delimiter becomes a space, a decimal comma a point), numpy finds
+every token (a run of bytes above the space character) and parses all tokens of one layout at once:
+tokens are grouped by length, sign, and the position of the point and of the exponent, each group a
+fixed-width byte matrix read by Horner's rule. Either way a few numpy passes per block, never a Python
+step per line or per number. Every line must have the same number of fields; the first line that does
+not, or a field that is not a number, is named in a one-line DataError.
 
-Values are correctly rounded when the mantissa has at most 15 significant digits and the decimal
-exponent is within 10^22 (one exact product or quotient of exact doubles); longer mantissas are within
-a few units in the last place.
+Every value is the correctly rounded double of its text, as Python's float() gives: one division or
+product of exact doubles (a mantissa below 2**53, a power of ten within 10**22), and numpy's own
+correctly rounded string conversion for the rest (longer mantissas, far exponents).
 """
 
 from __future__ import annotations
 
+import itertools
 import re
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
@@ -31,7 +34,8 @@ from numpy.lib.stride_tricks import sliding_window_view
 
 from benchlog.errors import DataError
 
-CHUNK_BYTES = 4 << 20
+CHUNK_BYTES = 1 << 20
+_PAD = 8  # bytes kept before a block, so an 8-byte word can end at any column of its first line
 _HEAD_BYTES = 1 << 16
 _NUM = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
 _POW10 = 10.0 ** np.arange(0, 309)
@@ -70,8 +74,9 @@ def _numeric(fields: list[str], decimal_comma: bool) -> bool:
     return True
 
 
-def _line_layout(line: str) -> tuple[str, bool, int] | None:
-    """(delimiter, decimal comma, fields) if the line is all numbers in some convention, else None."""
+def _line_layout(line: str) -> tuple[str, bool, int, bool] | None:
+    """(delimiter, decimal comma, fields, a decimal mark shown) if the line is all numbers in some
+    convention, else None."""
     text = line.strip()
     if not text:
         return None
@@ -89,7 +94,7 @@ def _line_layout(line: str) -> tuple[str, bool, int] | None:
         if fields and fields[-1] == "" and delim != " ":
             fields = fields[:-1]  # a trailing delimiter
         if _numeric(fields, dec_comma):
-            return delim, dec_comma, len(fields)
+            return delim, dec_comma, len(fields), any(("," if dec_comma else ".") in f for f in fields)
     return None
 
 
@@ -98,38 +103,57 @@ def sniff(path: Path) -> Layout:
     try:
         with path.open("rb") as f:
             head = f.read(_HEAD_BYTES)
+            found = _find_data(head)
             # a long header: read on until a run of data lines is in view
-            while len(head) < (64 << 20):
-                if head.count(b"\n") > 8 and _find_data(head) is not None:
-                    break
+            while len(head) < (64 << 20) and (head.count(b"\n") <= 8 or found is None):
                 more = f.read(len(head))
                 if not more:
                     break
                 head += more
+                found = _find_data(head)
     except OSError as exc:
         raise DataError(f"{path}: cannot read ({exc.strerror or exc})") from exc
-    found = _find_data(head)
     if found is None:
         raise DataError(f"{path}: no lines of numbers found (is this a CSV export of a capture?)")
     return _layout(head, *found)
 
 
+_SNIFF_LINES = 200  # the data's layout is the commonest among the last lines of the head
+
+
 def _find_data(head: bytes) -> tuple[int, int, tuple[str, bool, int]] | None:
-    """The first line written the way most number lines of the head are, with numbers after it."""
+    """The first line written the way most number lines at the end of the head are, with numbers after
+    it."""
     text = head.decode("latin-1")
     lines = text.split("\n")
     complete = lines[:-1] if not head.endswith(b"\n") else lines
-    layouts = [_line_layout(ln.rstrip("\r")) for ln in complete]
-    seen = [lay for lay in layouts if lay is not None]
+    layouts: list[tuple[str, bool, int, bool] | None | bool] = [False] * len(complete)  # False: not read
+
+    def layout(i: int) -> tuple[str, bool, int, bool] | None:
+        lay = layouts[i]
+        if lay is False:
+            lay = layouts[i] = _line_layout(complete[i].rstrip("\r"))
+        return lay  # type: ignore[return-value]
+
+    tail = range(max(0, len(complete) - _SNIFF_LINES), len(complete))
+    seen = [lay for lay in (layout(i) for i in tail) if lay is not None]
     if not seen:
         return None
-    common = max(set(seen), key=seen.count)
+    # a line of whole numbers shows no decimal mark: it agrees with either, so the delimiter and the
+    # field count decide, and the lines that do show a mark decide the mark
+    keys = [(lay[0], lay[2]) for lay in seen]
+    key = max(set(keys), key=keys.count)
+    marks = [lay[1] for lay in seen if (lay[0], lay[2]) == key and lay[3]]
+    common = (key[0], max(set(marks), key=marks.count) if marks else seen[keys.index(key)][1], key[1])
+
+    def agrees(lay: tuple[str, bool, int, bool] | None) -> bool:
+        return lay is not None and (lay[0], lay[2]) == key and (lay[1] == common[1] or not lay[3])
+
     offset = 0
     for i, line in enumerate(complete):
-        if layouts[i] == common:
-            follow = [lay for ln, lay in zip(complete[i + 1 :], layouts[i + 1 :], strict=True) if ln.strip()]
-            follow = follow[:5]
-            if all(lay is not None and lay[0] == common[0] for lay in follow):
+        if agrees(layout(i)):
+            follow = (layout(j) for j in range(i + 1, len(complete)) if complete[j].strip())
+            if all(lay is not None and lay[0] == common[0] for lay in itertools.islice(follow, 5)):
                 return offset, i, common
         offset += len(line) + 1
     return None
@@ -168,151 +192,403 @@ def _table(layout: Layout) -> bytes:
     return bytes.maketrans(src, dst)
 
 
-def count_lines(path: Path, offset: int) -> int:
-    """Lines from `offset` to the end (a last line without a newline counts)."""
-    n = 0
-    last = b"\n"
-    with path.open("rb") as f:
-        f.seek(offset)
-        while block := f.read(CHUNK_BYTES):
-            n += block.count(b"\n")
-            last = block[-1:]
-    return n + (last != b"\n")
+class _LineError(Exception):
+    """A bad line inside a chunk: `line` counts from 0 at the chunk's first line (None: no one line)."""
+
+    def __init__(self, line: int | None, text: str) -> None:
+        super().__init__(text)
+        self.line, self.text = line, text
 
 
-def _chunks(path: Path, offset: int, first_line: int):
-    """(bytes of whole lines, line number of the first, line breaks in it) in file order, CHUNK_BYTES at
-    a time."""
+def _blocks(path: Path, offset: int, buffers: int):
+    """(buffer, start, stop) of whole lines in file order, about CHUNK_BYTES at a time.
+
+    Each block is read into one of `buffers` reused bytearrays (so a block is not copied), with _PAD
+    bytes before `start`; the caller keeps at most `buffers - 1` blocks in use. A last line without a
+    line break gets one."""
+    pool: list[bytearray] = [bytearray() for _ in range(buffers)]
     carry = b""
-    line_no = first_line
-    with path.open("rb") as f:
+    k = 0
+    try:
+        f = path.open("rb", buffering=0)
+    except OSError as exc:
+        raise DataError(f"{path}: cannot read ({exc.strerror or exc})") from exc
+    with f:
         f.seek(offset)
         while True:
-            block = f.read(CHUNK_BYTES)
-            data = carry + block
-            if not data:
+            step = max(CHUNK_BYTES, len(carry))  # a line longer than a chunk: read on in growing steps
+            buf = pool[k % buffers]
+            if len(buf) < _PAD + len(carry) + step + 1:
+                buf = pool[k % buffers] = bytearray(_PAD + len(carry) + step + 1)
+            start = _PAD + len(carry)
+            buf[_PAD:start] = carry
+            got = f.readinto(memoryview(buf)[start : start + step])
+            end = start + got
+            if not got:  # the end of the file: what is left is the last line
+                if end > _PAD:
+                    if buf[end - 1] != 10:
+                        buf[end] = 10
+                        end += 1
+                    yield buf, _PAD, end
                 return
-            if block:
-                cut = data.rfind(b"\n") + 1
-                if cut == 0:  # one line longer than a chunk: read on
-                    carry = data
-                    continue
-                data, carry = data[:cut], data[cut:]
-            else:
-                carry = b""
-            breaks = data.count(b"\n")
-            yield data, line_no, breaks
-            line_no += breaks + (not data.endswith(b"\n"))
-            if not block:
-                return
+            cut = buf.rfind(b"\n", start, end) + 1
+            if cut == 0:  # no line ends in this read
+                carry = bytes(buf[_PAD:end])
+                continue
+            carry = bytes(buf[cut:end])
+            k += 1
+            yield buf, _PAD, cut
 
 
 def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) -> list[np.ndarray]:
     """The columns `keep` (indices) of the data, as float64 arrays.
 
-    Chunks are parsed by `workers` threads (numpy releases the interpreter lock in its loops), at most
-    `workers + 1` chunks in flight, and placed in file order."""
-    rows_max = count_lines(path, layout.data_offset)
-    out = [np.empty(rows_max, np.float64) for _ in keep]
-    table = _table(layout)
+    Blocks are parsed by `workers` threads (numpy releases the interpreter lock in its loops), at most
+    `workers + 1` in flight, and placed in file order. The arrays are sized from the first block's line
+    length (pages never written are never resident) and grown to the file's bound if lines get shorter."""
+    try:
+        remaining = path.stat().st_size - layout.data_offset
+    except OSError as exc:
+        raise DataError(f"{path}: cannot read ({exc.strerror or exc})") from exc
     ncols = layout.columns
+    bound = (remaining + 1) // (2 * ncols) + 1  # a line holds at least ncols bytes and ncols separators
+    out: list[np.ndarray] = []
+    table = _table(layout)
+    reader = _FixedWidth(layout, keep)
     row = 0
+    line_no = layout.first_line
+    read = 0
 
-    def place(values: np.ndarray) -> None:
-        nonlocal row
-        n = len(values) // ncols
-        if row + n > rows_max:
-            raise DataError(f"{path}: the file changed while it was read")
-        vals = values.reshape(n, ncols)
-        for dst, col in zip(out, keep, strict=True):
-            dst[row : row + n] = vals[:, col]
+    def parse(buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int]:
+        cols = reader.parse(buf, start, stop)
+        if cols is not None:
+            return cols, (stop - start) // reader.width(buf, start, stop)
+        data = bytes(buf[start:stop]).translate(table)
+        values, lines = _parse_chunk(data, ncols)
+        vals = values.reshape(-1, ncols)
+        return [np.ascontiguousarray(vals[:, c]) for c in keep], lines
+
+    def place(job, size: int) -> None:
+        nonlocal row, line_no, out, read
+        try:
+            cols, lines = job() if callable(job) else job.result()
+        except _LineError as err:
+            where = f"line {line_no + err.line}: " if err.line is not None else ""
+            raise DataError(f"{path}: {where}{err.text}") from None
+        n = len(cols[0]) if cols else 0
+        read += size
+        if not out:  # size the arrays from the first block's bytes per row
+            est = int(remaining / max(size, 1) * n * 1.02) + 1024 if n else bound
+            out = [np.empty(min(bound, est), np.float64) for _ in keep]
+        if row + n > len(out[0]):
+            if row + n > bound:
+                raise DataError(f"{path}: the file changed while it was read")
+            grown = [np.empty(bound, np.float64) for _ in keep]
+            for new, old in zip(grown, out, strict=True):
+                new[:row] = old[:row]
+            out = grown
+        for dst, src in zip(out, cols, strict=True):
+            dst[row : row + n] = src
         row += n
+        line_no += lines
 
-    def parse(data: bytes, line_no: int, breaks: int) -> np.ndarray:
-        text = data.translate(table)
-        fixed = _fixed_rows(text, ncols, breaks)
-        if fixed is not None:
-            return fixed.reshape(-1)
-        return _parse_chunk(text, ncols, path, line_no)[0]
-
+    blocks = _blocks(path, layout.data_offset, max(workers, 1) + 2)
     if workers <= 1:
-        for data, line_no, breaks in _chunks(path, layout.data_offset, layout.first_line):
-            place(parse(data, line_no, breaks))
+        for buf, start, stop in blocks:
+            place(lambda b=buf, s=start, e=stop: parse(b, s, e), stop - start)
     else:
         with ThreadPoolExecutor(max_workers=workers) as pool:
             pending: deque = deque()
             try:
-                for data, line_no, breaks in _chunks(path, layout.data_offset, layout.first_line):
-                    pending.append(pool.submit(parse, data, line_no, breaks))
+                for buf, start, stop in blocks:
+                    pending.append((pool.submit(parse, buf, start, stop), stop - start))
                     if len(pending) > workers:
-                        place(pending.popleft().result())
+                        place(*pending.popleft())
                 while pending:
-                    place(pending.popleft().result())
+                    place(*pending.popleft())
             finally:
-                for fut in pending:
+                for fut, _ in pending:
                     fut.cancel()
+    if not out:
+        return [np.empty(0, np.float64) for _ in keep]
     return [a[:row] for a in out]
 
 
-def _fixed_rows(data: bytes, ncols: int, breaks: int | None = None) -> np.ndarray | None:
-    """The numbers of a chunk whose lines all have one length and one layout, as (rows, ncols); else None.
+# Fixed-width blocks. A sign column may hold a blank, '+' or '-'; an exponent's sign '+' or '-'.
+_SIGN = np.zeros(256, np.int8)
+_SIGN[[32, 43]], _SIGN[45] = 1, -1
+_ESIGN = np.zeros(256, np.int8)
+_ESIGN[43], _ESIGN[45] = 1, -1
+# mant * _MUL10[p + 22] / _DIV10[p + 22] is mant * 10**p with one rounding for |p| <= 22 (10**22 is the
+# largest power of ten a double holds exactly; the other factor is 1.0)
+_MUL10 = np.array([10.0 ** max(k - 22, 0) for k in range(45)])
+_DIV10 = np.array([10.0 ** max(22 - k, 0) for k in range(45)])
+_M64 = (1 << 64) - 1
 
-    Instruments print each column with a fixed format, so every line is the same bytes at the same
-    places: the chunk is then a byte matrix, and each field a fixed band of its columns, parsed whole
-    with no token search. A sign may sit in a column that is blank in other lines. Anything else (lines
-    of other lengths, a blank line, nan, a field that moves) returns None for the general parse."""
-    width = data.find(b"\n") + 1
-    if breaks is None:
-        breaks = data.count(b"\n")
-    if width < 2 or len(data) % width or breaks != len(data) // width:
-        return None
-    m = np.frombuffer(data, np.uint8).reshape(-1, width)
-    if not (m[:, -1] == 10).all():
-        return None
-    row0 = m[0]
-    word = row0 > 32
-    change = np.flatnonzero(np.diff(np.concatenate(([False], word, [False])).astype(np.int8)))
-    starts, ends = change[0::2], change[1::2]
-    if len(starts) != ncols:
-        return None
-    gaps = np.flatnonzero(~word[:-1])
-    moved = gaps[~(m[:, gaps] <= 32).all(axis=0)] if len(gaps) else gaps
-    out = np.empty((len(m), ncols))
-    signs: list[int] = []
 
-    def moved_ok(cols: list[int], used: list[int]) -> bool:
-        return all(g in used and (g == 0 or (not word[g - 1] and g - 1 not in cols)) for g in cols)
+@dataclass(frozen=True, slots=True)
+class _Field:
+    band: tuple[int, int]  # columns of the field, its sign column included
+    sign: int  # column of the sign (blank, + or -), or -1
+    runs: tuple[tuple[int, int], ...]  # mantissa digits: (end column, count), at most 8 per run
+    digits: int
+    frac: int  # mantissa digits after the decimal mark
+    exp_sign: int  # column of the exponent's sign, or -1
+    exp: tuple[int, int] | None  # exponent digits: (end column, count)
 
-    for k, (s, e) in enumerate(zip(starts.tolist(), ends.tolist(), strict=True)):
-        sign_at = -1
-        if row0[s] in (43, 45):
-            sign_at, s = s, s + 1
-        elif s - 1 in moved:
-            sign_at = s - 1
-        if sign_at >= 0:
-            signs.append(sign_at)
-        if s >= e or e - s > 60:
-            return None
-        body = row0[s:e].tobytes().lower()
-        dot = body.find(b".") if b"." in body else e - s
-        exp = body.find(b"e") if b"e" in body else e - s
-        vals, bad = _group(m[:, s:e], dot, exp, e - s)
-        if bad.any():
-            return None
-        if sign_at >= 0:
-            sign = m[:, sign_at]
-            if not ((sign <= 32) | (sign == 43) | (sign == 45)).all():
-                return None
-            np.negative(vals, out=vals, where=sign == 45)
-        out[:, k] = vals
-    # a gap column that is not blank in every line must be a sign read above, with a blank before it
-    if not moved_ok(moved.tolist(), signs):
-        return None
+
+def _runs(end: int, count: int) -> list[tuple[int, int]]:
+    """A run of `count` digits ending before column `end`, as runs of at most 8, left to right."""
+    out = []
+    while count > 0:
+        take = count % 8 or 8
+        out.append((end - count + take, take))
+        count -= take
     return out
 
 
-def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.ndarray, int]:
-    """All numbers of a chunk of whole lines (delimiters already spaces), checked ncols per line."""
+class _FixedWidth:
+    """Blocks whose lines all have one length and one layout, read as a byte matrix.
+
+    Instruments print each column with a fixed format, so every line has the same bytes at the same
+    places. The first line of a block gives the template: each column is a digit, a sign (blank, + or
+    -; a blank just before a number counts, as printers put the minus there), or one fixed byte (the
+    decimal mark, the exponent letter, a delimiter, a blank, the line break). One pass over the block
+    checks every byte against the range its column allows; then each run of up to 8 digit columns is
+    read as one little-endian 64-bit word per line and turned into its integer by three multiply-and-
+    shift steps (the digits combined pairwise, then in fours, then in eights). A value is mant / 10**k
+    (or mant * 10**k): one correctly rounded division of two exact doubles while mant < 2**53 and
+    k <= 22; other values (longer mantissas, far exponents) go to numpy's own string conversion, which
+    is correctly rounded too. Anything else (lines of other lengths, a blank line, nan, a field that
+    moves) leaves the block to the general parse."""
+
+    def __init__(self, layout: Layout, keep: list[int]) -> None:
+        self.ncols = layout.columns
+        self.keep = keep
+        self.mark = 44 if layout.decimal_comma else 46
+        self.seps = {32, 9, 13, 34} | ({ord(layout.delimiter)} if layout.delimiter != " " else set())
+        self._plans: dict[bytes, tuple | None] = {}
+        self._tiles: dict[bytes, tuple[np.ndarray, np.ndarray]] = {}
+
+    @staticmethod
+    def width(buf: bytearray, start: int, stop: int) -> int:
+        return buf.find(b"\n", start, stop) + 1 - start
+
+    def plan(self, row: bytes) -> tuple | None:
+        if row in self._plans:
+            return self._plans[row]
+        found = self._plan(row)
+        if len(self._plans) > 64:
+            self._plans.clear()
+        self._plans[row] = found
+        return found
+
+    def _plan(self, row: bytes) -> tuple | None:
+        """(fields, low byte per column, allowed span per column) from one line, or None."""
+        w = len(row)
+        lo = np.frombuffer(row, np.uint8).copy()
+        span = np.zeros(w, np.uint8)
+        is_sep = [b in self.seps for b in row[:-1]] + [True]
+        fields: list[_Field] = []
+        j = 0
+        while j < w - 1:
+            if is_sep[j]:
+                j += 1
+                continue
+            s = j
+            while not is_sep[j]:
+                j += 1
+            f = self._field(row, s, j, is_sep, lo, span)
+            if f is None:
+                return None
+            fields.append(f)
+        if len(fields) != self.ncols:
+            return None
+        return tuple(fields), lo, span
+
+    def _field(self, row: bytes, s: int, e: int, is_sep: list[bool], lo, span) -> _Field | None:
+        sign = -1
+        if row[s] in (43, 45):
+            sign, s = s, s + 1
+        elif s >= 1 and row[s - 1] == 32 and (s == 1 or is_sep[s - 2]):
+            sign = s - 1
+        i = s
+        while i < e and 48 <= row[i] <= 57:
+            i += 1
+        whole = i - s
+        frac = 0
+        mark = -1
+        if i < e and row[i] == self.mark:
+            mark = i
+            i += 1
+            while i < e and 48 <= row[i] <= 57:
+                i += 1
+            frac = i - mark - 1
+        mant_end = i
+        exp_sign, exp = -1, None
+        if i < e and row[i] in (69, 101):
+            i += 1
+            if i < e and row[i] in (43, 45):
+                exp_sign, i = i, i + 1
+            if not 1 <= e - i <= 3 or not all(48 <= b <= 57 for b in row[i:e]):
+                return None
+            exp = (e, e - i)
+            i = e
+        digits = whole + frac
+        if i != e or digits == 0 or digits > 19 or (exp is None and frac > 22):
+            return None
+        for a, b in ((s, s + whole), (mant_end - frac, mant_end) if frac else (0, 0)):
+            lo[a:b], span[a:b] = 48, 9
+        if exp is not None:
+            lo[exp[0] - exp[1] : exp[0]], span[exp[0] - exp[1] : exp[0]] = 48, 9
+        if sign >= 0:
+            lo[sign], span[sign] = 32, 13  # blank .. '-', the rest checked by _SIGN
+        if exp_sign >= 0:
+            lo[exp_sign], span[exp_sign] = 43, 2  # '+' .. '-', the ',' between checked by _ESIGN
+        runs = _runs(s + whole, whole) + _runs(mant_end, frac) if frac else _runs(s + whole, whole)
+        band = (sign if sign >= 0 else s, e)
+        return _Field(band, sign, tuple(runs), digits, frac, exp_sign, exp)
+
+    def _tiled(self, lo: np.ndarray, span: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray]:
+        key = lo.tobytes() + span.tobytes()
+        got = self._tiles.get(key)
+        if got is None or len(got[0]) < rows * len(lo):
+            if len(self._tiles) > 8:
+                self._tiles.clear()
+            got = self._tiles[key] = (np.tile(lo, rows), np.tile(span, rows))
+        return got
+
+    def parse(self, buf: bytearray, start: int, stop: int) -> list[np.ndarray] | None:
+        """The columns `keep` of a block (buf[start:stop], whole lines), or None if it is not fixed."""
+        w = self.width(buf, start, stop)
+        size = stop - start
+        if w < 2 or size % w:
+            return None
+        plan = self.plan(bytes(buf[start : start + w]))
+        if plan is None:
+            return None
+        fields, lo, span = plan
+        rows = size // w
+        flat = np.frombuffer(buf, np.uint8, size, start)
+        lo_t, span_t = self._tiled(lo, span, rows)
+        # every byte in its column's range; no column but the last allows a line break
+        diff = np.subtract(flat, lo_t[:size])
+        if np.greater(diff, span_t[:size], out=diff.view(bool)).any():
+            return None
+        del diff
+        out = []
+        for k in self.keep:
+            vals = self._values(buf, start, w, rows, fields[k])
+            if vals is None:
+                return None
+            out.append(vals)
+        return out
+
+    def _values(self, buf: bytearray, start: int, w: int, rows: int, f: _Field) -> np.ndarray | None:
+        mant: np.ndarray | None = None
+        for end, count in f.runs:
+            part = _digits(buf, start, w, rows, end, count)
+            mant = part if mant is None else mant * np.uint64(10**count) + part
+        assert mant is not None
+        vals = mant.astype(np.float64)
+        slow = mant > np.uint64(1 << 53) if f.digits > 15 else None
+        if f.exp is None:
+            if f.frac:
+                vals /= 10.0**f.frac
+        else:
+            power = _digits(buf, start, w, rows, *f.exp).astype(np.int16)
+            if f.exp_sign >= 0:
+                es = np.take(_ESIGN, _column(buf, start, w, rows, f.exp_sign))
+                if not es.all():
+                    return None
+                power *= es
+            power += 22 - f.frac  # an index into _MUL10 and _DIV10
+            lo, hi = int(power.min()), int(power.max())
+            if lo < 0 or hi > 44:
+                far = (power < 0) | (power > 44)
+                slow = far if slow is None else slow | far
+                np.clip(power, 0, 44, out=power)
+                lo, hi = max(lo, 0), min(hi, 44)
+            if hi > 22:
+                vals *= np.take(_MUL10, power)  # np.take: a gather faster than indexing
+            if lo < 22:
+                vals /= np.take(_DIV10, power)
+        if f.sign >= 0:
+            sign = np.take(_SIGN, _column(buf, start, w, rows, f.sign))
+            if not sign.all():
+                return None
+            vals *= sign
+        if slow is not None and slow.any():
+            at = np.flatnonzero(slow)
+            m = np.frombuffer(buf, np.uint8, rows * w, start).reshape(rows, w)
+            vals[at] = _exact(m[at, f.band[0] : f.band[1]], self.mark == 44)
+        return vals
+
+
+def _column(buf: bytearray, start: int, w: int, rows: int, col: int) -> np.ndarray:
+    return np.ndarray((rows,), np.uint8, buf, start + col, (w,))
+
+
+def _digits(buf: bytearray, start: int, w: int, rows: int, end: int, count: int) -> np.ndarray:
+    """The integer spelled by the `count` (1..8) digit columns before column `end`, per line.
+
+    Bytes are read as one little-endian word per line ending at `end` (the _PAD bytes before a block
+    make room for the first line's), the bytes before the run cleared, and the digits combined in
+    pairs, fours and eights by a multiply and a shift each (the SWAR method)."""
+    if count == 1:
+        return np.subtract(_column(buf, start, w, rows, end - 1), np.uint8(48))
+    if count == 2:
+        a = _column(buf, start, w, rows, end - 2) - np.uint8(48)
+        a *= np.uint8(10)
+        a += _column(buf, start, w, rows, end - 1)
+        a -= np.uint8(48)
+        return a
+    if count <= 4:
+        word = np.ndarray((rows,), "<u4", buf, start + end - 4, (w,))
+        keep = (0xFFFFFFFF << (8 * (4 - count))) & 0xFFFFFFFF
+        x = np.bitwise_and(word, np.uint32(keep)).astype(np.uint32, copy=False)
+        x -= np.uint32(0x30303030 & keep)
+        t = x >> np.uint32(8)
+        x *= np.uint32(10)
+        x += t
+        x &= np.uint32(0x00FF00FF)
+        np.right_shift(x, np.uint32(16), out=t)
+        x *= np.uint32(100)
+        x += t
+        x &= np.uint32(0xFFFF)
+        return x
+    word = np.ndarray((rows,), "<u8", buf, start + end - 8, (w,))
+    keep = (_M64 << (8 * (8 - count))) & _M64
+    x = np.bitwise_and(word, np.uint64(keep)).astype(np.uint64, copy=False)
+    x -= np.uint64(0x3030303030303030 & keep)
+    t = x >> np.uint64(8)
+    x *= np.uint64(10)
+    x += t
+    x &= np.uint64(0x00FF00FF00FF00FF)
+    np.right_shift(x, np.uint64(16), out=t)
+    x *= np.uint64(100)
+    x += t
+    x &= np.uint64(0x0000FFFF0000FFFF)
+    np.right_shift(x, np.uint64(32), out=t)
+    x *= np.uint64(10000)
+    x += t
+    x &= np.uint64(0xFFFFFFFF)
+    return x
+
+
+def _exact(tokens: np.ndarray, decimal_comma: bool) -> np.ndarray:
+    """Rows of number bytes (blanks around allowed) as doubles by numpy's string conversion, which
+    rounds correctly (it agrees with Python's float(); tests/analog/test_read.py checks both)."""
+    g = np.ascontiguousarray(tokens)
+    if decimal_comma:
+        g = np.where(g == 44, np.uint8(46), g)
+    with np.errstate(over="ignore", under="ignore"):
+        return g.view(f"S{g.shape[1]}").ravel().astype(np.float64)
+
+
+def _parse_chunk(data: bytes, ncols: int) -> tuple[np.ndarray, int]:
+    """All numbers of a chunk of whole lines (delimiters already spaces), checked ncols per line, and
+    the number of lines."""
     c = np.frombuffer(b"\n" + data + b"\n", np.uint8)
     lines = data.count(b"\n") + (not data.endswith(b"\n"))
     word = c > 32
@@ -330,15 +606,16 @@ def _parse_chunk(data: bytes, ncols: int, path: Path, line_no: int) -> tuple[np.
         firsts = starts[::ncols]
         full = bool((nl[:rows] < firsts).all()) and bool((nl[1:rows] >= ends[ncols - 1 : -1 : ncols]).all())
     if not full:
-        _check_lines(c, starts, ncols, path, line_no)
-    return _parse_tokens(c, starts, ends, path, line_no), lines
+        _check_lines(c, starts, ncols)
+    return _parse_tokens(c, starts, ends), lines
 
 
-def _line_of(c: np.ndarray, pos: int, line_no: int) -> int:
-    return line_no + int(np.count_nonzero(c[1:pos] == 10))
+def _line_of(c: np.ndarray, pos: int) -> int:
+    """The line (from 0 at the chunk's first) of byte `pos` of the sentinel-framed chunk `c`."""
+    return int(np.count_nonzero(c[1:pos] == 10))
 
 
-def _check_lines(c: np.ndarray, starts: np.ndarray, ncols: int, path: Path, line_no: int) -> None:
+def _check_lines(c: np.ndarray, starts: np.ndarray, ncols: int) -> None:
     """Slow path (a blank line, or a line with the wrong field count): allow blanks, name a bad line."""
     nl = np.flatnonzero(c == 10)
     line = np.searchsorted(nl, starts) - 1  # index of the line each token is on
@@ -347,23 +624,16 @@ def _check_lines(c: np.ndarray, starts: np.ndarray, ncols: int, path: Path, line
     if len(bad):
         k = int(bad[0])
         text = bytes(c[nl[k] + 1 : nl[k + 1]]).decode("latin-1").strip() if k + 1 < len(nl) else ""
-        raise DataError(
-            f"{path}: line {line_no + k}: expected {ncols} fields, found {int(counts[k])} ({text[:60]!r})"
-        )
+        raise _LineError(k, f"expected {ncols} fields, found {int(counts[k])} ({text[:60]!r})")
 
 
-def _parse_tokens(
-    c: np.ndarray, starts: np.ndarray, ends: np.ndarray, path: Path, line_no: int
-) -> np.ndarray:
+def _parse_tokens(c: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
     lens = ends - starts
     first = c[starts]
     signed = (first == 45) | (first == 43)
     if lens.max() > 60:
         k = int(np.argmax(lens > 60))
-        raise DataError(
-            f"{path}: line {_line_of(c, int(starts[k]), line_no)}: a field of {int(lens[k])} characters "
-            "is not a number"
-        )
+        raise _LineError(_line_of(c, int(starts[k])), f"a field of {int(lens[k])} characters is not a number")
     # a leading sign is read apart, so a column printed with and without one is one layout
     body = starts + signed
     key = lens - signed
@@ -377,14 +647,20 @@ def _parse_tokens(
         row0 = g[0].tobytes().lower()
         dot = row0.find(b".") if b"." in row0 else width
         exp = row0.find(b"e") if b"e" in row0 else width
-        vals, wrong = _group(g, dot, exp, width)
+        vals, wrong, slow = _group(g, dot, exp, width)
         if wrong.any():  # tokens in other layouts: group them by where their point and exponent sit
             w = np.flatnonzero(wrong)
             gw = g[w]
             sub = _position(gw == 46, width) * 64 + _position((gw | 32) == 101, width)
             for s_key in np.flatnonzero(np.bincount(sub)):
                 part = np.flatnonzero(sub == s_key)
-                vals[w[part]], wrong[w[part]] = _group(gw[part], int(s_key) // 64, int(s_key) % 64, width)
+                vals[w[part]], wrong[w[part]], slow[w[part]] = _group(
+                    gw[part], int(s_key) // 64, int(s_key) % 64, width
+                )
+        slow &= ~wrong
+        if slow.any():  # beyond one exact division: numpy's correctly rounded conversion
+            at = np.flatnonzero(slow)
+            vals[at] = _exact(g[at], False)
         if sel is None:
             out, bad = vals, wrong
         else:
@@ -394,7 +670,7 @@ def _parse_tokens(
     if negative.any():
         np.negative(out, out=out, where=negative)
     if bad.any():
-        _specials(c, starts, ends, out, bad, path, line_no)
+        _specials(c, starts, ends, out, bad)
     return out
 
 
@@ -405,15 +681,19 @@ def _position(hit: np.ndarray, width: int) -> np.ndarray:
     return pos
 
 
-def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, np.ndarray]:
-    """Unsigned tokens of one layout: fixed columns of mantissa digits, point, exponent."""
+def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Unsigned tokens of one layout: fixed columns of mantissa digits, point, exponent.
+
+    (values, not of this layout, needing the exact conversion): a value is one division or product of
+    exact doubles while the mantissa has at most 15 digits and the power of ten is within 10**22."""
     mant_cols = [j for j in range(min(exp, width)) if j != dot]
     frac = max(exp - dot - 1, 0) if dot < exp else 0
+    n = len(g)
     if not mant_cols:
-        return np.zeros(len(g)), np.ones(len(g), bool)
+        return np.zeros(n), np.ones(n, bool), np.zeros(n, bool)
     # the mantissa's digits sit in at most two runs of columns (before and after the point)
     runs = [(0, min(dot, exp, width)), (dot + 1, min(exp, width))] if dot < exp else [(0, min(exp, width))]
-    bad = np.zeros(len(g), bool)
+    bad = np.zeros(n, bool)
     for a, b in runs:
         if b > a:
             digits = g[:, a:b] - np.uint8(48)  # bytes below '0' wrap round to above 9
@@ -423,12 +703,14 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
         point_ok = g[:, dot] == 46
         if not point_ok.all():
             bad |= ~point_ok
-    mant = _mantissa(g, mant_cols)
-    power = np.full(len(g), -frac, np.int64) if exp < width else None
+    long = len(mant_cols) > 15
+    mant = _mantissa(g, mant_cols[-15:]) if long else _mantissa(g, mant_cols)
+    slow = np.full(n, long)
     if exp < width:
+        power = np.full(n, -frac, np.int64)
         bad |= (g[:, exp] | 32) != 101
         e0 = exp + 1
-        esign = np.ones(len(g), np.int64)
+        esign = np.ones(n, np.int64)
         if e0 < width:
             sign_char = g[:, e0]
             has_esign = (sign_char == 45) | (sign_char == 43)
@@ -440,26 +722,33 @@ def _group(g: np.ndarray, dot: int, exp: int, width: int) -> tuple[np.ndarray, n
         edig = g[:, e0:] - np.uint8(48)
         if edig.shape[1] == 0 or edig.shape[1] > 3:
             bad[:] = True
-        else:
-            if edig.max() > 9:
-                bad |= (edig > 9).any(axis=1)
-            ev = edig[:, 0].astype(np.int64)
-            for j in range(1, edig.shape[1]):
-                ev *= 10
-                ev += edig[:, j]
-            power += esign * ev
-        return _scale(mant, power), bad
-    return (mant / _POW10[frac] if frac else mant), bad
+            return np.zeros(n), bad, slow
+        if edig.max() > 9:
+            bad |= (edig > 9).any(axis=1)
+        ev = edig[:, 0].astype(np.int64)
+        for j in range(1, edig.shape[1]):
+            ev *= 10
+            ev += edig[:, j]
+        power += esign * ev
+        slow |= np.abs(power) > 22
+        np.clip(power, -22, 22, out=power)
+        if power.max() > 0:
+            mant *= _MUL10[power + 22]
+        if power.min() < 0:
+            mant /= _DIV10[power + 22]
+        return mant, bad, slow
+    if frac > 22:
+        slow[:] = True
+        return mant, bad, slow
+    return (mant / _POW10[frac] if frac else mant), bad, slow
 
 
 def _mantissa(g: np.ndarray, cols: list[int]) -> np.ndarray:
-    """The integer the digit columns `cols` spell (bytes '0'..'9'; others give garbage, checked apart).
+    """The integer the digit columns `cols` (at most 15) spell (bytes '0'..'9'; others give garbage,
+    checked apart).
 
     Horner's rule on the raw bytes, the '0' offsets taken off once at the end: exact while the sum of
-    bytes times powers of ten stays below 2**53, which holds for up to 15 digits. Longer mantissas go
-    through a product with powers of ten (within a few units in the last place)."""
-    if len(cols) > 15:
-        return (g[:, cols] - np.uint8(48)) @ _POW10[len(cols) - 1 :: -1][: len(cols)]
+    bytes times powers of ten stays below 2**53, which holds for up to 15 digits."""
     acc = g[:, cols[0]].astype(np.float64)
     for j in cols[1:]:
         acc *= 10.0
@@ -468,31 +757,13 @@ def _mantissa(g: np.ndarray, cols: list[int]) -> np.ndarray:
     return acc
 
 
-def _scale(mant: np.ndarray, power: np.ndarray) -> np.ndarray:
-    """mant * 10**power: one exact product or quotient when |power| <= 300, two beyond (sub-normals)."""
-    lo, hi = int(power.min()), int(power.max())
-    if -300 <= lo and hi <= 0:  # the usual case: a quotient by an exact power of ten
-        return mant / _POW10[-power]
-    if 0 <= lo and hi <= 300:
-        return mant * _POW10[power]
-    first = np.clip(power, -300, 300)
-    with np.errstate(over="ignore", under="ignore"):
-        value = np.where(first >= 0, mant * _POW10[np.abs(first)], mant / _POW10[np.abs(first)])
-        rest = np.clip(power - first, -308, 308)
-        if rest.any():
-            value = np.where(rest >= 0, value * _POW10[np.abs(rest)], value / _POW10[np.abs(rest)])
-    return value
-
-
-def _specials(c, starts, ends, out, bad, path: Path, line_no: int) -> None:
+def _specials(c, starts, ends, out, bad) -> None:
     """Tokens the layouts did not cover: nan / inf are taken, anything else is an error."""
-    for k in np.flatnonzero(bad)[:100_000]:
+    if bad.sum() > 100_000:
+        raise _LineError(None, "more than 100000 fields are not plain numbers")
+    for k in np.flatnonzero(bad):
         tok = bytes(c[starts[k] : ends[k]]).decode("latin-1")
         value = _SPECIAL.get(tok.lower())
         if value is None:
-            raise DataError(
-                f"{path}: line {_line_of(c, int(starts[k]), line_no)}: {tok[:40]!r} is not a number"
-            )
+            raise _LineError(_line_of(c, int(starts[k])), f"{tok[:40]!r} is not a number")
         out[k] = value
-    if bad.sum() > 100_000:
-        raise DataError(f"{path}: more than 100000 fields are not plain numbers")

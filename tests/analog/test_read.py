@@ -10,7 +10,7 @@ import wave
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
 from benchlog.analog import _csv as csv_reader
@@ -98,9 +98,74 @@ def test_numbers_match_float_on_random_values(tmp_path_factory, values, fmt):
     path = tmp_path_factory.mktemp("h") / "r.csv"
     path.write_text("Sample Interval,1e-6\nv\n" + "\n".join(texts) + "\n")
     cap = read_capture(str(path))
-    ref = np.array([float(x) for x in texts])
-    # at most 15 significant digits: exact; longer mantissas within a few ulp
-    assert np.allclose(cap.volts[0], ref, rtol=4e-16 * 4, atol=0) or np.array_equal(cap.volts[0], ref)
+    ref = np.array([float(x) for x in texts])  # reference: Python's float() on the same text
+    assert _same_bits(cap.volts[0], ref)
+
+
+def _same_bits(a: np.ndarray, b: np.ndarray) -> bool:
+    """Equal as doubles bit for bit (so -0.0 differs from 0.0)."""
+    return a.shape == b.shape and bool((a.view(np.int64) == b.view(np.int64)).all())
+
+
+_ANY_DOUBLE = st.floats(allow_nan=False, allow_infinity=False)
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    st.lists(st.tuples(_ANY_DOUBLE, _ANY_DOUBLE), min_size=1, max_size=40),
+    st.sampled_from(["{!r}", "{:.17g}", "{:.20e}", "{:.3e}", "{:.15e}", "{:.16E}", "{:.25g}", "{:.6e}"]),
+    st.sampled_from([(",", "."), (";", ","), ("\t", ".")]),
+)
+def test_variable_width_numbers_are_exactly_float(tmp_path_factory, pairs, fmt, convention):
+    # long mantissas and exponents far beyond 10**22 included; reference: Python's float() on the text
+    delim, mark = convention
+    rows = [(fmt.format(a).replace(".", mark), fmt.format(b).replace(".", mark)) for a, b in pairs]
+    path = tmp_path_factory.mktemp("v") / "v.csv"
+    body = "\n".join(delim.join(r) for r in rows)
+    path.write_text(f"Sample Interval{delim}1e-6\na{delim}b\n{body}\n")
+    cap = read_capture(str(path), time_column=None)
+    for k in range(2):
+        assert _same_bits(cap.volts[k], np.array([float(r[k].replace(",", ".")) for r in rows]))
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    st.lists(_ANY_DOUBLE, min_size=1, max_size=50),
+    st.sampled_from(["{: .6E}", "{:+.17e}", "{: .20e}", "{: .3E}", "{: 10.4f}", "{:+.0e}", "{: .15e}"]),
+    st.sampled_from([(",", "."), (";", ",")]),
+    st.integers(0, 3),
+)
+def test_fixed_width_numbers_are_exactly_float(tmp_path_factory, values, fmt, convention, pad):
+    # every line one length, as an instrument prints: the byte-matrix reader; reference: Python's float()
+    delim, mark = convention
+    texts = [fmt.format(v).replace(".", mark) for v in values]
+    width = max(len(t) for t in texts)
+    texts = [t.rjust(width) for t in texts]
+    assume(width <= 60)  # longer fields are refused by design ("a field of N characters is not a number")
+    lines = [f"{i:6d}{delim}{' ' * pad}{t}{delim}{t}" for i, t in enumerate(texts)]
+    if len({len(x) for x in lines}) != 1:
+        return
+    path = tmp_path_factory.mktemp("f") / "f.csv"
+    body = "\n".join(lines)
+    path.write_text(f"Sample Interval{delim}1e-6\nIndex{delim}a{delim}b\n{body}\n")
+    layout = csv_reader.sniff(path)
+    ref = np.array([float(t.replace(",", ".")) for t in texts])
+    fixed = _fixed_block(path, layout)
+    if fixed is not None:  # the byte-matrix reader took it (it hands nothing it cannot read exactly on)
+        assert _same_bits(fixed[1], ref) and _same_bits(fixed[2], ref)
+    cap = read_capture(str(path))
+    assert _same_bits(cap.volts[0], ref) and _same_bits(cap.volts[1], ref)
+
+
+def test_fixed_width_block_takes_far_exponents_and_long_mantissas(tmp_path):
+    # values that need more than one exact division: numpy's string conversion takes them, inside the
+    # byte-matrix reader; reference: Python's float()
+    texts = [" 1.234567890123456789E-300", "-9.876543210987654321E+250", " 1.000000000000000000E-005"]
+    texts += [" 4.940656458412465400E-324", " 2.225073858507201400E-308", "-1.797693134862315700E+308"]
+    (tmp_path / "x.csv").write_text("Time,CH1\n" + "".join(f"{i:4d},{t}\n" for i, t in enumerate(texts)))
+    fixed = _fixed_block(tmp_path / "x.csv", csv_reader.sniff(tmp_path / "x.csv"))
+    assert fixed is not None
+    assert _same_bits(fixed[1], np.array([float(t) for t in texts]))
 
 
 def test_nan_and_inf_fields_are_taken(tmp_path):
@@ -123,6 +188,13 @@ def test_bad_input_is_one_clear_line(tmp_path, text, message):
     assert message in str(err.value) and "\n" not in str(err.value)
 
 
+def _fixed_block(path, layout) -> list[np.ndarray] | None:
+    """The byte-matrix reader's columns for the whole data of `path` as one block (None: not fixed)."""
+    buf = bytearray(csv_reader._PAD) + path.read_bytes()[layout.data_offset :]
+    reader = csv_reader._FixedWidth(layout, list(range(layout.columns)))
+    return reader.parse(buf, csv_reader._PAD, len(buf))
+
+
 def _fixed_width_rows(n: int, decimal: str = ".") -> list[str]:
     """Lines as a scope prints them: every field in a fixed format, a blank where a sign is not."""
     rng = np.random.default_rng(7)
@@ -140,8 +212,7 @@ def test_fixed_width_lines_are_read_as_a_byte_matrix(tmp_path, delimiter, decima
     text = "\n".join(r.replace(",", delimiter) for r in rows).replace(".", decimal) + "\n"
     path = write(tmp_path / "f.csv", "Sample Interval,2.5E-07\nTime,CH1,CH2\n" + text)
     layout = csv_reader.sniff(tmp_path / "f.csv")
-    data = (tmp_path / "f.csv").read_bytes()[layout.data_offset :]
-    assert csv_reader._fixed_rows(data.translate(csv_reader._table(layout)), 3) is not None
+    assert _fixed_block(tmp_path / "f.csv", layout) is not None
     cap = read_capture(path)
     # reference: Python's float() on the printed text (correctly rounded)
     ref = np.array([[float(f) for f in r.split(",")] for r in rows])
