@@ -14,7 +14,11 @@ run cycle `base + c - 1` (0-based), and a count `n` means `base + n` run cycles 
   see count when their actuations are written, so what the store says is always backed by a measurement
   or by an incident; a recorder killed before a commit leaves cycles the next one reports as a gap.
 - A sampler reset ends the plan (its count starts again from 0): the run cycles done so far become the
-  base, and the recorder plans the cycles still due again (`replan`).
+  base, and the recorder plans the cycles still due again (`replan`, `started`). A cycle whose drive-on
+  was heard and whose drive-off was not (power failed within it) is done: its coil was energised. Its
+  actuator went off with the power, so a drive-off is placed just after the last record heard before the
+  reset (`cut_off`, for the analysis): its make and break overlap the reset and are not measured, and the
+  first drive-on of the new plan starts a make again (a drive repeating the last level switches nothing).
 - A cycle whose drive records were damaged may get no actuation row although its drive-on arrived (the
   analysis measures from drive to drive: a lost drive-off merges the cycle with the next one, and the
   last drive of a channel is measured only when a later one comes, or at the end of data). Such cycles
@@ -56,6 +60,8 @@ class SamplerCount:
         self._t_last = 0  # latest run time of a counted event, and its host time (for incidents)
         self._host_last = 0
         self.replan = False  # a reset ended the sampler's plans: plan the cycles still due again
+        self._on: dict[int, int] = {}  # channel -> run cycle of a drive-on heard with no drive after it
+        self.cut_off: list[tuple[int, int]] = []  # (t_ns, channel): drive-offs a reset made, for analysis
         self.not_observed = 0
 
     # -- feeding ------------------------------------------------------------------------------------
@@ -85,7 +91,7 @@ class SamplerCount:
         host = item_host(timed)
         for t, kind, item in events:
             if kind == 0:
-                self._reset(t)
+                self._reset(int(item.t_start_ns), t)  # type: ignore[attr-defined]
             elif kind == 1:
                 self._go(t, item.record.channels)  # type: ignore[attr-defined]
             elif kind == 2:
@@ -98,7 +104,13 @@ class SamplerCount:
         self._host_last = host
         return out
 
-    def _reset(self, t: int) -> None:
+    def _reset(self, t_last: int, t: int) -> None:
+        """The sampler restarted between run times `t_last` (the last record heard) and `t`."""
+        off = min(t_last + 1, t)
+        for ch, k in sorted(self._on.items()):  # the power went, and the actuator with it
+            self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES)).append((off, k))
+            self.cut_off.append((off, ch))
+        self._on.clear()
         for ch in list(self.base):
             b = self.base[ch]
             if b is not None:  # a cycle the host saw start counts (power may fail before its drive-off)
@@ -143,7 +155,10 @@ class SamplerCount:
         self._first_drive.setdefault(ch, t)
         q = self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES))
         q.append((t, b + c - 1))
-        if level == 0:
+        if level:
+            self._on[ch] = b + c - 1
+        else:
+            self._on.pop(ch, None)
             self._completed(t, ch, c)
 
     def _counted(self, t: int, ch: int, n: int, host_ns: int, out: list[Incident]) -> None:
@@ -188,6 +203,17 @@ class SamplerCount:
         )
 
     # -- what the sampler reported --------------------------------------------------------------------
+    def started(self, ch: int) -> int | None:
+        """Run cycles channel `ch` has begun: those the sampler counted, and one whose drive-on was heard
+        and whose drive-off was not (a reset cut it short; its coil was energised, so it counts). None:
+        no plan of this run heard on it. After a reset this is the base, while the rows of the last cycles
+        before it may not be written yet (the analysis' lateness; the cut cycle's come with the next
+        drive): the writer's `cycles_done` can be a few cycles behind it then."""
+        b = self.base.get(ch)
+        if b is None:
+            return None
+        return b + max(self.count.get(ch, 0), self.seen.get(ch, 0))
+
     def reported(self, ch: int, by_ns: int) -> int | None:
         """Run cycles the sampler has said channel `ch` completed, as it said so at or before run time
         `by_ns` (None: no count of this plan heard, or only later)."""

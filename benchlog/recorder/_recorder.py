@@ -20,6 +20,7 @@ import numpy as np
 
 from benchlog.analysis import AnalysisSettings, Analyzer, judge
 from benchlog.errors import PortError, StoreError
+from benchlog.events import TimedDrives
 from benchlog.store import (
     END_ALL_FAILED,
     END_IDLE,
@@ -112,7 +113,10 @@ class Recorder:
         for ch in sorted(self.writer.units):
             if self.writer.status.get(self.writer.units[ch]) != "alive":
                 continue
-            left = 0 if not target else max(1, target - self.writer.cycles_done[ch])
+            # every cycle begun counts, its rows written or not: after a reset the base holds the cycle it
+            # cut short and the last ones before it, whose rows the analysis may still hold
+            done = max(int(self.writer.cycles_done[ch]), self.count.started(ch) or 0)
+            left = 0 if not target else max(1, target - done)
             out.append(Plan(ch, int(on_us), int(off_us), int(left)))
         return out
 
@@ -130,8 +134,12 @@ class Recorder:
             if len(t):
                 self._heard_ns = max(self._heard_ns, int(np.max(t)))
         unseen = self.count.push(timed)
+        drives = timed.drives
+        if self.count.cut_off:  # a reset cut cycles short: their actuators went off with the power
+            drives = _with_drive_offs(drives, self.count.cut_off)
+            self.count.cut_off = []
         rows, numbered = self.count.number(
-            self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
+            self.analyzer.push(timed.edges, drives, timed.incidents, until_ns=until)
         )
         unseen += self.count.holes(rows, numbered)
         self._take(rows, timed.edges if self.keep_edges else None, list(timed.incidents) + unseen, numbered)
@@ -306,6 +314,18 @@ class Recorder:
         if on_progress:
             on_progress(self.progress(getattr(feed, "connected", True)))
         return reason
+
+
+def _with_drive_offs(drives: TimedDrives, offs: list[tuple[int, int]]) -> TimedDrives:
+    """`drives` and drive-offs at (t_ns, channel), in time order (they carry no sampler cycle)."""
+    t = np.concatenate((drives.t_ns, np.array([o[0] for o in offs], np.int64)))
+    ch = np.concatenate((drives.channel, np.array([o[1] for o in offs], np.uint8)))
+    lv = np.concatenate((drives.level, np.zeros(len(offs), np.uint8)))
+    cyc = None
+    if drives.cycle is not None:
+        cyc = np.concatenate((drives.cycle, np.full(len(offs), -1, np.int64)))
+    order = np.argsort(t, kind="stable")
+    return TimedDrives(t[order], ch[order], lv[order], None if cyc is None else cyc[order])
 
 
 def _halt(feed) -> None:
