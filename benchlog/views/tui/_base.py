@@ -50,6 +50,11 @@ class DataScreen(Screen):
     def show(self, data) -> None:  # pragma: no cover - overridden
         raise NotImplementedError
 
+    def is_stale(self, data) -> bool:
+        """True when `data` answers an earlier question than the one on screen now (the user moved on
+        while it was read): it is dropped, never shown, and the current question is read instead."""
+        return False
+
     def request(self) -> None:
         """Start a read unless one is running (then run one more right after it)."""
         if self._busy:
@@ -76,6 +81,8 @@ class DataScreen(Screen):
         data = message.data
         if isinstance(data, Problem):
             self.problem = data
+        elif self.is_stale(data):
+            self._again = True
         else:
             self.problem = None
             self.last_data = data

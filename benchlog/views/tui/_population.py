@@ -98,18 +98,23 @@ class PopulationScreen(DataScreen):
     def load(self, store, group) -> Population:
         return read_population(store, group, self.cache)
 
+    def is_stale(self, data: Population) -> bool:
+        # The highlight is the user's choice: a read of another group is dropped, never shown, so
+        # showing it can never move the highlight back and ask for that group again.
+        return self.group is not None and data.group != self.group
+
     def show(self, data: Population) -> None:
         if self.group is None:
             self.group = data.group
         ol = self.query_one("#groups", OptionList)
-        if [g for g in data.groups] != self._groups:
+        if list(data.groups) != self._groups:
             self._groups = list(data.groups)
             ol.clear_options()
             ol.add_options([Option(Text(g.title), id=f"{g.kind}:{g.key}") for g in data.groups])
-        if data.group in self._groups:
-            idx = self._groups.index(data.group)
-            if ol.highlighted != idx:
-                ol.highlighted = idx
+            if self.group in self._groups:
+                ol.highlighted = self._groups.index(self.group)
+        elif ol.highlighted is None and self.group in self._groups:
+            ol.highlighted = self._groups.index(self.group)
         self._draw(data)
 
     def _draw(self, data: Population) -> None:
