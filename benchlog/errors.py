@@ -7,8 +7,9 @@ BenchlogError                 any error benchlog reports to a user
  +-- StoreError               the database cannot be opened, migrated, read or written
  |    +-- StoreBusyError      another recorder holds the run or bench
  +-- SpecError                a part spec file is missing or malformed (names file, key, expectation)
- +-- ConfigError              an impossible option or a malformed simulator / profile file
+ +-- ConfigError              a malformed or unusable configuration or input file (preset, settings)
  +-- DataError                not enough or inconsistent data for the asked analysis
+ +-- UsageError               options a command cannot take together, or a value it cannot use
 ```
 
 Damaged bytes on the wire are *not* errors: the decoder counts them as faults and goes on. Errors from
@@ -58,6 +59,12 @@ class DataError(BenchlogError):
     exit_code = 10
 
 
+class UsageError(BenchlogError):
+    """The same exit status as the command line's own parse errors (EX_USAGE of sysexits.h)."""
+
+    exit_code = 64
+
+
 __all__ = [
     "BenchlogError",
     "PortError",
@@ -67,4 +74,5 @@ __all__ = [
     "SpecError",
     "ConfigError",
     "DataError",
+    "UsageError",
 ]

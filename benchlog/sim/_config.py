@@ -124,8 +124,13 @@ class SimConfig:
 
 
 def preset_names() -> list[str]:
+    """The shipped simulator presets (the folder also holds tables that are not presets)."""
     root = resources.files("benchlog.presets")
-    return sorted(p.name[:-5] for p in root.iterdir() if p.name.endswith(".toml"))
+    return sorted(
+        p.name[:-5]
+        for p in root.iterdir()
+        if p.name.endswith(".toml") and "\n[sampler]" in "\n" + p.read_text("utf-8")
+    )
 
 
 def load_preset(name: str) -> SimConfig:

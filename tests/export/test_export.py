@@ -123,5 +123,5 @@ def test_export_command(recorded, tmp_path, capsys):
     assert main(["export", "vcd", "--db", path, "--run", str(run_id), "-o", str(vcd_path)]) == 0
     changes, _ = _read_vcd(vcd_path.read_text())
     assert sum(len(c) for c in changes.values()) == 502
-    assert main(["export", "vcd", "--db", path]) == 9  # ConfigError: one line, its exit code
+    assert main(["export", "vcd", "--db", path]) == 64  # a usage error: one line, its exit code
     assert "exactly one --run" in capsys.readouterr().err

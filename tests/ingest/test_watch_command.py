@@ -31,9 +31,7 @@ serial = "W0"
 
 def test_watch_prints_edges_starts_a_profile_and_totals(capsys):
     with PtySampler(parse_config(CONFIG, "watch.toml"), speed=5.0) as sim:
-        code = main(
-            ["watch", sim.path, "--speed", "5", "--cycle", "20", "20", "10", "--on", "0", "--for", "1.5"]
-        )
+        code = main(["watch", sim.path, "--speed", "5", "--profile", "20:20:10", "--on", "0", "--for", "1.5"])
         edges_sent = len(sim.bench.truth.sent)
     out = capsys.readouterr().out
     assert code == 0
@@ -49,9 +47,7 @@ def test_watch_prints_edges_starts_a_profile_and_totals(capsys):
 
 def test_watch_summary_and_bad_port(capsys, tmp_path):
     with PtySampler(parse_config(CONFIG, "watch.toml"), speed=5.0) as sim:
-        code = main(
-            ["watch", sim.path, "--speed", "5", "--cycle", "20", "20", "0", "--summary", "--for", "2.3"]
-        )
+        code = main(["watch", sim.path, "--speed", "5", "--profile", "20:20:0", "--summary", "--for", "2.3"])
     out = capsys.readouterr().out
     assert code == 0
     assert re.search(r"^ +\d+\.\d{3}  \d+ edges, \d+ drives this second; total \d+ edges, 0 lost", out, re.M)

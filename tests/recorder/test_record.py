@@ -166,7 +166,10 @@ def test_record_command_stores_names_verbatim(tmp_path, capsys):
     ],
 )
 def test_bad_options_are_one_line_errors(argv, message, tmp_path, capsys):
-    code = main([*argv, "--db", str(tmp_path / "x.sqlite")])
+    try:
+        code = main([*argv, "--db", str(tmp_path / "x.sqlite")])
+    except SystemExit as exc:  # the parser's own usage errors
+        code = exc.code
     err = capsys.readouterr().err
     assert code != 0 and message in err and err.count("\n") == 1
 

@@ -44,12 +44,13 @@ def test_qualify_fails_the_demo_candidate_and_writes_json(db, tmp_path, capsys):
             "--candidate",
             "VS-505",
             "--json",
+            "-o",
             str(out),
             "--resamples",
             "300",
         ]
     )
-    text = capsys.readouterr().out
+    text = capsys.readouterr().err  # with --json the table goes to standard error
     assert code == 1 and "verdict: FAIL (exit 1)" in text
     assert "operate time max (candidate)" in text and "B10 life (candidate)" in text
     doc = json.loads(out.read_text())
@@ -135,6 +136,23 @@ def test_plan(small_db, capsys):
     text = capsys.readouterr().out
     assert "running test VS-505 (lot L1): 3 units" in text
     assert re.search(r"[\d,]+ more cycles on each of the \d running units", text)
+    # without --spec or --life: the part's stored spec, as qualify uses it (the shipped VS-505 spec,
+    # stored with the part by the fill), so the same plan as with --spec VS-505
+    assert main(["plan", "--shape", "2", "--lot", "VS-505:L1", "--db", small_db]) == 0
+    assert capsys.readouterr().out == text
+
+
+def test_report_keeps_an_existing_file_unless_forced(small_db, tmp_path, capsys):
+    out = tmp_path / "r.html"
+    out.write_text("a report from last week")
+    argv = ["report", "--db", small_db, "--incumbent", "AG-MS5", "--candidate", "VS-505", "-o", str(out)]
+    argv += ["--resamples", "100"]
+    assert main(argv) == 64
+    err = capsys.readouterr().err
+    assert "--force" in err and len(err.strip().splitlines()) == 1
+    assert out.read_text() == "a report from last week"
+    assert main([*argv, "--force"]) == 2  # too few units: not yet decidable, and the report written
+    assert "<html" in out.read_text()
 
 
 def test_report_is_self_contained_and_escaped(db, tmp_path, capsys):
@@ -218,7 +236,6 @@ def test_json_to_stdout_alone(small_db, capsys):
             "--candidate",
             "VS-505",
             "--json",
-            "-",
             "--resamples",
             "100",
         ]

@@ -35,6 +35,7 @@ def test_qualify_reads_postgresql(tmp_path, capsys):
                     "--candidate",
                     "VS-505",
                     "--json",
+                    "-o",
                     str(out),
                     "--resamples",
                     "200",

@@ -60,7 +60,7 @@ def test_demo_refuses_an_existing_file_in_one_line(tmp_path):
 
 def test_demo_rejects_impossible_cycles(tmp_path):
     out = _demo("--db", str(tmp_path / "x.sqlite"), "--cycles", "5")
-    assert out.returncode == 2 and "between 200 and 200000" in out.stderr
+    assert out.returncode == 64 and "between 200 and 200000" in out.stderr
 
 
 def test_dash_without_a_terminal_prints_a_summary(built):

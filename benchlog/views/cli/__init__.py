@@ -22,6 +22,7 @@ from types import ModuleType
 
 from benchlog import __version__
 from benchlog.errors import BenchlogError
+from benchlog.views.cli._exit import EXIT_TABLE, USAGE, epilog
 
 __all__ = ["main", "build_parser"]
 
@@ -33,20 +34,27 @@ def _command_modules() -> list[ModuleType]:
 
 class _OneLineParser(argparse.ArgumentParser):
     def error(self, message: str) -> None:  # type: ignore[override]
-        self.print_usage(sys.stderr)
-        self.exit(2, f"benchlog: error: {message}\n")
+        self.exit(USAGE, f"benchlog: error: {message} (see: {self.prog} --help)\n")
 
 
 def build_parser() -> argparse.ArgumentParser:
     parser = _OneLineParser(
         prog="benchlog",
         description="Record, measure and qualify mechanical switches and relays on a sampler bench.",
+        epilog=EXIT_TABLE,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("--version", action="version", version=f"benchlog {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_OneLineParser)
     for mod in _command_modules():
-        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
+        p = sub.add_parser(
+            mod.NAME,
+            help=mod.HELP,
+            description=mod.HELP,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
         mod.add_arguments(p)
+        p.epilog = epilog(p.epilog)
         p.set_defaults(_run=mod.run)
     return parser
 
@@ -58,7 +66,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
         parser.print_help()
-        return 2
+        return USAGE
     try:
         with raise_on_stop_signals():  # SIGTERM and SIGHUP end a command as Ctrl-C does
             return int(args._run(args) or 0)

@@ -45,3 +45,30 @@ def number_within(
 positive = number_within(0)
 non_negative = number_within(0, low_inclusive=True)
 fraction = number_within(0, 1)
+
+
+PROFILE_METAVAR = "ON_MS:OFF_MS:CYCLES"
+
+
+def profile(text: str):
+    """A cycle profile `ON_MS:OFF_MS:CYCLES` (CYCLES 0 = until stopped), as every command takes it."""
+    from benchlog.errors import ConfigError
+    from benchlog.recorder._setup import parse_profile
+
+    try:
+        return parse_profile(text)
+    except ConfigError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def add_profile(p, help_text: str) -> None:
+    """`--profile ON_MS:OFF_MS:CYCLES`: the one spelling of a cycle profile."""
+    p.add_argument("--profile", type=profile, metavar=PROFILE_METAVAR, help=help_text)
+
+
+JSON_HELP = "print one JSON document on standard output instead of text"
+
+
+def add_output(p, help_text: str, default: str | None = None) -> None:
+    """`-o/--output FILE`: the one name of a file a command writes."""
+    p.add_argument("-o", "--output", metavar="FILE", default=default, help=help_text)

@@ -7,7 +7,7 @@ import json
 import sys
 from typing import Any
 
-from benchlog.views.cli._args import positive
+from benchlog.views.cli._args import JSON_HELP, positive
 
 NAME = "analyze"
 HELP = "Measure every make and break in a recorded sampler stream and summarise each channel."
@@ -53,7 +53,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--free", action="store_true", help="ignore drive records: every channel free-running")
     p.add_argument("--tick-hz", type=int, help="sampler clock if the stream has no announcement")
     p.add_argument("--counter-bits", type=int, help="counter width if the stream has no announcement")
-    p.add_argument("--json", action="store_true", help="print one JSON document instead of a table")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.add_argument("--strict", action="store_true", help="exit 1 when a channel fails its spec")
 
 

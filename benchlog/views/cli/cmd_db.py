@@ -14,6 +14,7 @@ HELP = (
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "action",
+        metavar="ACTION",
         choices=("status", "upgrade", "check"),
         help="status: show revisions; upgrade: migrate; check: integrity and invariants (exit 1 if any fail)",
     )

@@ -17,6 +17,8 @@ import json
 import math
 from pathlib import Path
 
+from benchlog.views.cli._args import JSON_HELP
+
 NAME = "debounce"
 HELP = "Choose a software debounce, or R and C for a Schmitt input, from recorded bounce."
 
@@ -140,7 +142,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     hw.add_argument("--try", dest="try_rc", metavar="R,C", help="also check this pair, e.g. 1k,220n")
     out = p.add_argument_group("output")
-    out.add_argument("--json", action="store_true", help="machine-readable output")
+    out.add_argument("--json", action="store_true", help=JSON_HELP)
     out.add_argument("--plot", type=Path, metavar="DIR", help="write PNG plots to DIR")
 
 
@@ -236,7 +238,7 @@ def _read_store(args):
 
     from benchlog.analysis import ACTUATION_DTYPE
     from benchlog.design import channel_record
-    from benchlog.errors import ConfigError, DataError
+    from benchlog.errors import ConfigError, DataError, UsageError
     from benchlog.store import Store
 
     store = Store.open(args.db, readonly=True)
@@ -252,7 +254,7 @@ def _read_store(args):
         if args.part or args.lot:
             units.extend(store.units(part=args.part, lot=args.lot))
         if not units:
-            raise ConfigError("choose units from the store with --unit, --part or --lot")
+            raise UsageError("choose units from the store with --unit, --part or --lot")
         ids = sorted({u.id for u in units})
         serial = {u.id: u.serial for u in units}
         acts = store.actuations(units=ids, runs=args.run or None)
@@ -351,7 +353,7 @@ def run(args) -> int:
         plot_node_voltage,
         plot_tradeoff,
     )
-    from benchlog.errors import ConfigError
+    from benchlog.errors import ConfigError, UsageError
 
     if args.list_inputs:
         for row in load_thresholds(args.thresholds).values():
@@ -364,11 +366,11 @@ def run(args) -> int:
     kinds = tuple(k.strip() for k in args.kinds.split(",") if k.strip())
     bad = [k for k in kinds if k not in KINDS]
     if bad or not kinds:
-        raise ConfigError(f"unknown debouncer {', '.join(bad) or '(none)'}: choose from {', '.join(KINDS)}")
+        raise UsageError(f"unknown debouncer {', '.join(bad) or '(none)'}: choose from {', '.join(KINDS)}")
     if not 0 <= args.margin < 100:
-        raise ConfigError(f"--margin must be 0 or more volts, got {args.margin:g}")
+        raise UsageError(f"--margin must be 0 or more volts, got {args.margin:g}")
     if args.life_windows < 0 or args.life_windows > 50:
-        raise ConfigError("--life-windows must be between 0 and 50")
+        raise UsageError("--life-windows must be between 0 and 50")
     series: str | float = args.series
     if args.series in ("none", "0"):
         series = 0.0
@@ -378,14 +380,14 @@ def run(args) -> int:
     try_pair = None
     if args.try_rc:
         if circuit is None:
-            raise ConfigError("--try needs --input (the threshold row)")
+            raise UsageError("--try needs --input (the threshold row)")
         r_text, sep, c_text = args.try_rc.partition(",")
         if not sep:
-            raise ConfigError(f"--try expects R,C such as 1k,220n, got {args.try_rc!r}")
+            raise UsageError(f"--try expects R,C such as 1k,220n, got {args.try_rc!r}")
         try:
             try_pair = (_ohms(r_text), _farads(c_text))
         except argparse.ArgumentTypeError as exc:
-            raise ConfigError(str(exc)) from None
+            raise UsageError(f"--try: {exc}") from None
     recs, names = load_records(args)
     ts = int(round(args.sample_ms * 1e6))
     soft = design_software(recs, ts, args.target_rate, kinds, args.life_windows)

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from benchlog.views.cli._args import add_output
+
 NAME = "export"
 HELP = "Write recorded actuations as CSV or a run's raw edges as a VCD waveform file."
 
@@ -22,7 +24,9 @@ def _span(text: str) -> tuple[float, float]:
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("what", choices=("csv", "vcd"), help="csv: actuations; vcd: raw edges of one run")
+    p.add_argument(
+        "what", metavar="FORMAT", choices=("csv", "vcd"), help="csv: actuations; vcd: raw edges of one run"
+    )
     p.add_argument("--db", help="database URL or SQLite file (default: $BENCHLOG_DB or ./benchlog.sqlite)")
     p.add_argument("--run", type=int, action="append", help="run id (vcd: required; csv: repeatable)")
     p.add_argument("--unit", type=int, action="append", metavar="ID", help="unit id (repeatable)")
@@ -31,25 +35,29 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--kind", choices=("make", "break"), help="only makes or only breaks (csv)")
     p.add_argument("--cycles", type=_span, metavar="FIRST:LAST", help="life cycles, inclusive")
     p.add_argument("--seconds", type=_span, metavar="FROM:TO", help="run time span in seconds (vcd)")
-    p.add_argument("-o", "--out", help="output file (default: standard output)")
+    add_output(p, "write to FILE (default: standard output)")
 
 
 def run(args: argparse.Namespace) -> int:
     import sys
 
-    from benchlog.errors import ConfigError
+    from benchlog.errors import UsageError
     from benchlog.store import Store
     from benchlog.views._notes import say_readonly
     from benchlog.views.export import write_actuations_csv, write_vcd
 
+    if args.what == "csv" and args.seconds is not None:
+        raise UsageError("--seconds applies to vcd; use --cycles for csv")
+    if args.what == "vcd" and (not args.run or len(args.run) != 1):
+        raise UsageError("vcd needs exactly one --run")
+    if args.what == "vcd" and args.seconds is not None and args.cycles is not None:
+        raise UsageError("give --cycles or --seconds, not both")
     cycles = None if args.cycles is None else (int(args.cycles[0]), int(args.cycles[1]))
     with Store.open(args.db, readonly=True) as store:
         say_readonly(store)
-        out = open(args.out, "w", encoding="utf-8", newline="") if args.out else sys.stdout
+        out = open(args.output, "w", encoding="utf-8", newline="") if args.output else sys.stdout
         try:
             if args.what == "csv":
-                if args.seconds is not None:
-                    raise ConfigError("--seconds applies to vcd; use --cycles for csv")
                 n = write_actuations_csv(
                     store,
                     out,
@@ -62,18 +70,14 @@ def run(args: argparse.Namespace) -> int:
                 )
                 what = "actuations"
             else:
-                if not args.run or len(args.run) != 1:
-                    raise ConfigError("vcd needs exactly one --run")
-                if args.seconds is not None and cycles is not None:
-                    raise ConfigError("give --cycles or --seconds, not both")
                 t_ns = None
                 if args.seconds is not None:
                     t_ns = (int(args.seconds[0] * 1e9), int(args.seconds[1] * 1e9))
                 n = write_vcd(store, out, args.run[0], units=args.unit, t_ns=t_ns, cycles=cycles)
                 what = "edges"
         finally:
-            if args.out:
+            if args.output:
                 out.close()
-    if args.out:
-        print(f"wrote {n:,} {what} to {args.out}", file=sys.stderr)
+    if args.output:
+        print(f"wrote {n:,} {what} to {args.output}", file=sys.stderr)
     return 0

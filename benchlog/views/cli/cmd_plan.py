@@ -24,7 +24,11 @@ recorded units (--incumbent, from the store) or from assumed spreads (--unit-spr
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.epilog = EPILOG
     p.formatter_class = argparse.RawDescriptionHelpFormatter
-    p.add_argument("--spec", help="part spec (file or shipped part number): life and confidence from it")
+    p.add_argument(
+        "--spec",
+        help="part spec (file or shipped part number): life and confidence from it (default with --lot: "
+        "the part's stored spec)",
+    )
     p.add_argument(
         "--confidence", type=fraction, help="confidence to demonstrate (default: spec's, else 0.9)"
     )
@@ -68,7 +72,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import math
 
-    from benchlog.errors import ConfigError, DataError
+    from benchlog.errors import DataError, UsageError
     from benchlog.stats import (
         fit_weibull,
         life_top_up,
@@ -78,20 +82,43 @@ def run(args: argparse.Namespace) -> int:
         weibayes_units,
     )
 
+    if args.failures < 0:
+        raise UsageError("--failures cannot be negative")
+    if args.units is not None and args.units < 1:
+        raise UsageError("--units must be at least 1")
+    lot = None
+    if args.lot:
+        from benchlog.store import Store
+        from benchlog.views.report._data import load_lot
+
+        store = Store.open(args.db, readonly=True)
+        try:
+            lot = load_lot(store, args.lot, with_runs=False)
+        finally:
+            store.close()
     life, conf = args.life, args.confidence
+    spec = None
     if args.spec:
         from benchlog.analysis import load_spec
 
         spec = load_spec(args.spec)
+    elif lot is not None and lot.spec_toml and not (life and conf):
+        from benchlog.views.report._data import spec_for
+
+        spec, _ = spec_for(None, lot)  # the part's stored spec, as qualify uses it
+    if spec is not None:
         if spec.life is not None:
             life = life or float(spec.life.min_cycles)
             conf = conf or spec.life.confidence
     conf = conf or 0.9
     rel = args.reliability
-    if args.failures < 0:
-        raise ConfigError("--failures cannot be negative")
-    if args.units is not None and args.units < 1:
-        raise ConfigError("--units must be at least 1")
+    if lot is not None and not life:
+        from benchlog.errors import SpecError
+
+        raise SpecError(
+            f"{lot.label}: no life to show: give --life or --spec (the store holds no spec with a life "
+            f"for {lot.part_number})"
+        )
     x = 100 * (1 - rel)
     print(
         f"demonstrate: reliability {rel:.4g} (B{x:g} life) at {conf:.0%} confidence, "
@@ -128,17 +155,7 @@ def run(args: argparse.Namespace) -> int:
         )
     if args.oc:
         _operating_characteristic(args, conf)
-    if args.lot:
-        if not life:
-            raise ConfigError("a running test needs the life to show: --life or --spec")
-        from benchlog.store import Store
-        from benchlog.views.report._data import load_lot
-
-        store = Store.open(args.db, readonly=True)
-        try:
-            lot = load_lot(store, args.lot, with_runs=False)
-        finally:
-            store.close()
+    if lot is not None:
         table = lot.population.life
         if table is None or not len(table):
             raise DataError(f"{lot.label}: no unit has cycled yet")

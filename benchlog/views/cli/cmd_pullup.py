@@ -6,6 +6,7 @@ import argparse
 import json
 import math
 
+from benchlog.views.cli._args import JSON_HELP
 from benchlog.views.cli.cmd_debounce import _ohms, _pct, _pos_float
 
 NAME = "pullup"
@@ -62,15 +63,15 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         default=10e6,
         help="meter input resistance, ohms, or 'inf' to ignore its loading (default 10M)",
     )
-    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
 
 
 def run(args) -> int:
     from benchlog.design import Meter, estimate_pullup, format_si
-    from benchlog.errors import ConfigError
+    from benchlog.errors import UsageError
 
     if not 0 <= args.meter_pct < 100:
-        raise ConfigError("--meter-pct must be between 0 and 100")
+        raise UsageError("--meter-pct must be between 0 and 100")
     meter = Meter(args.meter_pct, args.meter_digits, args.meter_step, args.meter_input)
     est = estimate_pullup(args.v_open, args.v_load, args.resistor, args.resistor_tol, meter)
     if args.json:

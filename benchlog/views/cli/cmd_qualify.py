@@ -4,33 +4,21 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli._args import non_negative, number_within, positive
+from benchlog.views.cli._args import JSON_HELP, add_output, non_negative, number_within, positive
 
 NAME = "qualify"
 HELP = "Judge a candidate lot against a part spec and the incumbent lot: pass, fail or not yet decidable."
 
 EPILOG = """\
 LOT is PART:LOT (e.g. VS-505:L1), a lot code held by one part, or a part number (all its lots pooled).
-Exit status: 0 pass, 1 fail, 2 not yet decidable (not enough data); 64 a usage error; other codes are
-errors (6 store, 8 spec, 10 data: e.g. an unknown lot).
+The verdict is the exit status: 0 pass, 1 fail, 2 not yet decidable (not enough data); a usage error
+is 64, never 2. With --json the table goes to standard error and standard output (or -o FILE) carries
+only the JSON document.
 """
-
-
-def usage_errors_exit_64(p: argparse.ArgumentParser) -> None:
-    """A usage error exits 64 (EX_USAGE of sysexits.h), so that exit 2 only ever means "not enough
-    data" to a script gating on the verdict."""
-    import sys
-
-    def error(message: str) -> None:
-        p.print_usage(sys.stderr)
-        p.exit(64, f"benchlog: error: {message}\n")
-
-    p.error = error  # type: ignore[method-assign]
 
 
 def add_common(p: argparse.ArgumentParser) -> None:
     """Options `qualify` and `report` share."""
-    usage_errors_exit_64(p)
     p.add_argument("--incumbent", required=True, metavar="LOT", help="the lot in use today")
     p.add_argument("--candidate", required=True, metavar="LOT", help="the lot that would replace it")
     p.add_argument(
@@ -79,7 +67,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.epilog = EPILOG
     p.formatter_class = argparse.RawDescriptionHelpFormatter
     add_common(p)
-    p.add_argument("--json", metavar="FILE", help="also write the full result as JSON ('-' for stdout)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP + " (the table goes to standard error)")
+    add_output(p, "write to FILE instead of standard output")
 
 
 def evaluate(args: argparse.Namespace, *, with_runs: bool = False):
@@ -119,10 +108,10 @@ def run(args: argparse.Namespace) -> int:
     ev = evaluate(args)
     q, inc, cand, spec_name = ev.qualification, ev.incumbent, ev.candidate, ev.spec_name
     conf = q.requirements.confidence
-    out = sys.stderr if args.json == "-" else sys.stdout  # '--json -': stdout carries only the JSON
+    lines: list[str] = []
 
     def say(text: str = "") -> None:
-        print(text, file=out)
+        lines.append(text)
 
     say(
         f"candidate {cand.label}, {len(cand.serial_of)} units; "
@@ -142,19 +131,24 @@ def run(args: argparse.Namespace) -> int:
         for name, text in notes:
             say(f"  {name}: {text}")
     say(f"\nverdict: {q.outcome.upper()} (exit {q.exit_code})")
+    table = "\n".join(lines) + "\n"
     if args.json:
         doc = q.to_dict()
         doc["spec"] = spec_name
         doc["lots"] = {"incumbent": inc.label, "candidate": cand.label}
-        text = json.dumps(doc, indent=2)
-        if args.json == "-":
-            sys.stdout.write(text + "\n")
-        else:
-            from benchlog.errors import ConfigError
+        sys.stderr.write(table)  # standard output carries only the JSON document
+        text = json.dumps(doc, indent=2) + "\n"
+    else:
+        text = table
+    if args.output:
+        from benchlog.errors import ConfigError
 
-            try:
-                with open(args.json, "w", encoding="utf-8") as fh:
-                    fh.write(text + "\n")
-            except OSError as exc:
-                raise ConfigError(f"cannot write {args.json}: {exc.strerror or exc}") from exc
+        try:
+            with open(args.output, "w", encoding="utf-8") as fh:
+                fh.write(text)
+        except OSError as exc:
+            raise ConfigError(f"cannot write {args.output}: {exc.strerror or exc}") from exc
+        print(f"wrote {args.output}: verdict {q.outcome} (exit {q.exit_code})", file=sys.stderr)
+    else:
+        sys.stdout.write(text)
     return q.exit_code

@@ -5,15 +5,19 @@ from __future__ import annotations
 import argparse
 import sys
 
+from benchlog.views.cli._args import add_profile
+
 NAME = "record"
 HELP = "Cycle the units on a sampler bench and record every make and break into the database."
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("port", nargs="?", help="a device, pty path, pyserial URL, or a capture file")
+    p.add_argument(
+        "port", nargs="?", metavar="PORT", help="a device, pty path, pyserial URL, or a capture file"
+    )
     p.add_argument("--sim", metavar="PRESET", help="start the simulated sampler (a preset or TOML file)")
     p.add_argument("--bench", help="bench name (registered on first use)")
-    p.add_argument("--profile", metavar="ON_MS:OFF_MS:CYCLES", help="cycle profile, e.g. 50:50:200000")
+    add_profile(p, "cycle profile, e.g. 50:50:200000 (CYCLES 0 = until stopped)")
     p.add_argument(
         "--units",
         nargs="+",
@@ -48,19 +52,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import threading
 
-    from benchlog.errors import ConfigError, StoreError
+    from benchlog.errors import StoreError, UsageError
     from benchlog.views.cli._signals import stop_signals
 
     if not args.port and not args.sim:
-        raise ConfigError("give the sampler's PORT, or --sim PRESET for the simulated sampler")
+        raise UsageError("give the sampler's PORT, or --sim PRESET for the simulated sampler")
     if args.port and args.sim:
-        raise ConfigError("give either PORT or --sim, not both")
+        raise UsageError("give either PORT or --sim, not both")
     if args.fail_after < 1:
-        raise ConfigError("--fail-after must be at least 1")
+        raise UsageError("--fail-after must be at least 1")
     if args.window < 1:
-        raise ConfigError("--window must be at least 1 cycle")
+        raise UsageError("--window must be at least 1 cycle")
     if not args.sim_speed > 0:
-        raise ConfigError("--sim-speed must be > 0")
+        raise UsageError("--sim-speed must be > 0")
 
     sim_cfg = _sim_config(args) if args.sim else None
     store = _open_existing(args.db)  # a new SQLite file is made only once the sampler is heard
@@ -152,7 +156,7 @@ class _Session:
 
     # -- what to record ------------------------------------------------------------------------------
     def _units(self):
-        from benchlog.errors import ConfigError
+        from benchlog.errors import UsageError
         from benchlog.recorder import UnitAssignment, parse_units
 
         a = self.args
@@ -170,19 +174,18 @@ class _Session:
                 )
                 for u in cfg.units
             ]
-        raise ConfigError("give the units: --units CH=SERIAL ... (with --part) or CH=PART/LOT/SERIAL")
+        raise UsageError("give the units: --units CH=SERIAL ... (with --part) or CH=PART/LOT/SERIAL")
 
     def _plan(self):
         """Everything checked before the port opens, reading only: (units or None, profile, specs,
         (on_ms, off_ms), the run to resume or None)."""
-        from benchlog.errors import ConfigError, StoreError
-        from benchlog.recorder import parse_profile
+        from benchlog.errors import StoreError, UsageError
         from benchlog.recorder._setup import spec_for
 
         a = self.args
         if a.resume is not None:
             if a.profile:
-                raise ConfigError("--resume keeps the run's own profile: leave out --profile")
+                raise UsageError("--resume keeps the run's own profile: leave out --profile")
             if self.store is None:
                 raise StoreError(f"no run {a.resume}: there is no database yet")
             run = self.store.run(a.resume)
@@ -196,10 +199,10 @@ class _Session:
                 specs[ru.channel] = spec_for(ru.unit.part_number, a.spec)[0]
             return None, None, specs, (on_ms, off_ms), run
         if not a.bench:
-            raise ConfigError("give --bench NAME (or --resume RUN)")
+            raise UsageError("give --bench NAME (or --resume RUN)")
         if not a.profile:
-            raise ConfigError("give --profile ON_MS:OFF_MS:CYCLES, e.g. 50:50:200000")
-        profile = parse_profile(a.profile)
+            raise UsageError("give --profile ON_MS:OFF_MS:CYCLES, e.g. 50:50:200000")
+        profile = a.profile
         units = self._units()
         specs = {}
         for u in units:  # a spec that does not parse stops here, before anything is written

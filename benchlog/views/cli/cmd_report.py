@@ -4,17 +4,25 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli.cmd_qualify import EPILOG, add_common
+from benchlog.views.cli._args import add_output
+from benchlog.views.cli.cmd_qualify import add_common
 
 NAME = "report"
 HELP = "Write a self-contained HTML or PDF qualification report (verdict, plots, life, runs, the spec used)."
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.epilog = EPILOG.replace("Exit status", "Exit status (as for qualify)")
-    p.formatter_class = argparse.RawDescriptionHelpFormatter
+    p.epilog = (
+        "The verdict is the exit status, as for qualify: 0 pass, 1 fail, 2 not yet decidable.\n"
+        "An existing FILE is kept unless --force is given."
+    )
     add_common(p)
-    p.add_argument("-o", "--output", default="qualification.html", help="HTML file to write")
+    add_output(
+        p,
+        "the HTML or PDF file to write (default: qualification.html; with --pdf, qualification.pdf)",
+        default="qualification.html",
+    )
+    p.add_argument("--force", action="store_true", help="replace FILE if it exists")
     add_quality_file(p)
 
 
@@ -67,11 +75,16 @@ def report_info(args: argparse.Namespace):
 
 
 def run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from benchlog.errors import UsageError
     from benchlog.views.cli.cmd_qualify import evaluate
     from benchlog.views.report import write_report
 
     if args.pdf and args.output == "qualification.html":
         args.output = "qualification.pdf"
+    if Path(args.output).exists() and not args.force:
+        raise UsageError(f"{args.output} exists: give --force to replace it, or -o another file")
     ev = evaluate(args, with_runs=True)
     write_report(args.output, ev, report_info(args), pdf=args.pdf)
     q = ev.qualification

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli._args import number_within, positive
+from benchlog.views.cli._args import add_profile, number_within, positive
 
 NAME = "sim"
 HELP = "Run a simulated sampler bench on a pseudo-terminal and print its port path."
@@ -12,20 +12,14 @@ HELP = "Run a simulated sampler bench on a pseudo-terminal and print its port pa
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--preset", default="demo", help="a shipped preset name or a TOML file (default: demo)")
-    p.add_argument("--list-presets", action="store_true", help="list the shipped presets and exit")
+    p.add_argument("--list-presets", action="store_true", help="list the shipped simulator presets and exit")
     p.add_argument("--form", choices=("line", "packed"), help="record form at power-up (default: preset's)")
     p.add_argument("--speed", type=positive, default=1.0, help="sampler time runs N times the wall clock")
     p.add_argument("--seed", type=int, default=0, help="random seed (units, bounce, faults)")
     p.add_argument("--link", help="path of the port link to create (default: a new temporary directory)")
     p.add_argument("--counter-bits", type=int, help="override the sampler's counter width (16-64)")
     p.add_argument("--ppm", type=float, help="override the sampler clock error, parts per million")
-    p.add_argument(
-        "--cycle",
-        nargs=3,
-        metavar=("ON_MS", "OFF_MS", "CYCLES"),
-        type=float,
-        help="start cycling every unit at power-up without waiting for host commands",
-    )
+    add_profile(p, "start cycling every unit at power-up with this profile, without waiting for the host")
     g = p.add_argument_group("faults")
     g.add_argument(
         "--drop-rate",
@@ -49,7 +43,6 @@ def run(args: argparse.Namespace) -> int:
     import threading
     from dataclasses import replace
 
-    from benchlog.errors import ConfigError
     from benchlog.sim import Autostart, PtySampler, load_preset, preset_names
     from benchlog.views.cli._signals import stop_signals
 
@@ -84,11 +77,9 @@ def run(args: argparse.Namespace) -> int:
         faults["pull_powers_off"] = True
     if faults:
         cfg = cfg.with_faults(**faults)
-    if args.cycle:
-        on_ms, off_ms, count = args.cycle
-        if on_ms <= 0 or off_ms <= 0 or count < 0:
-            raise ConfigError("--cycle needs ON_MS > 0, OFF_MS > 0 and CYCLES >= 0")
-        cfg = replace(cfg, autostart=Autostart(on_ms, off_ms, int(count)))
+    if args.profile:
+        prof = args.profile
+        cfg = replace(cfg, autostart=Autostart(prof.on_ms, prof.off_ms, prof.cycles))
 
     stop = threading.Event()
     with stop_signals(stop), PtySampler(cfg, seed=args.seed, speed=args.speed, link=args.link) as sim:

@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from benchlog.views.cli._args import add_profile, positive
+
 NAME = "watch"
 HELP = "Print a sampler's decoded edges, drive switchings and incidents live (any pyserial URL)."
 
@@ -23,16 +25,15 @@ def _channels(text: str) -> list[int]:
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("port", nargs="?", help="device path, pty path, socket://HOST:PORT or rfc2217://HOST:PORT")
+    p.add_argument(
+        "port",
+        nargs="?",
+        metavar="PORT",
+        help="device path, pty path, socket://HOST:PORT or rfc2217://HOST:PORT",
+    )
     p.add_argument("--list", action="store_true", help="list this machine's serial ports and exit")
     p.add_argument("--summary", action="store_true", help="one line per second instead of one per edge")
-    p.add_argument(
-        "--cycle",
-        nargs=3,
-        type=float,
-        metavar=("ON_MS", "OFF_MS", "CYCLES"),
-        help="send a cycle profile (CYCLES 0 = until stopped) and start it",
-    )
+    add_profile(p, "send a cycle profile (CYCLES 0 = until stopped) and start it")
     p.add_argument(
         "--on",
         type=_channels,
@@ -40,7 +41,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="channels the profile runs on (default: every announced channel)",
     )
     p.add_argument("--form", choices=("line", "packed"), help="ask the sampler for this record form")
-    p.add_argument("--for", dest="duration", type=float, metavar="SECONDS", help="stop after this long")
+    p.add_argument("--for", dest="duration", type=positive, metavar="SECONDS", help="stop after this long")
     p.add_argument(
         "--wait",
         type=float,
@@ -50,7 +51,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--speed",
-        type=float,
+        type=positive,
         default=1.0,
         help="the sampler runs N times real time (a simulator started with --speed N)",
     )
@@ -82,7 +83,7 @@ def _incident_line(inc) -> str:
 def run(args: argparse.Namespace) -> int:
     import time
 
-    from benchlog.errors import ConfigError, PortError
+    from benchlog.errors import PortError, UsageError
     from benchlog.ingest import Feed
     from benchlog.link import list_ports
     from benchlog.wire import Halt, Plan, SetForm
@@ -95,18 +96,14 @@ def run(args: argparse.Namespace) -> int:
             print("no serial ports found", file=sys.stderr)
         return 0
     if not args.port:
-        raise ConfigError("watch needs a PORT (or --list)")
-    if args.speed <= 0:
-        raise ConfigError(f"--speed must be > 0, got {args.speed}")
-    if args.cycle and (args.cycle[0] <= 0 or args.cycle[1] <= 0 or args.cycle[2] < 0):
-        raise ConfigError("--cycle needs ON_MS > 0, OFF_MS > 0 and CYCLES >= 0")
+        raise UsageError("watch needs a PORT (or --list)")
 
     out = sys.stdout
     started = False
     t0 = time.monotonic()
     with Feed(args.port, speed=args.speed, wait_s=args.wait, baudrate=args.baud) as feed:
         print(f"# watching {args.port} (Ctrl-C to stop)", file=out, flush=True)
-        pending_cycle = bool(args.cycle)
+        pending_cycle = args.profile is not None
         if args.form:
             feed.send(SetForm("L" if args.form == "line" else "P"))
         sec_edges = sec_drives = 0
@@ -118,7 +115,7 @@ def run(args: argparse.Namespace) -> int:
                 if pending_cycle and feed.timeline.announcement is not None:
                     ann = feed.timeline.announcement
                     channels = args.on or list(range(ann.channels))
-                    on_ms, off_ms, cycles = args.cycle
+                    on_ms, off_ms, cycles = args.profile.on_ms, args.profile.off_ms, args.profile.cycles
                     plans = [
                         Plan(ch, round(on_ms * 1000), round(off_ms * 1000), int(cycles)) for ch in channels
                     ]
