@@ -83,18 +83,29 @@ StepFn = Callable[[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray], t
 
 
 def _lockstep(
-    runs: SampledRuns, forget: np.ndarray, init: Callable[[int], dict[str, np.ndarray]], step: StepFn
+    runs: SampledRuns,
+    forget: np.ndarray,
+    init: Callable[[int], dict[str, np.ndarray]],
+    step: StepFn,
+    fresh: np.ndarray | None = None,
 ) -> Transitions:
-    """Step every independent segment at once; `forget[r]` says run r resets the state after it."""
+    """Step every independent segment at once; `forget[r]` says run r resets the state after it.
+    `fresh[r]` marks a run that starts a recording of its own (several channels replayed together):
+    a segment starts there, its output equal to that run's value."""
     nrun = len(runs)
+    if fresh is None:
+        fresh = np.zeros(nrun, bool)
+        fresh[0] = True
+    forget = forget.copy()
+    forget[np.flatnonzero(fresh)[1:] - 1] = True
     seg_start = np.concatenate(([0], np.flatnonzero(forget[:-1]) + 1))
     seg_len = np.diff(np.concatenate((seg_start, [nrun])))
     order = np.argsort(-seg_len, kind="stable")
     seg_start, seg_len = seg_start[order], seg_len[order]
-    state = init(len(seg_start))
-    state["y"] = np.where(seg_start == 0, runs.value[0], runs.value[np.maximum(seg_start - 1, 0)]).astype(
-        np.int8
-    )
+    state = init(seg_start)
+    state["y"] = np.where(
+        fresh[seg_start], runs.value[seg_start], runs.value[np.maximum(seg_start - 1, 0)]
+    ).astype(np.int8)
     neg_len = -seg_len
     at_parts, val_parts = [], []
     for j in range(int(seg_len.max()) if nrun else 0):
@@ -112,28 +123,38 @@ def _lockstep(
     return at[order].astype(np.int64), val[order].astype(np.int8)
 
 
-def lockout(runs: SampledRuns, n: int) -> Transitions:
-    n = max(int(n), 1)
+def lockout(
+    runs: SampledRuns, n, fresh: np.ndarray | None = None, seg_of: np.ndarray | None = None
+) -> Transitions:
+    """`n` is one window, or one window per recording of a joined replay (`seg_of`: each run's
+    recording, `fresh`: each recording's first run)."""
+    n_run = np.maximum(_per_run(n, seg_of, len(runs)), 1)
 
-    def init(m: int) -> dict[str, np.ndarray]:
-        return {"free_at": np.full(m, np.iinfo(np.int64).min // 2, np.int64)}
+    def init(first_runs: np.ndarray) -> dict[str, np.ndarray]:
+        m = len(first_runs)
+        return {"free_at": np.full(m, np.iinfo(np.int64).min // 2, np.int64), "n": n_run[first_runs]}
 
     def step(st, v, s, length):
         q = np.maximum(s, st["free_at"])
         take = (v != st["y"]) & (q < s + length)
         st["y"][take] = v[take]
-        st["free_at"][take] = q[take] + n
+        st["free_at"][take] = q[take] + st["n"][take]
         return q[take], v[take]
 
-    return _lockstep(runs, runs.length >= 2 * n, init, step)
+    return _lockstep(runs, runs.length >= 2 * n_run, init, step, fresh)
 
 
-def confirm(runs: SampledRuns, make: int, brk: int) -> Transitions:
-    make, brk = max(int(make), 0), max(int(brk), 0)
+def confirm(
+    runs: SampledRuns, make, brk, fresh: np.ndarray | None = None, seg_of: np.ndarray | None = None
+) -> Transitions:
+    """`make` and `brk` are one pair of windows, or one pair per recording of a joined replay."""
+    make_run = np.maximum(_per_run(make, seg_of, len(runs)), 0)
+    brk_run = np.maximum(_per_run(brk, seg_of, len(runs)), 0)
     none = np.int64(-1)
 
-    def init(m: int) -> dict[str, np.ndarray]:
-        return {"check": np.full(m, none, np.int64)}
+    def init(first_runs: np.ndarray) -> dict[str, np.ndarray]:
+        m = len(first_runs)
+        return {"check": np.full(m, none, np.int64), "make": make_run[first_runs], "brk": brk_run[first_runs]}
 
     def step(st, v, s, length):
         e = s + length
@@ -146,14 +167,22 @@ def confirm(runs: SampledRuns, make: int, brk: int) -> Transitions:
         y[accept_due] = v[accept_due]
         check[due] = none
         detect = waiting_at_start & (v != y)
-        c = s + np.where(v == 1, make, brk)
+        c = s + np.where(v == 1, st["make"], st["brk"])
         now = detect & (c < e)
         y[now] = v[now]
         later = detect & ~now
         check[later] = c[later]
         return np.concatenate((at_due, c[now])), np.concatenate((val_due, v[now]))
 
-    return _lockstep(runs, runs.length >= max(make, brk) + 1, init, step)
+    return _lockstep(runs, runs.length >= np.maximum(make_run, brk_run) + 1, init, step, fresh)
+
+
+def _per_run(value, seg_of: np.ndarray | None, nrun: int) -> np.ndarray:
+    """A parameter given once or once per recording, spread to one value per run."""
+    arr = np.asarray(value, np.int64)
+    if arr.ndim == 0:
+        return np.full(nrun, int(arr), np.int64)
+    return arr[seg_of]
 
 
 KINDS = ("lockout", "stable", "integrator", "confirm")
@@ -162,11 +191,66 @@ KINDS = ("lockout", "stable", "integrator", "confirm")
 def replay(runs: SampledRuns, kind: str, n: int, brk: int | None = None) -> Transitions:
     """Accepted transitions of debouncer `kind` with parameter `n` (and `brk` for `confirm`)."""
     if kind == "lockout":
-        return lockout(runs, n)
+        return lockout(runs, max(int(n), 1))
     if kind == "stable":
         return stable(runs, n)
     if kind == "integrator":
         return integrator(runs, n)
     if kind == "confirm":
-        return confirm(runs, n, n if brk is None else brk)
+        return confirm(runs, int(n), int(n if brk is None else brk))
     raise ValueError(f"unknown debouncer {kind!r}")
+
+
+def replay_many(many: list[SampledRuns], kind: str, n: int, brk: int | None = None) -> list[Transitions]:
+    """`replay` on several recordings at once, one result per recording."""
+    return replay_grid(many, kind, [(n, n if brk is None else brk)])[0]
+
+
+JOIN_RUNS = 4_000_000  # runs stepped together at most (memory: about 100 bytes a run)
+
+
+def replay_grid(
+    many: list[SampledRuns], kind: str, params: list[tuple[int, int]], join_runs: int = JOIN_RUNS
+) -> list[list[Transitions]]:
+    """`replay` of every recording with every parameter pair `(n, brk)` (`brk` used by `confirm`):
+    result[param][recording]. The state machines (`lockout`, `confirm`) step every recording and
+    parameter together, so the Python loop runs once over the longest segment of all, not once per
+    recording and parameter."""
+    if kind not in ("lockout", "confirm"):
+        return [[replay(r, kind, m, b) for r in many] for m, b in params]
+    per_param = max(sum(len(r) for r in many), 1)
+    chunk = max(1, join_runs // per_param)
+    out: list[list[Transitions]] = []
+    for lo in range(0, len(params), chunk):
+        out += _replay_joined(many, kind, params[lo : lo + chunk])
+    return out
+
+
+def _replay_joined(
+    many: list[SampledRuns], kind: str, params: list[tuple[int, int]]
+) -> list[list[Transitions]]:
+    jobs = [(i, r) for i in range(len(params)) for r in many]
+    offsets, lo = [], 0
+    for _, r in jobs:
+        offsets.append(lo - int(r.start[0]))
+        lo += int(r.start[-1] + r.length[-1] - r.start[0]) + 1
+    bounds = np.array([o + int(r.start[0]) for o, (_, r) in zip(offsets, jobs, strict=True)] + [lo], np.int64)
+    sizes = np.array([len(r) for _, r in jobs], np.int64)
+    joined = SampledRuns(
+        np.concatenate([r.value for _, r in jobs]),
+        np.concatenate([r.start + o for (_, r), o in zip(jobs, offsets, strict=True)]),
+        np.concatenate([r.length for _, r in jobs]),
+        many[0].ts_ns,
+    )
+    fresh = np.zeros(len(joined), bool)
+    fresh[np.concatenate(([0], np.cumsum(sizes)[:-1]))] = True
+    seg_of = np.repeat(np.arange(len(jobs)), sizes)
+    m = np.array([params[i][0] for i, _ in jobs], np.int64)
+    b = np.array([params[i][1] for i, _ in jobs], np.int64)
+    if kind == "lockout":
+        at, val = lockout(joined, np.maximum(m, 1), fresh, seg_of)
+    else:
+        at, val = confirm(joined, m, b, fresh, seg_of)
+    cut = np.searchsorted(at, bounds)
+    flat = [(at[cut[j] : cut[j + 1]] - offsets[j], val[cut[j] : cut[j + 1]]) for j in range(len(jobs))]
+    return [flat[i * len(many) : (i + 1) * len(many)] for i in range(len(params))]

@@ -55,6 +55,8 @@ def score(windows: Windows, row: np.ndarray, t_ns: np.ndarray, new: np.ndarray, 
 
     def level_before(times: np.ndarray) -> np.ndarray:
         """Output level of each row just before each time: shape rows x len(times)."""
+        if len(key) == 0:  # no output changed at all (a window longer than every recorded run)
+            return np.repeat(initial[:, None], len(times), axis=1).astype(np.int8)
         q = np.arange(nrow)[:, None] * span + (times[None, :] - base)
         pos = np.searchsorted(key, q, side="left") - 1
         valid = pos >= 0

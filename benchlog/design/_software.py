@@ -24,13 +24,14 @@ Over the unit's life the actuations are split into windows of cycles and the sam
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from benchlog.analysis._types import MAKE
 from benchlog.design._actuations import BounceFigures, ChannelRecord, bounce_figures
-from benchlog.design._debouncers import KINDS, replay
+from benchlog.design._debouncers import KINDS, replay_grid
 from benchlog.design._runs import SampledRuns, sample_runs
 from benchlog.design._score import Score, score
 from benchlog.design._tail import Tail, fit_tail, zero_event_bound
@@ -121,11 +122,12 @@ class _Channel:
 
 def _score_params(chans: list[_Channel], debouncer: str, params: list[tuple[int, int]], ts: int) -> Score:
     """Score every (make, brk) parameter pair (rows) on every channel (windows concatenated)."""
+    per_param = replay_grid([ch.runs for ch in chans], debouncer, params)
     parts = []
-    for ch in chans:
+    for c, ch in enumerate(chans):
         rows, ts_all, vals = [], [], []
-        for i, (m, b) in enumerate(params):
-            at, v = replay(ch.runs, debouncer, m, b)
+        for i in range(len(params)):
+            at, v = per_param[i][c]
             rows.append(np.full(len(at), i))
             ts_all.append(at * ts)
             vals.append(v)
@@ -184,6 +186,7 @@ def design_software(
     debouncers: tuple[str, ...] = KINDS,
     life_windows: int = 4,
     max_samples: int | None = None,
+    on_step: Callable[[str], None] | None = None,
 ) -> SoftwareDesign:
     """Sweep, recommend and follow over life each debouncer on the recorded channels (see module doc)."""
     ts = int(ts_ns)
@@ -211,6 +214,8 @@ def design_software(
     choices: dict[str, Choice] = {}
     life_scores: dict[str, tuple[list[tuple[int, int]], Score]] = {}
     for deb in debouncers:
+        if on_step is not None:
+            on_step(deb)
         fit_m, fit_b = _fits(chans, FIGURE[deb])
         need_all = max(_covering(deb, fit_m.isf(target_rate), ts), _covering(deb, fit_b.isf(target_rate), ts))
         top_n = n_max if max_samples else max(n_max, int(need_all * 1.25) + 2)
@@ -247,6 +252,8 @@ def design_software(
         choices[deb] = _choose(
             chans, deb, want, ts, fit_m, fit_b, judged_all, n_judged, target_rate, pts, limit
         )
+    if on_step is not None:
+        on_step("life windows")
     life = _life(chans, life_scores, judged_all, kinds, cycles, ts, target_rate, life_windows)
     return SoftwareDesign(ts, target_rate, n_judged, sweeps, choices, life)
 

@@ -159,3 +159,50 @@ def test_pullup_command(capsys):
     assert out["pullup_ohms"] == pytest.approx(33e3)  # V open and V/2 across R: pull-up = R
     assert main(["pullup", "--open", "2", "--loaded", "3", "--resistor", "1k"]) != 0
     assert capsys.readouterr().err.startswith("benchlog: error:")
+
+
+def _debounce_with_stderr_on(edge_file, stderr_fd):
+    import os
+    import subprocess
+    import sys
+
+    argv = [sys.executable, "-m", "benchlog", "debounce", "--edges", str(edge_file), "--sample-ms", "0.5"]
+    env = {**os.environ, "COLUMNS": "80"}
+    proc = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=stderr_fd, env=env)
+    try:
+        out, err = proc.communicate(timeout=300)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    return proc.returncode, out, err
+
+
+def test_progress_on_a_terminal_and_quiet_when_piped(edge_file):
+    import os
+    import pty
+    import subprocess
+
+    code, out, err = _debounce_with_stderr_on(edge_file, subprocess.PIPE)
+    assert code == 0 and b"Recommended software debounce" in out and err == b""  # piped: not a byte
+    leader, follower = pty.openpty()
+    try:
+        code, out, _ = _debounce_with_stderr_on(edge_file, follower)
+        os.close(follower)
+        follower = -1
+        shown = b""
+        while True:
+            try:
+                chunk = os.read(leader, 65536)
+            except OSError:  # the terminal closed with the child: everything was read
+                break
+            if not chunk:
+                break
+            shown += chunk
+    finally:
+        if follower >= 0:
+            os.close(follower)
+        os.close(leader)
+    assert code == 0 and b"Recommended software debounce" in out
+    bars = [b for b in shown.split(b"\r") if b.startswith(b"debounce [")]
+    assert bars and all(b"/6" in b for b in bars)  # a bar of six steps: reading, four debouncers, life

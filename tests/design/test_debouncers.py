@@ -126,3 +126,38 @@ def test_run_length_replays_match_per_sample_loops():
                 at, v = confirm(runs, n, brk)
                 want = [(int(a), int(b)) for a, b in ref.confirm(ks, x, n, brk)]
                 assert list(zip(at.tolist(), v.tolist(), strict=True)) == want
+
+
+@pytest.mark.parametrize("kind, n, brk", [("lockout", 3, None), ("confirm", 2, 5), ("confirm", 6, 1)])
+def test_several_recordings_replayed_together_as_each_alone(kind, n, brk):
+    from benchlog.design._debouncers import replay_many
+
+    from ._bouncing import bouncing
+
+    many = []
+    for seed, start_ms in ((1, 0), (2, 7), (3, 1000)):  # overlapping and distinct time spans
+        e = bouncing(40, 40 * MS, np.log(2e6), 0.5, np.log(3e6), 0.5, seed=seed)
+        many.append(sample_runs(e.t_ns + start_ms * MS, e.level, MS))
+    many.append(sample_runs(*_edges(MAKE), MS))  # one short recording that starts closed-to-open
+    together = replay_many(many, kind, n, brk)
+    for runs, (at, val) in zip(many, together, strict=True):
+        alone_at, alone_val = replay(runs, kind, n, brk)
+        assert at.tolist() == alone_at.tolist() and val.tolist() == alone_val.tolist()
+
+
+@pytest.mark.parametrize("kind", ["lockout", "confirm", "stable", "integrator"])
+def test_a_parameter_grid_replayed_together_as_each_alone(kind):
+    from benchlog.design._debouncers import replay_grid
+
+    from ._bouncing import bouncing
+
+    many = [sample_runs(*_edges(MAKE), MS)]
+    for seed in (4, 5):
+        e = bouncing(30, 40 * MS, np.log(2e6), 0.6, np.log(3e6), 0.6, seed=seed)
+        many.append(sample_runs(e.t_ns, e.level, MS))
+    params = [(1, 1), (2, 9), (7, 3), (12, 12), (30, 2)]
+    grid = replay_grid(many, kind, params, join_runs=200)  # several chunks of parameters
+    for (m, b), results in zip(params, grid, strict=True):
+        for runs, (at, val) in zip(many, results, strict=True):
+            alone_at, alone_val = replay(runs, kind, m, b)
+            assert at.tolist() == alone_at.tolist() and val.tolist() == alone_val.tolist()

@@ -51,6 +51,17 @@ def test_score_by_hand():
     assert s.delay_ns[1, 0] == 5 and np.isnan(s.delay_ns[1, 1])
 
 
+def test_score_of_an_output_that_never_changed():
+    # a debouncer window longer than every run accepts nothing: each window needing a change is
+    # missed and none is false (counted by hand)
+    win = Windows(np.array([0, 100]), np.array([100, 200]), np.array([1, 0], np.int8), np.array([True, True]))
+    none = np.zeros(0, np.int64)
+    s = score(win, none, none, none.astype(np.int8), np.array([0, 0], np.int8))
+    assert s.false.tolist() == [[0, 0], [0, 0]]
+    assert s.missed.tolist() == [[True, False], [True, False]]
+    assert np.isnan(s.delay_ns).all()
+
+
 @pytest.fixture(scope="module")
 def design():
     # makes: bounce ~ lognormal(median 1 ms, sigma 0.4); breaks: median 2 ms, sigma 0.3

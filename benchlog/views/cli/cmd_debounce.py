@@ -388,11 +388,26 @@ def run(args) -> int:
             try_pair = (_ohms(r_text), _farads(c_text))
         except argparse.ArgumentTypeError as exc:
             raise UsageError(f"--try: {exc}") from None
-    recs, names = load_records(args)
-    ts = int(round(args.sample_ms * 1e6))
-    soft = design_software(recs, ts, args.target_rate, kinds, args.life_windows)
-    hard = design_rc(recs, circuit, series, args.preferred, min_margin_v=args.margin) if circuit else None
-    tried = check_rc(recs, circuit, *try_pair, args.margin) if try_pair else None
+    from benchlog.views.cli._progress import Progress
+
+    bar = Progress("debounce", 2 + len(kinds) + (circuit is not None) + (try_pair is not None))
+    try:
+        bar.draw("reading the recordings", force=True)
+        recs, names = load_records(args)
+        bar.step(f"{len(recs)} recordings")
+        ts = int(round(args.sample_ms * 1e6))
+        soft = design_software(
+            recs, ts, args.target_rate, kinds, args.life_windows, on_step=lambda what: bar.step(what)
+        )
+        if circuit is not None:
+            bar.draw("RC at every tolerance corner", force=True)
+            hard = design_rc(recs, circuit, series, args.preferred, min_margin_v=args.margin)
+            bar.step()
+        else:
+            hard = None
+        tried = check_rc(recs, circuit, *try_pair, args.margin) if try_pair else None
+    finally:
+        bar.close()
     if args.plot:
         try:
             args.plot.mkdir(parents=True, exist_ok=True)
