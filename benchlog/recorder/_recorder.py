@@ -219,7 +219,7 @@ class Recorder:
         w = self.writer
         done = w.run_cycles_done()
         rate = max(w._rate, 0.0)
-        eta = (w.target_cycles - done) / rate if w.target_cycles and rate > 0 else None
+        eta = max(w.target_cycles - done, 0) / rate if w.target_cycles and rate > 0 else None
         failed = sum(1 for st in w.status.values() if st == "failed")
         return Progress(
             w.run_id,

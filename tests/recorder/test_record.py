@@ -195,3 +195,18 @@ def test_units_failing_in_the_simulator_are_marked_failed(open_store):
         else:  # a missed make or a weld shows on the very cycle it starts
             assert math.ceil(true_life) <= ru.unit.failed_at_cycle <= math.ceil(true_life) + 1
     assert store.run(w.run_id).end_reason == "all_failed"
+
+
+def test_record_sim_of_a_preset_that_cycles_at_power_up_stops_at_its_target(tmp_path, capsys):
+    # relay-night's sampler starts cycling at power-up; recording it must count only the run's own
+    # profile: exactly the target, no ETA below zero, and the actuations said are the ones stored
+    db = str(tmp_path / "night.sqlite")
+    argv = ["record", "--sim", "relay-night", "--bench", "N", "--profile", "50:50:60", "--sim-speed", "10"]
+    assert main([*argv, "--db", db, "--quiet"]) == 0
+    said = capsys.readouterr().out
+    with Store.open(db, readonly=True) as store:
+        (run,) = store.runs()
+        stored = len(store.actuations(runs=[run.id]))
+        assert run.cycles_done == 60 and run.end_reason == "target"
+        assert all(ru.cycles_done == 60 for ru in store.run_units(run.id))
+    assert f"60 cycles, {stored:,} actuations" in said

@@ -116,6 +116,7 @@ def _open_existing(db):
 
 
 def _sim_config(args):
+    from dataclasses import replace
     from pathlib import Path
 
     from benchlog.sim import load_config, load_preset, preset_names
@@ -127,6 +128,9 @@ def _sim_config(args):
 
             raise ConfigError(f"no simulator preset {args.sim!r}: one of {', '.join(preset_names())}")
         cfg = load_preset(args.sim)
+    # the recorder drives the cycling itself: a preset's cycling at power-up would add cycles to the run
+    # before its profile starts (and past its target)
+    cfg = replace(cfg, autostart=None)
     faults = {}
     if args.sim_pull_at is not None:
         faults["pull_at_s"] = args.sim_pull_at
