@@ -37,6 +37,7 @@ from benchlog.wire import (
 MAX_CYCLES_PER_STEP = 20_000  # per channel; a longer step is cut short (its end is returned)
 LOOKAHEAD_NS = 2_000_000_000  # cycles are generated this far ahead, in batches (numpy per batch)
 MAX_LOOKAHEAD_CYCLES = 2_000
+RNG_BLOCK = 50  # cycles are drawn in blocks of this many from their channel's own random stream
 
 SENT_DTYPE = np.dtype(
     [
@@ -107,6 +108,8 @@ class Bench:
         s = config.sampler
         self.rng = np.random.default_rng(seed)
         self._byte_rng = np.random.default_rng([seed, 1])
+        self._seed = seed
+        self._streams: dict[int, np.random.Generator] = {}
         self.units = {
             u.channel: draw_unit(self.rng, u.channel, u.serial, config.populations[u.population])
             for u in config.units
@@ -267,6 +270,13 @@ class Bench:
             del self._running[ch]
 
     # -- generation --------------------------------------------------------------------------------
+    def _stream(self, channel: int) -> np.random.Generator:
+        """The channel's own random stream (its cycles' draws, in order)."""
+        g = self._streams.get(channel)
+        if g is None:
+            g = self._streams[channel] = np.random.default_rng([self._seed, 2, channel])
+        return g
+
     def _generate(self, t_end: int) -> int:
         """Generate cycles starting before `t_end` (fewer if too many); returns the time up to which
         every event is known."""
@@ -282,6 +292,10 @@ class Bench:
             if run.cycles:
                 ahead = min(ahead, run.cycles - run.generated)
             want = max(want, ahead)
+            # whole blocks from the channel's own stream: the draws never depend on how wall-clock
+            # timing cut sampler time into steps, so a seed gives the same units however the host ran
+            end = -(-(run.generated + want) // RNG_BLOCK) * RNG_BLOCK
+            want = (min(end, run.cycles) if run.cycles else end) - run.generated
             if want > MAX_CYCLES_PER_STEP:
                 want = MAX_CYCLES_PER_STEP
                 known = min(known, run.start_ns + (run.generated + want) * run.period)
@@ -293,11 +307,17 @@ class Bench:
                 kind = np.full(len(t), DRIVE, np.uint8)
                 level = np.tile(np.array([1, 0], np.uint8), want)
             else:
-                (t, kind, level), truth = cycles(
-                    self.rng, unit, t0, run.on_ns, run.off_ns, want, s.max_bounces, s.min_pulse_us
-                )
-                if self.keep_truth:
-                    self.truth._act.append(truth)
+                pieces = []
+                for k in range(0, want, RNG_BLOCK):
+                    n = min(RNG_BLOCK, want - k)
+                    (tk, kk, lk), truth = cycles(
+                        self._stream(ch), unit, t0 + k * run.period, run.on_ns, run.off_ns, n,
+                        s.max_bounces, s.min_pulse_us,
+                    )  # fmt: skip
+                    pieces.append((tk, kk, lk))
+                    if self.keep_truth:
+                        self.truth._act.append(truth)
+                t, kind, level = (np.concatenate([p[i] for p in pieces]) for i in range(3))
             cyc = (t - run.start_ns) // run.period + 1
             parts.append((t, kind, np.full(len(t), ch, np.uint8), level, cyc))
         if len(parts) > 1:
