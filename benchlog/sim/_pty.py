@@ -75,6 +75,8 @@ class PtySampler:
         self._last_progress = time.monotonic()
         self._listening_since: float | None = None
         self.outages: list[tuple[float, float]] = []  # wall-clock (time.time) start/end of each pull
+        # an open port that takes nothing for this long has a stuck reader: its output is discarded
+        self.unheard_s = UNHEARD_S
         self.commands_seen: list[bytes] = []
         self.error: BaseException | None = None
         self.connected = threading.Event()
@@ -100,9 +102,12 @@ class PtySampler:
         if self._tmpdir:
             shutil.rmtree(self._tmpdir, ignore_errors=True)
 
-    def pull_cable(self, seconds: float) -> None:
-        """Pull the cable now (from any thread) for `seconds` of wall time."""
-        self._pull_request = float(seconds)
+    def pull_cable(self, seconds: float, hold: bool = False) -> None:
+        """Pull the cable now (from any thread) for `seconds` of wall time. `hold`: a sampler whose buffer
+        holds the whole outage: what was sent before the pull is read first, what the sampler sends
+        while the cable is out comes after it is back, so the outage costs no data and a seeded run
+        stays the same however long it lasts."""
+        self._pull_request = (float(seconds), bool(hold))
 
     @property
     def running(self) -> bool:
@@ -165,8 +170,11 @@ class PtySampler:
         self._send_records(bench.advance_to(bench.now_ns))
         while not self._stop.is_set():
             if self._pull_request is not None:
-                seconds, self._pull_request = self._pull_request, None
-                self._unplugged(seconds, faults.pull_powers_off, wall0, sim0)
+                (seconds, hold), self._pull_request = self._pull_request, None
+                if hold:
+                    self._unplugged_holding(seconds, wall0, sim0)
+                else:
+                    self._unplugged(seconds, faults.pull_powers_off, wall0, sim0)
                 continue
             if pull_at_ns is not None and bench.now_ns >= pull_at_ns:
                 pull_at_ns = None
@@ -185,7 +193,7 @@ class PtySampler:
                     step = min(step, max(pull_at_ns, bench.now_ns + 1))
                 self._send_records(bench.advance_to(step))
             self._flush()
-            if self._backlog and self.listening and time.monotonic() - self._last_progress > UNHEARD_S:
+            if self._backlog and self.listening and time.monotonic() - self._last_progress > self.unheard_s:
                 # nobody reads the port: like a board whose host is not listening, the sampler runs on
                 # and what it sends is lost (a reader that opens later hears the stream from then on)
                 self.bytes_lost_unheard += len(self._backlog)
@@ -293,6 +301,77 @@ class PtySampler:
             del self._cmd_buf[: nl + 1]
             self.commands_seen.append(line)
             self._send_records(self.bench.command_line(line))
+
+    def _unplugged_holding(self, seconds: float, wall0: float, sim0: int) -> None:
+        """A pull that loses nothing: everything already sent is read by the host first, then the pty
+        goes for `seconds`; the sampler runs on (keeping its pace) and keeps what it sends until the
+        port is back."""
+        bench = self.bench
+        end = time.monotonic() + 10.0
+        quiet_since = None  # the kernel's own buffers are not all counted: wait for a quiet moment
+        while time.monotonic() < end and not self._stop.is_set():
+            self._flush()
+            if self._backlog or self._unread():
+                quiet_since = None
+            elif quiet_since is None:
+                quiet_since = time.monotonic()
+            elif time.monotonic() - quiet_since > 0.2:
+                break
+            time.sleep(0.002)
+        start = time.time()
+        self._close_pty()
+        kept = bytearray()
+
+        def run_on() -> None:
+            target = sim0 + int((time.monotonic() - wall0) * self.speed * 1e9)
+            step = min(target, bench.now_ns + int(STEP_WALL_S * self.speed * 1e9))
+            if step > bench.now_ns:
+                kept.extend(bench.step_bytes(step))
+            time.sleep(0.005)
+
+        end_wall = time.monotonic() + seconds
+        while not self._stop.is_set() and time.monotonic() < end_wall:
+            run_on()
+        self._open_pty()
+        # until the host has the new port open (its reconnect takes a moment), the sampler keeps on
+        # holding what it sends
+        end_wall = time.monotonic() + 60.0
+        while not self._stop.is_set() and not self.listening and time.monotonic() < end_wall:
+            self._poll_open()
+            run_on()
+        self._backlog += kept
+        self.outages.append((start, time.time()))
+
+    def _poll_open(self) -> None:
+        """Notice the host opening the port (commands it sends then are answered later)."""
+        try:
+            chunk = os.read(self._master, 4096)
+        except (BlockingIOError, InterruptedError):
+            if self._listening_since is None:
+                self._listening_since = time.monotonic()
+            return
+        except OSError:
+            return
+        if self._listening_since is None:
+            self._listening_since = time.monotonic()
+        self._cmd_buf += chunk
+
+    def _unread(self) -> int:
+        """Bytes written to the port that its reader has not read yet."""
+        import fcntl
+        import struct
+        import termios
+
+        try:
+            fd = os.open(self.slave_name, os.O_RDONLY | os.O_NOCTTY | os.O_NONBLOCK)
+        except OSError:
+            return 0
+        try:
+            return struct.unpack("i", fcntl.ioctl(fd, termios.FIONREAD, b"\0\0\0\0"))[0]
+        except OSError:
+            return 0
+        finally:
+            os.close(fd)
 
     def _unplugged(self, seconds: float, powers_off: bool, wall0: float, sim0: int) -> None:
         """The cable is out for `seconds` of wall time: the pty goes; a self-powered sampler runs on

@@ -46,7 +46,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--db",
         metavar="PATH",
-        help="a new SQLite file to record into (default: benchlog-demo.sqlite here, or the next free name)",
+        help="a new SQLite file to record into (default: where the other commands read: $BENCHLOG_DB, "
+        "then ./benchlog.sqlite)",
     )
     p.add_argument(
         "--cycles", type=_cycles, default=3000, metavar="N", help="cycles on bench A (default 3000)"
@@ -58,20 +59,23 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _fresh_path(given: str | None) -> Path:
-    from benchlog.errors import ConfigError
+    import os
 
-    if given:
-        path = Path(given).expanduser()
-        if path.exists():
-            raise ConfigError(f"{path} exists: the demo records into a new database file")
-        if not path.parent.is_dir():
-            raise ConfigError(f"cannot create {path}: folder {path.parent} does not exist")
-        return path
-    path = Path("benchlog-demo.sqlite")
-    n = 2
-    while path.exists():
-        path = Path(f"benchlog-demo-{n}.sqlite")
-        n += 1
+    from benchlog.errors import ConfigError
+    from benchlog.store._engine import DEFAULT_FILE, ENV_VAR
+
+    if not given:
+        given = os.environ.get(ENV_VAR) or DEFAULT_FILE  # the store every other command reads
+        if "://" in given:
+            raise ConfigError(f"${ENV_VAR} names a database URL: the demo records into a new SQLite file")
+    path = Path(given).expanduser()
+    if path.exists():
+        raise ConfigError(
+            f"{path} exists: the demo records into a new database file (give --db NEW.sqlite, and the same "
+            "--db to the other commands)"
+        )
+    if not path.parent.is_dir():
+        raise ConfigError(f"cannot create {path}: folder {path.parent} does not exist")
     return path
 
 
@@ -127,6 +131,7 @@ def record_bench(db: str, job: BenchJob, aged_for: int, stop: threading.Event) -
         bench_id = store.register_bench(job.name)
         ids, specs = register_units(store, units, None, ageing=ageing(aged_for))
         sim = PtySampler(cfg, seed=job.seed, speed=SPEED, keep_truth=False)
+        sim.unheard_s = 60.0  # the demo's own reader is never stuck: a busy machine only slows it down
         sim.start()
         feed = Feed(sim.path, speed=SPEED)
         feed.open()
@@ -169,7 +174,7 @@ def record_bench(db: str, job: BenchJob, aged_for: int, stop: threading.Event) -
             target = job.stop_after or job.cycles
             if job.pull and not pulled and p.cycles_done >= target // 3:
                 pulled.append(now)
-                sim.pull_cable(PULL_FOR_S)  # the link goes down and comes back
+                sim.pull_cable(PULL_FOR_S, hold=True)  # the link goes down and comes back
             back = not job.pull or (pulled and now - pulled[0] > PULL_FOR_S + 1.0)
             if job.stop_after and p.cycles_done >= job.stop_after and back:
                 stop.set()
@@ -205,7 +210,8 @@ def start_demo(db: str, cycles: int, seed: int) -> tuple[list[BenchJob], threadi
     """Record bench A, then bench B, in a thread (one after the other: both at once would only share
     the interpreter); `stop` ends the recording early."""
     a = BenchJob("BW-BENCH-A", "demo", cycles, seed, "L1")
-    b = BenchJob("BW-BENCH-B", "relay-night", 0, seed + 1, "N1", stop_after=cycles, pull=True)
+    # bench B runs as many cycles as bench A: a run with a target ends at the same cycle every time
+    b = BenchJob("BW-BENCH-B", "relay-night", cycles, seed + 1, "N1", pull=True)
     stop = threading.Event()
 
     def both() -> None:
