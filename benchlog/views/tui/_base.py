@@ -10,10 +10,12 @@ from textual.widgets import Static
 from ._data import duration_text
 from ._source import Problem
 
-PASS_STYLE = "bold green"
-MARGINAL_STYLE = "bold yellow"
-FAIL_STYLE = "bold red"
-DRIFT_STYLE = "bold magenta"
+# Explicit colours, not the terminal's sixteen: under the dashboard's theme ANSI magenta and red came
+# out as one colour, so drift read as a failure. Each state is also written as a word.
+PASS_STYLE = "bold #4ec94e"
+MARGINAL_STYLE = "bold #e8c21a"
+FAIL_STYLE = "bold #ff5050"
+DRIFT_STYLE = "bold #a98bff"
 DIM_STYLE = "dim"
 
 

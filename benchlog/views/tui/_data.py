@@ -27,7 +27,7 @@ from __future__ import annotations
 import math
 import time
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -594,6 +594,16 @@ class History:
     read_s: float
 
 
+def within_life(trend, failed_at: int):
+    """The windows of a failed unit's trend up to its failure: what a recorder wrote of its channel
+    after that (a welded contact, a stuck one) is not the unit's life."""
+    keep = trend.cycle_lo <= failed_at
+    if keep.all():
+        return trend
+    fields = ("cycle_lo", "cycle_hi", "count", "p50", "p95", "max", "sum")
+    return replace(trend, **{f: getattr(trend, f)[keep] for f in fields})
+
+
 def read_history(store, unit_id: int, metric: str, span: tuple[int, int] | None, span_cycles: int = 1000):
     """A unit's trend of `metric`, its drift, and the raw values over `span` (default: the last
     `span_cycles` cycles) for the histogram."""
@@ -607,6 +617,8 @@ def read_history(store, unit_id: int, metric: str, span: tuple[int, int] | None,
     spec = part_spec(next((p for p in store.parts() if p.id == unit.part_id), None))
     words, column, kind = CHART_METRICS[metric]
     trend = store.trend(unit_id, column, kind=kind)
+    if unit.failed_at_cycle is not None:
+        trend = within_life(trend, int(unit.failed_at_cycle))
     lim = limit_for(spec, metric)
     flag, rep = drift_of(trend, metric, spec, _failed_at(unit))
     sig = np.zeros(0, np.int64)
@@ -614,6 +626,8 @@ def read_history(store, unit_id: int, metric: str, span: tuple[int, int] | None,
         hit = rep.ewma_signal | rep.cusum_signal
         sig = rep.windows["cycle_end"][hit]
     last = int(trend.cycle_hi.max()) if len(trend) else -1
+    if unit.failed_at_cycle is not None and last >= 0:
+        last = min(last, int(unit.failed_at_cycle))
     if span is None:
         span = (max(0, last - span_cycles + 1), max(last, 0))
     values = np.zeros(0)

@@ -100,7 +100,7 @@ class HistoryScreen(DataScreen):
                 idx = np.clip(np.searchsorted(ends, data.signal_cycles), 0, len(ends) - 1)
                 pick = np.zeros(len(ends), bool)
                 pick[idx] = True
-            marks = Series("signal", mid[pick], t.p95[pick], "@", "bold magenta")
+            marks = Series("chart signal", mid[pick], t.p95[pick], "@", DRIFT_STYLE)
         title = Text(f"{words}{unit} per window of {self._window(t)} cycles", style="bold")
         if data.flag is not None and data.flag.signalled:
             title.append("  DRIFT", style=DRIFT_STYLE)
