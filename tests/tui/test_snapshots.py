@@ -1,6 +1,7 @@
-"""Screenshots of every screen at 100x30 against the accepted ones in __snapshots__/ (layout
-regressions show in review). Fixed data, fixed times, no read timings on screen, no refresh timer.
-Accept a deliberate change with `pytest tests/tui/test_snapshots.py --snapshot-update`."""
+"""Screenshots of every screen at 80x24 (the terminal every screen is designed for first), 100x30
+and 160x50 against the accepted ones in __snapshots__/ (layout regressions show in review). Fixed
+data, fixed times, no read timings on screen, no refresh timer. Accept a deliberate change with
+`pytest tests/tui/test_snapshots.py --snapshot-update`."""
 
 from __future__ import annotations
 
@@ -16,7 +17,7 @@ from benchlog.views.tui._units import UnitsScreen
 from ._build import build, freeze_times
 from ._pilot import column, settle
 
-SIZE = (100, 30)
+SIZES = pytest.mark.parametrize("size", [(80, 24), (100, 30), (160, 50)], ids=["80x24", "100x30", "160x50"])
 
 
 @pytest.fixture(scope="module")
@@ -39,7 +40,8 @@ async def _units(pilot, run_id: int) -> None:
     await settle(pilot, UnitsScreen)
 
 
-def test_runs_screen(snap_compare, frozen):
+@SIZES
+def test_runs_screen(snap_compare, frozen, size):
     path, ids = frozen
 
     async def before(pilot):
@@ -48,20 +50,22 @@ def test_runs_screen(snap_compare, frozen):
         t.move_cursor(row=column(t, "run").index(str(ids["run1"])))
         await pilot.pause()
 
-    assert snap_compare(app_for(path), terminal_size=SIZE, run_before=before)
+    assert snap_compare(app_for(path), terminal_size=size, run_before=before)
 
 
-def test_units_screen(snap_compare, frozen):
+@SIZES
+def test_units_screen(snap_compare, frozen, size):
     path, ids = frozen
 
     async def before(pilot):
         await _units(pilot, ids["run1"])
         await pilot.press("down", "down")  # the drifting unit
 
-    assert snap_compare(app_for(path), terminal_size=SIZE, run_before=before)
+    assert snap_compare(app_for(path), terminal_size=size, run_before=before)
 
 
-def test_history_screen(snap_compare, frozen):
+@SIZES
+def test_history_screen(snap_compare, frozen, size):
     path, ids = frozen
 
     async def before(pilot):
@@ -69,10 +73,11 @@ def test_history_screen(snap_compare, frozen):
         await pilot.press("down", "down", "enter")
         await settle(pilot, HistoryScreen)
 
-    assert snap_compare(app_for(path), terminal_size=SIZE, run_before=before)
+    assert snap_compare(app_for(path), terminal_size=size, run_before=before)
 
 
-def test_population_screen(snap_compare, frozen):
+@SIZES
+def test_population_screen(snap_compare, frozen, size):
     path, ids = frozen
 
     async def before(pilot):
@@ -80,10 +85,11 @@ def test_population_screen(snap_compare, frozen):
         await pilot.press("p")
         await settle(pilot, PopulationScreen)
 
-    assert snap_compare(app_for(path), terminal_size=SIZE, run_before=before)
+    assert snap_compare(app_for(path), terminal_size=size, run_before=before)
 
 
-def test_help_screen(snap_compare, frozen):
+@SIZES
+def test_help_screen(snap_compare, frozen, size):
     path, _ = frozen
 
     async def before(pilot):
@@ -91,4 +97,4 @@ def test_help_screen(snap_compare, frozen):
         await pilot.press("question_mark")
         await pilot.pause()
 
-    assert snap_compare(app_for(path), terminal_size=SIZE, run_before=before)
+    assert snap_compare(app_for(path), terminal_size=size, run_before=before)

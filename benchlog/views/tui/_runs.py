@@ -45,23 +45,53 @@ class RunsScreen(DataScreen):
         yield StatusLine()
         yield Footer()
 
-    def on_mount(self) -> None:
-        t = self.query_one("#runs", DataTable)
-        for label, key in (
+    WIDE = 100  # below this many columns, the run's pace and how it ended fold into the pane below
+
+    def _columns(self, wide: bool) -> list[tuple[str, str]]:
+        if wide:
+            return [
+                ("Run", "run"),
+                ("Bench", "bench"),
+                ("State", "state"),
+                ("How", "how"),
+                ("Cycles", "cycles"),
+                ("Done", "pct"),
+                ("c/s", "rate"),
+                ("Left", "left"),
+                ("Units", "units"),
+                ("Inc", "inc"),
+                ("Link", "link"),
+            ]
+        return [
             ("Run", "run"),
             ("Bench", "bench"),
             ("State", "state"),
-            ("How", "how"),
             ("Cycles", "cycles"),
             ("Done", "pct"),
-            ("c/s", "rate"),
-            ("Left", "left"),
             ("Units", "units"),
             ("Inc", "inc"),
             ("Link", "link"),
-        ):
-            t.add_column(label, key=key)
+        ]
+
+    def on_mount(self) -> None:
+        self._wide: bool | None = None
+        self._layout(self.size.width >= self.WIDE)
         self.request()
+
+    def _layout(self, wide: bool) -> None:
+        if wide == self._wide:
+            return
+        self._wide = wide
+        t = self.query_one("#runs", DataTable)
+        t.clear(columns=True)
+        for label, key in self._columns(wide):
+            t.add_column(label, key=key)
+
+    def on_resize(self, _event) -> None:
+        if self._wide is not None and (self.size.width >= self.WIDE) != self._wide:
+            self._layout(self.size.width >= self.WIDE)
+            if isinstance(self.last_data, Overview):
+                self.show(self.last_data)
 
     def load(self, store, params) -> Overview:
         return read_overview(store)
@@ -70,6 +100,7 @@ class RunsScreen(DataScreen):
         t = self.query_one("#runs", DataTable)
         keep = t.cursor_row
         t.clear()
+        keys = [k for _, k in self._columns(bool(self._wide))]
         for row in data.runs:
             r = row.run
             target = cycles_text(r.target_cycles) if r.target_cycles else "open"
@@ -78,20 +109,20 @@ class RunsScreen(DataScreen):
             rate = f"{r.rate_cps:.1f}" if row.state == "live" else "-"
             failed = Text(f"{r.units_failed} fail", style=FAIL_STYLE) if r.units_failed else Text("")
             units = Text(f"{r.units} ").append_text(failed)
-            t.add_row(
-                str(r.id),
-                Text(r.bench),
-                state_text(row),
-                row.how,
-                f"{cycles_text(r.cycles_done)}/{target}",
-                pct,
-                rate,
-                left,
-                units,
-                str(r.incidents),
-                outage_text(row),
-                key=str(r.id),
-            )
+            cells = {
+                "run": str(r.id),
+                "bench": Text(r.bench),
+                "state": state_text(row),
+                "how": row.how,
+                "cycles": f"{cycles_text(r.cycles_done)}/{target}",
+                "pct": pct,
+                "rate": rate,
+                "left": left,
+                "units": units,
+                "inc": str(r.incidents),
+                "link": outage_text(row),
+            }
+            t.add_row(*(cells[k] for k in keys), key=str(r.id))
         if data.runs:
             t.move_cursor(row=min(max(keep, 0), len(data.runs) - 1))
         alerts = [
@@ -136,6 +167,8 @@ class RunsScreen(DataScreen):
             lines.append(f", ended {r.ended_at:%Y-%m-%d %H:%M} UTC: {row.how}")
             if r.end_detail:
                 lines.append(f" ({r.end_detail})")
+        elif row.state == "live":
+            lines.append(f", {r.rate_cps:.1f} cycles/s, {duration_text(r.eta_s)} left")
         lines.append("\n")
         if prof:
             shown = ", ".join(f"{k} {v}" for k, v in list(prof.items())[:6])

@@ -129,7 +129,17 @@ class UnitsScreen(DataScreen):
         ):
             t.add_column(label, key=key)
         self.query_one("#filter", Input).display = False
+        self._fit_pane()
         self.request()
+
+    def on_resize(self, _event) -> None:
+        self._fit_pane()
+
+    def _fit_pane(self) -> None:
+        """On a short terminal (24 lines) the units keep the room: the pane below shrinks to a few
+        lines (the highlighted unit's part, life and verdict first), at 30 lines and more it has 9."""
+        tall = self.size.height >= 30 or self.size.height == 0
+        self.query_one("#unit-info", Static).styles.max_height = 9 if tall else max(3, self.size.height - 21)
 
     def params(self):
         return self.run_id
