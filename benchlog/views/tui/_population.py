@@ -85,7 +85,7 @@ class PopulationScreen(DataScreen):
 
     def on_mount(self) -> None:
         t = self.query_one("#pop-units", DataTable)
-        for label, key in (("Unit", "unit"), ("p50 - p95 . max x  | limit", "strip"), ("Verdict", "verdict")):
+        for label, key in (("Unit", "unit"), ("on one scale", "strip"), ("Verdict", "verdict")):
             t.add_column(label, key=key)
         t.add_column("p95", key="p95")
         t.add_column("max", key="max")
@@ -155,7 +155,7 @@ class PopulationScreen(DataScreen):
         vals = [v for v in vals if v is not None and not math.isnan(v)]
         top = max(vals) * 1.05 if vals and max(vals) > 0 else 1.0
         t = self.query_one("#pop-units", DataTable)
-        width = max(16, (t.size.width or 76) - NAME_W - 40)
+        width = max(12, (t.size.width or 76) - NAME_W - 40)
         keep = self._unit_at_cursor()
         t.clear()
         self._row_units: list[int | None] = []
@@ -192,6 +192,8 @@ class PopulationScreen(DataScreen):
         )
 
     def on_resize(self, _event) -> None:
+        # the list of groups gives way on a narrow terminal, so each unit's verdict and figures stay
+        self.query_one("#groups", OptionList).styles.width = 24 if self.size.width >= 100 else 16
         if isinstance(self.last_data, Population):
             self._draw(self.last_data)
 
