@@ -276,12 +276,26 @@ def test_report_carries_the_quality_file_fields(db, tmp_path):
     assert "report QR-7, revision C" in header and '"' not in header[1:-1]
 
 
+def test_report_states_a_profile_given_as_every_command_takes_it(small_db, tmp_path, capsys):
+    # --profile is ON_MS:OFF_MS:CYCLES here too (docs/commands.md); the report states it in the words
+    # it uses for a run's recorded profile; free text belongs in the spec's [conditions]
+    out = tmp_path / "r.html"
+    argv = ["report", "--db", small_db, "--incumbent", "AG-MS5", "--candidate", "VS-505", "-o", str(out)]
+    argv += ["--resamples", "100"]
+    assert main([*argv, "--profile", "40:60:20000"]) == 2
+    text = " ".join(re.sub(r"<[^>]+>", " ", out.read_text()).split())
+    assert "cycle profile drive on 40 ms, off 60 ms, to 20,000 cycles given for this report" in text
+    with pytest.raises(SystemExit) as exc:
+        main([*argv, "--force", "--profile", "50 ms pressed, 50 ms released"])
+    assert exc.value.code == 64 and "ON_MS:OFF_MS:CYCLES" in capsys.readouterr().err
+
+
 def test_report_wording(db, tmp_path):
     out = tmp_path / "r.html"
     doc = tmp_path / "q.json"
     common = ["--db", db, "--incumbent", "AG-MS5:L1", "--candidate", "VS-505", "--resamples", "300"]
     assert main(["report", *common, "-o", str(out)]) == 1
-    assert main(["qualify", *common, "--json", str(doc)]) == 1
+    assert main(["qualify", *common, "--json", "-o", str(doc)]) == 1
     text = " ".join(re.sub(r"<[^>]+>", " ", out.read_text()).split())
     failed = [c["name"] for c in json.loads(doc.read_text())["criteria"] if c["outcome"] == "fail"]
     assert failed and "Failed: " + "; ".join(failed) + "." in text  # the banner names them

@@ -28,5 +28,5 @@ def test_plan_prints_the_characteristic_quietly_when_piped(capsys):
     assert "     4 units" in out and "    16 units" in out  # --units 8: its half and double too
     assert "<- the guarded margin" in out
     assert "simulating" not in err  # the progress line is for a terminal only
-    assert main(["plan", "--oc", "--metric", "chatter"]) == 9
+    assert main(["plan", "--oc", "--metric", "chatter"]) == 64  # a value --metric cannot take: usage
     assert "not a percentile metric" in capsys.readouterr().err

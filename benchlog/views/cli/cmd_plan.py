@@ -196,7 +196,7 @@ def run(args: argparse.Namespace) -> int:
 def _operating_characteristic(args: argparse.Namespace, conf: float) -> None:
     import sys
 
-    from benchlog.errors import ConfigError, DataError
+    from benchlog.errors import DataError, UsageError
     from benchlog.stats import METRICS, UnitModel, operating_characteristic
 
     metric, pct = args.metric, 95.0
@@ -212,9 +212,9 @@ def _operating_characteristic(args: argparse.Namespace, conf: float) -> None:
     metric = metric or "make_bounce"
     if metric not in METRICS or METRICS[metric].kind != "percentile":
         known = ", ".join(k for k, m in METRICS.items() if m.kind == "percentile")
-        raise ConfigError(f"--metric: {metric!r} is not a percentile metric ({known})")
+        raise UsageError(f"--metric: {metric!r} is not a percentile metric ({known})")
     if args.populations < 20:
-        raise ConfigError("--populations must be at least 20")
+        raise UsageError("--populations must be at least 20")
     if args.incumbent:
         from benchlog.store import Store
         from benchlog.views.report._data import load_lot

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli._args import add_output
+from benchlog.views.cli._args import add_output, add_profile
 from benchlog.views.cli.cmd_qualify import add_common
 
 NAME = "report"
@@ -46,8 +46,12 @@ def add_quality_file(p: argparse.ArgumentParser) -> None:
     )
     g.add_argument("--number", metavar="TEXT", help="report number, as the quality system assigns it")
     g.add_argument("--revision", metavar="TEXT", help="report revision")
+    add_profile(
+        g,
+        "the cycle profile the test ran, stated in the report (default: the spec's [conditions], else "
+        "the runs' recorded profile)",
+    )
     for key, label in (
-        ("profile", "cycle profile"),
         ("load", "load switched"),
         ("coil-voltage", "coil voltage"),
         ("ambient", "ambient temperature"),
@@ -58,14 +62,23 @@ def add_quality_file(p: argparse.ArgumentParser) -> None:
         g.add_argument(f"--{role}-on", metavar="YYYY-MM-DD", type=_iso_date, help="its date (default: blank)")
 
 
+def profile_words(profile) -> str:
+    """`--profile ON_MS:OFF_MS:CYCLES` as the report states a run's recorded profile."""
+    until = f"to {profile.cycles:,} cycles" if profile.cycles else "until stopped"
+    return f"drive on {profile.on_ms:g} ms, off {profile.off_ms:g} ms, {until}"
+
+
 def report_info(args: argparse.Namespace):
     from benchlog.views.report import ReportInfo, SignOff
 
-    keys = ("profile", "load", "coil_voltage", "ambient")
+    keys = ("load", "coil_voltage", "ambient")
+    conditions = {k: getattr(args, k) for k in keys if getattr(args, k)}
+    if args.profile is not None:
+        conditions["profile"] = profile_words(args.profile)
     return ReportInfo(
         number=args.number or "",
         revision=args.revision or "",
-        conditions={k: getattr(args, k) for k in keys if getattr(args, k)},
+        conditions=conditions,
         sign_off=tuple(
             SignOff(role, getattr(args, role) or "", getattr(args, f"{role}_on") or "")
             for role in ("prepared", "reviewed", "approved")

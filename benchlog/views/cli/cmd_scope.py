@@ -8,7 +8,7 @@ import math
 import sys
 from pathlib import Path
 
-from benchlog.views.cli._args import non_negative, number_within, positive
+from benchlog.views.cli._args import JSON_HELP, add_output, non_negative, number_within, positive
 
 tolerance = number_within(0, 1, low_inclusive=True)
 
@@ -67,8 +67,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "edges by definition (default: 90 %% / 10 %% of the open-circuit voltage, 10 us)"
     )
     lv.add_argument("--open-v", type=positive, metavar="V", help="open-circuit voltage (default: measured)")
-    lv.add_argument("--open-pct", type=_percent, default=0.9, metavar="%", help="open above this %% (90)")
-    lv.add_argument("--closed-pct", type=_percent, default=0.1, metavar="%", help="closed below this %% (10)")
+    lv.add_argument(
+        "--open-pct", type=_percent, default=0.9, metavar="PERCENT", help="open above this %% (90)"
+    )
+    lv.add_argument(
+        "--closed-pct", type=_percent, default=0.1, metavar="PERCENT", help="closed below this %% (10)"
+    )
     lv.add_argument("--levels", type=_levels, metavar="OPEN:CLOSED", help="thresholds in volts instead")
     lv.add_argument(
         "--min-us", type=non_negative, default=10.0, help="a state counts once held this long (10)"
@@ -100,18 +104,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     out = p.add_argument_group("output")
     out.add_argument("--plot", action="store_true", help="a text chart of each capture in the terminal")
     out.add_argument("--actuation", type=int, metavar="N", help="chart actuation N (from 1)")
-    out.add_argument(
-        "-o", "--output", metavar="PNG", help="write the chart as PNG (a folder for several files)"
-    )
-    out.add_argument("--json", action="store_true", help="machine-readable output")
-
-
-def _usage(message: str) -> int:
-    print(f"benchlog scope: error: {message}", file=sys.stderr)
-    return 2
+    add_output(out, "write the chart as PNG to FILE (with several captures, FILE is a folder)")
+    out.add_argument("--json", action="store_true", help=JSON_HELP)
 
 
 def run(args) -> int:
+    from benchlog.errors import UsageError
+
     if args.make_demo:
         from benchlog.analog import make_demo
 
@@ -122,15 +121,15 @@ def run(args) -> int:
         print(f"  benchlog scope {Path(args.make_demo) / 'AG-MS5_make.csv'} --plot")
         return 0
     if not args.files:
-        return _usage("give one or more capture files, or --make-demo DIR")
+        raise UsageError("give one or more capture files, or --make-demo DIR")
     if (args.compare or args.design) and not args.input:
-        return _usage("--compare and --design need --input NAME (a row of the threshold table)")
+        raise UsageError("--compare and --design need --input NAME (a row of the threshold table)")
     if args.closed_pct >= args.open_pct:
-        return _usage("--closed-pct must be below --open-pct")
+        raise UsageError("--closed-pct must be below --open-pct")
     if args.actuation is not None and args.actuation < 1:
-        return _usage("--actuation counts from 1")
+        raise UsageError("--actuation counts from 1")
     if args.output and len(args.files) > 1 and Path(args.output).suffix.lower() == ".png":
-        return _usage("with several files, -o/--output is a folder")
+        raise UsageError("with several files, -o/--output is a folder")
 
     from benchlog.analog import ScopeOptions, plot_capture, scope_capture, text_chart
 
