@@ -59,22 +59,28 @@ def test_chatter_failures_are_dated_at_the_true_onset(tmp_path, capsys):
     with Store.open(db, readonly=True) as store:
         (run,) = store.runs()
         last = max(ru.cycles_done for ru in store.run_units(run.id))
-        checked = 0
+        lags = []
         for ru in store.run_units(run.id):
             life, mode = truth[ru.channel]
-            if life > last - 20:  # too near the end of the capture to be judged within it
+            if life > last - 40:  # too near the end of the capture to be judged within it
                 continue
-            checked += 1
             assert ru.unit.status == "failed" and ru.unit.failure_mode == mode == "chatter", ru.unit
             # AG-MS5 allows 1 chatter event per 1,000 cycles (benchlog/presets/specs/AG-MS5.toml): the
-            # failure is the cycle whose events first exceed it, at or after the true onset and, at
-            # this part's chatter rate (about one event per cycle once worn), within a few cycles
-            assert math.floor(life) <= ru.unit.failed_at_cycle <= math.ceil(life) + 10, (
+            # failure is the cycle whose events first exceed it, at or after the true onset. How soon
+            # after depends on how many of the simulator's openings the spec's definition counts: one
+            # within settle_ms (5 ms) of the contact's last movement is bounce, not chatter, and the
+            # simulator puts a cycle's openings early in the closed period (the smallest of its
+            # MAX_CHATTER position draws, benchlog/sim/_physics.py), so many are. Over seeds 11-16 the
+            # lag reached 26 cycles (18 with one shared random stream): tens of cycles at most, where
+            # the consecutive-cycle rule was hundreds late
+            assert math.floor(life) <= ru.unit.failed_at_cycle <= math.ceil(life) + 30, (
                 ru.channel,
                 life,
                 ru.unit.failed_at_cycle,
             )
+            lags.append(ru.unit.failed_at_cycle - life)
         for ru in store.run_units(run.id):  # and no unit is failed before its true life
             if ru.unit.status == "failed":
                 assert ru.unit.failed_at_cycle >= math.floor(truth[ru.channel][0])
-    assert checked >= 10
+    assert len(lags) >= 10
+    assert sorted(lags)[len(lags) // 2] <= 6  # typically within a few cycles of the true onset
