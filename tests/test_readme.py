@@ -11,6 +11,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+from tests.conftest import _TRAMPOLINE, HANG_S
+
 README = Path(__file__).resolve().parents[1] / "README.md"
 
 
@@ -34,14 +36,16 @@ def run(argv: list[str], cwd: Path, env: dict) -> subprocess.CompletedProcess:
 
 def record_then_stop(argv: list[str], cwd: Path, env: dict) -> tuple[int, str, str]:
     """A night-long recording, stopped as Ctrl-C stops it once it reports its first progress."""
-    cmd = [sys.executable, "-m", "benchlog", *argv[1:]]
+    # started with SIGINT as a terminal leaves it: pytest may run as a background job, which inherits
+    # SIGINT ignored, and Ctrl-C would then do nothing
+    cmd = [sys.executable, "-c", _TRAMPOLINE, "default", sys.executable, "-m", "benchlog", *argv[1:]]
     proc = subprocess.Popen(cmd, cwd=cwd, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         for line in proc.stderr:
             if re.match(r"run \d+: [1-9]", line.strip()):  # cycles are being recorded
                 break
         proc.send_signal(signal.SIGINT)
-        out, err = proc.communicate(timeout=120)
+        out, err = proc.communicate(timeout=HANG_S)  # a ceiling only a hang reaches
     finally:
         if proc.poll() is None:
             proc.kill()

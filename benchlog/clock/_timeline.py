@@ -20,7 +20,8 @@ The new epoch's counter started at 0 at the reset, so its `rel` is the raw tick,
 from the host time elapsed since the last record: never before the last run time, so run time stays
 monotonic. A RESET incident spans the bridged stretch.
 
-After a reported outage (`note_disconnect`) longer than a quarter wrap, wraps may have been missed: the
+After a reported outage (`note_disconnect`) longer than a quarter wrap, wraps may have been missed (unless
+the frames after it continue the sampler's sequence: `outage_bridged`, nothing was lost): the
 first tick is placed by the host time elapsed: the whole number of wraps that brings the sampler's
 elapsed time closest to the host's. Where the wrap period is under 4 s host jitter makes that count
 doubtful, and a CLOCK incident says so.
@@ -241,14 +242,23 @@ class Timeline:
     `clock_hz` and `counter_bits` are used until an announcement gives them; without either, records with
     ticks wait (up to about a million edges) for the first announcement. `time_scale` is how many sampler
     seconds pass per host second: 1 for a board, N for a simulated sampler running N times faster.
+    `host_slack_ns`: the jitter of the receive times given to `push`, in their own units (a caller that
+    scales host time itself for a fast simulated sampler scales this by as much); a tick that arrives
+    more than this (and the clock-rate margin) earlier than any before it means a restarted counter.
     """
 
     def __init__(
-        self, clock_hz: int | None = None, counter_bits: int | None = None, *, time_scale: float = 1.0
+        self,
+        clock_hz: int | None = None,
+        counter_bits: int | None = None,
+        *,
+        time_scale: float = 1.0,
+        host_slack_ns: int = HOST_SLACK_NS,
     ) -> None:
         if not time_scale > 0:
             raise ConfigError(f"time scale must be positive, not {time_scale}")
         self.time_scale = time_scale
+        self.host_slack_ns = int(host_slack_ns)
         self.clock_hz = clock_hz
         self.counter_bits = counter_bits
         self.announcement: Announce | None = None
@@ -458,6 +468,13 @@ class Timeline:
     def _back_tolerance(self) -> int:
         return min(1 << (self.counter_bits - 2), max(1, self.clock_hz // 10))
 
+    def outage_bridged(self) -> None:
+        """The records after the last outage follow those before it without a loss (the sampler's frame
+        sequence continued): the beat every quarter wrap kept coming, so the plain unwrap places them
+        and no wraps are counted from host time."""
+        self._disconnected = False
+        self._outage_hint = None
+
     def _check_outage(self, host_ns: int) -> None:
         """After a port outage longer than a quarter wrap, wraps may have passed unseen."""
         if not self._disconnected:
@@ -622,9 +639,9 @@ class Timeline:
         if self._min_offset is not None:
             # data cannot arrive before it was sampled: an offset well under the least seen in earlier
             # pushes means the sampler's time jumped ahead (backlogged chunks only raise offsets)
-            allowance = HOST_SLACK_NS + (HOST_RATE_MARGIN * np.maximum(t - self._min_offset_t, 0)).astype(
-                np.int64
-            )
+            # (the slack is host-clock jitter: in sampler time it scales with a simulated sampler's speed)
+            drift = (HOST_RATE_MARGIN * np.maximum(t - self._min_offset_t, 0)).astype(np.int64)
+            allowance = self._scaled(self.host_slack_ns) + drift
             ahead = offset < self._min_offset - allowance
         else:
             ahead = np.zeros(len(rel), bool)

@@ -21,6 +21,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from benchlog.clock import Timed, TimedBeats, Timeline
+from benchlog.clock._timeline import HOST_SLACK_NS
 from benchlog.errors import ConfigError, PortError
 from benchlog.events import TimedDrives, TimedEdges
 from benchlog.link import Chunk, Link, Outage
@@ -119,7 +120,8 @@ class Feed:
         self._asked_at = 0.0
         self._first_data_at: float | None = None
         self.decoder = Decoder()
-        self.timeline = Timeline()
+        # host times reach the clock scaled by `speed`: so does the host's jitter
+        self.timeline = Timeline(host_slack_ns=int(HOST_SLACK_NS * self.speed))
         self.group_ns = group_ns
         self._host0 = time.time_ns()
         self._counters = FeedCounters()
@@ -196,6 +198,11 @@ class Feed:
     # -- reading -----------------------------------------------------------------------------------
     def _push(self, data: list[bytes], host_ns: int) -> Timed:
         records = self.decoder.feed(b"".join(data))
+        if self.decoder.sequence_kept:
+            # the frames after the outage continue the sampler's sequence: none was lost, so neither
+            # was a counter wrap, and the host's clock must not guess any
+            self.decoder.sequence_kept = None
+            self.timeline.outage_bridged()
         return self.timeline.push(records, self._to_clock(host_ns))
 
     def poll(self, timeout: float = 0.1) -> Timed:
@@ -220,6 +227,7 @@ class Feed:
                     if group:
                         parts.append(self._push(group, group_last))
                         group = []
+                    self.decoder.outage()
                     self.timeline.note_disconnect(
                         self._to_clock(item.host_start_ns), self._to_clock(item.host_end_ns)
                     )

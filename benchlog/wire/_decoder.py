@@ -115,8 +115,20 @@ class Decoder:
         self._idle = 0  # of those, lone 0x00 delimiters (a packed sampler's idle or sync bytes)
         self._out: list[Record] = []
         self._form_asked: str | None = None  # the host asked for this form (FORM L / FORM P)
+        self._after_outage = False  # the link went down: judge the next frame's sequence number
+        # after an outage, whether the first frame continued the sequence (None: not known yet, or a
+        # form without sequence numbers); see `outage`
+        self.sequence_kept: bool | None = None
 
     # -- public ---------------------------------------------------------------------------------------
+
+    def outage(self) -> None:
+        """The link was down. The next packed frame says whether the sampler lost anything meanwhile:
+        `sequence_kept` is True when it continues the sequence (a sampler that held its output, or
+        sent nothing), False when frames are missing. (A loss of exactly a multiple of 65,536 frames
+        would pass for none; the sequence number is 16 bits.)"""
+        self._after_outage = True
+        self.sequence_kept = None
 
     def feed(self, data: bytes) -> list[Record]:
         """Decode `data` (any chunk of the stream) and return the records completed by it."""
@@ -464,6 +476,9 @@ class Decoder:
                 seq = frame[1] | (frame[2] << 8)
                 expected = self._expected_seq
                 self._expected_seq = (seq + 1) & 0xFFFF
+                if self._after_outage and kind != TYPE_ANNOUNCE:
+                    self._after_outage = False
+                    self.sequence_kept = None if expected is None else seq == expected
                 if expected is not None and seq != expected and kind != TYPE_ANNOUNCE:
                     lost = (seq - expected) & 0xFFFF
                     self.counters.frames_lost += lost
