@@ -8,7 +8,7 @@ import numpy as np
 from sqlalchemy import select
 
 from . import _schema as s
-from ._summary import SERIES, SeriesSummary, bin_values, is_integer, merge_rows, unpack, weighted_percentile
+from ._summary import SERIES, SeriesSummary, bin_values, is_integer, merge_rows, unpack
 
 __all__ = ["SummaryReadAPI"]
 
@@ -74,40 +74,75 @@ class SummaryReadAPI:
             .order_by(t.unit_id, t.window_no)
         )
         integer = is_integer(series)
-        out_u, out_w, out_n, out_p = [], [], [], []
+        parts: list[tuple[np.ndarray, ...]] = []
         with self._read("summaries") as c:  # type: ignore[attr-defined]
             result = c.execute(q.execution_options(yield_per=_FETCH))
             try:
-                pending: list = []
-                key = None
+                pending: list = []  # the rows of the last window read: its pieces may go on
                 for part in result.partitions():
-                    for r in part:
-                        k = (int(r.unit_id), int(r.window_no))
-                        if key is not None and k != key:
-                            _window_figures(pending, key, integer, percentiles, out_u, out_w, out_n, out_p)
-                            pending = []
-                        key = k
-                        pending.append(r)
+                    rows = pending + list(part)
+                    if not rows:
+                        continue
+                    last = (rows[-1].unit_id, rows[-1].window_no)
+                    cut = len(rows)
+                    while cut and (rows[cut - 1].unit_id, rows[cut - 1].window_no) == last:
+                        cut -= 1
+                    if cut:
+                        parts.append(_window_figures(rows[:cut], integer, percentiles))
+                    pending = rows[cut:]
                 if pending:
-                    _window_figures(pending, key, integer, percentiles, out_u, out_w, out_n, out_p)
+                    parts.append(_window_figures(pending, integer, percentiles))
             finally:
                 result.close()
-        return (
-            np.array(out_u, np.int64),
-            np.array(out_w, np.int64),
-            np.array(out_n, np.int64),
-            np.array(out_p, np.float64).reshape(len(out_u), len(percentiles)),
-        )
+        if not parts:
+            return (
+                np.zeros(0, np.int64),
+                np.zeros(0, np.int64),
+                np.zeros(0, np.int64),
+                np.zeros((0, len(percentiles)), np.float64),
+            )
+        return tuple(np.concatenate(x) for x in zip(*parts, strict=True))  # type: ignore[return-value]
 
 
-def _window_figures(rows, key, integer, percentiles, out_u, out_w, out_n, out_p) -> None:
-    bins = np.concatenate([unpack(r.bins) for r in rows])
-    counts = np.concatenate([unpack(r.counts) for r in rows])
-    ub, inv = np.unique(bins, return_inverse=True)
-    w = np.bincount(inv, counts, len(ub))
-    lo, hi = min(r.min for r in rows), max(r.max for r in rows)
-    v = np.clip(bin_values(ub, integer), lo, hi)
-    out_u.append(key[0])
-    out_w.append(key[1])
-    out_n.append(int(w.sum()))
-    out_p.append([weighted_percentile(v, w, p) for p in percentiles])
+def _window_figures(rows, integer: bool, percentiles) -> tuple[np.ndarray, ...]:
+    """unit, window, count and percentiles of whole windows, `rows` sorted by (unit, window): each
+    window's pieces merged bin by bin, then `weighted_percentile` for every window at once (the same
+    arithmetic, so the same floats as one window at a time)."""
+    n = len(rows)
+    unit = np.fromiter((r.unit_id for r in rows), np.int64, n)
+    window = np.fromiter((r.window_no for r in rows), np.int64, n)
+    rmin = np.fromiter((r.min for r in rows), np.float64, n)
+    rmax = np.fromiter((r.max for r in rows), np.float64, n)
+    first = np.ones(n, bool)
+    first[1:] = (unit[1:] != unit[:-1]) | (window[1:] != window[:-1])
+    row_start = np.flatnonzero(first)
+    n_groups = len(row_start)
+    lo = np.minimum.reduceat(rmin, row_start)
+    hi = np.maximum.reduceat(rmax, row_start)
+    bins_l = [unpack(r.bins) for r in rows]
+    counts_l = [unpack(r.counts) for r in rows]
+    g = np.repeat(np.cumsum(first) - 1, [len(b) for b in bins_l])
+    bins = np.concatenate(bins_l)
+    counts = np.concatenate(counts_l)
+    order = np.lexsort((bins, g))
+    g, bins, counts = g[order], bins[order], counts[order]
+    new = np.ones(len(g), bool)
+    new[1:] = (g[1:] != g[:-1]) | (bins[1:] != bins[:-1])
+    at = np.flatnonzero(new)
+    ug, w = g[at], np.add.reduceat(counts, at)
+    v = np.clip(bin_values(bins[at], integer), lo[ug], hi[ug])
+    ids = np.arange(n_groups)
+    g0 = np.searchsorted(ug, ids, "left")
+    g1 = np.searchsorted(ug, ids, "right") - 1  # each window's last bin
+    cum = np.cumsum(w)
+    base = np.where(g0 > 0, cum[np.maximum(g0 - 1, 0)], 0)
+    total = cum[g1] - base
+    out = np.empty((n_groups, len(percentiles)), np.float64)
+    for j, p in enumerate(percentiles):
+        h = (total - 1.0) * p / 100.0
+        fl, ce = np.floor(h), np.ceil(h)
+        ia = np.clip(np.searchsorted(cum, base + fl, side="right"), g0, g1)
+        ib = np.clip(np.searchsorted(cum, base + ce, side="right"), g0, g1)
+        a, b = v[ia], v[ib]
+        out[:, j] = a + (h - fl) * (b - a)
+    return unit[row_start], window[row_start], total.astype(np.int64), out

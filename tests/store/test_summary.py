@@ -4,12 +4,13 @@ on the stored actuations, across uneven batches, a resume and the migration that
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from alembic import command
 
 from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, NO_CHANGE, STUCK
 from benchlog.store import RESOLUTION, SERIES, SUMMARY_WINDOW
 from benchlog.store._migrate import _config, current_revision, head_revision
-from benchlog.store._summary import bin_values, weighted_percentile
+from benchlog.store._summary import bin_values, is_integer, weighted_percentile
 from tests.store._data import actuations
 
 NOT_MEASURED = INCOMPLETE | STUCK | NO_CHANGE
@@ -130,3 +131,52 @@ def test_upgrade_builds_the_same_summaries_from_stored_rows(store):
             assert np.array_equal(getattr(a, f), getattr(b, f)), (series, f)
         np.testing.assert_allclose(a.sum, b.sum, rtol=1e-12)
     _check_against_raw(store, units)
+
+
+def _reference_windows(acts: np.ndarray, series: str, unit: int) -> dict[int, np.ndarray]:
+    """The raw values of one unit's series, window by window (cycle // SUMMARY_WINDOW), with numpy."""
+    which, column = SERIES[series]
+    a = acts[(acts["unit_id"] == unit) & ((acts["flags"] & NOT_MEASURED) == 0)]
+    if which == "cycle":
+        cyc, inv = np.unique(a["cycle"], return_inverse=True)
+        v, c = np.bincount(inv, a["chatter"].astype(float), len(cyc)), cyc
+    else:
+        sel = {
+            "make": a["kind"] == MAKE,
+            "break": a["kind"] == BREAK,
+            "operate": a["drive_level"] == 1,
+            "release": a["drive_level"] == 0,
+        }[which]
+        v, c = a[column][sel].astype(float), a["cycle"][sel]
+        v, c = v[np.isfinite(v)], c[np.isfinite(v)]
+    w = c // SUMMARY_WINDOW
+    return {int(k): v[w == k] for k in np.unique(w)}
+
+
+@pytest.mark.parametrize("fetch", [3, 2000], ids=["rows-split-over-reads", "whole-reads"])
+def test_every_window_of_every_series_agrees_with_numpy(store, monkeypatch, fetch):
+    """`summary_windows` (figures of all windows at once) against numpy.percentile of each window's raw
+    values (the reference): counts exact, percentiles within the histogram's RESOLUTION, and exact for
+    integer series (one bin per integer). Reading 3 rows at a time splits a window's pieces (the resume
+    cuts window 2 in two runs) over several reads."""
+    from benchlog.store import _summary_read
+
+    monkeypatch.setattr(_summary_read, "_FETCH", fetch)
+    units = _record(store)
+    acts = store.actuations()
+    ps = (0.0, 5.0, 50.0, 95.0, 99.9, 100.0)
+    for series in SERIES:
+        unit, window, count, pct = store.summary_windows(series, units=units, percentiles=ps)
+        assert np.all(np.diff(unit * 10**6 + window) > 0)  # sorted by unit and window, each once
+        got = {(int(u), int(w)): (int(n), p) for u, w, n, p in zip(unit, window, count, pct, strict=True)}
+        want = {(u, w): v for u in units for w, v in _reference_windows(acts, series, u).items()}
+        assert set(got) == set(want), series
+        for key, ref in want.items():
+            n, have = got[key]
+            assert n == len(ref), (series, key)
+            for p, h in zip(ps, have, strict=True):
+                r = np.percentile(ref, p)
+                if is_integer(series):
+                    assert h == r, (series, key, p, h, r)
+                else:
+                    assert abs(h - r) <= RESOLUTION * abs(r) + 1e-12, (series, key, p, h, r)
