@@ -7,7 +7,10 @@ data is then read in blocks of whole lines (about CHUNK_BYTES each, read into re
 by two threads and placed in file order. When every line of a block has one length and its fields sit
 at the same places (the way instruments print), the block is a byte matrix (_FixedWidth): one range
 check over all its bytes, then each run of up to 8 digit columns becomes integers through one 64-bit
-word per line (the SWAR method), with no token search and no translation. Otherwise the block goes
+word per line (the SWAR method), with no token search and no translation. When lines differ in length
+but each column keeps one printed form (numbers in their shortest form: no blank for a missing sign,
+any count of whole digits), the block is read column by column from the field ends (_Delimited): one
+search for the delimiters, then one 64-bit word per field, read the same way. Otherwise the block goes
 through one `bytes.translate` (the delimiter becomes a space, a decimal comma a point), numpy finds
 every token (a run of bytes above the space character) and parses all tokens of one layout at once:
 tokens are grouped by length, sign, and the position of the point and of the exponent, each group a
@@ -35,7 +38,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 from benchlog.errors import DataError
 
 CHUNK_BYTES = 1 << 20
-_PAD = 8  # bytes kept before a block, so an 8-byte word can end at any column of its first line
+_PAD = 16  # bytes kept before a block, so an 8-byte word can end at any column of its first line
 _HEAD_BYTES = 1 << 16
 _NUM = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
 _POW10 = 10.0 ** np.arange(0, 309)
@@ -255,6 +258,7 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
     out: list[np.ndarray] = []
     table = _table(layout)
     reader = _FixedWidth(layout, keep)
+    delimited = _Delimited(layout, keep)
     row = 0
     line_no = layout.first_line
     read = 0
@@ -263,6 +267,9 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
         cols = reader.parse(buf, start, stop)
         if cols is not None:
             return cols, (stop - start) // reader.width(buf, start, stop)
+        got = delimited.parse(buf, start, stop)
+        if got is not None:
+            return got
         data = bytes(buf[start:stop]).translate(table)
         values, lines = _parse_chunk(data, ncols)
         vals = values.reshape(-1, ncols)
@@ -576,6 +583,265 @@ def _digits(buf: bytearray, start: int, w: int, rows: int, end: int, count: int)
     return x
 
 
+# Delimited blocks. The digits of a field are read from little-endian 64-bit words that end where the
+# field (or a part of it) ends; a word's last byte is its most significant.
+_Z3 = np.uint64(0x3030303030303030)  # '0' in every byte: XOR turns digit bytes into 0..9
+_H80 = np.uint64(0x8080808080808080)
+_S76 = np.uint64(0x7676767676767676)  # a byte 0..9 plus 0x76 stays below 0x80; 10 and above do not
+# exponents read by table: the letter and its sign as the low 8 or 16 bits give the sign (0: not an
+# exponent); one digit's byte or two digits' bytes (the first the low byte) give their value (< 0: not)
+_EPLAIN = np.zeros(256, np.int32)
+_EPLAIN[[69, 101]] = 1
+_ESIGNED = np.zeros(1 << 16, np.int32)
+for _letter in (69, 101):
+    _ESIGNED[_letter | 43 << 8], _ESIGNED[_letter | 45 << 8] = 1, -1
+_EDIGIT = np.full(256, -100_000, np.int32)
+_EDIGIT[48:58] = np.arange(10)
+_EDIGITS = np.full(1 << 16, -100_000, np.int32)
+_EDIGITS[(48 + np.arange(100) // 10) | (48 + np.arange(100) % 10) << 8] = np.arange(100)
+_KEEP = np.array([(_M64 << (8 * (8 - k))) & _M64 for k in range(9)], np.uint64)  # the last k bytes
+
+
+def _word_digits(y: np.ndarray) -> np.ndarray | None:
+    """The integers spelled by words of digit values 0..9 (0 where no digit is; first digit in the lowest
+    byte), or None if a byte is above 9. `y` is overwritten.
+
+    A multiply adds each byte's neighbour shifted up by one byte (pairs), then each pair's (fours), then
+    each four's (eights); a shift and a mask keep the sums. No sum carries out of its lane."""
+    t = y + _S76
+    if (np.bitwise_or.reduce(t) | np.bitwise_or.reduce(y)) & _H80:
+        return None
+    del t
+    y *= np.uint64(1 + (10 << 8))
+    y >>= np.uint64(8)
+    y &= np.uint64(0x00FF00FF00FF00FF)
+    y *= np.uint64(1 + (100 << 16))
+    y >>= np.uint64(16)
+    y &= np.uint64(0x0000FFFF0000FFFF)
+    y *= np.uint64(1 + (10000 << 32))
+    y >>= np.uint64(32)
+    return y
+
+
+def _template(tok: bytes, mark: int) -> tuple[bool, int, int, bool, int] | None:
+    """(a decimal mark, digits after it, exponent length, exponent signed, exponent digits) of an
+    unsigned number's text, or None if it is not one."""
+    n, i = len(tok), 0
+    while i < n and 48 <= tok[i] <= 57:
+        i += 1
+    has_mark = i < n and tok[i] == mark
+    frac = 0
+    if has_mark:
+        i += 1
+        j = i
+        while i < n and 48 <= tok[i] <= 57:
+            i += 1
+        frac = i - j
+    exp_len, exp_signed, exp_digits = 0, False, 0
+    if i < n and tok[i] in (69, 101):
+        j = i + 1
+        if j < n and tok[j] in (43, 45):
+            exp_signed, j = True, j + 1
+        exp_digits = n - j
+        if not 1 <= exp_digits <= 3 or not all(48 <= x <= 57 for x in tok[j:]):
+            return None
+        exp_len, i = n - i, n
+    return (has_mark, frac, exp_len, exp_signed, exp_digits) if i == n else None
+
+
+class _Delimited:
+    """Blocks of lines of any length, fields between single-byte delimiters: read column by column.
+
+    The field ends are every delimiter and line break (one np.flatnonzero over the block); each line
+    must hold `columns` fields. A column is read right to left: its first line gives the template
+    (digits after the decimal mark, the exponent's form), which fixes every byte's place counted from
+    the field's end, so only the count of digits before the mark varies from line to line (at most 8).
+    The mantissa is gathered as one 64-bit word per field (the mark squeezed out when it fits one word),
+    the bytes not of the field masked, every byte checked to be a digit and the word turned into its
+    integer by three multiply-and-shift steps; the exponent's letter, sign and digits are read by table
+    from the field's last word. Adjacent columns with one template are read as one. Values are exact as
+    in _FixedWidth (one division or product of exact doubles; numpy's string conversion for the rest).
+    A block this does not fit (a blank, a quote, nan, a field in another form, a wrong field count) is
+    left to the general parse, which names what is wrong."""
+
+    def __init__(self, layout: Layout, keep: list[int]) -> None:
+        self.ncols = layout.columns
+        self.keep = keep
+        self.delim = ord(layout.delimiter) if layout.delimiter in ",;\t" else -1
+        self.mark = 44 if layout.decimal_comma else 46
+
+    def parse(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
+        """(the columns `keep`, the line count) of buf[start:stop] (whole lines), or None."""
+        n = stop - start
+        if self.delim < 0 or n < 2 or start < 8:
+            return None
+        b = np.frombuffer(buf, np.uint8, n, start)
+        sep = b == 10
+        lines = int(np.count_nonzero(sep))
+        sep |= b == self.delim
+        ends = np.flatnonzero(sep)
+        del sep
+        ncols = self.ncols
+        rows = len(ends) // ncols
+        if rows == 0 or len(ends) % ncols or lines != rows:
+            return None
+        grid = ends.reshape(rows, ncols)  # positions from `start`
+        if not (b[grid[:, -1]] == 10).all():
+            return None
+        stops = grid
+        if buf.find(b"\r", start, stop) >= 0:  # CR LF line ends: the last field ends before the CR
+            stops = grid.copy()
+            stops[:, -1] -= 1
+            if buf.count(b"\r", start, stop) != rows or not (b[stops[:, -1]] == 13).all():
+                return None
+        after = np.ndarray((n - 1,), np.uint8, buf, start + 1)  # after[p]: the byte after position p
+        forms = {}
+        for k in self.keep:
+            s0 = int(grid[0, k - 1]) + 1 if k else 0
+            tok = bytes(buf[start + s0 : start + int(stops[0, k])])
+            forms[k] = _template(tok[1:] if tok[:1] in (b"-", b"+") else tok, self.mark)
+            if forms[k] is None:
+                return None
+        out: list[np.ndarray] = []
+        keep = list(self.keep)
+        while keep:
+            k = keep.pop(0)
+            m = 1  # columns k .. k+m-1 are read together
+            while k and keep and keep[0] == k + m and forms[keep[0]] == forms[k]:
+                keep.pop(0)
+                m += 1
+            if k:
+                prev = grid[:, k - 1 : k + m - 1].ravel()  # the separator before each field
+                e = stops[:, k : k + m].ravel()
+            else:
+                prev = np.empty(rows, np.int64)
+                prev[0] = -1
+                prev[1:] = grid[:-1, -1]
+                e = stops[:, 0].copy()
+            first = after[prev]
+            if not k:
+                first[0] = buf[start]
+            vals = self._column(buf, start, n, forms[k], first, prev, e)
+            if vals is None:
+                return None
+            if m == 1:
+                out.append(vals)
+            else:
+                grouped = vals.reshape(rows, m)
+                out += [grouped[:, j] for j in range(m)]
+        return out, rows
+
+    def _column(self, buf, start: int, n: int, form, first, prev, e) -> np.ndarray | None:
+        """The values of the fields between `prev` + 1 and `e` (positions from `start`) written as
+        `form`; `first`: each field's first byte."""
+        has_mark, frac, exp_len, exp_signed, exp_digits = form
+        neg = first == 45
+        signed = neg | (first == 43)
+        tail = (frac + 1 if has_mark else 0) + exp_len
+        digits = e - prev
+        digits -= 1 + tail - frac
+        digits -= signed  # the mantissa's digits per field
+        lo, hi = int(digits.min()), int(digits.max())
+        if lo < max(frac, 1) or hi > 8 + frac or hi > 19:
+            return None
+
+        def words_to(back: int, at: np.ndarray) -> np.ndarray:
+            """The 8 bytes that end `back` bytes before each position `at`."""
+            if start >= 8 + back:
+                return np.ndarray((n,), "<u8", buf, start - 8 - back, (1,))[at]
+            return np.ndarray((n,), "<u8", buf, start - 8, (1,))[at - back]
+
+        if has_mark and hi <= 7:  # the whole mantissa in one word: squeeze the mark out
+            y = words_to(exp_len, e)
+            m = 8 * (7 - frac)  # the mark's bit offset
+            y ^= np.uint64(0x3030303030303030 ^ ((self.mark ^ 0x30) << m))  # digits to 0..9, the mark to 0
+            if (int(np.bitwise_or.reduce(y)) >> m) & 0xFF:
+                return None
+            low = y & np.uint64((1 << m) - 1)
+            low *= np.uint64(255)
+            y += low  # the bytes below the mark moved up one byte
+            del low
+            y &= np.take(_KEEP, digits)
+            mant = _word_digits(y)
+        else:
+            back = exp_len + (frac + 1 if has_mark else 0)
+            if has_mark and not (_byte_at(buf, start, n, e - back) == self.mark).all():
+                return None
+            y = words_to(back, e)
+            y ^= _Z3
+            y &= np.take(_KEEP, digits - frac)
+            mant = _word_digits(y)
+            for end, count in _runs(-exp_len, frac):
+                if mant is None:
+                    break
+                y = words_to(-end, e)
+                y ^= _Z3
+                y &= _KEEP[count]
+                part = _word_digits(y)
+                if part is None:
+                    return None
+                mant *= np.uint64(10**count)
+                mant += part
+        if mant is None:
+            return None
+        vals = mant.astype(np.float64)
+        slow = mant > np.uint64(1 << 53) if hi > 15 else None  # beyond an exact double
+        del mant
+        if exp_len:
+            # the exponent's text (letter, sign, digits) as the low bytes of one word, read by table
+            h = words_to(0, e)
+            h >>= np.uint64(8 * (8 - exp_len))
+            lead = 2 if exp_signed else 1
+            letter = _ESIGNED if exp_signed else _EPLAIN
+            sign = np.take(letter, (h & np.uint64((1 << (8 * lead)) - 1)).view(np.int64))
+            h >>= np.uint64(8 * lead)
+            text = h.view(np.int64)
+            if exp_digits == 3:
+                power = np.take(_EDIGIT, text & 0xFF)
+                power *= 100
+                h >>= np.uint64(8)
+                power += np.take(_EDIGITS, text)
+            else:
+                power = np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text)
+            if not sign.all() or power.min() < 0:
+                return None
+            power *= sign
+            power += 22 - frac  # an index into _MUL10 and _DIV10
+            lo, hi = int(power.min()), int(power.max())
+            if lo < 0 or hi > 44:
+                far = (power < 0) | (power > 44)
+                slow = far if slow is None else slow | far
+                np.clip(power, 0, 44, out=power)
+                lo, hi = max(lo, 0), min(hi, 44)
+            if hi > 22:
+                vals *= np.take(_MUL10, power)
+            if lo < 22:
+                vals /= np.take(_DIV10, power)
+        elif frac:
+            vals /= _POW10[frac]
+        if neg.any():  # set the sign bit (the values are not negative yet: -0 stays -0.0, as float() gives)
+            bits = neg.astype(np.uint64)
+            bits <<= np.uint64(63)
+            vals.view(np.uint64)[:] |= bits
+        if slow is not None and slow.any():
+            at = np.flatnonzero(slow)
+            s = prev[at] + 1
+            lens = e[at] - s
+            width = int(lens.max())
+            text = np.full((len(at), width), 32, np.uint8)
+            b = np.frombuffer(buf, np.uint8, n, start)
+            for j in range(width):
+                inside = lens > j
+                text[inside, j] = b[s[inside] + j]
+            vals[at] = _exact(text, self.mark == 44)
+        return vals
+
+
+def _byte_at(buf, start: int, n: int, at: np.ndarray) -> np.ndarray:
+    """The bytes at positions `at` (from `start`) of a block of `n` bytes."""
+    return np.frombuffer(buf, np.uint8, n, start)[at]
+
+
 def _exact(tokens: np.ndarray, decimal_comma: bool) -> np.ndarray:
     """Rows of number bytes (blanks around allowed) as doubles by numpy's string conversion, which
     rounds correctly (it agrees with Python's float(); tests/analog/test_read.py checks both)."""
@@ -642,6 +908,9 @@ def _parse_tokens(c: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.nda
     present = np.flatnonzero(np.bincount(key))
     for width in present.tolist():
         sel = np.flatnonzero(key == width) if len(present) > 1 else None
+        if width == 0:  # a sign alone
+            bad[sel if sel is not None else slice(None)] = True
+            continue
         g = sliding_window_view(c, width)[body if sel is None else body[sel]]
         # most files print a column in one layout: take the first token's, check every token against it
         row0 = g[0].tobytes().lower()
