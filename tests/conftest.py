@@ -29,12 +29,15 @@ import pytest
 
 HANG_S = 180.0  # only a hang takes this long, on any machine however loaded
 
-# Runs the real command with SIGINT set as asked, so a test does not depend on how the shell that
-# started pytest left it (a background job inherits SIGINT ignored). Exec'd, so no preexec_fn (which
-# is unsafe while the test process has threads).
+# Runs the real command with SIGINT set as asked and SIGHUP and SIGTERM at their defaults, so a test
+# does not depend on how the shell that started pytest left them (a background job inherits SIGINT
+# ignored; `nohup` leaves SIGHUP ignored). Exec'd, so no preexec_fn (which is unsafe while the test
+# process has threads).
 _TRAMPOLINE = (
     "import os, signal, sys; "
     "signal.signal(signal.SIGINT, signal.SIG_IGN if sys.argv[1] == 'ignored' else signal.SIG_DFL); "
+    "signal.signal(signal.SIGHUP, signal.SIG_DFL); "
+    "signal.signal(signal.SIGTERM, signal.SIG_DFL); "
     "os.execvp(sys.argv[2], sys.argv[2:])"
 )
 

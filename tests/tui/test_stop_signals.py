@@ -14,7 +14,7 @@ import threading
 import pytest
 
 from benchlog.store import Store
-from tests.conftest import HANG_S, wait_until
+from tests.conftest import _TRAMPOLINE, HANG_S, wait_until
 
 
 def test_watch_prints_its_totals_on_sigterm(children):
@@ -34,6 +34,7 @@ class _Terminal:
     def __init__(self, argv: list[str], env: dict[str, str]) -> None:
         self.master, slave = os.openpty()
         os.set_inheritable(slave, True)
+        argv = [sys.executable, "-c", _TRAMPOLINE, "default", *argv]  # as a terminal starts it
         self.proc = subprocess.Popen(
             argv, stdin=slave, stdout=slave, stderr=slave, env=env, start_new_session=True, close_fds=True
         )
