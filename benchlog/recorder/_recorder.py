@@ -15,6 +15,7 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from datetime import UTC, datetime
 
 import numpy as np
 
@@ -101,6 +102,7 @@ class Recorder:
         self._heard_ns = -(1 << 62)  # latest run time of a record heard (edges, drives, beats)
         self._profile: tuple[int, int] | None = None  # (on_us, off_us) of the plans sent
         self.pending: list = []  # commands to send the sampler (plans again after a reset)
+        self._batch_at = datetime.now(UTC)  # host wall-clock time of the batch being judged
 
     # -- what to send -------------------------------------------------------------------------------
     def plans(self, on_us: int, off_us: int):
@@ -123,6 +125,7 @@ class Recorder:
     # -- feeding ------------------------------------------------------------------------------------
     def push(self, timed) -> None:
         """One `Timed` batch from the feed (edges, drives, incidents)."""
+        self._batch_at = datetime.now(UTC)  # the host's time of the batch: when its failures are judged
         if len(timed.drives):
             self.last_drive_at = time.monotonic()
         until = None
@@ -185,7 +188,8 @@ class Recorder:
         unit = self.writer.units.get(f.channel)
         if unit is None or self.writer.status.get(unit) != "alive":
             return
-        self.writer.mark_failed(unit, self.writer.life_cycle(f.channel, f.cycle), f.mode, f.detail)
+        cycle = self.writer.life_cycle(f.channel, f.cycle)
+        self.writer.mark_failed(unit, cycle, f.mode, f.detail, at=self._batch_at)
         self.failures.append(f)
 
     def maybe_flush(self, force: bool = False):
@@ -237,6 +241,7 @@ class Recorder:
     # -- ending -------------------------------------------------------------------------------------
     def finish(self, reason: str, detail: str = "") -> None:
         """End of data: finish the analysis, judge the last cycles, write everything, end the run."""
+        self._batch_at = datetime.now(UTC)
         rows, numbered = self.count.number(self.analyzer.flush())
         self._take(rows, None, self.count.holes(rows, numbered), numbered)
         # cycles the sampler completed and the analysis measured nothing of: reported, and counted

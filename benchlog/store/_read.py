@@ -68,6 +68,16 @@ class UnitInfo:
     cycles: int  # cycles survived so far (or at failure)
     failed_at_cycle: int | None
     failure_mode: str | None
+    # revision 0007 (None: not recorded). Failure: run time of the failing actuation in run `run_id`,
+    # and the host's wall-clock time (UTC) when the recorder judged it; likewise the first actuation
+    # judged FAIL against the spec (`first_break_*`, in run `first_break_run_id`)
+    run_id: int | None = None
+    failed_at_ns: int | None = None
+    failed_at: datetime | None = None
+    first_break_cycle: int | None = None
+    first_break_run_id: int | None = None
+    first_break_ns: int | None = None
+    first_break_at: datetime | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -623,6 +633,13 @@ class ReadAPI:
                 s.UnitLife.cycles,
                 s.UnitLife.failed_at_cycle,
                 s.UnitLife.failure_mode,
+                s.UnitLife.run_id.label("life_run_id"),
+                s.UnitLife.failed_at_ns,
+                s.UnitLife.failed_at,
+                s.UnitLife.first_break_cycle,
+                s.UnitLife.first_break_run_id,
+                s.UnitLife.first_break_ns,
+                s.UnitLife.first_break_at,
             )
             .join(s.Lot, s.Unit.lot_id == s.Lot.id)
             .join(s.Part, s.Lot.part_id == s.Part.id)
@@ -644,6 +661,13 @@ class ReadAPI:
             int(r.cycles or 0),
             r.failed_at_cycle,
             r.failure_mode,
+            r.life_run_id,
+            r.failed_at_ns,
+            _utc(r.failed_at),
+            r.first_break_cycle,
+            r.first_break_run_id,
+            r.first_break_ns,
+            _utc(r.first_break_at),
         )
 
     @staticmethod

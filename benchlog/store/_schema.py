@@ -174,6 +174,14 @@ class UnitLife(Base):
     run_id: Mapped[int | None] = mapped_column(ForeignKey("runs.id"))
     detail: Mapped[str] = mapped_column(Text, default="")
     updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    # revision 0007: when it failed (run time of the failing actuation in run_id; host wall clock, UTC)
+    failed_at_ns: Mapped[int | None] = mapped_column(BigInteger)
+    failed_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    # the unit's first actuation judged FAIL against its spec: life cycle, run, run time, wall clock
+    first_break_cycle: Mapped[int | None] = mapped_column(BigInteger)
+    first_break_run_id: Mapped[int | None] = mapped_column(Integer)
+    first_break_ns: Mapped[int | None] = mapped_column(BigInteger)
+    first_break_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
 
 
 class Actuation(Base):

@@ -15,12 +15,13 @@ import time
 from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass
+from datetime import UTC, datetime
 
 import numpy as np
 from sqlalchemy import func, insert, select, update
 from sqlalchemy.exc import SQLAlchemyError
 
-from benchlog.analysis._types import ACTUATION_DTYPE, BREAK, MAKE
+from benchlog.analysis._types import ACTUATION_DTYPE, BREAK, FAIL, MAKE
 from benchlog.errors import StoreBusyError, StoreError
 from benchlog.events import Incident, TimedEdges
 
@@ -157,6 +158,22 @@ class FlushStats:
     seconds: float = 0.0
 
 
+def failing_actuation_ns(conn, unit_id: int, cycle: int, mode: str) -> int | None:
+    """Run time of the actuation that failed a unit at life cycle `cycle`: the break for `welded`, the
+    make for `missed_make`, for any other mode (chatter) the cycle's first actuation with chatter.
+    None when it is not stored. (Revision 0007 applies the same rule to older stores.)"""
+    a = s.Actuation
+    cond = [a.unit_id == unit_id, a.cycle == cycle, a.t_start_ns >= 0]
+    if mode == "welded":
+        cond.append(a.kind == BREAK)
+    elif mode == "missed_make":
+        cond.append(a.kind == MAKE)
+    else:
+        cond.append(a.chatter > 0)
+    t = conn.execute(select(func.min(a.t_start_ns)).where(*cond)).scalar()
+    return None if t is None else int(t)
+
+
 class RunWriter:
     """Writes one run (segment) of a bench. Made by `Store.start_run` / `Store.resume_run`.
 
@@ -188,13 +205,12 @@ class RunWriter:
                     s.RunUnit.sampler_base,
                 ).where(s.RunUnit.run_id == run_id)
             ).all()
-            life = dict(
-                c.execute(
-                    select(s.UnitLife.unit_id, s.UnitLife.status).where(
-                        s.UnitLife.unit_id.in_([a.unit_id for a in assign])
-                    )
-                ).all()
-            )
+            life_rows = c.execute(
+                select(s.UnitLife.unit_id, s.UnitLife.status, s.UnitLife.first_break_cycle).where(
+                    s.UnitLife.unit_id.in_([a.unit_id for a in assign])
+                )
+            ).all()
+            life = {r.unit_id: r.status for r in life_rows}
         self.units = {a.channel: a.unit_id for a in assign}
         self.channel_of = {a.unit_id: a.channel for a in assign}
         self._lut = np.full(256, -1, np.int64)
@@ -226,6 +242,11 @@ class RunWriter:
         self._edges: list[TimedEdges] = []
         self._incidents: list[Incident] = []
         self._life: dict[int, dict] = {}
+        # failures whose failing actuation's run time is still to be read back: unit -> (cycle, mode)
+        self._fail_time_due: dict[int, tuple[int, str]] = {}
+        # the first actuation judged FAIL of each unit: units that have one stored, and those due
+        self._broke: set[int] = {r.unit_id for r in life_rows if r.first_break_cycle is not None}
+        self._break_due: dict[int, dict] = {}
         self._rate = 0.0
         self._progress: deque[tuple[float, int]] = deque()  # (monotonic time, cycles done)
         self._last_flush = time.monotonic()
@@ -280,6 +301,7 @@ class RunWriter:
                 col[col >= 0] += off
         self._acts.append(rows)
         self._act_units.append(unit)
+        self._note_first_breaks(rows, unit)
         # progress per channel: run cycles = segment start + (shifted) analysis cycle + 1
         order = np.argsort(ch, kind="stable")
         chs, first = np.unique(ch[order], return_index=True)
@@ -288,6 +310,26 @@ class RunWriter:
             done = self.seg_start[c] + int(t) + 1
             if done > self.cycles_done[c]:
                 self.cycles_done[c] = done
+
+    def _note_first_breaks(self, rows: np.ndarray, unit: np.ndarray) -> None:
+        """Keep each unit's first actuation judged FAIL (run time and the host's time of its batch)."""
+        bad = rows["verdict"] == FAIL
+        if not bad.any():
+            return
+        wall = self.store.now()
+        for u in np.unique(unit[bad]).tolist():
+            if u in self._broke:
+                continue
+            mine = bad & (unit == u)
+            i = int(np.flatnonzero(mine)[np.argmin(rows["cycle"][mine])])
+            t = int(rows["t_start_ns"][i])
+            self._broke.add(u)
+            self._break_due[u] = {
+                "first_break_cycle": int(rows["cycle"][i]),
+                "first_break_run_id": self.run_id,
+                "first_break_ns": t if t >= 0 else None,
+                "first_break_at": wall,
+            }
 
     def life_cycle(self, channel: int, analysis_cycle: int) -> int:
         """The unit's life cycle for an analysis cycle of this segment."""
@@ -326,8 +368,14 @@ class RunWriter:
                 if c not in self._break_owed:
                     self._shift[c] = 1
 
-    def mark_failed(self, unit_id: int, cycle: int, mode: str, detail: str = "") -> None:
-        """Record the unit as failed at life cycle `cycle` with `mode` (committed with the next flush)."""
+    def mark_failed(
+        self, unit_id: int, cycle: int, mode: str, detail: str = "", at: datetime | None = None
+    ) -> None:
+        """Record the unit as failed at life cycle `cycle` with `mode` (committed with the next flush).
+
+        `at`: the host's wall-clock time (aware) of the batch in which the failure was judged (default:
+        now). The run time of the failing actuation is read back from the stored actuations at the
+        flush that writes it (`failing_actuation_ns`)."""
         self.status[unit_id] = s.FAILED
         self._life[unit_id] = {
             "status": s.FAILED,
@@ -335,7 +383,10 @@ class RunWriter:
             "failure_mode": mode,
             "cycles": int(cycle),
             "detail": detail,
+            "failed_at": (at or self.store.now()).astimezone(UTC),
+            "failed_at_ns": None,
         }
+        self._fail_time_due[unit_id] = (int(cycle), mode)
 
     def mark_removed(self, unit_id: int, detail: str = "") -> None:
         self.status[unit_id] = s.REMOVED
@@ -499,6 +550,17 @@ class RunWriter:
                     .where(s.UnitLife.unit_id == unit)
                     .values(run_id=self.run_id, updated_at=stamp, **values)
                 )
+            if unit in self._break_due:
+                conn.execute(
+                    update(s.UnitLife).where(s.UnitLife.unit_id == unit).values(**self._break_due.pop(unit))
+                )
+            if unit in self._fail_time_due:
+                t_ns = failing_actuation_ns(conn, unit, *self._fail_time_due[unit])
+                if t_ns is not None:  # else its actuation is not written yet: the next flush looks again
+                    del self._fail_time_due[unit]
+                    conn.execute(
+                        update(s.UnitLife).where(s.UnitLife.unit_id == unit).values(failed_at_ns=t_ns)
+                    )
 
     def _incident_row(self, inc: Incident) -> dict:
         off = self.t_offset_ns

@@ -42,7 +42,7 @@ def test_old_database_is_upgraded_with_its_data(db_url):
     try:
         upgrade(engine, "0001")
         assert current_revision(engine) == "0001"
-        assert status(engine).pending == ("0002", "0003", "0004", "0005", "0006")
+        assert status(engine).pending == ("0002", "0003", "0004", "0005", "0006", "0007")
         with engine.begin() as c:
             c.execute(text("INSERT INTO benches (name, created_at) VALUES ('bench A', '2026-01-01')"))
         assert "note" not in {col["name"] for col in inspect(engine).get_columns("runs")}
@@ -71,3 +71,45 @@ def test_old_database_is_upgraded_with_its_data(db_url):
 def _unit(store):
     part = store.register_part("AG-R12", "Ashgrove Components")
     return store.register_unit(store.register_lot(part, "L1"), "U1")
+
+
+def test_failures_stored_before_0007_get_the_exact_run_time_and_no_wall_clock(open_store):
+    # a store written at 0006: failures with a cycle and a mode only, and one actuation judged FAIL
+    from benchlog.analysis._types import FAIL
+    from benchlog.views.tui._summary import summary_text
+    from tests.store._data import actuations, downgrade_to
+
+    store = open_store()
+    part = store.register_part("AG-R12", "Ashgrove Components")
+    lot = store.register_lot(part, "L1")
+    units = {ch: store.register_unit(lot, f"U{ch}") for ch in range(3)}
+    w = store.start_run(store.register_bench("bench A"), units, profile={}, target_cycles=100)
+    acts = actuations(range(3), range(20))
+    acts["chatter"][(acts["channel"] == 1) & (acts["cycle"] == 7) & (acts["kind"] == 1)] = 2
+    acts["verdict"][(acts["channel"] == 1) & (acts["cycle"] >= 5)] = FAIL
+    w.add(actuations=acts)
+    w.mark_failed(units[0], 10, "welded")
+    w.mark_failed(units[1], 7, "chatter")
+    w.mark_failed(units[2], 50, "missed_make")  # its failing actuation was never stored
+    w.close("all_failed")
+    downgrade_to(store.engine, "0006")
+    assert "failed_at" not in {c["name"] for c in inspect(store.engine).get_columns("unit_life")}
+    assert status(store.engine).pending == ("0007",)
+
+    store.close()
+    store = open_store()  # opening for writing upgrades an older schema
+    assert current_revision(store.engine) == head_revision()
+    got = {u.serial: u for u in store.units()}
+    # the break of cycle 10 of _data.actuations: 10 periods of 100 ms, then half a period
+    assert got["U0"].failed_at_ns == 10 * 100_000_000 + 50_000_000
+    assert got["U1"].failed_at_ns == 7 * 100_000_000 + 50_000_000  # the actuation with chatter
+    assert got["U2"].failed_at_ns is None
+    assert all(u.failed_at is None for u in got.values())  # the host's time was never stored
+    assert (got["U1"].first_break_cycle, got["U1"].first_break_ns) == (5, 5 * 100_000_000)
+    assert got["U1"].first_break_run_id == w.run_id and got["U1"].first_break_at is None
+    assert got["U0"].first_break_cycle is None
+    assert [u.failed_at_cycle for u in got.values()] == [10, 7, 50]  # nothing else changed
+    text = summary_text(store)
+    assert f"failed at cycle 10: time not recorded (run {w.run_id} at 0:00:01.050)" in text
+    assert "failed at cycle 50: time not recorded\n" in text + "\n"
+    assert f"first out of spec at cycle 5: time not recorded (run {w.run_id} at 0:00:00.500)" in text

@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import argparse
 
-from benchlog.views.cli._args import add_output
+from benchlog.views.cli._args import JSON_HELP, add_output
 
 NAME = "export"
-HELP = "Write recorded actuations as CSV or a run's raw edges as a VCD waveform file."
+HELP = (
+    "Write recorded actuations as CSV, a run's raw edges as a VCD waveform file, or each unit's life "
+    "(failure and first spec break, times in UTC) as CSV or JSON."
+)
 
 
 def _span(text: str) -> tuple[float, float]:
@@ -25,7 +28,10 @@ def _span(text: str) -> tuple[float, float]:
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
-        "what", metavar="FORMAT", choices=("csv", "vcd"), help="csv: actuations; vcd: raw edges of one run"
+        "what",
+        metavar="FORMAT",
+        choices=("csv", "vcd", "units"),
+        help="csv: actuations; vcd: raw edges of one run; units: each unit's life, failure and its times",
     )
     p.add_argument("--db", help="database URL or SQLite file (default: $BENCHLOG_DB or ./benchlog.sqlite)")
     p.add_argument("--run", type=int, action="append", help="run id (vcd: required; csv: repeatable)")
@@ -35,6 +41,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--kind", choices=("make", "break"), help="only makes or only breaks (csv)")
     p.add_argument("--cycles", type=_span, metavar="FIRST:LAST", help="life cycles, inclusive")
     p.add_argument("--seconds", type=_span, metavar="FROM:TO", help="run time span in seconds (vcd)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP + " (units: instead of CSV)")
     add_output(p, "write to FILE (default: standard output)")
 
 
@@ -44,10 +51,14 @@ def run(args: argparse.Namespace) -> int:
     from benchlog.errors import UsageError
     from benchlog.store import Store
     from benchlog.views._notes import say_readonly
-    from benchlog.views.export import write_actuations_csv, write_vcd
+    from benchlog.views.export import write_actuations_csv, write_units, write_vcd
 
     if args.what == "csv" and args.seconds is not None:
         raise UsageError("--seconds applies to vcd; use --cycles for csv")
+    if args.json and args.what != "units":
+        raise UsageError("--json applies to units")
+    if args.what == "units" and (args.run or args.kind or args.cycles or args.seconds):
+        raise UsageError("units takes --unit, --lot and --part only")
     if args.what == "vcd" and (not args.run or len(args.run) != 1):
         raise UsageError("vcd needs exactly one --run")
     if args.what == "vcd" and args.seconds is not None and args.cycles is not None:
@@ -69,6 +80,11 @@ def run(args: argparse.Namespace) -> int:
                     cycles=cycles,
                 )
                 what = "actuations"
+            elif args.what == "units":
+                n = write_units(
+                    store, out, as_json=args.json, units=args.unit, lots=args.lot, parts=args.part
+                )
+                what = "units"
             else:
                 t_ns = None
                 if args.seconds is not None:

@@ -47,6 +47,7 @@ from benchlog.analysis import (
 )
 from benchlog.errors import BenchlogError
 from benchlog.store import FAILED, IncidentInfo, PartInfo, RunInfo, Trend, UnitInfo
+from benchlog.views._times import failure_time_text
 
 ROLLING_WINDOWS = 10
 DRIFT_POINTS = 240
@@ -355,7 +356,7 @@ class UnitRow:
         u = self.unit
         if u.status == FAILED:
             mode = (u.failure_mode or "unknown mode").replace("_", " ")
-            return f"failed at cycle {u.failed_at_cycle or u.cycles:,}: {mode}"
+            return f"failed at cycle {u.failed_at_cycle or u.cycles:,}: {mode}, {failure_time_text(u)}"
         return f"{u.status}, {u.cycles:,} cycles"
 
     def search_text(self) -> str:

@@ -8,6 +8,8 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.widgets import Footer, Static
 
+from benchlog.views._times import failure_time_text
+
 from ._base import DIM_STYLE, DRIFT_STYLE, DataScreen, StatusLine
 from ._data import CHART_METRICS, History, cycles_text, read_history, value_text
 from ._plots import Level, Series, histogram, legend, trend_chart
@@ -66,6 +68,7 @@ class HistoryScreen(DataScreen):
         head.append(f"  {u.part_number} lot {u.lot}  {u.status.upper()}")
         if u.failed_at_cycle is not None:
             head.append(f" at {cycles_text(u.failed_at_cycle)} ({(u.failure_mode or '').replace('_', ' ')})")
+            head.append(f" {failure_time_text(u)}")
         head.append(f"  {cycles_text(u.cycles)} cycles")
         self.query_one("#unit-line", Static).update(head)
         count = "count" in data.metric or data.metric.startswith("chatter")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from benchlog.views._times import failure_time_text, first_break_text
+
 from ._data import TrendCache, cycles_text, duration_text, read_overview, read_run, value_text
 
 
@@ -35,4 +37,10 @@ def summary_text(store, runs: int = 5) -> str:
                 f"{u.verdict_label:<8} {value_text(f_m.p95) + '/' + value_text(f_m.max):>15} "
                 f"{value_text(f_b.p95) + '/' + value_text(f_b.max):>16}  {drift}"
             )
+            if u.unit.status == "failed":
+                cycle = u.unit.failed_at_cycle or u.unit.cycles
+                out.append(f"     failed at cycle {cycle:,}: {failure_time_text(u.unit)}")
+            broke = first_break_text(u.unit)
+            if broke:
+                out.append(f"     {broke}")
     return "\n".join(out)

@@ -10,6 +10,8 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.widgets import DataTable, Footer, Input, Static
 
+from benchlog.views._times import first_break_text
+
 from ._base import DIM_STYLE, DRIFT_STYLE, FAIL_STYLE, MARGINAL_STYLE, PASS_STYLE, DataScreen, StatusLine
 from ._data import (
     CHART_METRICS,
@@ -251,7 +253,11 @@ class UnitsScreen(DataScreen):
         head.append_text(verdict_text(u))
         if u.reasons:
             head.append(": " + "; ".join(u.reasons[:2]))
-        lines = [head, grid]
+        lines = [head]
+        broke = first_break_text(u.unit)
+        if broke:
+            lines.append(Text(broke))
+        lines.append(grid)
         for d in u.drift:
             if d.signalled:
                 lines.append(Text(self._drift_words(d), style=DRIFT_STYLE))
