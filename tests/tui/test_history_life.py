@@ -58,3 +58,36 @@ def test_drift_pass_marginal_and_fail_are_four_colours():
             )  # hues far apart on the colour wheel (common practice, no source)
     for s in (PASS_STYLE, MARGINAL_STYLE, FAIL_STYLE, DRIFT_STYLE):
         assert Style.parse(s).color.is_system_defined is False  # not remapped by a terminal's palette
+
+
+async def test_a_failed_units_history_header_says_when_in_local_time(tmp_path, monkeypatch):
+    # issue 15: the wall-clock time of the failure in the local zone with its UTC offset, then run time
+    import time
+    from datetime import UTC, datetime
+
+    from .test_dashboard import flat, static_text
+
+    monkeypatch.setenv("TZ", "America/Chicago")
+    time.tzset()
+    try:
+        path = str(tmp_path / "failed.sqlite")
+        store = Store.open(path)
+        (unit,) = register(store, "PART-A", "Supplier A", "A1", ["A1-001"])
+        bench = store.register_bench("bench-1", channels=8)
+        w = store.start_run(bench, {0: unit}, profile={"on_ms": 50, "off_ms": 50}, target_cycles=1000)
+        w.add(actuations=actuations([0], 0, 499, seed=1))
+        w.mark_failed(unit, 300, "welded", at=datetime(2026, 12, 3, 9, 14, 7, tzinfo=UTC))
+        w.close(END_TARGET)
+        store.close()
+        app = BenchDashboard(path, refresh_s=0)
+        async with app.run_test(size=(160, 30)) as pilot:
+            await settle(pilot, RunsScreen)
+            await app.push_screen(HistoryScreen(unit))
+            hist = await settle(pilot, HistoryScreen)
+            # 09:14:07 UTC is 03:14:07 in Chicago in December, UTC-6 (IANA tz database); the break of
+            # cycle 300 of _build.actuations starts at 30.05 s of run time
+            want = f"2026-12-03 03:14:07 -06:00, run {w.run_id} at 0:00:30.050"
+            assert want in flat(static_text(hist, "#unit-line"))
+    finally:
+        monkeypatch.undo()
+        time.tzset()
