@@ -149,6 +149,22 @@ class TimedAccepted:
 _EDGE, _DRIVE, _BEAT = 0, 1, 2
 
 
+class _Faults:
+    """Adjacent decode faults (no good record between them): one DECODE_FAULT incident."""
+
+    def __init__(self, first: Fault) -> None:
+        self.by_reason: dict[str, list[int]] = {}
+        self.add(first)
+
+    def add(self, rec: Fault) -> None:
+        entry = self.by_reason.setdefault(rec.reason, [0, 0])
+        entry[0] += rec.units
+        entry[1] += rec.nbytes
+
+    def detail(self) -> str:
+        return ", ".join(f"{u} x {r} ({b} bytes)" for r, (u, b) in sorted(self.by_reason.items()))
+
+
 class _Segment:
     """The tick-bearing records of a push between announcements, gathered for one vectorised pass.
 
@@ -358,7 +374,6 @@ class Timeline:
     def _process(self, records: list[Record], host_ns: int) -> None:
         if self._started:
             self._check_outage(host_ns)
-        faults: dict[str, list[int]] = {}
         seg = _Segment()
         for rec in records:
             if isinstance(rec, Edges):
@@ -380,16 +395,17 @@ class Timeline:
                 self._announcements.append(rec)
                 self._on_announce(rec, host_ns)
             elif isinstance(rec, Fault):
-                entry = faults.setdefault(rec.reason, [0, 0])
-                entry[0] += rec.units
-                entry[1] += rec.nbytes
+                # where in the stream: damaged bytes held records timed between the good records
+                # around them, so the incident spans that stretch (the analysis marks actuations
+                # overlapping it incomplete: a lost edge must not read as bounce or chatter)
+                last = seg.markers[-1] if seg.markers else None
+                if last is not None and last[0] == seg.n and isinstance(last[1], _Faults):
+                    last[1].add(rec)
+                else:
+                    seg.markers.append((seg.n, _Faults(rec)))
             elif isinstance(rec, SequenceGap | Notice | Pong):
                 seg.markers.append((seg.n, rec))
         self._place_segment(seg, host_ns)
-        if faults:
-            t = self._run_hi_ns
-            detail = ", ".join(f"{u} x {r} ({b} bytes)" for r, (u, b) in sorted(faults.items()))
-            self._incidents.append(Incident(DECODE_FAULT, t, t, host_ns, host_ns, detail=detail))
         self._host_last = host_ns
         if self._push_min is not None:
             if self._min_offset is None or self._push_min[0] < self._min_offset:
@@ -613,7 +629,13 @@ class Timeline:
         if seg.markers:
             upto = np.maximum.accumulate(t_all) if n else t_all
             for p, rec in seg.markers:
-                self._marker(rec, max(run_before, int(upto[p - 1])) if p else run_before, host_ns)
+                t = max(run_before, int(upto[p - 1])) if p else run_before
+                if isinstance(rec, _Faults):
+                    t_next = max(t, int(upto[p]) if p < n else self._run_hi_ns)
+                    inc = Incident(DECODE_FAULT, t, t_next, host_ns, host_ns, detail=rec.detail())
+                    self._incidents.append(inc)
+                else:
+                    self._marker(rec, t, host_ns)
 
     def _place_run(self, raw: np.ndarray, start: int, host_ns: int) -> tuple[int, np.ndarray, str | None]:
         """Unwrap raw[start:] up to (not including) the first tick that means a reset, and why it does."""

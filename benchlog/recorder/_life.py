@@ -96,7 +96,9 @@ class LifeJudge:
             return out
         code = np.full(len(rows), float(CLEAN))
         flags = rows["flags"].astype(np.int64)
-        bad = (flags & (STUCK | MISSED)) != 0
+        # a stuck or missed state is judged on what was measured: on an actuation overlapping a data
+        # gap (INCOMPLETE) the edges that would have shown it move may be the ones lost
+        bad = ((flags & (STUCK | MISSED)) != 0) & ((flags & INCOMPLETE) == 0)
         code[(flags & (INCOMPLETE | NO_CHANGE)) != 0] = NEUTRAL
         code[(rows["chatter"] > 0) & (code == CLEAN)] = _ORDER_CHATTER
         code[bad & (rows["kind"] == MAKE)] = MISSED_MAKE

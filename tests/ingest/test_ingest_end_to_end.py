@@ -13,7 +13,7 @@ import time
 import numpy as np
 import pytest
 
-from benchlog.events import DECODE_FAULT, DISCONNECT, RESET
+from benchlog.events import CLOCK, DECODE_FAULT, DISCONNECT, RESET
 from benchlog.ingest import Feed, merge_timed
 from benchlog.sim import PtySampler, parse_config
 from benchlog.wire import Plan
@@ -217,12 +217,19 @@ def test_a_sampler_that_holds_its_output_through_a_pulled_cable_loses_no_time():
     timed = merge_timed(parts)
     sent = sim.bench.truth.sent
     assert len(sim.outages) == 1 and sent["tick"].max() > 6 * (1 << 24)
+    said = [(i.kind, i.detail) for i in timed.incidents]
     kinds = [i.kind for i in timed.incidents]
-    # no CLOCK wraps guessed, no RESET, nothing lost
-    assert kinds == [DISCONNECT], [(i.kind, i.detail) for i in timed.incidents]
+    assert CLOCK not in kinds and RESET not in kinds, said  # no wraps guessed, no false restart
+    (pull,) = [i for i in timed.incidents if i.kind == DISCONNECT]
+    # anything lost went before the host had opened the port (a sampler keeps only its last moments
+    # then, and how many frames that is depends on the host's start): none at or after the pull
+    assert all(i.t_end_ns < pull.t_start_ns for i in timed.incidents if i.kind != DISCONNECT), said
     e = timed.edges
-    assert len(e) == len(sent)
-    rx = e.t_ns - e.t_ns[0]
-    tr = (sent["tick"] - sent["tick"][0]) * 1000
-    assert np.array_equal(e.channel, sent["channel"]) and np.array_equal(e.level, sent["level"])
-    assert np.max(np.abs(rx - tr)) <= 1
+    assert len(e) + sum(i.edges_lost or 0 for i in timed.incidents) == len(sent)
+    # every edge received sits at its sent tick, on one offset (nothing is lost after the start, so the
+    # latest edge received is the latest one sent)
+    offset = int(e.t_ns.max()) - int(sent["tick"].max()) * 1000
+    sent_ns = (sent["tick"] * 1000).tolist()
+    truth = set(zip(sent["channel"].tolist(), sent["level"].tolist(), sent_ns, strict=True))
+    got = zip(e.channel.tolist(), e.level.tolist(), (e.t_ns - offset).tolist(), strict=True)
+    assert all(x in truth for x in got)

@@ -95,6 +95,10 @@ def _byte_damage(store, form: str) -> None:
     reason, w, rec, sim, counters = record_sim(store, cfg, [0, 1], cycles=650, speed=20.0, timeout_s=180)
     assert reason == "target"
     assert store.incidents(w.run_id, kind=RESET) == []  # no false reset
+    # no false failure: every unit's true life (the simulator's) outlasts the run, and what the damage
+    # hid (a lost edge looks like chatter, a stuck or missed contact) is not judged
+    assert all(life > 650 for life, _ in sim.bench.truth.lives().values())
+    assert rec.failures == [], rec.failures
     _check_life_against_truth(store, w, sim, 650, measured=0.95)
     # run time: the last drive of the run against its true time (the run starts at the first record,
     # the sampler's first beat at its power-up)

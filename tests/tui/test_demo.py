@@ -69,7 +69,14 @@ def stored_results(path) -> dict:
                 times = np.column_stack([acts[c] for c in ("bounce_us", "transit_us", "longest_gap_us")])
                 life = (ru.channel, u.status, u.cycles, u.failed_at_cycle, u.failure_mode, len(acts))
                 units[u.serial] = (life, hashlib.sha256(exact).hexdigest(), times)
-            kinds = sorted(i.kind for i in store.incidents(run.id))
+            # frames a simulated sampler sends before the host has opened its port are lost as they
+            # would be on a board (its buffer keeps the last moments only), and how many depends on
+            # when the host opened it: a sequence gap before the first actuation is no part of the result
+            first = store.actuations(runs=[run.id])["t_start_ns"]
+            t0 = int(first.min()) if len(first) else 0
+            kinds = sorted(
+                i.kind for i in store.incidents(run.id) if not (i.kind == "sequence_gap" and i.t_end_ns < t0)
+            )
             out[run.bench] = (run.cycles_done, run.end_reason, run.units, run.units_failed, kinds, units)
     return out
 
