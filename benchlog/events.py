@@ -24,6 +24,9 @@ OVERFLOW = "overflow"
 LOST_EDGES = "lost_edges"
 CLOCK = "clock"
 CYCLES_NOT_OBSERVED = "cycles_not_observed"  # the sampler did cycles the host has no record of
+# the user's --on-event command failed on an event (not found, non-zero exit, timed out, queue full): the
+# data is whole, the telling was not
+EVENT_COMMAND = "event_command"
 INCIDENT_KINDS = (
     DISCONNECT,
     RESET,
@@ -33,6 +36,7 @@ INCIDENT_KINDS = (
     LOST_EDGES,
     CLOCK,
     CYCLES_NOT_OBSERVED,
+    EVENT_COMMAND,
 )
 
 
@@ -134,4 +138,5 @@ __all__ = [
     "LOST_EDGES",
     "CLOCK",
     "CYCLES_NOT_OBSERVED",
+    "EVENT_COMMAND",
 ]

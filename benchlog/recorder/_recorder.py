@@ -21,7 +21,7 @@ import numpy as np
 
 from benchlog.analysis import AnalysisSettings, Analyzer, judge
 from benchlog.errors import PortError, StoreError
-from benchlog.events import TimedDrives
+from benchlog.events import EVENT_COMMAND, Incident, TimedDrives
 from benchlog.store import (
     END_ALL_FAILED,
     END_IDLE,
@@ -79,8 +79,15 @@ class Recorder:
         fail_after: int = 5,
         flush_every_s: float = FLUSH_EVERY_S,
         keep_edges: bool = True,
+        events=None,
+        event_after_s: float = 30.0,
     ) -> None:
         self.writer = writer
+        # the user's --on-event command (an EventCommand, or None): told of failures, a unit's first
+        # actuation out of spec, a link down for `event_after_s`, the end of the run
+        self.events = events
+        self.event_after_s = float(event_after_s)
+        self._told_spec: set[int] = set()  # channels whose first actuation out of spec was told
         self.specs = {c: sp for c, sp in (specs or {}).items() if sp is not None}
         self.analyzer = Analyzer(settings or AnalysisSettings())
         chatter = {}
@@ -168,6 +175,8 @@ class Recorder:
     def _take(self, rows: np.ndarray, edges, incidents, numbered: np.ndarray | None = None) -> None:
         if len(rows):
             rows = self._judge(rows)
+            if self.events is not None and self.specs:
+                self._tell_spec(rows)
             for f in self.life.push(rows):
                 self._fail(f)
         self.incidents += len(incidents)
@@ -191,6 +200,51 @@ class Recorder:
         cycle = self.writer.life_cycle(f.channel, f.cycle)
         self.writer.mark_failed(unit, cycle, f.mode, f.detail, at=self._batch_at)
         self.failures.append(f)
+        if self.events is not None:
+            self.events.post("unit_failed", f.channel, cycle=cycle, mode=f.mode, detail=f.detail)
+
+    def _tell_spec(self, rows: np.ndarray) -> None:
+        """The event of each unit's first actuation failing its spec (once per unit and recording)."""
+        from benchlog.analysis import BREAK, FAIL
+
+        bad = np.flatnonzero(rows["verdict"] == FAIL)
+        if not len(bad):
+            return
+        chs, first = np.unique(rows["channel"][bad], return_index=True)
+        for c, k in zip(chs.tolist(), bad[first].tolist(), strict=True):
+            if c in self._told_spec or c not in self.specs:
+                continue
+            self._told_spec.add(c)
+            row = rows[k]
+            self.events.post(
+                "spec_broken",
+                c,
+                cycle=self.writer.life_cycle(c, int(row["cycle"])),
+                actuation="break" if int(row["kind"]) == BREAK else "make",
+            )
+
+    def _store_event_problems(self) -> None:
+        """The --on-event command's failures so far, as incidents of the run (at the run time last heard)."""
+        if self.events is None:
+            return
+        problems = self.events.take_problems()
+        if not problems:
+            return
+        t = max(self._heard_ns, 0)
+        incidents = [
+            Incident(
+                EVENT_COMMAND,
+                t,
+                t,
+                p.host_start_ns,
+                p.host_end_ns,
+                channel=p.event.get("channel"),
+                detail=f"{p.event.get('event')}: {p.detail}",
+            )
+            for p in problems
+        ]
+        self.incidents += len(incidents)
+        self.writer.add(incidents=incidents)
 
     def maybe_flush(self, force: bool = False):
         now = time.monotonic()
@@ -248,6 +302,20 @@ class Recorder:
         self._take(rows[:0], None, self.count.settle())
         for f in self.life.finish():
             self._fail(f)
+        if self.events is not None:
+            w = self.writer
+            failed = sum(1 for st in w.status.values() if st == "failed")
+            self.events.post(
+                "run_ended",
+                reason=reason,
+                cycles=w.run_cycles_done(),
+                units=len(w.units),
+                failed=failed,
+                incidents=self.incidents,
+            )
+            # the events still queued go out, for a bounded time; those left are incidents of the run
+            self.events.close(2 * self.events.timeout_s)
+            self._store_event_problems()
         self.writer.close(reason, detail)
 
     def run(
@@ -270,6 +338,8 @@ class Recorder:
         last_progress = 0.0
         ending_at: float | None = None
         reason = END_STOPPED
+        down_since: float | None = None  # monotonic time the link went down (None: up)
+        told_down = False
         try:
             while True:
                 try:
@@ -282,8 +352,18 @@ class Recorder:
                     self.send_pending(feed)
                 self.maybe_flush()
                 now = time.monotonic()
-                if self.last_drive_at is not None and not getattr(feed, "connected", True):
+                connected = getattr(feed, "connected", True)
+                if self.last_drive_at is not None and not connected:
                     self.last_drive_at = now  # the sampler's silence counts from the reconnection
+                if self.events is not None:
+                    if connected:
+                        down_since, told_down = None, False
+                    elif down_since is None:
+                        down_since = now
+                    elif not told_down and now - down_since >= self.event_after_s:
+                        told_down = True
+                        self.events.post("link_lost", down_s=round(now - down_since, 1))
+                    self._store_event_problems()
                 if on_progress and now - last_progress >= progress_every_s:
                     last_progress = now
                     on_progress(self.progress(getattr(feed, "connected", True)))

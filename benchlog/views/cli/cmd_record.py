@@ -42,6 +42,28 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--note", default="", help="a note kept with the run")
     p.add_argument("--quiet", action="store_true", help="no progress line")
+    e = p.add_argument_group("events (docs/commands.md, 'Events of a recording')")
+    e.add_argument(
+        "--on-event",
+        metavar="CMD",
+        help="run CMD on each event (a unit failed, a unit's first actuation out of spec, the link lost,"
+        " the run ended): the event as JSON on its standard input and BENCHLOG_* variables; CMD is split"
+        " into words as a shell would, and run without a shell",
+    )
+    e.add_argument(
+        "--event-timeout-s",
+        type=float,
+        default=10.0,
+        metavar="SECONDS",
+        help="kill a call of the --on-event command after this long (default 10)",
+    )
+    e.add_argument(
+        "--event-after-s",
+        type=float,
+        default=30.0,
+        metavar="SECONDS",
+        help="the link counts as lost once down this long (default 30)",
+    )
     g = p.add_argument_group("simulated sampler")
     g.add_argument("--sim-speed", type=float, default=1.0, help="sampler time runs N times the wall clock")
     g.add_argument("--sim-seed", type=int, default=0, help="random seed of the simulated units")
@@ -65,11 +87,12 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--window must be at least 1 cycle")
     if not args.sim_speed > 0:
         raise UsageError("--sim-speed must be > 0")
+    event_argv = _event_argv(args)
 
     sim_cfg = _sim_config(args) if args.sim else None
     store = _open_existing(args.db)  # a new SQLite file is made only once the sampler is heard
     stop = threading.Event()
-    session = _Session(args, store, sim_cfg)
+    session = _Session(args, store, sim_cfg, event_argv)
     try:
         with stop_signals(stop):  # Ctrl-C, SIGTERM, SIGHUP: end the run as "stopped"
             return session.record(stop)
@@ -82,6 +105,40 @@ def run(args: argparse.Namespace) -> int:
         ) from exc
     finally:
         session.close()
+
+
+def _event_argv(args) -> list[str] | None:
+    """The --on-event command's words, checked before anything starts (a usage error otherwise)."""
+    import math
+    import os
+    import shlex
+    import shutil
+
+    from benchlog.errors import UsageError
+
+    if not (math.isfinite(args.event_timeout_s) and args.event_timeout_s > 0):
+        raise UsageError("--event-timeout-s must be a number of seconds > 0")
+    if not (math.isfinite(args.event_after_s) and args.event_after_s >= 0):
+        raise UsageError("--event-after-s must be a number of seconds >= 0")
+    if args.on_event is None:
+        return None
+    try:
+        argv = shlex.split(args.on_event)
+    except ValueError as exc:
+        raise UsageError(f"--on-event: cannot split {args.on_event!r} into words: {exc}") from None
+    if not argv:
+        raise UsageError("--on-event needs a command")
+    prog = argv[0]
+    if os.sep in prog:
+        if not (os.path.isfile(prog) and os.access(prog, os.X_OK)):
+            raise UsageError(f"--on-event: {prog} is not an executable file")
+    elif shutil.which(prog) is None:
+        raise UsageError(f"--on-event: no command {prog!r} on the PATH")
+    return argv
+
+
+def _say(line: str) -> None:
+    print(line, file=sys.stderr, flush=True)
 
 
 def _open_existing(db):
@@ -140,8 +197,10 @@ def _sim_config(args):
 
 
 class _Session:
-    def __init__(self, args, store, sim_cfg) -> None:
+    def __init__(self, args, store, sim_cfg, event_argv=None) -> None:
         self.args = args
+        self.event_argv = event_argv
+        self.events = None
         self.store = store
         self.sim_cfg = sim_cfg
         self.sim = None
@@ -149,6 +208,8 @@ class _Session:
         self.writer = None
 
     def close(self) -> None:
+        if self.events is not None:  # an error ended the recording: its calls are killed, not awaited
+            self.events.close(0.0)
         if self.writer is not None and not self.writer.closed:
             self.writer.abandon()
         if self.feed is not None:
@@ -288,7 +349,16 @@ class _Session:
             )
         first = next((sp for sp in specs.values() if sp is not None), None)
         settings = first.settings() if first is not None else AnalysisSettings()
-        rec = Recorder(self.writer, settings=settings, specs=specs, fail_after=a.fail_after)
+        if self.event_argv is not None:
+            self.events = self._event_command(a.bench if resumed is None else resumed.bench)
+        rec = Recorder(
+            self.writer,
+            settings=settings,
+            specs=specs,
+            fail_after=a.fail_after,
+            events=self.events,
+            event_after_s=a.event_after_s,
+        )
         for timed in early:
             rec.push(timed)
         self.feed.start_cycling(rec.plans(int(on_ms * 1000), int(off_ms * 1000)))
@@ -322,6 +392,16 @@ class _Session:
             f"{p.failed}/{p.units} units failed, {p.incidents} incidents"
         )
         return 0
+
+    def _event_command(self, bench: str):
+        from benchlog.recorder import EventCommand
+
+        ev = EventCommand(self.event_argv, timeout_s=self.args.event_timeout_s, say=_say)
+        ev.context = {"run": self.writer.run_id, "bench": bench}
+        for ru in self.store.run_units(self.writer.run_id):
+            u = ru.unit
+            ev.units[ru.channel] = {"unit": u.serial, "unit_id": u.id, "part": u.part_number, "lot": u.lot}
+        return ev
 
     def _await_sampler(self, url: str, stop, announce_s: float = 5.0):
         """The batches read until the sampler announces itself (up to `announce_s`: an older sampler
