@@ -246,6 +246,15 @@ class Recorder:
         self.incidents += len(incidents)
         self.writer.add(incidents=incidents)
 
+    def _tell_store_error(self, exc: Exception) -> None:
+        """The run's end by a store error, told (its queued events go first, for a bounded time); the
+        command's failures cannot be stored now: they are said on standard error only."""
+        if self.events is None:
+            return
+        self.events.post("run_ended", reason=END_STORE_ERROR, detail=str(exc), incidents=self.incidents)
+        self.events.close(2 * self.events.timeout_s)
+        self.events.take_problems()
+
     def maybe_flush(self, force: bool = False):
         now = time.monotonic()
         if force or now - self._last_flush >= self.flush_every_s:
@@ -387,14 +396,16 @@ class Recorder:
                     break
         except KeyboardInterrupt:
             reason = END_STOPPED
-        except StoreError:
+        except StoreError as exc:
             self.writer.abandon()
+            self._tell_store_error(exc)
             raise
         _halt(feed)
         try:
             self.finish(reason)
-        except StoreError:
+        except StoreError as exc:
             self.writer.abandon()
+            self._tell_store_error(exc)
             raise
         if on_progress:
             on_progress(self.progress(getattr(feed, "connected", True)))

@@ -31,6 +31,7 @@ def record_sim(
     fail_after=5,
     on_running=None,
     keep_sim=False,
+    events=None,
 ):
     """Record `cycles` cycles (50 ms on / 50 ms off) of `channels` of `cfg`; returns (reason, writer,
     recorder, sim, feed counters).
@@ -51,7 +52,11 @@ def record_sim(
     )
     spec = load_spec("AG-MS5")
     rec = Recorder(
-        writer, settings=spec.settings(), specs=dict.fromkeys(channels, spec), fail_after=fail_after
+        writer,
+        settings=spec.settings(),
+        specs=dict.fromkeys(channels, spec),
+        fail_after=fail_after,
+        events=events,
     )
     stop = threading.Event()
     timer = threading.Timer(max(timeout_s or 0, HANG_S), stop.set)

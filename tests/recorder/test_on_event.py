@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import shlex
 import sys
 from pathlib import Path
 
@@ -206,3 +207,31 @@ def test_impossible_event_options_are_usage_errors(more, said, tmp_path, capsys)
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and said in err and "Traceback" not in err
     assert not os.path.exists(tmp_path / "x.sqlite")  # nothing started
+
+
+def test_a_store_error_is_told_as_the_end_of_the_run(tmp_path):
+    from sqlalchemy import event
+
+    from benchlog.errors import StoreError
+    from benchlog.recorder import EventCommand
+    from tests.recorder._helpers import demo_config, record_sim
+
+    cmd, out = _hook(tmp_path, "ok")
+    store = Store.open(str(tmp_path / "full.sqlite"))
+    pages = store.engine.connect().exec_driver_sql("PRAGMA page_count").scalar() + 40
+
+    # SQLite's max_page_count caps the file: past it every write fails as on a full disk (SQLITE_FULL)
+    @event.listens_for(store.engine, "connect")
+    def _cap(dbapi_connection, _record):
+        dbapi_connection.execute(f"PRAGMA max_page_count={pages}")
+
+    store.engine.dispose()
+    told = EventCommand(shlex.split(cmd), timeout_s=10)
+    try:
+        with pytest.raises(StoreError, match="disk is full"):
+            record_sim(store, demo_config(), [0, 1, 2, 3], cycles=2000, events=told)
+    finally:
+        told.close(0.0)
+        store.close()
+    (ended,) = [t["stdin"] for t in _told(out) if t["stdin"]["event"] == "run_ended"]
+    assert ended["reason"] == "store_error" and "disk is full" in ended["detail"]
