@@ -13,6 +13,22 @@ from tests.conftest import HANG_S
 SPEED = 20.0
 
 
+def start_run(store, channels, cycles: int, bench: str = "bench T", **kw):
+    """A run of units T-<channel> (part AG-MS5, lot T1) on `bench`: `cycles` cycles of 50 ms on / 50 ms
+    off; returns its RunWriter (`kw` goes to `Store.start_run`)."""
+    part = store.register_part("AG-MS5", "Ashgrove Components")
+    lot = store.register_lot(part, "T1")
+    units = {ch: store.register_unit(lot, f"T-{ch}") for ch in channels}
+    return store.start_run(
+        store.register_bench(bench),
+        units,
+        profile={"on_ms": 50, "off_ms": 50, "cycles": cycles},
+        target_cycles=cycles,
+        rollup_window=20,
+        **kw,
+    )
+
+
 def demo_config(**faults):
     cfg = load_preset("demo")
     return cfg.with_faults(**faults) if faults else cfg
@@ -38,18 +54,7 @@ def record_sim(
 
     `timeout_s` is a ceiling only a hang reaches (at least `HANG_S`): a loaded machine slows the
     simulated bench down, it never ends a recording early."""
-    part = store.register_part("AG-MS5", "Ashgrove Components")
-    lot = store.register_lot(part, "T1")
-    units = {ch: store.register_unit(lot, f"T-{ch}") for ch in channels}
-    bench_id = store.register_bench(bench)
-    writer = store.start_run(
-        bench_id,
-        units,
-        profile={"on_ms": 50, "off_ms": 50, "cycles": cycles},
-        target_cycles=cycles,
-        rollup_window=20,
-        fail_after=fail_after,
-    )
+    writer = start_run(store, channels, cycles, bench, fail_after=fail_after)
     spec = load_spec("AG-MS5")
     rec = Recorder(
         writer,

@@ -25,7 +25,7 @@ from benchlog.sim import Bench
 from benchlog.store import Store
 from benchlog.wire import Decoder, Drive, Go
 from tests.conftest import HANG_S
-from tests.recorder._helpers import demo_config
+from tests.recorder._helpers import demo_config, start_run
 
 MS = 1_000_000
 ON_US = OFF_US = 50_000
@@ -102,16 +102,7 @@ CASES = {
 @pytest.mark.parametrize("picks", CASES.values(), ids=CASES.keys())
 def test_lost_drive_records_at_the_end_cost_no_cycle(tmp_path, picks):
     with Store.open(str(tmp_path / "lost.sqlite")) as store:
-        part = store.register_part("AG-MS5", "Ashgrove Components")
-        lot = store.register_lot(part, "T1")
-        units = {ch: store.register_unit(lot, f"T-{ch}") for ch in CHANNELS}
-        writer = store.start_run(
-            store.register_bench("bench D"),
-            units,
-            profile={"on_ms": 50, "off_ms": 50, "cycles": TARGET},
-            target_cycles=TARGET,
-            rollup_window=20,
-        )
+        writer = start_run(store, CHANNELS, TARGET, "bench D")
         spec = load_spec("AG-MS5")
         rec = Recorder(writer, settings=spec.settings(), specs=dict.fromkeys(CHANNELS, spec))
         bench = Bench(demo_config().with_sampler(form="packed"), 5)

@@ -22,7 +22,7 @@ from benchlog.recorder import Recorder
 from benchlog.sim import Bench
 from benchlog.store import Store
 from benchlog.wire import Go, Plan
-from tests.recorder._helpers import demo_config
+from tests.recorder._helpers import demo_config, start_run
 
 MS = 1_000_000
 ON_US = OFF_US = 50_000  # cycle k (1-based) switches on at (k - 1) * 100 ms + 0.1 ms (GO starts 0.1 ms on)
@@ -73,17 +73,7 @@ class _Host:
 
 def _recorded_through_a_power_cut(tmp_path, cut_ms: float, off_ms: float, cable_pulled: bool):
     store = Store.open(str(tmp_path / "reset.sqlite"))
-    part = store.register_part("AG-MS5", "Ashgrove Components")
-    lot = store.register_lot(part, "T1")
-    units = {ch: store.register_unit(lot, f"T-{ch}") for ch in CHANNELS}
-    bench_id = store.register_bench("bench P")
-    writer = store.start_run(
-        bench_id,
-        units,
-        profile={"on_ms": 50, "off_ms": 50, "cycles": TARGET},
-        target_cycles=TARGET,
-        rollup_window=20,
-    )
+    writer = start_run(store, CHANNELS, TARGET, "bench P")
     spec = load_spec("AG-MS5")
     rec = Recorder(writer, settings=spec.settings(), specs=dict.fromkeys(CHANNELS, spec))
     bench = Bench(demo_config(), 5)

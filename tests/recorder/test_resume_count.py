@@ -23,7 +23,7 @@ from benchlog.recorder import Recorder
 from benchlog.sim import Bench
 from benchlog.store import Store
 from benchlog.wire import Go, Who
-from tests.recorder._helpers import demo_config
+from tests.recorder._helpers import demo_config, start_run
 
 MS = 1_000_000
 ON_US = OFF_US = 50_000  # cycle k (1-based) switches on at (k - 1) * 100 ms + 0.1 ms (GO starts 0.1 ms on)
@@ -67,22 +67,12 @@ class _Host:
 
 def _killed_and_resumed(tmp_path, kill_ms: float, resume_ms: float, seed: int = 5):
     store = Store.open(str(tmp_path / "resume.sqlite"))
-    part = store.register_part("AG-MS5", "Ashgrove Components")
-    lot = store.register_lot(part, "T1")
-    units = {ch: store.register_unit(lot, f"T-{ch}") for ch in CHANNELS}
-    bench_id = store.register_bench("bench R")
-    writer = store.start_run(
-        bench_id,
-        units,
-        profile={"on_ms": 50, "off_ms": 50, "cycles": TARGET},
-        target_cycles=TARGET,
-        rollup_window=20,
-    )
+    writer = start_run(store, CHANNELS, TARGET, "bench R")
     bench = Bench(demo_config(), seed)
     first = _Host(bench, _recorder(writer), resumed=False)
     first.run_to(int(kill_ms * MS))
     writer.abandon()  # kill -9 right after a commit
-    store.release_bench(bench_id, writer.lease_token)
+    store.release_bench(writer.bench_id, writer.lease_token)
     bench.advance_to(int(resume_ms * MS))  # the sampler cycles on; nobody reads what it sends
     again = _Host(bench, _recorder(store.resume_run(writer.run_id)), resumed=True)
     # the sampler's plan (sent before the kill) ends at the target: run until the recorder sees it

@@ -50,21 +50,26 @@ def _record(store):
     return units
 
 
-def _reference(acts: np.ndarray, series: str, unit: int) -> np.ndarray:
-    """The raw values a series holds for one unit, computed with numpy from the stored rows."""
+def _raw(acts: np.ndarray, series: str, unit: int) -> tuple[np.ndarray, np.ndarray]:
+    """The raw values a series holds for one unit and the cycle of each, with numpy from the stored rows."""
     which, column = SERIES[series]
     a = acts[(acts["unit_id"] == unit) & ((acts["flags"] & NOT_MEASURED) == 0)]
     if which == "cycle":
         cyc, inv = np.unique(a["cycle"], return_inverse=True)
-        return np.bincount(inv, a["chatter"].astype(float), len(cyc))
+        return np.bincount(inv, a["chatter"].astype(float), len(cyc)), cyc
     sel = {
         "make": a["kind"] == MAKE,
         "break": a["kind"] == BREAK,
         "operate": a["drive_level"] == 1,
         "release": a["drive_level"] == 0,
     }[which]
-    v = a[column][sel].astype(float)
-    return v[np.isfinite(v)]
+    v, c = a[column][sel].astype(float), a["cycle"][sel]
+    return v[np.isfinite(v)], c[np.isfinite(v)]
+
+
+def _reference(acts: np.ndarray, series: str, unit: int) -> np.ndarray:
+    """The raw values a series holds for one unit, computed with numpy from the stored rows."""
+    return _raw(acts, series, unit)[0]
 
 
 def _check_against_raw(store, units) -> None:
@@ -135,20 +140,7 @@ def test_upgrade_builds_the_same_summaries_from_stored_rows(store):
 
 def _reference_windows(acts: np.ndarray, series: str, unit: int) -> dict[int, np.ndarray]:
     """The raw values of one unit's series, window by window (cycle // SUMMARY_WINDOW), with numpy."""
-    which, column = SERIES[series]
-    a = acts[(acts["unit_id"] == unit) & ((acts["flags"] & NOT_MEASURED) == 0)]
-    if which == "cycle":
-        cyc, inv = np.unique(a["cycle"], return_inverse=True)
-        v, c = np.bincount(inv, a["chatter"].astype(float), len(cyc)), cyc
-    else:
-        sel = {
-            "make": a["kind"] == MAKE,
-            "break": a["kind"] == BREAK,
-            "operate": a["drive_level"] == 1,
-            "release": a["drive_level"] == 0,
-        }[which]
-        v, c = a[column][sel].astype(float), a["cycle"][sel]
-        v, c = v[np.isfinite(v)], c[np.isfinite(v)]
+    v, c = _raw(acts, series, unit)
     w = c // SUMMARY_WINDOW
     return {int(k): v[w == k] for k in np.unique(w)}
 
