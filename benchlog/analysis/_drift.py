@@ -39,7 +39,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from benchlog.analysis._types import INCOMPLETE, MAKE, NO_CHANGE
+from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, NO_CHANGE
 from benchlog.errors import DataError
 
 WINDOW_DTYPE = np.dtype(
@@ -383,12 +383,15 @@ def drift(
     alpha: float = DEFAULT_ALPHA,
     horizon: float | None = None,
     failed_at: int | None = None,
+    quick: bool = False,
 ) -> DriftReport:
     """Charts and projection over window statistics (WINDOW_DTYPE from `window_stats`).
 
     Upward drift is what wear does to bounce, so by default only the upper side signals.
     `baseline_windows=None` takes the first quarter of the windows (5 to 20). `horizon`: a projected
     crossing beyond this cycle does not make a flag; `failed_at`: the unit failed there (no projection).
+    `quick`: without a chart signal, no trend is fitted (no flag can stand without a signal): the flag
+    (`confirmed`) is the same, the projection is left out.
     """
     values = windows["value"].astype(np.float64)
     if baseline_windows is None:
@@ -406,7 +409,7 @@ def drift(
     trend_p = math.nan
     mid = (windows["cycle_start"] + windows["cycle_end"]) / 2.0
     after = (np.arange(len(values)) >= base.windows) & has
-    if after.sum() >= 3:
+    if after.sum() >= 3 and (not quick or e_sig.any() or c_sig.any()):
         trend = project(mid[after], values[after], math.inf if limit is None else limit, confidence)
         if np.ptp(values[after]) > 0 and (e_sig.any() or c_sig.any()):  # a flag needs a signal anyway
             trend_p = rising_trend_p(values[after])
@@ -490,3 +493,92 @@ class DriftMonitor:
             self.baseline_windows,
             **{k: float(v) for k, v in self.chart.items()},
         )
+
+
+# -- a unit's drift flag from its window series: what the dashboard shows and the recorder dates ---------
+# the metrics judged for drift: key -> (actuation column, kind)
+DRIFT_METRICS: dict[str, tuple[str, int]] = {
+    "make_bounce": ("bounce_us", MAKE),
+    "break_bounce": ("bounce_us", BREAK),
+    "operate_time": ("transit_us", MAKE),
+    "release_time": ("transit_us", BREAK),
+}
+DRIFT_POINTS = 240  # a longer series is coarsened to this many points (medians of consecutive windows)
+DRIFT_MIN_WINDOWS = BASELINE_MIN + 2  # windows with data before a series is judged at all
+
+
+def drift_limit(spec, metric: str) -> tuple[float, str, float] | None:
+    """(max value, window statistic "p50" / "p95" / "max", percentile) of `spec`'s limit on `metric`, or
+    None without a spec or a limit. A limit on the p95 is charted on each window's p95, and so on."""
+    if spec is None:
+        return None
+    lim = spec.limit(metric)
+    if lim is None:
+        return None
+    p = lim.percentile
+    stat = "max" if p >= 100 else ("p95" if p >= 75 else "p50")
+    return lim.max_value, stat, p
+
+
+def coarse_windows(
+    cycle_lo: np.ndarray,
+    cycle_hi: np.ndarray,
+    count: np.ndarray,
+    value: np.ndarray,
+    points: int = DRIFT_POINTS,
+) -> np.ndarray:
+    """Rollup windows (inclusive cycle spans, counts, one statistic) as WINDOW_DTYPE, windows without
+    data left out, coarsened to at most `points` windows: consecutive windows grouped k at a time, each
+    group's statistic their median."""
+    ok = np.asarray(count) > 0
+    lo, hi = np.asarray(cycle_lo)[ok], np.asarray(cycle_hi)[ok]
+    val, cnt = np.asarray(value, np.float64)[ok], np.asarray(count)[ok]
+    n = len(lo)
+    if n > points:
+        k = math.ceil(n / points)
+        g = math.ceil(n / k)
+        starts = np.arange(g) * k
+        ends = np.minimum(starts + k, n)
+        block = np.full(g * k, np.nan)
+        block[:n] = val
+        block = block.reshape(g, k)
+        # a group of the NaN values only (windows counted with no value) stays NaN, without a warning
+        has = ~np.isnan(block).all(axis=1)
+        med = np.full(g, np.nan)
+        if has.any():
+            med[has] = np.nanmedian(block[has], axis=1)
+        lo, hi, cnt, val = lo[starts], hi[ends - 1], np.add.reduceat(cnt, starts), med
+    out = np.zeros(len(lo), WINDOW_DTYPE)
+    out["cycle_start"] = lo
+    out["cycle_end"] = hi + 1
+    out["count"] = cnt
+    out["value"] = val
+    return out
+
+
+def judge_drift(
+    windows: np.ndarray,
+    limit: float | None,
+    life_cycles: float | None = None,
+    failed_at: int | None = None,
+    *,
+    quick: bool = False,
+) -> DriftReport | None:
+    """The drift of a unit's series (WINDOW_DTYPE, from `coarse_windows`) as the dashboard flags it:
+    baseline the first quarter of the windows (5 to 20), a crossing judged within `drift_horizon`
+    of the last window and the spec's required life. None with fewer than DRIFT_MIN_WINDOWS windows
+    with data (or a baseline without spread to judge by). `DriftReport.confirmed` is the flag; `quick`
+    (the recorder, which wants the flag only): no trend fitted where no chart signalled."""
+    if np.count_nonzero(~np.isnan(windows["value"])) < DRIFT_MIN_WINDOWS:
+        return None
+    try:
+        return drift(
+            windows,
+            limit=limit,
+            baseline_windows=auto_baseline(len(windows)),
+            horizon=drift_horizon(int(windows["cycle_end"][-1]), life_cycles),
+            failed_at=failed_at,
+            quick=quick,
+        )
+    except DataError:
+        return None

@@ -32,6 +32,7 @@ from benchlog.store import (
 )
 
 from ._count import SamplerCount
+from ._drift import DriftWatch
 from ._life import LifeJudge
 
 FLUSH_EVERY_S = 0.5
@@ -110,6 +111,9 @@ class Recorder:
         self._profile: tuple[int, int] | None = None  # (on_us, off_us) of the plans sent
         self.pending: list = []  # commands to send the sampler (plans again after a reset)
         self._batch_at = datetime.now(UTC)  # host wall-clock time of the batch being judged
+        # each living unit's trends judged for drift as their windows complete (the first flag is kept)
+        self.drift = DriftWatch(writer, self.specs)
+        self.drift_flags: list = []
 
     # -- what to send -------------------------------------------------------------------------------
     def plans(self, on_us: int, off_us: int):
@@ -259,8 +263,19 @@ class Recorder:
         now = time.monotonic()
         if force or now - self._last_flush >= self.flush_every_s:
             self._last_flush = now
-            return self.writer.flush()
+            stats = self.writer.flush()
+            self._judge_drift()
+            return stats
         return None
+
+    def _judge_drift(self) -> None:
+        """The windows just committed, judged for drift; a unit's first flag is stored (next flush) and
+        told."""
+        for f in self.drift.push(self.writer.take_rollups()):
+            self.writer.mark_drift(f.unit_id, f.metric, f.kind, f.cycle, at=datetime.now(UTC))
+            self.drift_flags.append(f)
+            if self.events is not None:
+                self.events.post("drift_flagged", f.channel, cycle=f.cycle, metric=f.metric)
 
     # -- state --------------------------------------------------------------------------------------
     def target_reached(self) -> bool:
@@ -311,6 +326,9 @@ class Recorder:
         self._take(rows[:0], None, self.count.settle())
         for f in self.life.finish():
             self._fail(f)
+        # the last windows (partial) are committed and judged for drift before the run ends
+        self.writer.flush(final=True)
+        self._judge_drift()
         if self.events is not None:
             w = self.writer
             failed = sum(1 for st in w.status.values() if st == "failed")

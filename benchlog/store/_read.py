@@ -78,6 +78,13 @@ class UnitInfo:
     first_break_run_id: int | None = None
     first_break_ns: int | None = None
     first_break_at: datetime | None = None
+    # revision 0008: the first drift flag the recorder raised: metric, life cycle (the last of the window
+    # that raised it), run, run time of that window's last actuation, wall-clock time (UTC)
+    first_drift_metric: str | None = None
+    first_drift_cycle: int | None = None
+    first_drift_run_id: int | None = None
+    first_drift_ns: int | None = None
+    first_drift_at: datetime | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -640,6 +647,11 @@ class ReadAPI:
                 s.UnitLife.first_break_run_id,
                 s.UnitLife.first_break_ns,
                 s.UnitLife.first_break_at,
+                s.UnitLife.first_drift_metric,
+                s.UnitLife.first_drift_cycle,
+                s.UnitLife.first_drift_run_id,
+                s.UnitLife.first_drift_ns,
+                s.UnitLife.first_drift_at,
             )
             .join(s.Lot, s.Unit.lot_id == s.Lot.id)
             .join(s.Part, s.Lot.part_id == s.Part.id)
@@ -668,6 +680,11 @@ class ReadAPI:
             r.first_break_run_id,
             r.first_break_ns,
             _utc(r.first_break_at),
+            r.first_drift_metric,
+            r.first_drift_cycle,
+            r.first_drift_run_id,
+            r.first_drift_ns,
+            _utc(r.first_drift_at),
         )
 
     @staticmethod

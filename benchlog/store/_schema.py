@@ -182,6 +182,13 @@ class UnitLife(Base):
     first_break_run_id: Mapped[int | None] = mapped_column(Integer)
     first_break_ns: Mapped[int | None] = mapped_column(BigInteger)
     first_break_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    # revision 0008: when the recorder first flagged the unit's drift: the metric, the last life cycle of
+    # the window that raised the flag, its run and run time (that actuation's), and the host's wall clock
+    first_drift_metric: Mapped[str | None] = mapped_column(String(32))
+    first_drift_cycle: Mapped[int | None] = mapped_column(BigInteger)
+    first_drift_run_id: Mapped[int | None] = mapped_column(Integer)
+    first_drift_ns: Mapped[int | None] = mapped_column(BigInteger)
+    first_drift_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
 
 
 class Actuation(Base):

@@ -206,9 +206,12 @@ class RunWriter:
                 ).where(s.RunUnit.run_id == run_id)
             ).all()
             life_rows = c.execute(
-                select(s.UnitLife.unit_id, s.UnitLife.status, s.UnitLife.first_break_cycle).where(
-                    s.UnitLife.unit_id.in_([a.unit_id for a in assign])
-                )
+                select(
+                    s.UnitLife.unit_id,
+                    s.UnitLife.status,
+                    s.UnitLife.first_break_cycle,
+                    s.UnitLife.first_drift_cycle,
+                ).where(s.UnitLife.unit_id.in_([a.unit_id for a in assign]))
             ).all()
             life = {r.unit_id: r.status for r in life_rows}
         self.units = {a.channel: a.unit_id for a in assign}
@@ -247,6 +250,13 @@ class RunWriter:
         # the first actuation judged FAIL of each unit: units that have one stored, and those due
         self._broke: set[int] = {r.unit_id for r in life_rows if r.first_break_cycle is not None}
         self._break_due: dict[int, dict] = {}
+        # the first drift flag of each unit (the recorder judges it): units that have one, and those due
+        self.drift_flagged: set[int] = {r.unit_id for r in life_rows if r.first_drift_cycle is not None}
+        self._drift_due: dict[int, dict] = {}
+        # rollup rows committed, kept for a reader of the live trends (the recorder's drift judgement)
+        # when `keep_rollups` is set; it takes them with `take_rollups()`
+        self.keep_rollups = False
+        self._rollups_written: list[tuple] = []
         self._rate = 0.0
         self._progress: deque[tuple[float, int]] = deque()  # (monotonic time, cycles done)
         self._last_flush = time.monotonic()
@@ -388,6 +398,30 @@ class RunWriter:
         }
         self._fail_time_due[unit_id] = (int(cycle), mode)
 
+    def mark_drift(
+        self, unit_id: int, metric: str, kind: int, cycle: int, at: datetime | None = None
+    ) -> None:
+        """Record the unit's first drift flag (once per unit; committed with the next flush): on `metric`
+        (an analysis drift metric, of actuations of `kind`), raised by the rollup window ending at life
+        cycle `cycle`; `at`: the host's wall-clock time of the judgement (default: now). The run time is
+        that of the unit's actuation of `kind` at `cycle`, read back from the stored rows."""
+        if unit_id in self.drift_flagged:
+            return
+        self.drift_flagged.add(unit_id)
+        self._drift_due[unit_id] = {
+            "first_drift_metric": metric,
+            "first_drift_cycle": int(cycle),
+            "first_drift_run_id": self.run_id,
+            "first_drift_at": (at or self.store.now()).astimezone(UTC),
+            "_kind": int(kind),
+        }
+
+    def take_rollups(self) -> list[tuple]:
+        """The rollup rows committed since the last call (with `keep_rollups` set): (unit_id, metric,
+        kind, run_id, window_no, cycle_lo, cycle_hi, count, p50, p95, max, sum)."""
+        out, self._rollups_written = self._rollups_written, []
+        return out
+
     def mark_removed(self, unit_id: int, detail: str = "") -> None:
         self.status[unit_id] = s.REMOVED
         ch = self.channel_of[unit_id]
@@ -445,7 +479,8 @@ class RunWriter:
                     conn.execute(insert(s.EdgeChunk), chunks)
                 if self._incidents:
                     conn.execute(insert(s.Incident), [self._incident_row(i) for i in self._incidents])
-                bulk_insert_rollups(conn, [r[:3] + (self.run_id,) + r[4:] for r in rollups])
+                rollups = [r[:3] + (self.run_id,) + r[4:] for r in rollups]
+                bulk_insert_rollups(conn, rollups)
                 self._summaries.write(conn, final=final)
                 self._write_progress(conn, now, done)
         except DB_ERRORS as exc:
@@ -454,6 +489,8 @@ class RunWriter:
         stats.edges = sum(c["count"] for c in chunks)
         stats.incidents = len(self._incidents)
         stats.rollups = len(rollups)
+        if self.keep_rollups:
+            self._rollups_written.extend(rollups)
         self._acts.clear()
         self._act_units.clear()
         self._edges.clear()
@@ -554,6 +591,20 @@ class RunWriter:
                 conn.execute(
                     update(s.UnitLife).where(s.UnitLife.unit_id == unit).values(**self._break_due.pop(unit))
                 )
+            if unit in self._drift_due:
+                values = self._drift_due.pop(unit)
+                kind = values.pop("_kind")
+                a = s.Actuation
+                t_ns = conn.execute(
+                    select(func.min(a.t_start_ns)).where(
+                        a.unit_id == unit,
+                        a.cycle == values["first_drift_cycle"],
+                        a.kind == kind,
+                        a.t_start_ns >= 0,
+                    )
+                ).scalar()
+                values["first_drift_ns"] = None if t_ns is None else int(t_ns)
+                conn.execute(update(s.UnitLife).where(s.UnitLife.unit_id == unit).values(**values))
             if unit in self._fail_time_due:
                 t_ns = failing_actuation_ns(conn, unit, *self._fail_time_due[unit])
                 if t_ns is not None:  # else its actuation is not written yet: the next flush looks again

@@ -60,3 +60,21 @@ def first_break_text(unit) -> str | None:
         return None
     when = event_time_text(unit.first_break_at, unit.first_break_run_id, unit.first_break_ns)
     return f"first out of spec at cycle {unit.first_break_cycle:,}: {when}"
+
+
+DRIFT_WORDS = {
+    "make_bounce": "make bounce",
+    "break_bounce": "break bounce",
+    "operate_time": "operate time",
+    "release_time": "release time",
+}
+
+
+def first_drift_text(unit) -> str | None:
+    """`drift first flagged at cycle N (make bounce): <time>`, or None when the recorder never flagged
+    the unit's drift (or the store predates revision 0008)."""
+    if unit.first_drift_cycle is None:
+        return None
+    what = DRIFT_WORDS.get(unit.first_drift_metric or "", unit.first_drift_metric or "?")
+    when = event_time_text(unit.first_drift_at, unit.first_drift_run_id, unit.first_drift_ns)
+    return f"drift first flagged at cycle {unit.first_drift_cycle:,} ({what}): {when}"

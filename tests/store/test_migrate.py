@@ -42,7 +42,7 @@ def test_old_database_is_upgraded_with_its_data(db_url):
     try:
         upgrade(engine, "0001")
         assert current_revision(engine) == "0001"
-        assert status(engine).pending == ("0002", "0003", "0004", "0005", "0006", "0007")
+        assert status(engine).pending == ("0002", "0003", "0004", "0005", "0006", "0007", "0008")
         with engine.begin() as c:
             c.execute(text("INSERT INTO benches (name, created_at) VALUES ('bench A', '2026-01-01')"))
         assert "note" not in {col["name"] for col in inspect(engine).get_columns("runs")}
@@ -94,7 +94,7 @@ def test_failures_stored_before_0007_get_the_exact_run_time_and_no_wall_clock(op
     w.close("all_failed")
     downgrade_to(store.engine, "0006")
     assert "failed_at" not in {c["name"] for c in inspect(store.engine).get_columns("unit_life")}
-    assert status(store.engine).pending == ("0007",)
+    assert status(store.engine).pending == ("0007", "0008")
 
     store.close()
     store = open_store()  # opening for writing upgrades an older schema
@@ -113,3 +113,37 @@ def test_failures_stored_before_0007_get_the_exact_run_time_and_no_wall_clock(op
     assert f"failed at cycle 10: time not recorded (run {w.run_id} at 0:00:01.050)" in text
     assert "failed at cycle 50: time not recorded\n" in text + "\n"
     assert f"first out of spec at cycle 5: time not recorded (run {w.run_id} at 0:00:00.500)" in text
+
+
+def test_a_store_before_0008_upgrades_with_no_first_drift_flag(open_store):
+    # a store written at 0007: a unit flagged by a recorder of today, then the schema taken down
+    from datetime import UTC, datetime
+
+    from benchlog.analysis._types import MAKE
+    from tests.store._data import actuations, downgrade_to
+
+    store = open_store()
+    part = store.register_part("AG-R12", "Ashgrove Components")
+    lot = store.register_lot(part, "L1")
+    units = {ch: store.register_unit(lot, f"U{ch}") for ch in range(2)}
+    w = store.start_run(store.register_bench("bench A"), units, profile={}, target_cycles=100)
+    w.add(actuations=actuations(range(2), range(20)))
+    w.flush()
+    w.mark_drift(units[0], "make_bounce", MAKE, 12, at=datetime(2026, 12, 3, 2, 0, tzinfo=UTC))
+    w.close("target")
+    flagged = next(u for u in store.units() if u.serial == "U0")
+    # the make of cycle 12 of _data.actuations starts at 12 periods of 100 ms
+    assert (flagged.first_drift_cycle, flagged.first_drift_ns) == (12, 12 * 100_000_000)
+    assert flagged.first_drift_metric == "make_bounce" and flagged.first_drift_run_id == w.run_id
+    downgrade_to(store.engine, "0007")
+    assert "first_drift_at" not in {c["name"] for c in inspect(store.engine).get_columns("unit_life")}
+    assert status(store.engine).pending == ("0008",)
+
+    store.close()
+    store = open_store()  # opening for writing upgrades an older schema, keeping its rows
+    assert current_revision(store.engine) == head_revision()
+    got = {u.serial: u for u in store.units()}
+    assert set(got) == {"U0", "U1"} and all(u.cycles == 20 for u in got.values())
+    for u in got.values():  # the recorder of 0007 judged no drift: nothing recorded
+        assert (u.first_drift_metric, u.first_drift_cycle, u.first_drift_ns, u.first_drift_at) == (None,) * 4
+    assert len(store.actuations(units=[got["U0"].id])) == 40

@@ -1,8 +1,9 @@
-"""Each unit's life as CSV (RFC 4180) or JSON: status, failure and first spec break, with their times.
+"""Each unit's life as CSV (RFC 4180) or JSON: status, failure, first spec break and first drift flag, with
+their times.
 
 Wall-clock times are ISO 8601 in UTC with a Z; run times are integer ns of the run's own clock; an empty
 field (CSV) or null (JSON) is a time not recorded (failures stored before revision 0007 have no wall-clock
-time)."""
+time; a store before revision 0008 has no first drift flag)."""
 
 from __future__ import annotations
 
@@ -28,6 +29,11 @@ UNIT_LIFE_COLUMNS = (
     "first_break_run_id",
     "first_break_run_ns",
     "first_break_utc",
+    "first_drift_metric",
+    "first_drift_cycle",
+    "first_drift_run_id",
+    "first_drift_run_ns",
+    "first_drift_utc",
 )
 
 
@@ -58,6 +64,11 @@ def _record(u) -> dict:
         "first_break_run_id": u.first_break_run_id,
         "first_break_run_ns": u.first_break_ns,
         "first_break_utc": utc_text(u.first_break_at) or None,
+        "first_drift_metric": u.first_drift_metric,
+        "first_drift_cycle": u.first_drift_cycle,
+        "first_drift_run_id": u.first_drift_run_id,
+        "first_drift_run_ns": u.first_drift_ns,
+        "first_drift_utc": utc_text(u.first_drift_at) or None,
     }
 
 
