@@ -94,6 +94,8 @@ def build(path: str, *, cycles: int = 2000, close: bool = True) -> dict:
             incidents.append(Incident("decode_fault", 50 * 10**9, 50 * 10**9, 10**12, 10**12, None))
         if lo <= fail_at <= hi:
             w.mark_failed(units[fail_ch], fail_at, "missed_make")
+        if lo == 1000:  # the drifting unit's first drift flag, as a recorder would have raised it
+            w.mark_drift(units[2], "make_bounce", MAKE, 899, at=datetime(2026, 3, 2, 0, 12, 5, tzinfo=UTC))
         w.add(actuations=acts, incidents=incidents)
         w.flush()
     run1 = w.run_id

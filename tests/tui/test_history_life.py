@@ -91,3 +91,46 @@ async def test_a_failed_units_history_header_says_when_in_local_time(tmp_path, m
     finally:
         monkeypatch.undo()
         time.tzset()
+
+
+async def test_the_first_drift_flag_is_shown_in_local_time(tmp_path, monkeypatch):
+    # issue 15: when the recorder first flagged drift, in the local zone with its UTC offset, then run time
+    import time
+    from datetime import UTC, datetime
+
+    from benchlog.analysis import MAKE
+    from benchlog.views.tui._units import UnitsScreen
+
+    from .test_dashboard import flat, static_text
+
+    monkeypatch.setenv("TZ", "Australia/Adelaide")
+    time.tzset()
+    try:
+        path = str(tmp_path / "drift.sqlite")
+        store = Store.open(path)
+        (unit,) = register(store, "PART-A", "Supplier A", "A1", ["A1-001"])
+        bench = store.register_bench("bench-1", channels=8)
+        w = store.start_run(bench, {0: unit}, profile={"on_ms": 50, "off_ms": 50}, target_cycles=1000)
+        w.add(actuations=actuations([0], 0, 499, seed=1, growth={0: 3.0}))
+        w.flush()
+        w.mark_drift(unit, "make_bounce", MAKE, 399, at=datetime(2026, 12, 3, 16, 5, 9, tzinfo=UTC))
+        w.close(END_TARGET)
+        store.close()
+        # 16:05:09 UTC is 02:35:09 the next day in Adelaide in December, UTC+10:30 (IANA tz database,
+        # daylight saving time); the make of cycle 399 of _build.actuations starts at 39.9 s of run time
+        want = (
+            "drift first flagged at cycle 399 (make bounce): "
+            f"2026-12-04 02:35:09 +10:30, run {w.run_id} at 0:00:39.900"
+        )
+        app = BenchDashboard(path, refresh_s=0)
+        async with app.run_test(size=(160, 40)) as pilot:
+            await settle(pilot, RunsScreen)
+            await app.push_screen(HistoryScreen(unit))
+            hist = await settle(pilot, HistoryScreen)
+            assert want in flat(static_text(hist, "#unit-when"))
+            await app.push_screen(UnitsScreen(w.run_id))
+            units = await settle(pilot, UnitsScreen)
+            assert want in flat(static_text(units, "#unit-info"))
+    finally:
+        monkeypatch.undo()
+        time.tzset()

@@ -1,6 +1,6 @@
 """Screenshots of every screen at 80x24 (the terminal every screen is designed for first), 100x30
 and 160x50 against the accepted ones in __snapshots__/ (layout regressions show in review). Fixed
-data, fixed times, no read timings on screen, no refresh timer. Accept a deliberate change with
+data, fixed times (in UTC), no read timings on screen, no refresh timer. Accept a deliberate change with
 `pytest tests/tui/test_snapshots.py --snapshot-update`."""
 
 from __future__ import annotations
@@ -18,6 +18,18 @@ from ._build import build, freeze_times
 from ._pilot import column, settle
 
 SIZES = pytest.mark.parametrize("size", [(80, 24), (100, 30), (160, 50)], ids=["80x24", "100x30", "160x50"])
+
+
+@pytest.fixture(autouse=True)
+def utc_zone(monkeypatch):
+    """Times on screen are local: the accepted screenshots are taken in UTC wherever the suite runs."""
+    import time
+
+    monkeypatch.setenv("TZ", "UTC")
+    time.tzset()
+    yield
+    monkeypatch.undo()
+    time.tzset()
 
 
 @pytest.fixture(scope="module")

@@ -33,16 +33,17 @@ import numpy as np
 
 from benchlog.analysis import (
     BREAK,
+    DRIFT_POINTS,
     FAIL,
     MAKE,
     MARGINAL,
     METRICS,
     NO_VERDICT,
     PASS,
-    WINDOW_DTYPE,
     PartSpec,
-    drift,
-    drift_horizon,
+    coarse_windows,
+    drift_limit,
+    judge_drift,
     parse_spec,
 )
 from benchlog.errors import BenchlogError
@@ -50,9 +51,6 @@ from benchlog.store import FAILED, IncidentInfo, PartInfo, RunInfo, Trend, UnitI
 from benchlog.views._times import failure_time_text
 
 ROLLING_WINDOWS = 10
-DRIFT_POINTS = 240
-DRIFT_BASELINE = 5
-DRIFT_BASELINE_MAX = 20  # the baseline is the first quarter of the windows, 5 to 20 of them
 LINK_KINDS = ("disconnect",)  # incidents that mean the link to the sampler was down
 
 VERDICT_LABEL = {PASS: "PASS", MARGINAL: "MARGINAL", FAIL: "FAIL", NO_VERDICT: "NO DATA"}
@@ -101,12 +99,9 @@ def part_spec(part: PartInfo | None) -> PartSpec | None:
 
 def limit_for(spec: PartSpec | None, metric_key: str):
     """(max value, rollup statistic name, percentile) of the spec limit on a chart metric, or None."""
-    if spec is None or metric_key not in METRICS:
+    if metric_key not in METRICS:
         return None
-    lim = spec.limit(metric_key)
-    if lim is None:
-        return None
-    return lim.max_value, _stat_for(lim.percentile), lim.percentile
+    return drift_limit(spec, metric_key)
 
 
 def _stat_for(percentile: float) -> str:
@@ -161,25 +156,7 @@ def chatter_events(trend: Trend, rolling: int | None = None) -> int:
 
 def windows_of(trend: Trend, stat: str = "p95", points: int = DRIFT_POINTS) -> np.ndarray:
     """The trend as analysis windows (WINDOW_DTYPE), coarsened to at most `points` windows."""
-    ok = trend.count > 0
-    lo, hi = trend.cycle_lo[ok], trend.cycle_hi[ok]
-    val, cnt = getattr(trend, stat)[ok], trend.count[ok]
-    n = len(lo)
-    if n > points:
-        k = math.ceil(n / points)
-        groups = np.arange(n) // k
-        starts = np.flatnonzero(np.r_[True, groups[1:] != groups[:-1]])
-        ends = np.r_[starts[1:], n]
-        lo = lo[starts]
-        hi = hi[ends - 1]
-        cnt = np.add.reduceat(cnt, starts)
-        val = np.array([np.nanmedian(val[a:b]) for a, b in zip(starts, ends, strict=True)])
-    out = np.zeros(len(lo), WINDOW_DTYPE)
-    out["cycle_start"] = lo
-    out["cycle_end"] = hi + 1
-    out["count"] = cnt
-    out["value"] = val
-    return out
+    return coarse_windows(trend.cycle_lo, trend.cycle_hi, trend.count, getattr(trend, stat), points)
 
 
 @dataclass(frozen=True, slots=True)
@@ -224,16 +201,9 @@ def drift_of(
     lim = limit_for(spec, metric)
     stat = lim[1] if lim else "p95"
     w = windows_of(trend, stat)
-    if np.count_nonzero(~np.isnan(w["value"])) < DRIFT_BASELINE + 2:
-        return None, None
-    n_base = max(DRIFT_BASELINE, min(DRIFT_BASELINE_MAX, len(w) // 4))
-    try:
-        life = spec.life.min_cycles if spec is not None and spec.life is not None else None
-        horizon = drift_horizon(int(w["cycle_end"][-1]), life)
-        rep = drift(
-            w, limit=lim[0] if lim else None, baseline_windows=n_base, horizon=horizon, failed_at=failed_at
-        )
-    except BenchlogError:
+    life = spec.life.min_cycles if spec is not None and spec.life is not None else None
+    rep = judge_drift(w, lim[0] if lim else None, life, failed_at)
+    if rep is None:
         return None, None
     p = rep.projection
     flag = DriftFlag(

@@ -8,11 +8,11 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.widgets import Footer, Static
 
-from benchlog.views._times import failure_time_text
+from benchlog.views._times import failure_time_text, first_drift_text
 
 from ._base import DIM_STYLE, DRIFT_STYLE, DataScreen, StatusLine
 from ._data import CHART_METRICS, History, cycles_text, read_history, value_text
-from ._plots import Level, Series, histogram, legend, trend_chart
+from ._plots import Level, Series, histogram, histogram_legend, legend, trend_chart
 
 METRIC_KEYS = list(CHART_METRICS)
 
@@ -39,16 +39,24 @@ class HistoryScreen(DataScreen):
 
     def compose(self) -> ComposeResult:
         yield Static(f"Unit {self.unit_id}", id="unit-line")
+        yield Static("", id="unit-when")
         yield Static("", id="chart-title")
         yield Static("", id="trend")
         yield Static("", id="legend")
         yield Static("", id="hist-title")
         yield Static("", id="hist")
+        yield Static("", id="hist-key")
         yield StatusLine()
         yield Footer()
 
     def on_mount(self) -> None:
+        self._fit()
         self.request()
+
+    def _fit(self) -> None:
+        """On a short terminal (24 lines) the histogram gives up two lines so the trend keeps its room."""
+        tall = self.size.height >= 30 or self.size.height == 0
+        self.query_one("#hist", Static).styles.height = 8 if tall else 6
 
     def params(self):
         return (self.unit_id, self.metric, self.span, self.span_cycles)
@@ -58,6 +66,7 @@ class HistoryScreen(DataScreen):
         return read_history(store, unit_id, metric, span, span_cycles)
 
     def on_resize(self, _event) -> None:
+        self._fit()
         if isinstance(self.last_data, History):
             self.show(self.last_data)
 
@@ -71,6 +80,10 @@ class HistoryScreen(DataScreen):
             head.append(f" {failure_time_text(u)}")
         head.append(f"  {cycles_text(u.cycles)} cycles")
         self.query_one("#unit-line", Static).update(head)
+        when = self.query_one("#unit-when", Static)
+        flagged = first_drift_text(u)
+        when.display = flagged is not None
+        when.update(Text(flagged or "", style=DRIFT_STYLE))
         count = "count" in data.metric or data.metric.startswith("chatter")
         div = 1.0 if count else 1000.0
         unit = "" if count else " ms"
@@ -103,13 +116,15 @@ class HistoryScreen(DataScreen):
                 idx = np.clip(np.searchsorted(ends, data.signal_cycles), 0, len(ends) - 1)
                 pick = np.zeros(len(ends), bool)
                 pick[idx] = True
-            marks = Series("chart signal", mid[pick], t.p95[pick], "@", DRIFT_STYLE)
-        title = Text(f"{words}{unit} per window of {self._window(t)} cycles", style="bold")
+            marks = Series("EWMA/CUSUM signal", mid[pick], t.p95[pick], "@", DRIFT_STYLE)
+        title = Text(
+            f"{words}{unit and f' ({unit.strip()})'} per {self._window(t)}-cycle window", style="bold"
+        )
         if data.flag is not None and data.flag.signalled:
             title.append("  DRIFT", style=DRIFT_STYLE)
-            title.append(f" from cycle {cycles_text(data.flag.first_signal_cycle)}")
+            title.append(f" from {cycles_text(data.flag.first_signal_cycle)}")
             if data.flag.past_limit:
-                title.append(f", past the limit since {cycles_text(data.flag.over_since)}")
+                title.append(f", past limit since {cycles_text(data.flag.over_since)}")
             elif data.flag.failed_at is not None:
                 title.append(f", failed at {cycles_text(data.flag.failed_at)}")
             elif data.flag.crossing_cycle is not None:
@@ -124,7 +139,7 @@ class HistoryScreen(DataScreen):
         self.query_one("#legend", Static).update(legend(series, levels, marks))
         v = data.values
         lo, hi = data.span
-        ht = Text(f"histogram of {words}, cycles {lo:,}-{hi:,}: ", style="bold")
+        ht = Text(f"{words}, cycles {lo:,}-{hi:,}: ", style="bold")
         if len(v):
             over = int((v > data.limit).sum()) if data.limit is not None else 0
             ht.append(
@@ -135,7 +150,7 @@ class HistoryScreen(DataScreen):
             if data.limit is not None:
                 ht.append(f"  over {over}", style="bold red" if over else "")
         else:
-            ht.append("no actuations", style=DIM_STYLE)
+            ht.append("no actuations in this span", style=DIM_STYLE)
         self.query_one("#hist-title", Static).update(ht)
         hist = self.query_one("#hist", Static)
         hist.update(
@@ -148,6 +163,7 @@ class HistoryScreen(DataScreen):
                 unit,
             )
         )
+        self.query_one("#hist-key", Static).update(histogram_legend(data.limit if len(v) else None))
 
     @staticmethod
     def _window(t) -> str:

@@ -107,14 +107,32 @@ def trend_chart(
 
 
 def legend(series: list[Series], levels: list[Level], marks: Series | None) -> Text:
+    """Every mark of a `trend_chart` with its words, on one line (under 80 columns for the history
+    screen's series, limit and baseline): `char label`, two spaces apart."""
     out = Text()
-    for s in [*series, *([marks] if marks is not None else [])]:
-        out.append(f" {s.char} ", style=s.style)
-        out.append(f"{s.label}  ")
-    for lv in levels:
-        if math.isfinite(lv.y):
-            out.append(f" {lv.char * 2} ", style=lv.style)
-            out.append(f"{lv.label}  ")
+    items = [(s.char, s.style, s.label) for s in [*series, *([marks] if marks is not None else [])]]
+    items += [(lv.char, lv.style, lv.label) for lv in levels if math.isfinite(lv.y)]
+    for i, (char, style, label) in enumerate(items):
+        out.append("  " if i else "")
+        out.append(char, style=style)
+        out.append(f" {label}")
+    return out
+
+
+HIST_FULL, HIST_LOW, HIST_OVER, HIST_LIMIT = "█", "▁", "#", "^"
+
+
+def histogram_legend(limit: float | None, peak_words: str = "actuations") -> Text:
+    """The marks of a `histogram`, on one line."""
+    out = Text()
+    out.append(HIST_FULL + HIST_LOW, style="cyan")
+    out.append(f" {peak_words} per bin (top left: the fullest bin)")
+    if limit is not None:
+        out.append("  ")
+        out.append(HIST_OVER, style="red")
+        out.append(" past the limit  ")
+        out.append(HIST_LIMIT, style="bold red")
+        out.append(" limit")
     return out
 
 
@@ -149,9 +167,9 @@ def histogram(
         for b in range(bins):
             hb = heights[b]
             if hb >= level - 0.5:
-                ch = "#" if over[b] else "█"
+                ch = HIST_OVER if over[b] else HIST_FULL
             elif level == 1 and counts[b] > 0:
-                ch = "#" if over[b] else "▁"
+                ch = HIST_OVER if over[b] else HIST_LOW
             else:
                 ch = " "
             style = "red" if over[b] else "cyan"
@@ -161,7 +179,15 @@ def histogram(
     lim_col = None
     if limit is not None:
         lim_col = Y_LABEL + int(min(bins - 1, limit / top * bins))
-    out.append(" " * (Y_LABEL - 1) + "+" + "-" * w + "\n", style="dim")
+    # the limit is marked on the axis line, never over a value label below it
+    base = "-" * w
+    if lim_col is not None:
+        c = lim_col - Y_LABEL
+        out.append(" " * (Y_LABEL - 1) + "+" + base[:c], style="dim")
+        out.append(HIST_LIMIT, style="bold red")
+        out.append(base[c + 1 :] + "\n", style="dim")
+    else:
+        out.append(" " * (Y_LABEL - 1) + "+" + base + "\n", style="dim")
     labels = [(Y_LABEL, "0")]
     labels.append((Y_LABEL + w // 2, f"{top / 2 / unit_div:.3g}"))
     end = f"{top / unit_div:.3g}{unit}"
@@ -170,7 +196,5 @@ def histogram(
         for i, ch in enumerate(label):
             if 0 <= pos + i < len(axis):
                 axis[pos + i] = ch
-    if lim_col is not None:
-        axis[lim_col] = "^"
     out.append("".join(axis).rstrip(), style="dim")
     return out

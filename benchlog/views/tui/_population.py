@@ -28,6 +28,28 @@ from ._data import (
 from ._units import VERDICT_STYLE
 
 NAME_W = 16
+# the per-lot table's abbreviations, one line under it (fits the body beside the list of groups at 80)
+SUMMARY_KEY = "failed: units failed  FAIL: verdicts  p95 med/top: units' p95"
+STRIP_KEY = "- to p50  = to p95  . to max  x max  | limit"
+
+
+def mixed_limits(units, limits: dict[int, float | None]) -> bool:
+    """True when the units' parts have different limits on the metric (a 1 ms relay beside a 3 ms
+    switch): each figure is then shown as a percentage of its own part's limit."""
+    return len({limits.get(pu.unit.part_id) for pu in units} - {None}) > 1
+
+
+def scaled(v: float, limit: float | None, percent: bool) -> float:
+    """A figure in the screen's units: us as they are, or per cent of `limit` (NaN without one)."""
+    if not percent:
+        return v
+    return math.nan if limit is None or limit <= 0 else v / limit * 100.0
+
+
+def figure_text(v: float, percent: bool) -> str:
+    if not percent:
+        return value_text(v)
+    return "-" if v is None or math.isnan(v) else f"{v:.0f}%"
 
 
 def strip(p50: float, p95: float, mx: float, limit: float | None, top: float, width: int) -> Text:
@@ -78,6 +100,7 @@ class PopulationScreen(DataScreen):
             yield OptionList(id="groups")
             with Vertical(id="pop-body"):
                 yield Static("", id="pop-summary")
+                yield Static(Text(SUMMARY_KEY, style=DIM_STYLE), id="pop-summary-key")
                 yield DataTable(id="pop-units", cursor_type="row", zebra_stripes=False)
                 yield Static("", id="pop-key")
         yield StatusLine()
@@ -119,8 +142,11 @@ class PopulationScreen(DataScreen):
 
     def _draw(self, data: Population) -> None:
         words = CHART_METRICS[self.metric][0]
+        limits = {pid: v for (pid, m), v in data.limits.items() if m == self.metric}
+        pct = mixed_limits(data.units, limits)
+        scale = "% of each part's limit" if pct else "ms"
         title = Text(f"{data.group.title if data.group else 'no parts'}", style="bold")
-        title.append(f"  {words} (ms), rolling last 10 windows   m: next metric", style=DIM_STYLE)
+        title.append(f"  {words} ({scale}), last 10 windows   m: next metric", style=DIM_STYLE)
         self.query_one("#pop-title", Static).update(title)
         if not data.units:
             self.query_one("#pop-summary", Static).update(Text("No units in this group.", style=DIM_STYLE))
@@ -134,8 +160,9 @@ class PopulationScreen(DataScreen):
         for col in ("lot", "units", "failed", "FAIL", "p95 med", "p95 top", "max", "cycles"):
             summary.add_column(col, justify="right" if col != "lot" else "left")
         for lot, pus in lots.items():  # noqa: B007 - the lot label is the first cell
-            p95 = np.array([pu.figures[self.metric].p95 for pu in pus])
-            mx = np.array([pu.figures[self.metric].max for pu in pus])
+            lim = limits.get(pus[0].unit.part_id)  # a lot is of one part
+            p95 = np.array([scaled(pu.figures[self.metric].p95, lim, pct) for pu in pus])
+            mx = np.array([scaled(pu.figures[self.metric].max, lim, pct) for pu in pus])
             failed = sum(pu.unit.status == "failed" for pu in pus)
             bad = sum(pu.verdict == FAIL for pu in pus)
             has = ~np.isnan(p95)
@@ -144,18 +171,25 @@ class PopulationScreen(DataScreen):
                 str(len(pus)),
                 Text(str(failed), style=FAIL_STYLE if failed else ""),
                 str(bad),
-                value_text(float(np.median(p95[has]))) if has.any() else "-",
-                value_text(float(np.max(p95[has]))) if has.any() else "-",
-                value_text(float(np.nanmax(mx))) if (~np.isnan(mx)).any() else "-",
+                figure_text(float(np.median(p95[has])), pct) if has.any() else "-",
+                figure_text(float(np.max(p95[has])), pct) if has.any() else "-",
+                figure_text(float(np.nanmax(mx)), pct) if (~np.isnan(mx)).any() else "-",
                 cycles_text(int(np.median([pu.unit.cycles for pu in pus]))),
             )
         self.query_one("#pop-summary", Static).update(summary)
-        limits = {pid: v for (pid, m), v in data.limits.items() if m == self.metric}
-        vals = [pu.figures[self.metric].max for pu in data.units] + [v for v in limits.values() if v]
+        shown = {pu.unit.part_id for pu in data.units}
+        if pct:  # every limit is 100 % of itself
+            vals = [
+                scaled(pu.figures[self.metric].max, limits.get(pu.unit.part_id), True) for pu in data.units
+            ]
+            vals.append(100.0)
+        else:
+            vals = [pu.figures[self.metric].max for pu in data.units]
+            vals += [v for p, v in limits.items() if v and p in shown]
         vals = [v for v in vals if v is not None and not math.isnan(v)]
         top = max(vals) * 1.05 if vals and max(vals) > 0 else 1.0
         t = self.query_one("#pop-units", DataTable)
-        width = max(12, (t.size.width or 76) - NAME_W - 40)
+        width = max(16, (t.size.width or 76) - NAME_W - 46)
         keep = self._unit_at_cursor()
         t.clear()
         self._row_units: list[int | None] = []
@@ -164,32 +198,32 @@ class PopulationScreen(DataScreen):
             lot = f"{pu.unit.part_number}/{pu.unit.lot}"
             limit = limits.get(pu.unit.part_id)
             if lot != prev_lot:
-                lim = f"limit {value_text(limit)} ms" if limit is not None else "no limit"
-                head = Text(f"{pu.unit.supplier}  {lim}".strip(), style=DIM_STYLE)
+                # as wide as a strip at most, so the columns after it stay on an 80-column screen
+                if limit is None:
+                    lim = "no limit: off scale" if pct else "no limit"
+                else:
+                    lim = f"{value_text(limit)} ms = 100%" if pct else f"limit {value_text(limit)} ms"
+                head = Text(lim[:width], style=DIM_STYLE)
                 t.add_row(Text(lot, style="bold underline"), head, "", "", "", "")
                 self._row_units.append(None)
                 prev_lot = lot
             f = pu.figures[self.metric]
             label = {0: "PASS", 1: "MARGINAL", 2: "FAIL"}.get(pu.verdict, "NO DATA")
+            p50, p95, mx = (scaled(v, limit, pct) for v in (f.p50, f.p95, f.max))
             t.add_row(
                 Text(pu.unit.serial[-NAME_W:]),
-                strip(f.p50, f.p95, f.max, limit, top, width),
+                strip(p50, p95, mx, (100.0 if pct else limit) if limit is not None else None, top, width),
                 Text(label, style=VERDICT_STYLE.get(pu.verdict, DIM_STYLE)),
-                value_text(f.p95),
-                value_text(f.max),
+                figure_text(p95, pct),
+                figure_text(mx, pct),
                 Text("FAILED", style=FAIL_STYLE) if pu.unit.status == "failed" else "",
                 key=str(pu.unit.id),
             )
             self._row_units.append(pu.unit.id)
         if keep in self._row_units:
             t.move_cursor(row=self._row_units.index(keep))
-        self.query_one("#pop-key", Static).update(
-            Text(
-                f"scale 0 to {top / 1000:.3g} ms:  - to p50  = to p95  . to max  x max  | the part's limit"
-                "   Enter: history",
-                style=DIM_STYLE,
-            )
-        )
+        span = f"0-{top:.0f}% of limit" if pct else f"0-{top / 1000:.3g} ms"
+        self.query_one("#pop-key", Static).update(Text(f"{span}: {STRIP_KEY}", style=DIM_STYLE))
 
     def on_resize(self, _event) -> None:
         # the list of groups gives way on a narrow terminal, so each unit's verdict and figures stay

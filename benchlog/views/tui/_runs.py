@@ -41,6 +41,7 @@ class RunsScreen(DataScreen):
         yield Static("", id="alert")
         table = DataTable(id="runs", cursor_type="row", zebra_stripes=True)
         yield table
+        yield Static("", id="runs-key")
         yield Static("", id="run-info")
         yield StatusLine()
         yield Footer()
@@ -73,6 +74,10 @@ class RunsScreen(DataScreen):
             ("Link", "link"),
         ]
 
+    # the table's abbreviations, one line under it (at 80 columns for the narrow table)
+    KEY_NARROW = "Done % of target  Inc incidents  Link: longest outage (DOWN nx: n outages)"
+    KEY_WIDE = "Done % of target  c/s cycles/second  Left time to target  Inc incidents  Link: longest outage"
+
     def on_mount(self) -> None:
         self._wide: bool | None = None
         self._layout(self.size.width >= self.WIDE)
@@ -86,6 +91,8 @@ class RunsScreen(DataScreen):
         t.clear(columns=True)
         for label, key in self._columns(wide):
             t.add_column(label, key=key)
+        key = self.KEY_WIDE if wide else self.KEY_NARROW
+        self.query_one("#runs-key", Static).update(Text(key, style=DIM_STYLE))
 
     def on_resize(self, _event) -> None:
         if self._wide is not None and (self.size.width >= self.WIDE) != self._wide:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from benchlog.views._times import failure_time_text, first_break_text
+from benchlog.views._times import failure_time_text, first_break_text, first_drift_text
 
 from ._data import TrendCache, cycles_text, duration_text, read_overview, read_run, value_text
 
@@ -40,7 +40,7 @@ def summary_text(store, runs: int = 5) -> str:
             if u.unit.status == "failed":
                 cycle = u.unit.failed_at_cycle or u.unit.cycles
                 out.append(f"     failed at cycle {cycle:,}: {failure_time_text(u.unit)}")
-            broke = first_break_text(u.unit)
-            if broke:
-                out.append(f"     {broke}")
+            for when in (first_break_text(u.unit), first_drift_text(u.unit)):
+                if when:
+                    out.append(f"     {when}")
     return "\n".join(out)

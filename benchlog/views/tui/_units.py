@@ -10,7 +10,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.widgets import DataTable, Footer, Input, Static
 
-from benchlog.views._times import first_break_text
+from benchlog.views._times import first_break_text, first_drift_text
 
 from ._base import DIM_STYLE, DRIFT_STYLE, FAIL_STYLE, MARGINAL_STYLE, PASS_STYLE, DataScreen, StatusLine
 from ._data import (
@@ -41,6 +41,8 @@ SORTS = {
     "part/lot": lambda r: (r.unit.part_number, r.unit.lot, r.channel),
 }
 VERDICT_FILTERS = (None, FAIL, MARGINAL, PASS)
+# the table's abbreviations, one line under it (the view line above it names the figures' units)
+UNITS_KEY = "Ch channel  Drift: mk/brk bounce, op/rel time, @N limit near N, over: past it"
 
 
 def _nz(v: float) -> float:
@@ -60,7 +62,8 @@ def life_text(row: UnitRow) -> Text:
     return Text(row.life_text, style=FAIL_STYLE if row.unit.status == "failed" else "")
 
 
-def drift_cell(row: UnitRow) -> Text:
+def drift_cell(row: UnitRow, word: bool = True) -> Text:
+    """`DRIFT mk+brk @12k`; without `word` (a narrow table, under its Drift heading) `mk+brk @12k`."""
     sig = [d for d in row.drift if d.signalled]
     if not sig:
         return Text("steady", style=DIM_STYLE)
@@ -73,7 +76,7 @@ def drift_cell(row: UnitRow) -> Text:
         cross = ""
     else:
         cross = f" @{cycles_text(first.crossing_cycle)}" if first.crossing_cycle is not None else ""
-    return Text(f"DRIFT {names}{cross}", style=DRIFT_STYLE)
+    return Text(f"{'DRIFT ' if word else ''}{names}{cross}", style=DRIFT_STYLE)
 
 
 def pair(f) -> str:
@@ -108,6 +111,7 @@ class UnitsScreen(DataScreen):
         yield Static(f"Run {self.run_id}", id="run-line")
         yield Static(Text(" reading the run ...", style=DIM_STYLE), id="view-line")
         yield DataTable(id="units", cursor_type="row", zebra_stripes=True)
+        yield Static(Text(UNITS_KEY, style=DIM_STYLE), id="units-key")
         yield Input(
             placeholder="filter: words to match (serial, part, lot, pass/marginal/fail, drift)", id="filter"
         )
@@ -115,27 +119,43 @@ class UnitsScreen(DataScreen):
         yield StatusLine()
         yield Footer()
 
+    WIDE = 100  # below this many columns the unit's cycles fold into the pane below (and its Life cell)
+    COLUMNS = (
+        ("Ch", "ch"),
+        ("Unit", "unit"),
+        ("Cycles", "cycles"),
+        ("Life", "life"),
+        ("Verdict", "verdict"),
+        ("Make", "make"),
+        ("Break", "break"),
+        ("Drift", "drift"),
+        ("Op/Rel", "oprel"),
+        ("Chatter", "chat"),
+    )
+
     def on_mount(self) -> None:
-        t = self.query_one("#units", DataTable)
-        for label, key in (
-            ("Ch", "ch"),
-            ("Unit", "unit"),
-            ("Cycles", "cycles"),
-            ("Life", "life"),
-            ("Verdict", "verdict"),
-            ("Make", "make"),
-            ("Break", "break"),
-            ("Drift", "drift"),
-            ("Op/Rel", "oprel"),
-            ("Chat", "chat"),
-        ):
-            t.add_column(label, key=key)
+        self._wide: bool | None = None
+        self._layout(self.size.width >= self.WIDE or self.size.width == 0)
         self.query_one("#filter", Input).display = False
         self._fit_pane()
         self.request()
 
+    def _layout(self, wide: bool) -> None:
+        if wide == self._wide:
+            return
+        self._wide = wide
+        t = self.query_one("#units", DataTable)
+        t.clear(columns=True)
+        for label, key in self.COLUMNS:
+            if wide or key != "cycles":
+                t.add_column(label, key=key)
+
     def on_resize(self, _event) -> None:
         self._fit_pane()
+        if self._wide is not None and (self.size.width >= self.WIDE) != self._wide:
+            self._layout(self.size.width >= self.WIDE)
+            if isinstance(self.last_data, RunDetail):
+                self._fill()
 
     def _fit_pane(self) -> None:
         """On a short terminal (24 lines) the units keep the room: the pane below shrinks to a few
@@ -189,21 +209,22 @@ class UnitsScreen(DataScreen):
         keep = selected.unit.id if selected else None
         self.rows = self._visible()
         t.clear()
+        keys = [k for _, k in self.COLUMNS if self._wide or k != "cycles"]
         for u in self.rows:
             f = u.figures
-            t.add_row(
-                str(u.channel),
-                Text(u.unit.serial),
-                cycles_text(u.unit.cycles),
-                life_text(u),
-                verdict_text(u),
-                pair(f["make_bounce"]),
-                pair(f["break_bounce"]),
-                drift_cell(u),
-                f"{value_text(f['operate_time'].p95)}/{value_text(f['release_time'].p95)}",
-                str(u.chatter),
-                key=str(u.unit.id),
-            )
+            cells = {
+                "ch": str(u.channel),
+                "unit": Text(u.unit.serial),
+                "cycles": cycles_text(u.unit.cycles),
+                "life": life_text(u),
+                "verdict": verdict_text(u),
+                "make": pair(f["make_bounce"]),
+                "break": pair(f["break_bounce"]),
+                "drift": drift_cell(u, word=bool(self._wide)),
+                "oprel": f"{value_text(f['operate_time'].p95)}/{value_text(f['release_time'].p95)}",
+                "chat": str(u.chatter),
+            }
+            t.add_row(*(cells[k] for k in keys), key=str(u.unit.id))
         if self.rows:
             idx = next((i for i, u in enumerate(self.rows) if u.unit.id == keep), 0)
             t.move_cursor(row=idx)
@@ -239,7 +260,7 @@ class UnitsScreen(DataScreen):
         grid = Table.grid(padding=(0, 1))
         for _ in range(8):
             grid.add_column(justify="right")
-        grid.add_row("ms", "last p50", "p95", "max", "roll p50", "p95", "max", "windows")
+        grid.add_row("ms", "latest p50", "p95", "max", "last-10 p50", "p95", "max", "windows")
         for key in ("make_bounce", "break_bounce", "operate_time", "release_time"):
             f = u.figures[key]
             grid.add_row(
@@ -257,6 +278,9 @@ class UnitsScreen(DataScreen):
         broke = first_break_text(u.unit)
         if broke:
             lines.append(Text(broke))
+        flagged = first_drift_text(u.unit)
+        if flagged:
+            lines.append(Text(flagged, style=DRIFT_STYLE))
         lines.append(grid)
         for d in u.drift:
             if d.signalled:
