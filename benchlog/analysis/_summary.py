@@ -16,7 +16,7 @@ import numpy as np
 from benchlog.analysis._spec import VERDICT_NAMES, PartSpec, UnitFigures, verdict_of
 from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE, STUCK
 
-COMPACT_AT = 1 << 16  # values buffered before they are folded into (value, count) pairs
+COMPACT_AT = 1 << 12  # values buffered (or as many as there are distinct ones) before they are folded
 
 
 class ValueCounts:
@@ -36,7 +36,7 @@ class ValueCounts:
         if len(values):
             self._buffer.append(values)
             self._buffered += len(values)
-            if self._buffered >= COMPACT_AT:
+            if self._buffered >= max(COMPACT_AT, len(self.values)):
                 self._compact()
 
     def _compact(self) -> None:
