@@ -46,7 +46,7 @@ from benchlog.analysis._spec import (
     unit_verdict,
     unit_verdicts,
 )
-from benchlog.analysis._summary import summarize
+from benchlog.analysis._summary import Summaries, summarize
 from benchlog.analysis._types import (
     ACTUATION_DTYPE,
     BREAK,
@@ -120,6 +120,7 @@ __all__ = [
     "project",
     "shipped_specs",
     "summarize",
+    "Summaries",
     "unit_verdict",
     "unit_verdicts",
     "window_stats",

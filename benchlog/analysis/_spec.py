@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -383,6 +384,22 @@ def _fmt(value_us: float, metric: str) -> str:
     return f"{value_us / 1000:.3g} ms" if value_us >= 1000 else f"{value_us:.3g} us"
 
 
+@dataclass(frozen=True, slots=True)
+class UnitFigures:
+    """What a unit's verdict is judged on, from its complete actuations (see `unit_verdict`).
+
+    `stat(column, which, percentile)`: that percentile of the column over the rows `which` selects
+    (METRICS), NaN left out; None when there is no value. `first_missed`: (stuck, cycle) of the first
+    missed or stuck actuation."""
+
+    complete: int
+    missed: int
+    first_missed: tuple[bool, int] | None
+    cycles: int
+    chatter_events: int
+    stat: Callable[[str, str, float], float | None]
+
+
 def unit_verdict(actuations: np.ndarray, spec: PartSpec) -> tuple[int, str]:
     """One unit's verdict (PASS / MARGINAL / FAIL, or NO_VERDICT without data) and the reason, in words.
 
@@ -396,15 +413,36 @@ def unit_verdict(actuations: np.ndarray, spec: PartSpec) -> tuple[int, str]:
     good = rows[ok]
     if not len(good):
         return NO_VERDICT, "no complete actuations"
+
+    def stat(column: str, which: str, percentile: float) -> float | None:
+        values = good[column][_selector(good, which)].astype(np.float64)
+        values = values[~np.isnan(values)]
+        return float(np.percentile(values, percentile)) if len(values) else None
+
+    missed = good[(good["flags"] & (MISSED | STUCK)) != 0]
+    first = (bool(missed["flags"][0] & STUCK), int(missed["cycle"][0])) if len(missed) else None
+    figures = UnitFigures(
+        complete=len(good),
+        missed=len(missed),
+        first_missed=first,
+        cycles=int(good["cycle"].max() - good["cycle"].min() + 1),
+        chatter_events=int(good["chatter"].clip(min=0).sum()),
+        stat=stat,
+    )
+    return verdict_of(figures, spec)
+
+
+def verdict_of(f: UnitFigures, spec: PartSpec) -> tuple[int, str]:
+    """`unit_verdict` from a unit's figures (which a reader streaming actuations can keep up)."""
+    if not f.complete:
+        return NO_VERDICT, "no complete actuations"
     fails: list[str] = []
     marginals: list[str] = []
     for lim in spec.limits:
         column, which, _ = METRICS[lim.metric]
-        values = good[column][_selector(good, which)].astype(np.float64)
-        values = values[~np.isnan(values)]
-        if not len(values):
+        stat = f.stat(column, which, lim.percentile)
+        if stat is None:
             continue
-        stat = float(np.percentile(values, lim.percentile))
         band = spec.marginal_band if lim.marginal_band is None else lim.marginal_band
         label = "max" if lim.percentile >= 100 else f"p{lim.percentile:g}"
         text = f"{lim.words} {label} {_fmt(stat, lim.metric)}"
@@ -412,28 +450,26 @@ def unit_verdict(actuations: np.ndarray, spec: PartSpec) -> tuple[int, str]:
             fails.append(f"{text} > {_fmt(lim.max_value, lim.metric)} limit")
         elif stat > lim.max_value * (1.0 - band):
             marginals.append(f"{text} within {band:.0%} of the {_fmt(lim.max_value, lim.metric)} limit")
-    missed = good[(good["flags"] & (MISSED | STUCK)) != 0]
-    if len(missed) > spec.max_missed:
-        what = "stuck contact" if (missed["flags"][0] & STUCK) else "missed transition"
-        fails.append(f"{len(missed)} missed/stuck (first: {what} at cycle {int(missed['cycle'][0])})")
+    if f.missed > spec.max_missed and f.first_missed is not None:
+        stuck, cycle = f.first_missed
+        what = "stuck contact" if stuck else "missed transition"
+        fails.append(f"{f.missed} missed/stuck (first: {what} at cycle {cycle})")
     if spec.chatter is not None:
-        cycles = int(good["cycle"].max() - good["cycle"].min() + 1)
-        events = int(good["chatter"].clip(min=0).sum())
-        allowed = spec.chatter.max_events * max(cycles, 1) / spec.chatter.per_cycles
-        if events > allowed:
+        allowed = spec.chatter.max_events * max(f.cycles, 1) / spec.chatter.per_cycles
+        if f.chatter_events > allowed:
             fails.append(
-                f"{events} chatter events in {cycles} cycles > {spec.chatter.max_events} per "
+                f"{f.chatter_events} chatter events in {f.cycles} cycles > {spec.chatter.max_events} per "
                 f"{spec.chatter.per_cycles}"
             )
-    if spec.life is not None and len(missed):
-        first = int(missed["cycle"][0])
+    if spec.life is not None and f.first_missed is not None:
+        first = f.first_missed[1]
         if first < spec.life.min_cycles:
             fails.append(f"stopped working at cycle {first} < {spec.life.min_cycles} required life")
     if fails:
         return FAIL, "; ".join(fails)
     if marginals:
         return MARGINAL, "; ".join(marginals)
-    return PASS, f"within all limits of {spec.number} ({len(good)} actuations)"
+    return PASS, f"within all limits of {spec.number} ({f.complete} actuations)"
 
 
 def unit_verdicts(actuations: np.ndarray, spec: PartSpec) -> dict[int, tuple[int, str]]:

@@ -1,4 +1,11 @@
-"""Per-channel summaries of an actuation table (what `benchlog analyze` prints)."""
+"""Per-channel summaries of actuations (what `benchlog analyze` prints), kept up batch by batch.
+
+`Summaries.add(rows)` takes actuations as they are measured and keeps, per channel, counts and, for
+each measured quantity, every distinct value with how often it came: a percentile from those is exactly
+the one numpy computes from all the values (linear interpolation, `numpy.percentile`'s default), and
+memory is bounded by how many distinct values the tick resolution allows within the windows measured,
+not by how long the recording ran. `summarize(table)` is the same over one table.
+"""
 
 from __future__ import annotations
 
@@ -6,54 +13,225 @@ from typing import Any
 
 import numpy as np
 
-from benchlog.analysis._spec import VERDICT_NAMES, PartSpec, unit_verdict
+from benchlog.analysis._spec import VERDICT_NAMES, PartSpec, UnitFigures, verdict_of
 from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE, STUCK
 
-
-def _dist(values: np.ndarray) -> dict[str, float | None]:
-    v = values[~np.isnan(values)]
-    if not len(v):
-        return {"n": 0, "p50": None, "p95": None, "max": None}
-    p50, p95 = np.percentile(v, [50, 95])
-    return {"n": int(len(v)), "p50": float(p50), "p95": float(p95), "max": float(v.max())}
+COMPACT_AT = 1 << 12  # values buffered (or as many as there are distinct ones) before they are folded
 
 
-def _counts(rows: np.ndarray) -> np.ndarray:
-    return rows["bounce_count"][(rows["flags"] & (MISSED | STUCK)) == 0].astype(np.float64)
+class ValueCounts:
+    """A multiset of float values: sorted distinct values and their counts."""
+
+    __slots__ = ("values", "counts", "_buffer", "_buffered")
+
+    def __init__(self) -> None:
+        self.values = np.zeros(0, np.float64)
+        self.counts = np.zeros(0, np.int64)
+        self._buffer: list[np.ndarray] = []
+        self._buffered = 0
+
+    def add(self, values: np.ndarray) -> None:
+        """Add values (NaN is left out: the quantity does not apply)."""
+        values = values[~np.isnan(values)]
+        if len(values):
+            self._buffer.append(values)
+            self._buffered += len(values)
+            if self._buffered >= max(COMPACT_AT, len(self.values)):
+                self._compact()
+
+    def _compact(self) -> None:
+        if not self._buffer:
+            return
+        new, counts = np.unique(np.concatenate(self._buffer), return_counts=True)
+        self._buffer, self._buffered = [], 0
+        if len(self.values):
+            both = np.concatenate((self.values, new))
+            new, where = np.unique(both, return_inverse=True)
+            counts = np.bincount(where, weights=np.concatenate((self.counts, counts))).astype(np.int64)
+        self.values, self.counts = new, counts
+
+    def __len__(self) -> int:
+        self._compact()
+        return int(self.counts.sum())
+
+    def percentile(self, q: float) -> float:
+        """`numpy.percentile(all values, q)`, exactly: the same index arithmetic and interpolation
+        (numpy's 'linear' method: virtual index (n - 1) * q / 100, then a lerp of its two neighbours)."""
+        self._compact()
+        cum = np.cumsum(self.counts)
+        n = int(cum[-1])
+        virtual = (n - 1) * np.true_divide(q, 100)
+        below = np.floor(virtual)
+        if virtual >= n - 1:
+            lo = hi = n - 1
+        elif virtual < 0:
+            lo = hi = 0
+        else:
+            lo, hi = int(below), int(below) + 1
+        gamma = virtual - below
+        a, b = self.values[np.searchsorted(cum, [lo, hi], "right")]
+        diff = b - a
+        if gamma >= 0.5:
+            return float(b - diff * (1 - gamma))
+        return float(a + diff * gamma)
+
+    def dist(self) -> dict[str, float | None]:
+        n = len(self)
+        if not n:
+            return {"n": 0, "p50": None, "p95": None, "max": None}
+        return {"n": n, "p50": self.percentile(50), "p95": self.percentile(95), "max": float(self.values[-1])}
+
+
+# (column, rows, leave out missed/stuck): the quantities a summary or a verdict needs
+_MAKE, _BREAK, _OPERATE, _RELEASE, _ALL = "make", "break", "operate", "release", "all"
+
+
+class _Channel:
+    def __init__(self) -> None:
+        self.actuations = self.makes = self.breaks = 0
+        self.max_cycle = -1
+        self.incomplete = self.missed = self.stuck = self.no_change = 0
+        self.glitches = self.chatter = 0
+        self.complete = 0
+        self.min_good_cycle: int | None = None
+        self.max_good_cycle: int | None = None
+        self.missed_good = 0
+        self.first_missed: tuple[bool, int] | None = None
+        self.series: dict[tuple[str, str, bool], ValueCounts] = {}
+
+    def values(self, column: str, which: str, drop_missed: bool = False) -> ValueCounts:
+        key = (column, which, drop_missed)
+        v = self.series.get(key)
+        if v is None:
+            v = self.series[key] = ValueCounts()
+        return v
+
+
+def _select(rows: np.ndarray, which: str) -> np.ndarray:
+    if which == _MAKE:
+        return rows["kind"] == MAKE
+    if which == _BREAK:
+        return rows["kind"] == BREAK
+    if which == _OPERATE:
+        return rows["drive_level"] == 1
+    if which == _RELEASE:
+        return rows["drive_level"] == 0
+    return np.ones(len(rows), bool)
+
+
+class Summaries:
+    """Per-channel summaries kept up as actuations arrive (see the module doc); `result()` gives what
+    `summarize` gives for all of them at once."""
+
+    def __init__(self, spec: PartSpec | None = None) -> None:
+        self.spec = spec
+        self._channels: dict[int, _Channel] = {}
+        self._wanted = [
+            ("bounce_us", _MAKE, False),
+            ("bounce_us", _BREAK, False),
+            ("bounce_count", _MAKE, True),
+            ("bounce_count", _BREAK, True),
+            ("transit_us", _OPERATE, False),
+            ("transit_us", _RELEASE, False),
+            ("transfer_us", _ALL, False),
+        ]
+        if spec is not None:
+            from benchlog.analysis._spec import METRICS
+
+            for lim in spec.limits:
+                column, which, _ = METRICS[lim.metric]
+                key = (column, which, False)
+                if key not in self._wanted:
+                    self._wanted.append(key)
+
+    def add(self, actuations: np.ndarray) -> None:
+        if not len(actuations):
+            return
+        channels = actuations["channel"]
+        present = np.unique(channels).tolist()
+        for c in present:
+            rows = actuations[channels == c] if len(present) > 1 else actuations
+            ch = self._channels.get(c)
+            if ch is None:
+                ch = self._channels[c] = _Channel()
+            self._add(ch, rows)
+
+    def _add(self, ch: _Channel, rows: np.ndarray) -> None:
+        flags = rows["flags"]
+        kind = rows["kind"]
+        ch.actuations += len(rows)
+        ch.makes += int(np.count_nonzero(kind == MAKE))
+        ch.breaks += int(np.count_nonzero(kind == BREAK))
+        ch.max_cycle = max(ch.max_cycle, int(rows["cycle"].max()))
+        ch.incomplete += int(np.count_nonzero(flags & INCOMPLETE))
+        ch.missed += int(np.count_nonzero(flags & MISSED))
+        ch.stuck += int(np.count_nonzero(flags & STUCK))
+        ch.no_change += int(np.count_nonzero(flags & NO_CHANGE))
+        good = rows[(flags & (INCOMPLETE | NO_CHANGE)) == 0]
+        if not len(good):
+            return
+        ch.complete += len(good)
+        ch.glitches += int(good["glitches"].clip(min=0).sum())
+        ch.chatter += int(good["chatter"].clip(min=0).sum())
+        lo, hi = int(good["cycle"].min()), int(good["cycle"].max())
+        ch.min_good_cycle = lo if ch.min_good_cycle is None else min(ch.min_good_cycle, lo)
+        ch.max_good_cycle = hi if ch.max_good_cycle is None else max(ch.max_good_cycle, hi)
+        failed = (good["flags"] & (MISSED | STUCK)) != 0
+        n_failed = int(np.count_nonzero(failed))
+        if n_failed and ch.first_missed is None:
+            first = good[int(np.argmax(failed))]
+            ch.first_missed = (bool(first["flags"] & STUCK), int(first["cycle"]))
+        ch.missed_good += n_failed
+        for column, which, drop_missed in self._wanted:
+            sel = _select(good, which)
+            if drop_missed:
+                sel &= ~failed
+            ch.values(column, which, drop_missed).add(good[column][sel].astype(np.float64))
+
+    def result(self) -> list[dict[str, Any]]:
+        """One dict per channel: counts, p50/p95/max (us) of bounce and transit times, and the verdict."""
+        out = []
+        for c in sorted(self._channels):
+            ch = self._channels[c]
+            entry: dict[str, Any] = {
+                "channel": c,
+                "actuations": ch.actuations,
+                "makes": ch.makes,
+                "breaks": ch.breaks,
+                "cycles": ch.max_cycle + 1,
+                "incomplete": ch.incomplete,
+                "missed": ch.missed,
+                "stuck": ch.stuck,
+                "no_change": ch.no_change,
+                "glitches": ch.glitches,
+                "chatter_events": ch.chatter,
+                "make_bounce_us": ch.values("bounce_us", _MAKE).dist(),
+                "break_bounce_us": ch.values("bounce_us", _BREAK).dist(),
+                # a missed or stuck actuation has no bounce to count, as it has no bounce time
+                "make_bounce_count": ch.values("bounce_count", _MAKE, True).dist(),
+                "break_bounce_count": ch.values("bounce_count", _BREAK, True).dist(),
+                "operate_us": ch.values("transit_us", _OPERATE).dist(),
+                "release_us": ch.values("transit_us", _RELEASE).dist(),
+                "transfer_us": ch.values("transfer_us", _ALL).dist(),
+            }
+            if self.spec is not None:
+                verdict, reason = verdict_of(self._figures(ch), self.spec)
+                entry["verdict"] = VERDICT_NAMES[verdict]
+                entry["reason"] = reason
+            out.append(entry)
+        return out
+
+    def _figures(self, ch: _Channel) -> UnitFigures:
+        def stat(column: str, which: str, percentile: float) -> float | None:
+            v = ch.values(column, which)
+            return v.percentile(percentile) if len(v) else None
+
+        cycles = 0 if ch.min_good_cycle is None else ch.max_good_cycle - ch.min_good_cycle + 1
+        return UnitFigures(ch.complete, ch.missed_good, ch.first_missed, cycles, ch.chatter, stat)
 
 
 def summarize(actuations: np.ndarray, spec: PartSpec | None = None) -> list[dict[str, Any]]:
     """One dict per channel: counts, p50/p95/max (us) of bounce and transit times, and the verdict."""
-    out = []
-    for c in np.unique(actuations["channel"]):
-        rows = actuations[actuations["channel"] == c]
-        flags = rows["flags"]
-        good = rows[(flags & (INCOMPLETE | NO_CHANGE)) == 0]
-        makes, breaks = good[good["kind"] == MAKE], good[good["kind"] == BREAK]
-        entry: dict[str, Any] = {
-            "channel": int(c),
-            "actuations": int(len(rows)),
-            "makes": int((rows["kind"] == MAKE).sum()),
-            "breaks": int((rows["kind"] == BREAK).sum()),
-            "cycles": int(rows["cycle"].max() + 1) if len(rows) else 0,
-            "incomplete": int(((flags & INCOMPLETE) != 0).sum()),
-            "missed": int(((flags & MISSED) != 0).sum()),
-            "stuck": int(((flags & STUCK) != 0).sum()),
-            "no_change": int(((flags & NO_CHANGE) != 0).sum()),
-            "glitches": int(good["glitches"].clip(min=0).sum()),
-            "chatter_events": int(good["chatter"].clip(min=0).sum()),
-            "make_bounce_us": _dist(makes["bounce_us"]),
-            "break_bounce_us": _dist(breaks["bounce_us"]),
-            # a missed or stuck actuation has no bounce to count, as it has no bounce time
-            "make_bounce_count": _dist(_counts(makes)),
-            "break_bounce_count": _dist(_counts(breaks)),
-            "operate_us": _dist(good["transit_us"][good["drive_level"] == 1]),
-            "release_us": _dist(good["transit_us"][good["drive_level"] == 0]),
-            "transfer_us": _dist(good["transfer_us"]),
-        }
-        if spec is not None:
-            verdict, reason = unit_verdict(rows, spec)
-            entry["verdict"] = VERDICT_NAMES[verdict]
-            entry["reason"] = reason
-        out.append(entry)
-    return out
+    s = Summaries(spec)
+    s.add(actuations)
+    return s.result()

@@ -13,11 +13,15 @@ from benchlog.clock._timeline import (
     TimedNotice,
     TimedPong,
     Timeline,
+    empty_timed,
+    merge_timed,
 )
 
 __all__ = [
     "Timeline",
     "Timed",
+    "empty_timed",
+    "merge_timed",
     "TimedAccepted",
     "TimedBeats",
     "TimedCounts",

@@ -56,9 +56,11 @@ from benchlog.events import (
     TimedEdges,
 )
 from benchlog.wire import (
+    BLOCK_BEAT,
     PROTOCOL_VERSION,
     Announce,
     Beat,
+    Block,
     Drive,
     Edges,
     Fault,
@@ -74,6 +76,8 @@ HOST_RATE_MARGIN = 0.02  # a sampler clock may be 0.5 % off; allow four times th
 HOST_SLACK_NS = NS_PER_S  # latency jitter between two receive times
 SOLICITED_FOR_NS = 5 * NS_PER_S
 MAX_HELD_EDGES = 1 << 20
+REPLAY_STEP_NS = 250_000_000
+REPLAY_TAIL_ROWS = 1 << 20
 U32 = 1 << 32
 EPOCH_LIMIT_NS = 1 << 60  # 36 years: no counter epoch is longer; beyond it a tick is garbage
 RUN_LIMIT_NS = 1 << 61  # run time stays far inside int64
@@ -149,6 +153,49 @@ class TimedAccepted:
 _EDGE, _DRIVE, _BEAT = 0, 1, 2
 
 
+def empty_timed() -> Timed:
+    return Timed(TimedEdges.empty(), TimedDrives.empty(), [], [], TimedBeats.of([]), [], [])
+
+
+def merge_timed(parts: list[Timed]) -> Timed:
+    """One `Timed` from several, in order."""
+    parts = [p for p in parts if p is not None]
+    if not parts:
+        return empty_timed()
+    if len(parts) == 1:
+        return parts[0]
+    drives = [p.drives for p in parts if len(p.drives)]
+    beats = [p.beats for p in parts if len(p.beats)]
+    with_cycles = any(d.cycle is not None for d in drives)
+    return Timed(
+        TimedEdges.concat([p.edges for p in parts if len(p.edges)]),
+        TimedDrives(
+            np.concatenate([d.t_ns for d in drives]),
+            np.concatenate([d.channel for d in drives]),
+            np.concatenate([d.level for d in drives]),
+            np.concatenate([np.full(len(d), -1, np.int64) if d.cycle is None else d.cycle for d in drives])
+            if with_cycles
+            else None,
+        )
+        if drives
+        else TimedDrives.empty(),
+        [i for p in parts for i in p.incidents],
+        [a for p in parts for a in p.announcements],
+        TimedBeats(
+            np.concatenate([b.t_ns for b in beats]),
+            np.concatenate([b.host_ns for b in beats]),
+            np.concatenate([b.captured for b in beats]),
+            np.concatenate([b.dropped for b in beats]),
+        )
+        if beats
+        else TimedBeats.of([]),
+        [n for p in parts for n in p.notices],
+        [q for p in parts for q in p.pongs],
+        [c for p in parts for c in p.counts],
+        [a for p in parts for a in p.accepted],
+    )
+
+
 class _Faults:
     """Adjacent decode faults (no good record between them): one DECODE_FAULT incident."""
 
@@ -168,43 +215,79 @@ class _Faults:
 class _Segment:
     """The tick-bearing records of a push between announcements, gathered for one vectorised pass.
 
-    Edge batches are kept as arrays and single records (drives, beats) as Python lists with their
-    positions; `arrays` lays both out in stream order with two fancy-index assignments.
+    Edge batches and blocks are kept as arrays and single records (drives, beats) as Python lists with
+    their positions; `arrays` lays both out in stream order with two fancy-index assignments. `group`
+    counts the beats added so far (a replay's host clock moves on after each).
     """
 
     __slots__ = (
         "ticks",
         "channels",
         "levels",
+        "kinds",
         "pos",
         "one_tick",
         "one_kind",
         "one_ch",
         "one_lv",
-        "beats",
-        "drive_cycles",
+        "beat_pos",
+        "beat_cap",
+        "beat_drop",
+        "cycles",
+        "one_cycles",
         "markers",
+        "marker_group",
         "n",
+        "group",
+        "has_kinds",
     )
 
     def __init__(self) -> None:
         self.ticks: list[np.ndarray] = []
         self.channels: list[np.ndarray] = []
         self.levels: list[np.ndarray] = []
+        self.kinds: list[np.ndarray | None] = []  # None: all edges
         self.pos: list[int] = []  # positions of single records
         self.one_tick: list[int] = []
         self.one_kind: list[int] = []
         self.one_ch: list[int] = []
         self.one_lv: list[int] = []
-        self.beats: list[tuple[int, int, int]] = []  # (position, captured, dropped)
-        self.drive_cycles: list[int] = []  # the sampler's cycle of each drive, in order (-1: none)
-        self.markers: list[tuple[int, Record]] = []  # (position, record) of records without a tick
+        self.beat_pos: list[np.ndarray | list[int]] = [[]]  # beats' positions, captured and dropped
+        self.beat_cap: list[np.ndarray | list[int]] = [[]]
+        self.beat_drop: list[np.ndarray | list[int]] = [[]]
+        self.cycles: list[np.ndarray | list[int]] = [[]]  # the sampler's cycle of each drive (-1: none)
+        self.markers: list[tuple[int, Record | _Faults]] = []  # (position, record) of records without a tick
+        self.marker_group: list[int] = []
         self.n = 0
+        self.group = 0
+        self.has_kinds = False
 
     def add_edges(self, rec: Edges) -> None:
         self.ticks.append(rec.tick)
         self.channels.append(rec.channel)
         self.levels.append(rec.level)
+        self.kinds.append(None)
+        self.n += len(rec.tick)
+
+    def add_block(self, rec: Block) -> None:
+        self.ticks.append(rec.tick)
+        self.channels.append(rec.channel)
+        self.levels.append(rec.level)
+        self.kinds.append(rec.kind)
+        self.has_kinds = True
+        if len(rec.captured):
+            at = self.n + np.flatnonzero(rec.kind == BLOCK_BEAT)
+            for dst, src in (
+                (self.beat_pos, at),
+                (self.beat_cap, rec.captured),
+                (self.beat_drop, rec.dropped),
+            ):
+                dst.append(np.asarray(src, np.int64))
+                dst.append([])
+            self.group += len(at)
+        if len(rec.cycle):
+            self.cycles.append(np.asarray(rec.cycle, np.int64))
+            self.cycles.append([])
         self.n += len(rec.tick)
 
     def add_one(self, kind: int, tick: int, channel: int, level: int) -> None:
@@ -215,14 +298,48 @@ class _Segment:
         self.one_lv.append(level)
         self.n += 1
 
+    def add_drive(self, rec: Drive) -> None:
+        self.cycles[-1].append(-1 if rec.cycle is None else rec.cycle)  # type: ignore[union-attr]
+        self.add_one(_DRIVE, rec.tick, rec.channel, rec.level)
+
+    def add_beat(self, rec: Beat) -> None:
+        self.beat_pos[-1].append(self.n)  # type: ignore[union-attr]
+        self.beat_cap[-1].append(rec.captured)  # type: ignore[union-attr]
+        self.beat_drop[-1].append(rec.dropped)  # type: ignore[union-attr]
+        self.add_one(_BEAT, rec.tick, 0, 0)
+        if rec.short is not None:
+            self.mark(rec)  # placed at the beat's own run time
+        self.group += 1
+
+    def mark(self, rec: Record | _Faults) -> None:
+        self.markers.append((self.n, rec))
+        self.marker_group.append(self.group)
+
+    def beats(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(position, captured, dropped) of every beat, in order."""
+        return tuple(_join(parts) for parts in (self.beat_pos, self.beat_cap, self.beat_drop))  # type: ignore[return-value]
+
+    def drive_cycles(self) -> np.ndarray:
+        return _join(self.cycles)
+
     def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         n = self.n
-        if not self.pos:
-            if not self.ticks:
-                z = np.zeros(0, np.uint8)
-                return np.zeros(0, np.uint64), z, z, z
+        if not self.ticks:
+            z = np.zeros(0, np.uint8)
+            chunk = (np.zeros(0, np.uint64), z, z, z)
+        else:
             tick = np.concatenate(self.ticks).astype(np.uint64)  # a copy: it is masked in place
-            return tick, np.zeros(n, np.uint8), np.concatenate(self.channels), np.concatenate(self.levels)
+            if self.has_kinds:
+                kinds = [
+                    np.zeros(len(t), np.uint8) if k is None else k
+                    for k, t in zip(self.kinds, self.ticks, strict=True)
+                ]
+                kind = np.concatenate(kinds).astype(np.uint8, copy=False)
+            else:
+                kind = np.zeros(len(tick), np.uint8)
+            chunk = (tick, kind, np.concatenate(self.channels), np.concatenate(self.levels))
+        if not self.pos:
+            return chunk
         tick = np.empty(n, np.uint64)
         kind = np.zeros(n, np.uint8)
         channel = np.empty(n, np.uint8)
@@ -233,12 +350,17 @@ class _Segment:
         channel[pos] = self.one_ch
         level[pos] = self.one_lv
         if self.ticks:
-            is_edge = np.ones(n, bool)
-            is_edge[pos] = False
-            tick[is_edge] = np.concatenate(self.ticks)
-            channel[is_edge] = np.concatenate(self.channels)
-            level[is_edge] = np.concatenate(self.levels)
+            rest = np.ones(n, bool)
+            rest[pos] = False
+            tick[rest], kind[rest], channel[rest], level[rest] = chunk
         return tick, kind, channel, level
+
+
+def _join(parts: list) -> np.ndarray:
+    arrays = [np.asarray(p, np.int64) for p in parts if len(p)]
+    if not arrays:
+        return np.zeros(0, np.int64)
+    return arrays[0] if len(arrays) == 1 else np.concatenate(arrays)
 
 
 @dataclass(slots=True)
@@ -314,7 +436,7 @@ class Timeline:
         self._d_cy: list[np.ndarray] = []
         self._counts: list[TimedCounts] = []
         self._accepted: list[TimedAccepted] = []
-        self._beats: list[tuple[int, int, int, int]] = []
+        self._beats: list[np.ndarray] = []  # (t_ns, host_ns, captured, dropped) rows
         self._incidents: list[Incident] = []
         self._announcements: list[Announce] = []
         self._notices: list[TimedNotice] = []
@@ -322,6 +444,8 @@ class Timeline:
         self._prev_beat: _PendingBeat | None = None
         self._epoch_start_ns = 0
         self._epoch_start_host = 0
+        self._replay_host = 0  # a replay's host clock (see `replay`)
+        self._replay_tail: list[Record] = []
 
     # -- public -------------------------------------------------------------------------------------------
 
@@ -355,6 +479,37 @@ class Timeline:
         self._disconnected = True
         return inc
 
+    def replay_step(self) -> int:
+        """How far a replay's host clock moves on per beat: 250 ms, and less than a quarter wrap."""
+        step = REPLAY_STEP_NS
+        if self.clock_hz and self.counter_bits:
+            quarter = (1 << (self.counter_bits - 2)) * NS_PER_S // self.clock_hz
+            step = max(1, min(step, quarter - 1))
+        return step
+
+    def replay(self, records: list[Record]) -> Timed:
+        """Place records of a recording, which carries no receive times (a capture file).
+
+        The sampler's beats pace the host clock: the records up to each beat are one group, received
+        `replay_step()` after the group before, as if pushed group by group (`push(group, host)`), and
+        placed the same whatever the batches (see `_replay`: many groups go in one vectorised pass).
+        Records after the last beat wait for the next call, or for `replay_end`."""
+        from benchlog.clock._replay import replay_groups, split_after_last_beat
+
+        records = self._replay_tail + list(records)
+        done, tail = split_after_last_beat(records)
+        if sum(len(r) for r in tail if isinstance(r, Edges | Block)) > REPLAY_TAIL_ROWS:
+            done, tail = records, []  # no beat for a long while: do not hold on to it all
+        self._replay_tail = tail
+        return replay_groups(self, done)
+
+    def replay_end(self) -> Timed:
+        """The end of a recording: place the records after its last beat."""
+        from benchlog.clock._replay import replay_groups
+
+        tail, self._replay_tail = self._replay_tail, []
+        return replay_groups(self, tail)
+
     def push(self, records: list[Record], host_ns: int) -> Timed:
         """Place `records` (decoded from bytes received at host time `host_ns`) in run time."""
         self._incidents = self._queued
@@ -376,19 +531,18 @@ class Timeline:
             self._check_outage(host_ns)
         seg = _Segment()
         for rec in records:
-            if isinstance(rec, Edges):
+            if isinstance(rec, Block):
+                if len(rec):
+                    seg.add_block(rec)
+            elif isinstance(rec, Edges):
                 if len(rec):
                     seg.add_edges(rec)
             elif isinstance(rec, Drive):
-                seg.add_one(_DRIVE, rec.tick, rec.channel, rec.level)
-                seg.drive_cycles.append(-1 if rec.cycle is None else rec.cycle)
+                seg.add_drive(rec)
             elif isinstance(rec, Beat):
-                seg.beats.append((seg.n, rec.captured, rec.dropped))
-                seg.add_one(_BEAT, rec.tick, 0, 0)
-                if rec.short is not None:
-                    seg.markers.append((seg.n, rec))  # placed at the beat's own run time
+                seg.add_beat(rec)
             elif isinstance(rec, PlanAccepted | GoAccepted):
-                seg.markers.append((seg.n, rec))
+                seg.mark(rec)
             elif isinstance(rec, Announce):
                 self._place_segment(seg, host_ns)
                 seg = _Segment()
@@ -402,9 +556,9 @@ class Timeline:
                 if last is not None and last[0] == seg.n and isinstance(last[1], _Faults):
                     last[1].add(rec)
                 else:
-                    seg.markers.append((seg.n, _Faults(rec)))
+                    seg.mark(_Faults(rec))
             elif isinstance(rec, SequenceGap | Notice | Pong):
-                seg.markers.append((seg.n, rec))
+                seg.mark(rec)
         self._place_segment(seg, host_ns)
         self._host_last = host_ns
         if self._push_min is not None:
@@ -450,7 +604,7 @@ class Timeline:
             else TimedDrives.empty(),
             self._incidents,
             self._announcements,
-            TimedBeats.of(self._beats),
+            TimedBeats.of(np.concatenate(self._beats) if self._beats else []),
             self._notices,
             self._pongs,
             self._counts,
@@ -610,6 +764,8 @@ class Timeline:
         t_all = np.empty(n, np.int64)
         if self.counter_bits < 64:
             raw &= np.uint64((1 << self.counter_bits) - 1)
+        beats, cycles = seg.beats(), seg.drive_cycles()
+        beat_host = np.full(len(beats[0]), host_ns, np.int64)
         start = 0
         why: str | None = None
         while start < n:
@@ -624,7 +780,7 @@ class Timeline:
                 rel = np.concatenate([np.array([first], np.int64), rel])
             if end > start:
                 t_all[start:end] = self._ns0 + ticks_to_ns_array(rel, self.clock_hz)
-                self._consume(seg, start, end, rel, t_all, kind, channel, level, host_ns)
+                self._consume(start, end, rel, t_all, kind, channel, level, beats, cycles, beat_host)
             start = end
         if seg.markers:
             upto = np.maximum.accumulate(t_all) if n else t_all
@@ -692,7 +848,6 @@ class Timeline:
 
     def _consume(
         self,
-        seg: _Segment,
         a: int,
         b: int,
         rel: np.ndarray,
@@ -700,9 +855,15 @@ class Timeline:
         kind: np.ndarray,
         channel: np.ndarray,
         level: np.ndarray,
-        host_ns: int,
-    ) -> None:
-        """Hand out records a..b of a segment, all in one epoch: edges, drives, and beats in order."""
+        beats: tuple[np.ndarray, np.ndarray, np.ndarray],
+        cycles: np.ndarray,
+        beat_host: np.ndarray,
+    ) -> list[int]:
+        """Hand out records a..b of a segment, all in one epoch: edges, drives, and beats in order.
+
+        `beats` are (position, captured, dropped) of the segment's beats, `beat_host` their host times,
+        `cycles` the sampler's cycle of each of its drives. Returns, for each incident the beats gave,
+        which of the segment's beats gave it."""
         k = kind[a:b]
         t = t_all[a:b]
         is_edge = k == _EDGE
@@ -720,25 +881,49 @@ class Timeline:
                 self._d_ch.append(channel[a:b][is_drive])
                 self._d_lv.append(level[a:b][is_drive])
                 first = int(np.count_nonzero(kind[:a] == _DRIVE))
-                cycles = seg.drive_cycles[first : first + int(np.count_nonzero(is_drive))]
-                self._d_cy.append(np.asarray(cycles, np.int64))
-        beats = [bt for bt in seg.beats if a <= bt[0] < b]
-        prev = 0  # offset in the piece where edges stop counting towards the pending beat's "late"
-        edges_before = np.cumsum(is_edge) if beats else None
-        for p, captured, dropped in beats:
-            j = p - a
+                self._d_cy.append(cycles[first : first + int(np.count_nonzero(is_drive))])
+        pos, captured, dropped = beats
+        m0, m1 = int(np.searchsorted(pos, a)), int(np.searchsorted(pos, b))
+        if m1 == m0:
             if self._beat is not None:
-                self._beat.late += int(np.count_nonzero(is_edge[prev:j] & (rel[prev:j] <= self._beat.rel)))
-            before = self._received + (int(edges_before[j - 1]) if j else 0)
-            tb = int(t[j])
-            self._beats.append((tb, host_ns, captured, dropped))
-            self._drift.add(self._scaled(host_ns - self._epoch_start_host), tb)
-            self._settle_beat()
-            self._beat = _PendingBeat(int(rel[j]), tb, host_ns, captured, dropped, before)
-            prev = j + 1
-        if self._beat is not None and prev < len(k):
-            self._beat.late += int(np.count_nonzero(is_edge[prev:] & (rel[prev:] <= self._beat.rel)))
-        self._received += int(np.count_nonzero(is_edge))
+                self._beat.late += int(np.count_nonzero(is_edge & (rel <= self._beat.rel)))
+            self._received += int(np.count_nonzero(is_edge))
+            return []
+        j = pos[m0:m1] - a
+        nb = m1 - m0
+        # Edges after a beat and before the next one count as received before it when their tick is at
+        # or before its tick (in flight when it was sent); the beat pending from earlier takes those
+        # before the first beat here.
+        after = np.searchsorted(j, np.arange(len(k)), "right")  # beats at or before each row
+        bound = np.empty(nb + 1, np.int64)
+        bound[0] = self._beat.rel if self._beat is not None else np.iinfo(np.int64).min
+        bound[1:] = rel[j]
+        hit = is_edge & (rel <= bound[after])
+        late = np.bincount(after[hit], minlength=nb + 1)
+        edges_before = np.cumsum(is_edge)
+        before = self._received + np.where(j > 0, edges_before[np.maximum(j - 1, 0)], 0)
+        tb = t[j]
+        host = beat_host[m0:m1]
+        cap, drop = captured[m0:m1], dropped[m0:m1]
+        self._beats.append(np.stack([tb, host, cap, drop], axis=1))
+        for h, tt in zip(host.tolist(), tb.tolist(), strict=True):
+            self._drift.add(self._scaled(h - self._epoch_start_host), tt)
+        settle = [
+            (b_.rel, b_.t_ns, b_.host_ns, b_.captured, b_.dropped, b_.received_before, b_.late + int(late[0]))
+            for b_ in ([self._beat] if self._beat is not None else [])
+        ]
+        columns = [np.asarray(col, np.int64) for col in zip(*settle, strict=True)] if settle else None
+        new = (rel[j], tb, host, cap, drop, before, late[1:])
+        if columns is not None:
+            both = [np.concatenate((old, cur[:-1])) for old, cur in zip(columns, new, strict=True)]
+        else:
+            both = [cur[:-1] for cur in new]
+        self._beat = None
+        settled_by = self._settle_many(*both[1:])
+        self._beat = _PendingBeat(*(int(col[-1]) for col in new))
+        self._received += int(edges_before[-1]) if len(edges_before) else 0
+        # the i-th beat settled is settled by the next beat to arrive
+        return [m0 + i + (0 if columns is not None else 1) for i in settled_by]
 
     # -- beats --------------------------------------------------------------------------------------------
 
@@ -746,47 +931,75 @@ class Timeline:
         b, self._beat = self._beat, None
         if b is None:
             return
-        received = (b.received_before + b.late) % U32
-        link_lost = (b.captured - b.dropped - received) % U32
-        if link_lost >= U32 // 2:
-            link_lost -= U32  # more received than sent: a count the sampler got wrong; no loss to report
+        one = [
+            np.array([v], np.int64)
+            for v in (b.t_ns, b.host_ns, b.captured, b.dropped, b.received_before, b.late)
+        ]
+        self._settle_many(*one)
+
+    def _settle_many(
+        self,
+        t: np.ndarray,
+        host: np.ndarray,
+        captured: np.ndarray,
+        dropped: np.ndarray,
+        received_before: np.ndarray,
+        late: np.ndarray,
+    ) -> list[int]:
+        """Settle beats in order (each knows every edge received before it): LOST_EDGES and OVERFLOW.
+        Returns which beat (its index here) gave each incident."""
+        if not len(t):
+            return []
+        received = (received_before + late) % U32
+        link_lost = (captured - dropped - received) % U32
+        # more received than sent: a count the sampler got wrong; no loss to report
+        link_lost = np.where(link_lost >= U32 // 2, link_lost - U32, link_lost)
+        i0 = 0
         if self._base_link_lost is None or self._base_dropped is None:
-            self._base_link_lost, self._base_dropped = link_lost, b.dropped
-            self._prev_beat = b
-            return
+            self._base_link_lost, self._base_dropped = int(link_lost[0]), int(dropped[0])
+            self._prev_beat = _PendingBeat(0, int(t[0]), int(host[0]), 0, 0, 0)
+            i0 = 1
+        if i0 == len(t):
+            return []
+        gave: list[int] = []
+        ll, dr = link_lost[i0:], dropped[i0:]
+        base = np.maximum.accumulate(np.concatenate(([self._base_link_lost], ll)))
+        lost = ll - base[:-1]
+        grown = (dr - np.concatenate(([self._base_dropped], dr[:-1]))) % U32
         prev = self._prev_beat
-        t0, h0 = (
-            (prev.t_ns, prev.host_ns) if prev is not None else (self._epoch_start_ns, self._epoch_start_host)
-        )
-        lost = link_lost - self._base_link_lost
-        if lost > 0:
-            self._incidents.append(
-                Incident(
-                    LOST_EDGES,
-                    t0,
-                    b.t_ns,
-                    h0,
-                    b.host_ns,
-                    edges_lost=lost,
-                    detail="lost between sampler and host",
+        t0 = np.concatenate(([prev.t_ns if prev is not None else self._epoch_start_ns], t[i0:-1]))
+        h0 = np.concatenate(([prev.host_ns if prev is not None else self._epoch_start_host], host[i0:-1]))
+        for i in np.flatnonzero((lost > 0) | (grown != 0)).tolist():
+            t1, h1 = int(t[i0 + i]), int(host[i0 + i])
+            gave += [i0 + i] * (int(lost[i] > 0) + int(grown[i] != 0))
+            if lost[i] > 0:
+                self._incidents.append(
+                    Incident(
+                        LOST_EDGES,
+                        int(t0[i]),
+                        t1,
+                        int(h0[i]),
+                        h1,
+                        edges_lost=int(lost[i]),
+                        detail="lost between sampler and host",
+                    )
                 )
-            )
-        dropped = (b.dropped - self._base_dropped) % U32
-        if dropped:
-            self._incidents.append(
-                Incident(
-                    OVERFLOW,
-                    t0,
-                    b.t_ns,
-                    h0,
-                    b.host_ns,
-                    edges_lost=dropped,
-                    detail="dropped by the sampler's full buffer",
+            if grown[i]:
+                self._incidents.append(
+                    Incident(
+                        OVERFLOW,
+                        int(t0[i]),
+                        t1,
+                        int(h0[i]),
+                        h1,
+                        edges_lost=int(grown[i]),
+                        detail="dropped by the sampler's full buffer",
+                    )
                 )
-            )
-        self._base_link_lost = max(self._base_link_lost, link_lost)
-        self._base_dropped = b.dropped
-        self._prev_beat = b
+        self._base_link_lost = int(base[-1])
+        self._base_dropped = int(dr[-1])
+        self._prev_beat = _PendingBeat(0, int(t[-1]), int(host[-1]), 0, 0, 0)
+        return gave
 
     # -- before the first announcement --------------------------------------------------------------------
 

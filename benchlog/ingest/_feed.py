@@ -20,10 +20,9 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from benchlog.clock import Timed, TimedBeats, Timeline
+from benchlog.clock import Timed, TimedBeats, Timeline, empty_timed, merge_timed
 from benchlog.clock._timeline import HOST_SLACK_NS
 from benchlog.errors import ConfigError, PortError
-from benchlog.events import TimedDrives, TimedEdges
 from benchlog.link import Chunk, Link, Outage
 from benchlog.wire import Command, Decoder, Go, Plan, SetForm, Who, encode_command
 
@@ -50,49 +49,6 @@ class FeedCounters:
     edges_lost: int = 0  # edges the incidents say were lost (link and sampler buffer)
     clock_error_ppm: float | None = None
     bytes_out: int = 0
-
-
-def empty_timed() -> Timed:
-    return Timed(TimedEdges.empty(), TimedDrives.empty(), [], [], TimedBeats.of([]), [], [])
-
-
-def merge_timed(parts: list[Timed]) -> Timed:
-    """One `Timed` from several, in order."""
-    parts = [p for p in parts if p is not None]
-    if not parts:
-        return empty_timed()
-    if len(parts) == 1:
-        return parts[0]
-    drives = [p.drives for p in parts if len(p.drives)]
-    beats = [p.beats for p in parts if len(p.beats)]
-    with_cycles = any(d.cycle is not None for d in drives)
-    return Timed(
-        TimedEdges.concat([p.edges for p in parts if len(p.edges)]),
-        TimedDrives(
-            np.concatenate([d.t_ns for d in drives]),
-            np.concatenate([d.channel for d in drives]),
-            np.concatenate([d.level for d in drives]),
-            np.concatenate([np.full(len(d), -1, np.int64) if d.cycle is None else d.cycle for d in drives])
-            if with_cycles
-            else None,
-        )
-        if drives
-        else TimedDrives.empty(),
-        [i for p in parts for i in p.incidents],
-        [a for p in parts for a in p.announcements],
-        TimedBeats(
-            np.concatenate([b.t_ns for b in beats]),
-            np.concatenate([b.host_ns for b in beats]),
-            np.concatenate([b.captured for b in beats]),
-            np.concatenate([b.dropped for b in beats]),
-        )
-        if beats
-        else TimedBeats.of([]),
-        [n for p in parts for n in p.notices],
-        [q for p in parts for q in p.pongs],
-        [c for p in parts for c in p.counts],
-        [a for p in parts for a in p.accepted],
-    )
 
 
 class Feed:

@@ -19,9 +19,13 @@ from benchlog.wire._encoders import LineEncoder, PackedEncoder
 from benchlog.wire._framing import DecodeError, cobs_decode, cobs_encode, crc16, crc32
 from benchlog.wire._lineform import line_check
 from benchlog.wire._records import (
+    BLOCK_BEAT,
+    BLOCK_DRIVE,
+    BLOCK_EDGE,
     PROTOCOL_VERSION,
     Announce,
     Beat,
+    Block,
     DecodeCounters,
     Drive,
     Edges,
@@ -39,6 +43,10 @@ __all__ = [
     "PROTOCOL_VERSION",
     "Announce",
     "Beat",
+    "Block",
+    "BLOCK_EDGE",
+    "BLOCK_DRIVE",
+    "BLOCK_BEAT",
     "DecodeCounters",
     "Drive",
     "Edges",

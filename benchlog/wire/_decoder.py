@@ -19,8 +19,10 @@ the decoder skips to the next terminator, so memory stays bounded whatever arriv
 
 from __future__ import annotations
 
+import bisect
 import re
 import zlib
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -38,7 +40,7 @@ from benchlog.wire._encoders import (
     TYPE_PONG,
     check_board_id,
 )
-from benchlog.wire._framing import DecodeError, cobs_decode
+from benchlog.wire._framing import DecodeError, cobs_decode, cobs_decode_spans, crc32_all_valid
 from benchlog.wire._lineform import (
     CHECK_CRC,
     CHECK_NONE,
@@ -50,8 +52,12 @@ from benchlog.wire._lineform import (
     parse_line,
 )
 from benchlog.wire._records import (
+    BLOCK_BEAT,
+    BLOCK_DRIVE,
+    BLOCK_EDGE,
     Announce,
     Beat,
+    Block,
     DecodeCounters,
     Drive,
     Edges,
@@ -68,6 +74,7 @@ from benchlog.wire._records import (
 MAX_FRAME = 1024
 MAX_ENCODED = MAX_FRAME + MAX_FRAME // 254 + 2  # COBS adds at most one byte per 254
 REDETECT_FAULTS = 64
+BULK_BYTES = 1 << 18  # whole frames in a read shorter than this are decoded one by one
 REDETECT_BYTES = 4096
 
 BEFORE_FIRST = "before first record"
@@ -96,6 +103,158 @@ class _EdgeRun:
 
 def _edges_empty() -> Edges:
     return Edges(np.zeros(0, np.uint8), np.zeros(0, np.uint8), np.zeros(0, np.uint64))
+
+
+@dataclass(slots=True)
+class _FramePlan:
+    """What `_scan_frames` found in a run of frames: per frame whether it is plain (`simple`) and its
+    sequence number; the rows of every plain frame laid out in frame order, with where each frame's
+    rows, drive rows and beat rows start."""
+
+    simple: np.ndarray
+    seq: np.ndarray
+    row_start: np.ndarray
+    drive_start: np.ndarray
+    beat_start: np.ndarray
+    kind: np.ndarray
+    channel: np.ndarray
+    level: np.ndarray
+    tick: np.ndarray
+    cycle: np.ndarray
+    captured: np.ndarray
+    dropped: np.ndarray
+
+
+def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
+    """Little-endian unsigned integers of `size` bytes at offsets `at` of `d`, as uint64."""
+    out = np.zeros(len(at), np.uint64)
+    for k in range(size):
+        out |= d[at + k].astype(np.uint64) << np.uint64(8 * k)
+    return out
+
+
+def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineContext) -> _FramePlan:
+    """Decode and check every frame `a[seg_s[i]:seg_e[i]]` with numpy; see `Decoder._frame_block`.
+
+    A frame is plain when it is intact (COBS, length, CRC), follows the frame before it in sequence, and
+    is an edge frame, a drive or a version 1 beat whose values are in range: exactly the frames the
+    one-at-a-time path would turn into those records with nothing else said."""
+    n_seg = len(seg_s)
+    fits = (seg_e - seg_s) <= MAX_ENCODED
+    ok = np.zeros(n_seg, bool)
+    dstart = np.zeros(n_seg, np.int64)
+    dlen = np.zeros(n_seg, np.int64)
+    ok[fits], dec, dstart[fits], dlen[fits] = cobs_decode_spans(a, seg_s[fits], seg_e[fits])
+    ok &= (dlen >= 7) & (dlen <= MAX_FRAME)
+    good = np.flatnonzero(ok)
+    if len(good):
+        if len(good) == n_seg:
+            frames = dec
+        else:
+            lens = dlen[good]
+            first = np.cumsum(lens) - lens
+            frames = dec[np.repeat(dstart[good] - first, lens) + np.arange(int(lens.sum()))]
+        if not crc32_all_valid(frames, dlen[good]):
+            crc, whole = zlib.crc32, dec.tobytes()
+            bad = [
+                crc(whole[s : s + n - 4]) != int.from_bytes(whole[s + n - 4 : s + n], "little")
+                for s, n in zip(dstart[good].tolist(), dlen[good].tolist(), strict=True)
+            ]
+            ok[good[np.asarray(bad, bool)]] = False
+    d = np.concatenate((dec, np.zeros(32, np.uint8)))  # fixed offsets past a short frame stay inside
+    at = np.where(ok, dstart, 0)
+    n = dlen
+    kind = np.where(ok, d[at], 0)
+    seq = (d[at + 1].astype(np.int64) | (d[at + 2].astype(np.int64) << 8)).astype(np.int64)
+    limit = np.uint64((1 << ctx.counter_bits) - 1) if ctx.counter_bits < 64 else None
+
+    def in_range(tick: np.ndarray) -> np.ndarray:
+        return np.ones(len(tick), bool) if limit is None else tick <= limit
+
+    # drives (version 1: 10-byte payload; version 2 adds the cycle) and version 1 beats
+    is_drive = (kind == TYPE_DRIVE) & ((n == 17) | (n == 21))
+    d_channel, d_level, d_tick = d[at + 3], d[at + 4], _le(d, at + 5, 8)
+    is_drive &= (d_channel < ctx.channels) & (d_level <= 1) & in_range(d_tick)
+    d_cycle = np.where(n == 21, _le(d, at + 13, 4).astype(np.int64), -1)
+    is_beat = (kind == TYPE_BEAT) & (n == 23)
+    b_tick = _le(d, at + 3, 8)
+    is_beat &= in_range(b_tick)
+    # edge frames: base tick, count, then 3-byte entries
+    count = np.where(n >= 12, d[at + 11], 0).astype(np.int64)
+    size = 16 + 3 * count
+    is_edges = (kind == TYPE_EDGES) & (count > 0) & ((n == size) | ((ctx.version > 1) & (n > size)))
+    base = _le(d, at + 3, 8)
+    ef = np.flatnonzero(is_edges)
+    cnt = count[ef]
+    first = np.cumsum(cnt) - cnt
+    total = int(cnt.sum())
+    within = np.arange(total) - np.repeat(first, cnt)
+    off = np.repeat(dstart[ef] + 12, cnt) + 3 * within
+    chan_level = d[off]
+    bad_entry = ((chan_level & np.uint8(0x70)) != 0) | ((chan_level & np.uint8(0x0F)) >= ctx.channels)
+    bad_frame = np.add.reduceat(bad_entry, first) > 0 if total else np.zeros(0, bool)
+    bad_frame |= ~in_range(base[ef])
+    is_edges[ef[bad_frame]] = False
+    keep = np.repeat(~bad_frame, cnt)
+    delta = d[off + 1].astype(np.uint64) | (d[off + 2].astype(np.uint64) << np.uint64(8))
+    cum = np.cumsum(delta, dtype=np.uint64)
+    e_tick = np.repeat(base[ef] - (cum[first] - delta[first]), cnt) + cum if total else cum
+    if limit is not None:
+        e_tick &= limit
+    chan_level, e_tick = chan_level[keep], e_tick[keep]
+
+    seq_next = np.ones(n_seg, bool)
+    seq_next[1:] = seq[1:] == ((seq[:-1] + 1) & 0xFFFF)
+    simple = ok & seq_next & (is_edges | is_drive | is_beat)
+    rows_per = np.where(is_edges, count, (is_drive | is_beat).astype(np.int64))
+    row_start = np.zeros(n_seg + 1, np.int64)
+    np.cumsum(rows_per, out=row_start[1:])
+    frame_kind = np.where(is_drive, BLOCK_DRIVE, np.where(is_beat, BLOCK_BEAT, BLOCK_EDGE)).astype(np.uint8)
+    r_kind = np.repeat(frame_kind, rows_per)
+    r_channel = np.repeat(np.where(is_drive, d_channel, 0).astype(np.uint8), rows_per)
+    r_level = np.repeat(np.where(is_drive, d_level, 0).astype(np.uint8), rows_per)
+    r_tick = np.repeat(np.where(is_drive, d_tick, b_tick), rows_per)
+    edge_rows = r_kind == BLOCK_EDGE
+    r_channel[edge_rows] = chan_level & np.uint8(0x0F)
+    r_level[edge_rows] = chan_level >> np.uint8(7)
+    r_tick[edge_rows] = e_tick
+    drive_start = np.zeros(n_seg + 1, np.int64)
+    np.cumsum(is_drive.astype(np.int64), out=drive_start[1:])
+    beat_start = np.zeros(n_seg + 1, np.int64)
+    np.cumsum(is_beat.astype(np.int64), out=beat_start[1:])
+    return _FramePlan(
+        simple,
+        seq,
+        row_start,
+        drive_start,
+        beat_start,
+        r_kind,
+        r_channel,
+        r_level,
+        r_tick,
+        d_cycle[is_drive],
+        _le(d, at[is_beat] + 11, 4).astype(np.int64),
+        _le(d, at[is_beat] + 15, 4).astype(np.int64),
+    )
+
+
+def _expand(out: list[Record]) -> list[Record]:
+    """Blocks as the records they hold, an edge run joined to an `Edges` batch just before it."""
+    if not any(isinstance(r, Block) for r in out):
+        return out
+    done: list[Record] = []
+    for rec in out:
+        for r in rec.expand() if isinstance(rec, Block) else (rec,):
+            prev = done[-1] if done else None
+            if isinstance(r, Edges) and isinstance(prev, Edges):
+                done[-1] = Edges(
+                    np.concatenate([prev.channel, r.channel]),
+                    np.concatenate([prev.level, r.level]),
+                    np.concatenate([prev.tick, r.tick]),
+                )
+            else:
+                done.append(r)
+    return done
 
 
 class Decoder:
@@ -130,8 +289,12 @@ class Decoder:
         self._after_outage = True
         self.sequence_kept = None
 
-    def feed(self, data: bytes) -> list[Record]:
-        """Decode `data` (any chunk of the stream) and return the records completed by it."""
+    def feed(self, data: bytes, *, blocks: bool = False) -> list[Record]:
+        """Decode `data` (any chunk of the stream) and return the records completed by it.
+
+        With `blocks`, consecutive edges, drives and version 1 beats come as `Block`s (columns, not an
+        object per record), for a reader taking millions of records at once; `Block.expand` gives the
+        records this returns without it."""
         self.counters.bytes_in += len(data)
         buf = self._buf + bytes(data) if self._buf else bytes(data)
         self._out = []
@@ -158,7 +321,7 @@ class Decoder:
                 break
         self._buf = buf
         out, self._out = self._out, []
-        return out
+        return out if blocks else _expand(out)
 
     def expect_form(self, form: str) -> None:
         """The host asked the sampler to switch to `form` ("line" or "packed").
@@ -387,33 +550,31 @@ class Decoder:
         if len(kind):
             ctx.check_level = max(ctx.check_level, int(kind.max()))  # only the block's last line can raise
         n_lines = len(nl)
-        is_edge_line = np.zeros(n_lines + 1, bool)
-        is_edge_line[fast[~is_drive]] = True
-        breaks = np.flatnonzero(~is_edge_line)  # every line but a fast edge line, and the sentinel
-        fast_index = np.full(n_lines, -1, np.intp)
-        fast_index[fast] = np.arange(len(fast))
-        drive_at = fast_index[breaks[:-1]].tolist()
-        edge_sel = ~is_drive
-        e_channel, e_level, e_tick = channel[edge_sel], level[edge_sel], tick[edge_sel]
-        taken = 0  # edges of the fast arrays already emitted
+        is_fast = np.zeros(n_lines + 1, bool)
+        is_fast[fast] = True
+        breaks = np.flatnonzero(~is_fast)  # every line but a fast edge or drive line, and the sentinel
+        row_kind = is_drive.astype(np.uint8) * np.uint8(BLOCK_DRIVE)
+        drives_before = np.zeros(len(fast) + 1, np.int64)
+        np.cumsum(is_drive.astype(np.int64), out=drives_before[1:])
+        no_cycle = np.full(int(drives_before[-1]), -1, np.int64)
+        no_beats = np.zeros(0, np.int64)
+        taken = 0  # rows of the fast arrays already emitted
         prev = 0
-        out = self._out
-        for b, j in enumerate(breaks.tolist()):
+        c = self.counters
+        for j in breaks.tolist():
             if j > prev:
                 k = j - prev
-                run = slice(taken, taken + k)
+                r = slice(taken, taken + k)
+                n_drives = int(drives_before[taken + k] - drives_before[taken])
                 self._bad_units = self._bad_bytes = 0
-                self._edges(Edges(e_channel[run], e_level[run], e_tick[run]), k)
+                c.records += k
+                c.edges += k - n_drives
+                cycle = no_cycle[:n_drives]
+                self._out.append(Block(row_kind[r], channel[r], level[r], tick[r], cycle, no_beats, no_beats))
                 taken += k
             if j == n_lines:
                 break
             prev = j + 1
-            f = drive_at[b]
-            if f >= 0:  # a well-formed drive line, decoded with the edge lines
-                self._bad_units = self._bad_bytes = 0
-                self.counters.records += 1
-                out.append(Drive(int(channel[f]), int(level[f]), int(tick[f])))
-                continue
             line_start = int(starts[j])
             rec, check = parse_line(body[line_start : int(ends[j])], ctx)
             if isinstance(rec, str):
@@ -444,8 +605,85 @@ class Decoder:
         last = buf.rfind(b"\0")
         if last < 0:
             return self._hold(buf, MAX_ENCODED, b"\0")
-        segments = buf[:last].split(b"\0")
-        tail = buf[last + 1 :]
+        body, tail = buf[: last + 1], buf[last + 1 :]
+        while body:
+            rest = self._frame_block(body)
+            if rest is None:
+                break
+            if self.form != "packed":
+                return rest + tail
+            body = rest  # an announcement changed what the rest means: look at it afresh
+        return self._hold(tail, MAX_ENCODED, b"\0")
+
+    def _frame_block(self, body: bytes) -> bytes | None:
+        """Whole frames (`body` ends with 0x00). Plain frames (edges, drives, version 1 beats, intact and
+        in sequence) are decoded all at once into `Block`s; any other frame goes through
+        `_slow_segments`. Returns None when all of `body` was used, else the part not yet decoded:
+        after an announcement (it changes the context) or when faults ended the packed form."""
+        if len(body) < BULK_BYTES:  # a live port's small read: numpy's fixed costs would dominate
+            segments = body[:-1].split(b"\0")
+            i = self._slow_segments(segments)
+            return None if i is None else b"\0".join(segments[i + 1 :]) + b"\0"
+        a = np.frombuffer(body, np.uint8)
+        z = np.flatnonzero(a == 0)
+        starts = np.empty_like(z)
+        starts[0] = 0
+        starts[1:] = z[:-1] + 1
+        used = z > starts  # a bare 0x00 is an idle delimiter
+        seg_s, seg_e = starts[used], z[used]
+        plan = _scan_frames(a, seg_s, seg_e, self._ctx)
+        simple, seq = plan.simple, plan.seq
+        slow_at = np.flatnonzero(~simple).tolist()
+        n = len(seg_s)
+        ctx = self._ctx
+        context = (ctx.version, ctx.counter_bits, ctx.channels)
+        i = 0
+        while i < n:
+            k = bisect.bisect_left(slow_at, i)
+            j = slow_at[k] if k < len(slow_at) else n
+            if j > i:
+                expected = self._expected_seq
+                if expected is not None and int(seq[i]) != expected:
+                    j = i  # a gap before the run: its first frame goes the slow way, which reports it
+                else:
+                    if self._after_outage:
+                        self._after_outage = False
+                        self.sequence_kept = None if expected is None else True
+                    self._emit_block(plan, i, j)
+                    self._expected_seq = (int(seq[j - 1]) + 1) & 0xFFFF
+                    self._bad_units = self._bad_bytes = 0
+            if j >= n:
+                break
+            seg = body[int(seg_s[j]) : int(seg_e[j])]
+            if self._slow_segments([seg]) is not None:
+                return body[int(seg_e[j]) + 1 :]
+            if (ctx.version, ctx.counter_bits, ctx.channels) != context:
+                return body[int(seg_e[j]) + 1 :] or None
+            i = j + 1
+        return None
+
+    def _emit_block(self, plan: _FramePlan, i: int, j: int) -> None:
+        r0, r1 = int(plan.row_start[i]), int(plan.row_start[j])
+        d0, d1 = int(plan.drive_start[i]), int(plan.drive_start[j])
+        b0, b1 = int(plan.beat_start[i]), int(plan.beat_start[j])
+        kind = plan.kind[r0:r1]
+        block = Block(
+            kind,
+            plan.channel[r0:r1],
+            plan.level[r0:r1],
+            plan.tick[r0:r1],
+            plan.cycle[d0:d1],
+            plan.captured[b0:b1],
+            plan.dropped[b0:b1],
+        )
+        c = self.counters
+        c.records += j - i
+        c.edges += (r1 - r0) - (d1 - d0) - (b1 - b0)
+        self._out.append(block)
+
+    def _slow_segments(self, segments: list[bytes]) -> int | None:
+        """Frames one at a time (all but the plain ones `_scan_frames` takes); the index of the segment
+        whose fault sent the decoder back to undecided, if one did."""
         heads: list[bytes] = []
         bodies: list[bytes] = []
         out = self._out
@@ -517,9 +755,9 @@ class Decoder:
                         continue
             if self._fault(reason, len(seg) + 1):
                 self._flush_edges(heads, bodies, mark_from)
-                return b"\0".join(segments[i + 1 :]) + b"\0" + tail
+                return i
         self._flush_edges(heads, bodies, mark_from)
-        return self._hold(tail, MAX_ENCODED, b"\0")
+        return None
 
     def _record(self, kind: int, payload: bytes, version: int) -> Record | str:
         n = len(payload)

@@ -76,6 +76,84 @@ class Beat:
     cycles: tuple[tuple[int, int], ...] = ()
 
 
+BLOCK_EDGE, BLOCK_DRIVE, BLOCK_BEAT = 0, 1, 2
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Block:
+    """Consecutive edge, drive and (version 1) beat records in stream order, as columns: what
+    `Decoder.feed(data, blocks=True)` gives instead of one object per drive and beat, for readers
+    that take millions of records at once (a capture file). `expand` gives the records themselves.
+
+    `kind` uint8 (BLOCK_EDGE, BLOCK_DRIVE, BLOCK_BEAT), `channel`, `level` uint8 (0 for a beat),
+    `tick` uint64; `cycle` int64 per drive row in order (-1: the sampler did not say); `captured`,
+    `dropped` int64 per beat row in order.
+    """
+
+    kind: np.ndarray
+    channel: np.ndarray
+    level: np.ndarray
+    tick: np.ndarray
+    cycle: np.ndarray
+    captured: np.ndarray
+    dropped: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.tick)
+
+    def expand(self) -> list[Edges | Drive | Beat]:
+        """The same records one by one: an `Edges` batch for each run of edges, a `Drive` or `Beat`
+        object for each other row."""
+        out: list[Edges | Drive | Beat] = []
+        others = np.flatnonzero(self.kind != BLOCK_EDGE)
+        if not len(others):
+            return [Edges(self.channel, self.level, self.tick)] if len(self.tick) else []
+        kinds = self.kind[others].tolist()
+        chans = self.channel[others].tolist()
+        levels = self.level[others].tolist()
+        ticks = self.tick[others].tolist()
+        cycles = iter(self.cycle.tolist())
+        beats = iter(zip(self.captured.tolist(), self.dropped.tolist(), strict=True))
+        prev = 0
+        for j, k, c, lv, t in zip(others.tolist(), kinds, chans, levels, ticks, strict=True):
+            if j > prev:
+                out.append(Edges(self.channel[prev:j], self.level[prev:j], self.tick[prev:j]))
+            if k == BLOCK_DRIVE:
+                cy = next(cycles)
+                out.append(Drive(c, lv, t, None if cy < 0 else cy))
+            else:
+                captured, dropped = next(beats)
+                out.append(Beat(t, captured, dropped))
+            prev = j + 1
+        if prev < len(self.tick):
+            out.append(Edges(self.channel[prev:], self.level[prev:], self.tick[prev:]))
+        return out
+
+    def split(self, at: int) -> tuple[Block, Block]:
+        """The rows before `at` and the rows from `at` on."""
+        n_drives = int(np.count_nonzero(self.kind[:at] == BLOCK_DRIVE))
+        n_beats = int(np.count_nonzero(self.kind[:at] == BLOCK_BEAT))
+        head = Block(
+            self.kind[:at],
+            self.channel[:at],
+            self.level[:at],
+            self.tick[:at],
+            self.cycle[:n_drives],
+            self.captured[:n_beats],
+            self.dropped[:n_beats],
+        )
+        tail = Block(
+            self.kind[at:],
+            self.channel[at:],
+            self.level[at:],
+            self.tick[at:],
+            self.cycle[n_drives:],
+            self.captured[n_beats:],
+            self.dropped[n_beats:],
+        )
+        return head, tail
+
+
 @dataclass(frozen=True, slots=True)
 class PlanAccepted:
     """Version 2: the sampler took `PLAN` as these values (the cycle count it will run, 0 = no end)."""
@@ -131,6 +209,7 @@ class SequenceGap:
 
 Record = (
     Announce
+    | Block
     | Edges
     | Drive
     | Beat

@@ -20,7 +20,10 @@ plain loop's rate (CPU), >= 3 M edges/s for the packed form, peak RSS at the lar
 25 % of the smallest. Captures are generated (and the store built) in processes of their own.
 
     python tests/benchmarks/bench_scale.py [--actuations 10000000] [--keep PATH] [--repeat 3]
-    python tests/benchmarks/bench_scale.py --skip-store --edges 1000000 10000000
+    python tests/benchmarks/bench_scale.py --skip-store --edges 1000000 10000000 [--captures DIR]
+
+`--captures DIR` keeps the generated captures there (generated when missing, by the same seed), so a
+second run measures without generating them again.
 """
 
 from __future__ import annotations
@@ -251,17 +254,24 @@ def line(label: str, value: str, target: str, ok: bool | None) -> None:
     print(f"  {label:<58} {value:>22}   target {target}{'' if ok is None or ok else '   MISSED'}")
 
 
-def bench_captures(sizes: list[int], repeat: int) -> None:
+def bench_captures(sizes: list[int], repeat: int, keep: str | None = None) -> None:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     peaks: dict[str, list[float]] = {"line": [], "packed": []}
-    with tempfile.TemporaryDirectory(prefix="bench-capture-") as d:
+    with tempfile.TemporaryDirectory(prefix="bench-capture-") as tmp:
+        d = Path(keep or tmp)
+        d.mkdir(parents=True, exist_ok=True)
         for n in sizes:
             paths = {}
             for form in ("line", "packed"):
-                paths[form] = Path(d) / f"cap-{n}.{form}"
+                paths[form] = d / f"cap-{n}.{form}"
+                if paths[form].exists():
+                    print(f"capture {form} ~{n:,} edges: {paths[form].stat().st_size / 1e6:,.0f} MB, kept")
+                    continue
                 t0 = time.perf_counter()
-                cmd = [sys.executable, __file__, "--capture-only", str(paths[form]), str(n), form]
+                part = paths[form].with_name(paths[form].name + ".part")
+                cmd = [sys.executable, __file__, "--capture-only", str(part), str(n), form]
                 subprocess.run(cmd, env=env, check=True)
+                part.rename(paths[form])
                 size = paths[form].stat().st_size
                 secs = time.perf_counter() - t0
                 print(f"capture {form} ~{n:,} edges: {size / 1e6:,.0f} MB, generated in {secs:,.0f} s")
@@ -326,6 +336,7 @@ def main() -> int:
     ap.add_argument("--capture-only", nargs=3, metavar=("PATH", "EDGES", "FORM"), help=argparse.SUPPRESS)
     ap.add_argument("--plain-only", metavar="PATH", help=argparse.SUPPRESS)
     ap.add_argument("--edges", type=int, nargs="*", default=[1_000_000, 10_000_000])
+    ap.add_argument("--captures", metavar="DIR", help="captures kept between runs (generated when missing)")
     ap.add_argument("--skip-store", action="store_true", help="only the capture benchmark")
     ap.add_argument("--skip-captures", action="store_true", help="only the store benchmark")
     args = ap.parse_args()
@@ -341,7 +352,7 @@ def main() -> int:
         print(f"  built in {secs:,.0f} s ({args.actuations / secs:,.0f} actuations/s through the writer)")
         return 0
     if not args.skip_captures:
-        bench_captures(args.edges, args.repeat)
+        bench_captures(args.edges, args.repeat, args.captures)
     if args.skip_store:
         return 0
     tmp = None

@@ -19,9 +19,10 @@ chatter threshold are used and each channel gets a verdict; --settings and the o
 Exit status: 0 measured (whatever the verdicts), 1 a channel failed its spec (with --strict).
 """
 
+# A file has no latency to keep: it is read, decoded, timed and measured in large batches (reads of this
+# size, the analyzer's batches at least ANALYZE_BATCH edges), so the fixed cost per batch vanishes and
+# nothing per edge or per actuation is kept for the whole file.
 READ_CHUNK = 1 << 20
-# A file has no latency to keep: the timeline still takes it beat by beat (beats pace its host clock),
-# but the analyzer gets one batch per this many edges, so its fixed cost per batch vanishes.
 ANALYZE_BATCH = 1 << 18
 
 
@@ -77,7 +78,7 @@ def _settings(args: argparse.Namespace, spec: Any):
     return s.with_(**changes) if changes else s
 
 
-def _read_chunks(path: str):
+def _read_chunks(path: str, size: int = READ_CHUNK):
     from benchlog.errors import ConfigError
 
     try:
@@ -87,7 +88,7 @@ def _read_chunks(path: str):
     with fh:
         while True:
             try:
-                chunk = fh.read(READ_CHUNK)
+                chunk = fh.read(size)
             except OSError as exc:
                 raise ConfigError(f"{path}: read failed ({exc.strerror or exc})") from exc
             if not chunk:
@@ -95,30 +96,49 @@ def _read_chunks(path: str):
             yield chunk
 
 
-def analyze_file(path: str, settings, spec=None, tick_hz=None, counter_bits=None) -> dict[str, Any]:
-    """Decode, time and measure a recording; returns the summary document `--json` prints."""
-    import numpy as np
+def analyze_file(
+    path: str,
+    settings,
+    spec=None,
+    tick_hz=None,
+    counter_bits=None,
+    *,
+    read_bytes: int = READ_CHUNK,
+    batch_edges: int = ANALYZE_BATCH,
+    rows=None,
+) -> dict[str, Any]:
+    """Decode, time and measure a recording; returns the summary document `--json` prints.
 
-    from benchlog.analysis import Analyzer, summarize
+    The file is streamed: each read is decoded into blocks of records, placed in run time paced by the
+    sampler's beats (`Timeline.replay`), measured once `batch_edges` edges have gathered, and the
+    actuations go into per-channel summaries (`Summaries`) and are dropped. `rows`, when given, is
+    called with each batch of actuations (tests compare them across read and batch sizes)."""
+    from benchlog.analysis import Analyzer, Summaries
     from benchlog.clock import Timeline
     from benchlog.errors import DataError
     from benchlog.events import TimedDrives, TimedEdges
-    from benchlog.wire import Beat, Decoder
+    from benchlog.wire import Decoder
 
     decoder = Decoder()
     timeline = Timeline(tick_hz, counter_bits)
     analyzer: Analyzer | None = None
-    rows: list[np.ndarray] = []
+    summaries = Summaries(spec)
     incidents = []
-    host = 0
-    announced = False
     pending: list = []  # Timed results not yet given to the analyzer
     pending_edges = 0
+
+    def measured(table) -> None:
+        if len(table):
+            summaries.add(table)
+            if rows is not None:
+                rows(table)
 
     def drain() -> None:
         nonlocal pending_edges
         if analyzer is None or not pending:
             return
+        import numpy as np
+
         edges = TimedEdges.concat([p.edges for p in pending])
         drives = TimedDrives(
             *(np.concatenate([getattr(p.drives, f) for p in pending]) for f in ("t_ns", "channel", "level"))
@@ -126,21 +146,10 @@ def analyze_file(path: str, settings, spec=None, tick_hz=None, counter_bits=None
         incs = [i for p in pending for i in p.incidents]
         pending.clear()
         pending_edges = 0
-        rows.append(analyzer.push(edges, drives, incs))
+        measured(analyzer.push(edges, drives, incs))
 
-    def take(records) -> None:
-        nonlocal analyzer, host, announced, pending_edges
-        if not records:
-            return
-        # Pace the replay's host clock by the sampler's beats (at most a quarter wrap and 1 s apart):
-        # each group of records up to a beat advances it by no more than that.
-        step = 250_000_000
-        if timeline.clock_hz and timeline.counter_bits:
-            quarter = (1 << (timeline.counter_bits - 2)) * 1_000_000_000 // timeline.clock_hz
-            step = max(1, min(step, quarter - 1))
-        host += step
-        timed = timeline.push(records, host)
-        announced = announced or bool(timed.announcements)
+    def take(timed) -> None:
+        nonlocal analyzer, pending_edges
         if analyzer is None and timeline.clock_hz:
             res = max(1, 1_000_000_000 // int(timeline.clock_hz))
             analyzer = Analyzer(settings.with_(resolution_ns=max(settings.resolution_ns, res)), spec)
@@ -148,24 +157,18 @@ def analyze_file(path: str, settings, spec=None, tick_hz=None, counter_bits=None
         if analyzer is not None:
             pending.append(timed)
             pending_edges += len(timed.edges)
-            if pending_edges >= ANALYZE_BATCH:
+            if pending_edges >= batch_edges:
                 drain()
 
-    for chunk in _read_chunks(path):
-        group: list = []
-        for rec in decoder.feed(chunk):
-            group.append(rec)
-            if isinstance(rec, Beat):
-                take(group)
-                group = []
-        take(group)
+    for chunk in _read_chunks(path, read_bytes):
+        take(timeline.replay(decoder.feed(chunk, blocks=True)))
+    take(timeline.replay_end())
     if analyzer is None:
         if decoder.counters.records == 0:
             raise DataError(f"{path}: no sampler records found ({decoder.counters.faults} decode faults)")
         raise DataError(f"{path}: no announcement in the stream: give --tick-hz and --counter-bits")
     drain()
-    rows.append(analyzer.flush(until_ns=timeline.run_ns + 1))  # beats tell how long the data ran
-    table = np.concatenate(rows)
+    measured(analyzer.flush(until_ns=timeline.run_ns + 1))  # beats tell how long the data ran
     c = decoder.counters
     return {
         "file": path,
@@ -181,8 +184,7 @@ def analyze_file(path: str, settings, spec=None, tick_hz=None, counter_bits=None
             "chatter_threshold_us": settings.chatter_threshold_ns / 1e3,
             "glitch_floor_us": analyzer.settings.floor / 1e3,
         },
-        "channels": summarize(table, spec),
-        "_rows": table,
+        "channels": summaries.result(),
     }
 
 
@@ -235,7 +237,6 @@ def run(args: argparse.Namespace) -> int:
     spec = load_spec(args.spec) if args.spec else None
     settings = _settings(args, spec)
     doc = analyze_file(args.file, settings, spec, args.tick_hz, args.counter_bits)
-    doc.pop("_rows")
     if args.json:
         json.dump(doc, sys.stdout, indent=1, default=str)
         print()
