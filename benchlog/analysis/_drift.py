@@ -12,8 +12,9 @@ Methods, section 6.3.2.4 (EWMA control charts):
   individuals chart).
 
 The statistic charted is a robust one per window of cycles (by default the p95 of make bounce per
-1,000 cycles), so one wild actuation moves nothing. The projection fits Theil-Sen (scipy.stats.theilslopes)
-to the windows after the baseline and reports the cycle at which the line reaches the spec limit, with the
+1,000 cycles), so one wild actuation moves nothing. The projection fits Theil-Sen (as
+scipy.stats.theilslopes computes it, in benchlog._robust) to the windows after the baseline and reports
+the cycle at which the line reaches the spec limit, with the
 range given by the slope's confidence interval.
 
 A chart signal alone is not a flag for a person: a baseline of a few windows misjudges sigma, and over a
@@ -39,6 +40,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from benchlog._robust import first_order_filter, normal_cdf, theil_sen
 from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, NO_CHANGE
 from benchlog.errors import DataError
 
@@ -77,14 +79,12 @@ def rising_trend_p(values: np.ndarray) -> float:
     """One-sided p-value of Kendall's tau for a rising trend of `values` in their order: the normal
     approximation with the variance corrected for ties (Kendall, *Rank Correlation Methods*, 1948),
     as scipy.stats.kendalltau(method="asymptotic") computes it, without its per-call overhead."""
-    from scipy.special import ndtr
-
     y = np.asarray(values, np.float64)
     n = len(y)
     s = float(np.triu(np.sign(y[None, :] - y[:, None]), 1).sum())
     _, t = np.unique(y, return_counts=True)
     var = (n * (n - 1) * (2 * n + 5) - float((t * (t - 1) * (2 * t + 5)).sum())) / 18.0
-    return float(ndtr(-s / math.sqrt(var))) if var > 0 else math.nan
+    return normal_cdf(-s / math.sqrt(var)) if var > 0 else math.nan
 
 
 def over_since(windows: np.ndarray, limit: float, last: int = OVER_WINDOWS) -> int | None:
@@ -185,9 +185,7 @@ def ewma(x: np.ndarray, mean: float, sigma: float, lam: float = 0.2, width: floa
         raise DataError(f"EWMA lambda must be in (0, 1], got {lam}")
     n = len(x)
     # z_i = (1 - lam)^i z_0 + sum_j lam (1 - lam)^(i - j) x_j, computed as a linear filter.
-    from scipy.signal import lfilter
-
-    z = lfilter([lam], [1.0, -(1.0 - lam)], x, zi=[(1.0 - lam) * mean])[0]
+    z = first_order_filter(x, lam, mean)
     i = np.arange(1, n + 1)
     half = width * sigma * np.sqrt(lam / (2.0 - lam) * (1.0 - (1.0 - lam) ** (2 * i)))
     return z, mean - half, mean + half
@@ -226,15 +224,13 @@ def project(
     cycles: np.ndarray, values: np.ndarray, limit: float, confidence: float = 0.9
 ) -> Projection | None:
     """Theil-Sen fit of `values` against `cycles`; the cycle where it reaches `limit`."""
-    from scipy.stats import theilslopes
-
     c = np.asarray(cycles, np.float64)
     v = np.asarray(values, np.float64)
     ok = ~np.isnan(v)
     c, v = c[ok], v[ok]
     if len(c) < 3:
         return None
-    res = theilslopes(v, c, alpha=confidence)
+    res = theil_sen(v, c, alpha=confidence)
     slope, intercept, lo, hi = float(res[0]), float(res[1]), float(res[2]), float(res[3])
 
     def cross(s: float) -> float | None:

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from benchlog._robust import theil_sen
+
 MIN_BEATS = 8
 MIN_SPAN_NS = 10 * 1_000_000_000
 MAX_KEPT = 1024
@@ -13,7 +15,7 @@ class DriftEstimator:
     """(host_ns, sampler ns) pairs of one counter epoch; a Theil-Sen slope gives the clock error.
 
     Host receive times carry USB and scheduling latency, sometimes large; the Theil-Sen estimator (median
-    of pairwise slopes, scipy.stats.theilslopes) ignores up to about 29 % of wild points. Memory stays
+    of pairwise slopes; benchlog._robust.theil_sen) ignores up to about 29 % of wild points. Memory stays
     bounded: past `MAX_KEPT` pairs every other one is dropped, so the pairs keep spanning the epoch.
     """
 
@@ -52,8 +54,6 @@ class DriftEstimator:
         sampler = np.asarray(self._sampler, np.int64)
         x = (host - host[0]).astype(np.float64)
         y = (sampler - sampler[0]).astype(np.float64)
-        from scipy import stats  # imported on first use: `analyze` and `record` start without it
-
-        slope = stats.theilslopes(y, x).slope
+        slope = theil_sen(y, x).slope
         self._cached = float((slope - 1.0) * 1e6)
         return self._cached

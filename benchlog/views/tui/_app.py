@@ -14,9 +14,8 @@ from ._source import StoreSource
 
 
 def _warm_up() -> None:
-    """Import the drift charts' scipy modules while the first screen is read, not on the first run."""
-    import scipy.signal  # noqa: F401
-    import scipy.stats  # noqa: F401
+    """Import the drift charts' modules while the first screen is read, not on the first run."""
+    import benchlog.analysis  # noqa: F401
 
 
 class BenchDashboard(App):
