@@ -28,6 +28,7 @@ correctly rounded string conversion for the rest (longer mantissas, far exponent
 from __future__ import annotations
 
 import itertools
+import mmap
 import re
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
@@ -245,6 +246,18 @@ def _blocks(path: Path, offset: int, buffers: int):
             yield buf, _PAD, cut
 
 
+def _empty(n: int) -> np.ndarray:
+    """A float64 array of `n` for the columns read, its pages mapped as they are first written.
+
+    Not from numpy's allocator: numpy advises the kernel to back large arrays with huge pages, and where
+    the kernel then compacts memory on the first write of each (its "defrag on madvise" setting), the
+    writes that place the parsed blocks took 3x as long (30 ns a row of three columns instead of 10), on
+    the thread that places them in order."""
+    if n * 8 < (1 << 22):
+        return np.empty(n, np.float64)
+    return np.frombuffer(mmap.mmap(-1, n * 8), np.float64, n)
+
+
 def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) -> list[np.ndarray]:
     """The columns `keep` (indices) of the data, as float64 arrays.
 
@@ -284,11 +297,11 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
         read += size
         if not out:  # size the arrays from the first block's bytes per row
             est = int(remaining / max(size, 1) * n * 1.02) + 1024 if n else bound
-            out = [np.empty(min(bound, est), np.float64) for _ in keep]
+            out = [_empty(min(bound, est)) for _ in keep]
         if row + n > len(out[0]):
             if row + n > bound:
                 raise DataError(f"{path}: the file changed while it was read")
-            grown = [np.empty(bound, np.float64) for _ in keep]
+            grown = [_empty(bound) for _ in keep]
             for new, old in zip(grown, out, strict=True):
                 new[:row] = old[:row]
             out = grown
