@@ -65,6 +65,7 @@ def test_every_readme_command_runs_after_the_demo(tmp_path):
         "debounce",
         "export",
         "record",
+        "scope",
     } <= set(names)
     for argv in commands:
         if argv[1] == "record":
@@ -82,3 +83,4 @@ def test_every_readme_command_runs_after_the_demo(tmp_path):
     assert (tmp_path / "verdict.json").stat().st_size > 0
     assert (tmp_path / "qualification.html").stat().st_size > 0
     assert (tmp_path / "relays.csv").read_text().count("\n") > 1000
+    assert (tmp_path / "benchlog-captures" / "truth.json").exists()  # the demo's analog captures

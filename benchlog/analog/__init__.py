@@ -28,7 +28,7 @@ from benchlog.analog._edges import (
     open_circuit_level,
 )
 from benchlog.analog._measure import Measured, analyse_edges, measure_capture, run_ns
-from benchlog.analog._plots import ChartData, chart_data, plot_capture, text_chart
+from benchlog.analog._plots import ChartData, capture_figure, chart_data, plot_capture, text_chart
 from benchlog.analog._rc import (
     Corner,
     Score,
@@ -45,6 +45,7 @@ from benchlog.analog._sampler import Comparison, DigitalInput, compare, sampled_
 
 __all__ = [
     "ChartData",
+    "capture_figure",
     "ScopeOptions",
     "ScopeResult",
     "chart_data",

@@ -4,19 +4,21 @@ How it works. The head of the file is sniffed with ordinary string code: the fir
 numbers (and the few after it agree) starts the data; the lines above are the header, of any number
 and length, where column names and "interval" / "sample rate" / "start" entries are looked for. The
 data is then read in blocks of whole lines (about CHUNK_BYTES each, read into reused buffers), parsed
-by two threads and placed in file order. When every line of a block has one length and its fields sit
-at the same places (the way instruments print), the block is a byte matrix (_FixedWidth): one range
-check over all its bytes, then each run of up to 8 digit columns becomes integers through one 64-bit
-word per line (the SWAR method), with no token search and no translation. When lines differ in length
-but each column keeps one printed form (numbers in their shortest form: no blank for a missing sign,
-any count of whole digits), the block is read column by column from the field ends (_Delimited): one
-search for the delimiters, then one 64-bit word per field, read the same way. Otherwise the block goes
-through one `bytes.translate` (the delimiter becomes a space, a decimal comma a point), numpy finds
-every token (a run of bytes above the space character) and parses all tokens of one layout at once:
-tokens are grouped by length, sign, and the position of the point and of the exponent, each group a
-fixed-width byte matrix read by Horner's rule. Either way a few numpy passes per block, never a Python
-step per line or per number. Every line must have the same number of fields; the first line that does
-not, or a field that is not a number, is named in a one-line DataError.
+by two threads and placed in file order.
+
+One reader (_Reader) takes a block column by column. Where the fields are: when every line of the
+block has one length and its fields sit at the same places (the way instruments print, a blank where a
+sign is not), each field is a strided view of the block, with no search (_Strided); otherwise one
+search finds every delimiter and line break, and each field's bytes are gathered from where it ends
+(_Gathered). How a column is read: when all its fields are printed in its first line's form (digits
+after the decimal mark, the exponent's form), by that form (`_templated`); otherwise field by field,
+each in its own form, as numbers printed in their shortest form (%g) come (`_general`). Either way
+the digits are read as 64-bit words, eight digits per word by three multiply-and-shift steps (the SWAR
+method), and a few numpy passes per column, never a Python step per line or per number. A block this
+does not fit (a blank line, quotes, nan, a field that is not a number) goes through one
+`bytes.translate` and a per-token parse, grouped by the tokens' layouts (`_parse_chunk`). Every line
+must have the same number of fields; the first line that does not, or a field that is not a number,
+is named in a one-line DataError.
 
 Every value is the correctly rounded double of its text, as Python's float() gives: one division or
 product of exact doubles (a mantissa below 2**53, a power of ten within 10**22), and numpy's own
@@ -26,6 +28,7 @@ correctly rounded string conversion for the rest (longer mantissas, far exponent
 from __future__ import annotations
 
 import itertools
+import mmap
 import re
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
@@ -38,7 +41,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 from benchlog.errors import DataError
 
 CHUNK_BYTES = 1 << 20
-_PAD = 16  # bytes kept before a block, so an 8-byte word can end at any column of its first line
+_PAD = 40  # bytes kept before a block, so the words a field is read from can start before it
 _HEAD_BYTES = 1 << 16
 _NUM = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
 _POW10 = 10.0 ** np.arange(0, 309)
@@ -243,6 +246,18 @@ def _blocks(path: Path, offset: int, buffers: int):
             yield buf, _PAD, cut
 
 
+def _empty(n: int) -> np.ndarray:
+    """A float64 array of `n` for the columns read, its pages mapped as they are first written.
+
+    Not from numpy's allocator: numpy advises the kernel to back large arrays with huge pages, and where
+    the kernel then compacts memory on the first write of each (its "defrag on madvise" setting), the
+    writes that place the parsed blocks took 3x as long (30 ns a row of three columns instead of 10), on
+    the thread that places them in order."""
+    if n * 8 < (1 << 22):
+        return np.empty(n, np.float64)
+    return np.frombuffer(mmap.mmap(-1, n * 8), np.float64, n)
+
+
 def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) -> list[np.ndarray]:
     """The columns `keep` (indices) of the data, as float64 arrays.
 
@@ -257,17 +272,13 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
     bound = (remaining + 1) // (2 * ncols) + 1  # a line holds at least ncols bytes and ncols separators
     out: list[np.ndarray] = []
     table = _table(layout)
-    reader = _FixedWidth(layout, keep)
-    delimited = _Delimited(layout, keep)
+    reader = _Reader(layout, keep)
     row = 0
     line_no = layout.first_line
     read = 0
 
     def parse(buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int]:
-        cols = reader.parse(buf, start, stop)
-        if cols is not None:
-            return cols, (stop - start) // reader.width(buf, start, stop)
-        got = delimited.parse(buf, start, stop)
+        got = reader.parse(buf, start, stop)
         if got is not None:
             return got
         data = bytes(buf[start:stop]).translate(table)
@@ -286,11 +297,11 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
         read += size
         if not out:  # size the arrays from the first block's bytes per row
             est = int(remaining / max(size, 1) * n * 1.02) + 1024 if n else bound
-            out = [np.empty(min(bound, est), np.float64) for _ in keep]
+            out = [_empty(min(bound, est)) for _ in keep]
         if row + n > len(out[0]):
             if row + n > bound:
                 raise DataError(f"{path}: the file changed while it was read")
-            grown = [np.empty(bound, np.float64) for _ in keep]
+            grown = [_empty(bound) for _ in keep]
             for new, old in zip(grown, out, strict=True):
                 new[:row] = old[:row]
             out = grown
@@ -321,272 +332,17 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
     return [a[:row] for a in out]
 
 
-# Fixed-width blocks. A sign column may hold a blank, '+' or '-'; an exponent's sign '+' or '-'.
-_SIGN = np.zeros(256, np.int8)
-_SIGN[[32, 43]], _SIGN[45] = 1, -1
-_ESIGN = np.zeros(256, np.int8)
-_ESIGN[43], _ESIGN[45] = 1, -1
+# Field readers. A field's digits are read from little-endian 64-bit words that end where the field (or a
+# part of it) ends: a word's last byte is its most significant, and the text's first digit sits in its
+# lowest byte.
 # mant * _MUL10[p + 22] / _DIV10[p + 22] is mant * 10**p with one rounding for |p| <= 22 (10**22 is the
 # largest power of ten a double holds exactly; the other factor is 1.0)
 _MUL10 = np.array([10.0 ** max(k - 22, 0) for k in range(45)])
 _DIV10 = np.array([10.0 ** max(22 - k, 0) for k in range(45)])
 _M64 = (1 << 64) - 1
-
-
-@dataclass(frozen=True, slots=True)
-class _Field:
-    band: tuple[int, int]  # columns of the field, its sign column included
-    sign: int  # column of the sign (blank, + or -), or -1
-    runs: tuple[tuple[int, int], ...]  # mantissa digits: (end column, count), at most 8 per run
-    digits: int
-    frac: int  # mantissa digits after the decimal mark
-    exp_sign: int  # column of the exponent's sign, or -1
-    exp: tuple[int, int] | None  # exponent digits: (end column, count)
-
-
-def _runs(end: int, count: int) -> list[tuple[int, int]]:
-    """A run of `count` digits ending before column `end`, as runs of at most 8, left to right."""
-    out = []
-    while count > 0:
-        take = count % 8 or 8
-        out.append((end - count + take, take))
-        count -= take
-    return out
-
-
-class _FixedWidth:
-    """Blocks whose lines all have one length and one layout, read as a byte matrix.
-
-    Instruments print each column with a fixed format, so every line has the same bytes at the same
-    places. The first line of a block gives the template: each column is a digit, a sign (blank, + or
-    -; a blank just before a number counts, as printers put the minus there), or one fixed byte (the
-    decimal mark, the exponent letter, a delimiter, a blank, the line break). One pass over the block
-    checks every byte against the range its column allows; then each run of up to 8 digit columns is
-    read as one little-endian 64-bit word per line and turned into its integer by three multiply-and-
-    shift steps (the digits combined pairwise, then in fours, then in eights). A value is mant / 10**k
-    (or mant * 10**k): one correctly rounded division of two exact doubles while mant < 2**53 and
-    k <= 22; other values (longer mantissas, far exponents) go to numpy's own string conversion, which
-    is correctly rounded too. Anything else (lines of other lengths, a blank line, nan, a field that
-    moves) leaves the block to the general parse."""
-
-    def __init__(self, layout: Layout, keep: list[int]) -> None:
-        self.ncols = layout.columns
-        self.keep = keep
-        self.mark = 44 if layout.decimal_comma else 46
-        self.seps = {32, 9, 13, 34} | ({ord(layout.delimiter)} if layout.delimiter != " " else set())
-        self._plans: dict[bytes, tuple | None] = {}
-        self._tiles: dict[bytes, tuple[np.ndarray, np.ndarray]] = {}
-
-    @staticmethod
-    def width(buf: bytearray, start: int, stop: int) -> int:
-        return buf.find(b"\n", start, stop) + 1 - start
-
-    def plan(self, row: bytes) -> tuple | None:
-        if row in self._plans:
-            return self._plans[row]
-        found = self._plan(row)
-        if len(self._plans) > 64:
-            self._plans.clear()
-        self._plans[row] = found
-        return found
-
-    def _plan(self, row: bytes) -> tuple | None:
-        """(fields, low byte per column, allowed span per column) from one line, or None."""
-        w = len(row)
-        lo = np.frombuffer(row, np.uint8).copy()
-        span = np.zeros(w, np.uint8)
-        is_sep = [b in self.seps for b in row[:-1]] + [True]
-        fields: list[_Field] = []
-        j = 0
-        while j < w - 1:
-            if is_sep[j]:
-                j += 1
-                continue
-            s = j
-            while not is_sep[j]:
-                j += 1
-            f = self._field(row, s, j, is_sep, lo, span)
-            if f is None:
-                return None
-            fields.append(f)
-        if len(fields) != self.ncols:
-            return None
-        return tuple(fields), lo, span
-
-    def _field(self, row: bytes, s: int, e: int, is_sep: list[bool], lo, span) -> _Field | None:
-        sign = -1
-        if row[s] in (43, 45):
-            sign, s = s, s + 1
-        elif s >= 1 and row[s - 1] == 32 and (s == 1 or is_sep[s - 2]):
-            sign = s - 1
-        i = s
-        while i < e and 48 <= row[i] <= 57:
-            i += 1
-        whole = i - s
-        frac = 0
-        mark = -1
-        if i < e and row[i] == self.mark:
-            mark = i
-            i += 1
-            while i < e and 48 <= row[i] <= 57:
-                i += 1
-            frac = i - mark - 1
-        mant_end = i
-        exp_sign, exp = -1, None
-        if i < e and row[i] in (69, 101):
-            i += 1
-            if i < e and row[i] in (43, 45):
-                exp_sign, i = i, i + 1
-            if not 1 <= e - i <= 3 or not all(48 <= b <= 57 for b in row[i:e]):
-                return None
-            exp = (e, e - i)
-            i = e
-        digits = whole + frac
-        if i != e or digits == 0 or digits > 19 or (exp is None and frac > 22):
-            return None
-        for a, b in ((s, s + whole), (mant_end - frac, mant_end) if frac else (0, 0)):
-            lo[a:b], span[a:b] = 48, 9
-        if exp is not None:
-            lo[exp[0] - exp[1] : exp[0]], span[exp[0] - exp[1] : exp[0]] = 48, 9
-        if sign >= 0:
-            lo[sign], span[sign] = 32, 13  # blank .. '-', the rest checked by _SIGN
-        if exp_sign >= 0:
-            lo[exp_sign], span[exp_sign] = 43, 2  # '+' .. '-', the ',' between checked by _ESIGN
-        runs = _runs(s + whole, whole) + _runs(mant_end, frac) if frac else _runs(s + whole, whole)
-        band = (sign if sign >= 0 else s, e)
-        return _Field(band, sign, tuple(runs), digits, frac, exp_sign, exp)
-
-    def _tiled(self, lo: np.ndarray, span: np.ndarray, rows: int) -> tuple[np.ndarray, np.ndarray]:
-        key = lo.tobytes() + span.tobytes()
-        got = self._tiles.get(key)
-        if got is None or len(got[0]) < rows * len(lo):
-            if len(self._tiles) > 8:
-                self._tiles.clear()
-            got = self._tiles[key] = (np.tile(lo, rows), np.tile(span, rows))
-        return got
-
-    def parse(self, buf: bytearray, start: int, stop: int) -> list[np.ndarray] | None:
-        """The columns `keep` of a block (buf[start:stop], whole lines), or None if it is not fixed."""
-        w = self.width(buf, start, stop)
-        size = stop - start
-        if w < 2 or size % w:
-            return None
-        plan = self.plan(bytes(buf[start : start + w]))
-        if plan is None:
-            return None
-        fields, lo, span = plan
-        rows = size // w
-        flat = np.frombuffer(buf, np.uint8, size, start)
-        lo_t, span_t = self._tiled(lo, span, rows)
-        # every byte in its column's range; no column but the last allows a line break
-        diff = np.subtract(flat, lo_t[:size])
-        if np.greater(diff, span_t[:size], out=diff.view(bool)).any():
-            return None
-        del diff
-        out = []
-        for k in self.keep:
-            vals = self._values(buf, start, w, rows, fields[k])
-            if vals is None:
-                return None
-            out.append(vals)
-        return out
-
-    def _values(self, buf: bytearray, start: int, w: int, rows: int, f: _Field) -> np.ndarray | None:
-        mant: np.ndarray | None = None
-        for end, count in f.runs:
-            part = _digits(buf, start, w, rows, end, count)
-            mant = part if mant is None else mant * np.uint64(10**count) + part
-        assert mant is not None
-        vals = mant.astype(np.float64)
-        slow = mant > np.uint64(1 << 53) if f.digits > 15 else None
-        if f.exp is None:
-            if f.frac:
-                vals /= 10.0**f.frac
-        else:
-            power = _digits(buf, start, w, rows, *f.exp).astype(np.int16)
-            if f.exp_sign >= 0:
-                es = np.take(_ESIGN, _column(buf, start, w, rows, f.exp_sign))
-                if not es.all():
-                    return None
-                power *= es
-            power += 22 - f.frac  # an index into _MUL10 and _DIV10
-            lo, hi = int(power.min()), int(power.max())
-            if lo < 0 or hi > 44:
-                far = (power < 0) | (power > 44)
-                slow = far if slow is None else slow | far
-                np.clip(power, 0, 44, out=power)
-                lo, hi = max(lo, 0), min(hi, 44)
-            if hi > 22:
-                vals *= np.take(_MUL10, power)  # np.take: a gather faster than indexing
-            if lo < 22:
-                vals /= np.take(_DIV10, power)
-        if f.sign >= 0:
-            sign = np.take(_SIGN, _column(buf, start, w, rows, f.sign))
-            if not sign.all():
-                return None
-            vals *= sign
-        if slow is not None and slow.any():
-            at = np.flatnonzero(slow)
-            m = np.frombuffer(buf, np.uint8, rows * w, start).reshape(rows, w)
-            vals[at] = _exact(m[at, f.band[0] : f.band[1]], self.mark == 44)
-        return vals
-
-
-def _column(buf: bytearray, start: int, w: int, rows: int, col: int) -> np.ndarray:
-    return np.ndarray((rows,), np.uint8, buf, start + col, (w,))
-
-
-def _digits(buf: bytearray, start: int, w: int, rows: int, end: int, count: int) -> np.ndarray:
-    """The integer spelled by the `count` (1..8) digit columns before column `end`, per line.
-
-    Bytes are read as one little-endian word per line ending at `end` (the _PAD bytes before a block
-    make room for the first line's), the bytes before the run cleared, and the digits combined in
-    pairs, fours and eights by a multiply and a shift each (the SWAR method)."""
-    if count == 1:
-        return np.subtract(_column(buf, start, w, rows, end - 1), np.uint8(48))
-    if count == 2:
-        a = _column(buf, start, w, rows, end - 2) - np.uint8(48)
-        a *= np.uint8(10)
-        a += _column(buf, start, w, rows, end - 1)
-        a -= np.uint8(48)
-        return a
-    if count <= 4:
-        word = np.ndarray((rows,), "<u4", buf, start + end - 4, (w,))
-        keep = (0xFFFFFFFF << (8 * (4 - count))) & 0xFFFFFFFF
-        x = np.bitwise_and(word, np.uint32(keep)).astype(np.uint32, copy=False)
-        x -= np.uint32(0x30303030 & keep)
-        t = x >> np.uint32(8)
-        x *= np.uint32(10)
-        x += t
-        x &= np.uint32(0x00FF00FF)
-        np.right_shift(x, np.uint32(16), out=t)
-        x *= np.uint32(100)
-        x += t
-        x &= np.uint32(0xFFFF)
-        return x
-    word = np.ndarray((rows,), "<u8", buf, start + end - 8, (w,))
-    keep = (_M64 << (8 * (8 - count))) & _M64
-    x = np.bitwise_and(word, np.uint64(keep)).astype(np.uint64, copy=False)
-    x -= np.uint64(0x3030303030303030 & keep)
-    t = x >> np.uint64(8)
-    x *= np.uint64(10)
-    x += t
-    x &= np.uint64(0x00FF00FF00FF00FF)
-    np.right_shift(x, np.uint64(16), out=t)
-    x *= np.uint64(100)
-    x += t
-    x &= np.uint64(0x0000FFFF0000FFFF)
-    np.right_shift(x, np.uint64(32), out=t)
-    x *= np.uint64(10000)
-    x += t
-    x &= np.uint64(0xFFFFFFFF)
-    return x
-
-
-# Delimited blocks. The digits of a field are read from little-endian 64-bit words that end where the
-# field (or a part of it) ends; a word's last byte is its most significant.
 _Z3 = np.uint64(0x3030303030303030)  # '0' in every byte: XOR turns digit bytes into 0..9
 _H80 = np.uint64(0x8080808080808080)
+_L7F = np.uint64(0x7F7F7F7F7F7F7F7F)
 _S76 = np.uint64(0x7676767676767676)  # a byte 0..9 plus 0x76 stays below 0x80; 10 and above do not
 # exponents read by table: the letter and its sign as the low 8 or 16 bits give the sign (0: not an
 # exponent); one digit's byte or two digits' bytes (the first the low byte) give their value (< 0: not)
@@ -600,6 +356,18 @@ _EDIGIT[48:58] = np.arange(10)
 _EDIGITS = np.full(1 << 16, -100_000, np.int32)
 _EDIGITS[(48 + np.arange(100) // 10) | (48 + np.arange(100) % 10) << 8] = np.arange(100)
 _KEEP = np.array([(_M64 << (8 * (8 - k))) & _M64 for k in range(9)], np.uint64)  # the last k bytes
+_LOW = np.array([(1 << (8 * k)) - 1 for k in range(9)], np.uint64)  # the first k bytes
+
+
+def _runs(end: int, count: int) -> list[tuple[int, int]]:
+    """A run of `count` digits ending at `end` (counted from the field's end, so not above 0), as runs
+    of at most 8, left to right."""
+    out = []
+    while count > 0:
+        take = count % 8 or 8
+        out.append((end - count + take, take))
+        count -= take
+    return out
 
 
 def _word_digits(y: np.ndarray) -> np.ndarray | None:
@@ -609,7 +377,7 @@ def _word_digits(y: np.ndarray) -> np.ndarray | None:
     A multiply adds each byte's neighbour shifted up by one byte (pairs), then each pair's (fours), then
     each four's (eights); a shift and a mask keep the sums. No sum carries out of its lane."""
     t = y + _S76
-    if (np.bitwise_or.reduce(t) | np.bitwise_or.reduce(y)) & _H80:
+    if (np.bitwise_or.reduce(t, axis=None) | np.bitwise_or.reduce(y, axis=None)) & _H80:
         return None
     del t
     y *= np.uint64(1 + (10 << 8))
@@ -621,6 +389,23 @@ def _word_digits(y: np.ndarray) -> np.ndarray | None:
     y *= np.uint64(1 + (10000 << 32))
     y >>= np.uint64(32)
     return y
+
+
+def _zero_bytes(z: np.ndarray) -> np.ndarray:
+    """0x80 in each byte of `z` that is zero, 0 in every other (exact: no borrow crosses a byte)."""
+    t = z & _L7F
+    t += _L7F
+    t |= z
+    t |= _L7F
+    return np.invert(t, out=t)
+
+
+def _bytes_above(p: np.ndarray) -> np.ndarray:
+    """For words holding one set bit at the foot of byte j (or none): 7 - j (0 when none)."""
+    q = p << np.uint64(8)
+    q -= np.uint64(1)
+    np.invert(q, out=q)
+    return np.bitwise_count(q) >> np.uint8(3)
 
 
 def _template(tok: bytes, mark: int) -> tuple[bool, int, int, bool, int] | None:
@@ -646,34 +431,461 @@ def _template(tok: bytes, mark: int) -> tuple[bool, int, int, bool, int] | None:
         if not 1 <= exp_digits <= 3 or not all(48 <= x <= 57 for x in tok[j:]):
             return None
         exp_len, i = n - i, n
-    return (has_mark, frac, exp_len, exp_signed, exp_digits) if i == n else None
+    if i != n or i == 0 or frac > 22:
+        return None
+    return has_mark, frac, exp_len, exp_signed, exp_digits
 
 
-class _Delimited:
-    """Blocks of lines of any length, fields between single-byte delimiters: read column by column.
+class _Strided:
+    """The fields of one column of a block whose lines all have one length and layout: the field sits
+    at the same place on every line (columns `s` to `e` of each `w`-byte line), so its bytes are strided
+    views of the block, with no search and no copy."""
 
-    The field ends are every delimiter and line break (one np.flatnonzero over the block); each line
-    must hold `columns` fields. A column is read right to left: its first line gives the template
-    (digits after the decimal mark, the exponent's form), which fixes every byte's place counted from
-    the field's end, so only the count of digits before the mark varies from line to line (at most 8).
-    The mantissa is gathered as one 64-bit word per field (the mark squeezed out when it fits one word),
-    the bytes not of the field masked, every byte checked to be a digit and the word turned into its
-    integer by three multiply-and-shift steps; the exponent's letter, sign and digits are read by table
-    from the field's last word. Adjacent columns with one template are read as one. Values are exact as
-    in _FixedWidth (one division or product of exact doubles; numpy's string conversion for the rest).
-    A block this does not fit (a blank, a quote, nan, a field in another form, a wrong field count) is
-    left to the general parse, which names what is wrong."""
+    def __init__(self, buf: bytearray, start: int, rows: int, w: int, s: int, e: int) -> None:
+        self.buf, self.start, self.rows, self.w, self.s, self.e = buf, start, rows, w, s, e
+        self.n = rows
+        self.length = e - s
+        self.first = np.ndarray((rows,), np.uint8, buf, start + s, (w,))
+
+    def word(self, back: int) -> np.ndarray:
+        """The 8 bytes that end `back` bytes before each field's end (a view of the block: never written
+        to)."""
+        return np.ndarray((self.rows,), "<u8", self.buf, self.start + self.e - back - 8, (self.w,))
+
+    def byte(self, back: int) -> np.ndarray:
+        return np.ndarray((self.rows,), np.uint8, self.buf, self.start + self.e - back - 1, (self.w,))
+
+    def word_at(self, back: np.ndarray) -> np.ndarray:
+        """The 8 bytes that end `back[i]` bytes before field i's end."""
+        at = np.arange(self.rows) * self.w + (self.start + self.e - 8) - back
+        return np.ndarray((len(self.buf) - 7,), "<u8", self.buf, 0, (1,))[at]
+
+    def text(self, at: np.ndarray) -> np.ndarray:
+        """Rows of the fields `at` (their bytes, sign included)."""
+        m = np.ndarray((self.rows, self.w), np.uint8, self.buf, self.start)
+        return m[at, self.s : self.e]
+
+
+class _Gathered:
+    """Fields anywhere in a block: field i runs from `s[i]` to `e[i]` (positions from the block's start,
+    `e` the delimiter or line break after it; arrays of any shape, the values come out in that shape);
+    its bytes are gathered. A gather costs about the same for 8 bytes as for 16 (numpy's cost is per
+    element), so the last 16 bytes of every field are gathered once and the words ending up to 8 bytes
+    before its end are cut from them."""
+
+    def __init__(self, buf: bytearray, start: int, n: int, s: np.ndarray, e: np.ndarray) -> None:
+        self.buf, self.start, self.s, self.e = buf, start, s, e
+        self.n = e.size
+        self.length = e - s
+        self.block = np.frombuffer(buf, np.uint8, n, start)
+        self.first = self.block[s]
+        # item k covers bytes k .. k+7 (k+15) of buf: the one ending at block position p is start + p - 8
+        self._words = np.ndarray((start + n - 7,), "<u8", buf, 0, (1,))
+        self._pairs = np.ndarray((start + n - 15,), "V16", buf, 0, (1,))
+        self._last16: np.ndarray | None = None
+        self._last8: np.ndarray | None = None
+
+    def word(self, back: int) -> np.ndarray:
+        """The 8 bytes that end `back` bytes before each field's end (not to be written to)."""
+        if back == 0 and self._last16 is None:
+            if self._last8 is None:
+                self._last8 = self._words[self.e + (self.start - 8)]
+            return self._last8
+        if 0 <= back <= 8:
+            if self._last16 is None:
+                got = self._pairs[self.e + (self.start - 16)]
+                self._last16 = got.view(np.uint64).reshape(*got.shape, 2)
+            high, low = self._last16[..., 1], self._last16[..., 0]  # the last 8 bytes, the 8 before
+            if back == 0:
+                return high
+            if back == 8:
+                return low
+            w = high << np.uint64(8 * back)
+            w |= low >> np.uint64(64 - 8 * back)
+            return w
+        return self._words[self.e + (self.start - 8 - back)]
+
+    def byte(self, back: int) -> np.ndarray:
+        return self.block[self.e - (back + 1)]
+
+    def word_at(self, back: np.ndarray) -> np.ndarray:
+        at = self.e + (self.start - 8)
+        at -= back
+        return self._words[at]
+
+    def text(self, at: np.ndarray) -> np.ndarray:
+        s = self.s.reshape(-1)[at]
+        lens = self.e.reshape(-1)[at] - s
+        width = int(lens.max())
+        text = np.full((len(at), width), 32, np.uint8)
+        for j in range(width):
+            inside = lens > j
+            text[inside, j] = self.block[s[inside] + j]
+        return text
+
+
+def _templated(f, form: tuple[bool, int, int, bool, int], mark: int) -> np.ndarray | None:
+    """The values of fields `f` all written as `form` (from `_template`), or None if one is not.
+
+    The form fixes every byte's place counted from the field's end, so only the count of digits before
+    the mark varies (at most 8): the mantissa is gathered as one 64-bit word per field (the mark squeezed
+    out when it fits one word), the bytes not of the field masked, every byte checked to be a digit and
+    the word turned into its integer by three multiply-and-shift steps (the SWAR method); the exponent's
+    letter, sign and digits are read by table from the field's last word. A value is mant / 10**k or
+    mant * 10**k: one correctly rounded operation on exact doubles while mant < 2**53 and k <= 22;
+    other values (longer mantissas, far exponents) go to numpy's own string conversion, which is
+    correctly rounded too."""
+    has_mark, frac, exp_len, exp_signed, exp_digits = form
+    first = f.first
+    neg = first == 45
+    signed = neg | (first == 43)
+    signed |= first == 32  # a blank where a sign is not (the way instruments print)
+    tail = (frac + 1 if has_mark else 0) + exp_len
+    if isinstance(f.length, int) and (signed.all() or not signed.any()):  # one digit count for all
+        lo = hi = f.length - int(signed[(0,) * signed.ndim]) + frac - tail
+        digits = np.full(1, lo)
+    else:
+        digits = f.length - signed
+        digits += frac - tail  # the mantissa's digits per field
+        lo, hi = int(digits.min()), int(digits.max())
+    if lo < max(frac, 1) or hi > 8 + frac or hi > 19:
+        return None
+    if has_mark and hi <= 7:  # the whole mantissa in one word: squeeze the mark out
+        m = 8 * (7 - frac)  # the mark's bit offset
+        y = f.word(exp_len) ^ np.uint64(0x3030303030303030 ^ ((mark ^ 0x30) << m))  # digits 0..9, mark 0
+        if (int(np.bitwise_or.reduce(y, axis=None)) >> m) & 0xFF:
+            return None
+        low = y & np.uint64((1 << m) - 1)
+        low *= np.uint64(255)
+        y += low  # the bytes below the mark moved up one byte
+        del low
+        y &= _KEEP[lo] if lo == hi else np.take(_KEEP, digits)
+        mant = _word_digits(y)
+    else:
+        back = exp_len + (frac + 1 if has_mark else 0)
+        if has_mark and not (f.byte(back - 1) == mark).all():
+            return None
+        y = f.word(back) ^ _Z3
+        y &= _KEEP[lo - frac] if lo == hi else np.take(_KEEP, digits - frac)
+        mant = _word_digits(y)
+        for end, count in _runs(-exp_len, frac):
+            if mant is None:
+                break
+            y = f.word(-end) ^ _Z3
+            y &= _KEEP[count]
+            part = _word_digits(y)
+            if part is None:
+                return None
+            mant *= np.uint64(10**count)
+            mant += part
+    if mant is None:
+        return None
+    vals = mant.astype(np.float64)
+    slow = mant > np.uint64(1 << 53) if hi > 15 else None  # beyond an exact double
+    del mant
+    if exp_len:
+        # the exponent's text (letter, sign, digits) as the low bytes of one word, read by table
+        h = f.word(0) >> np.uint64(8 * (8 - exp_len))
+        if h.min() == h.max():  # one exponent for the whole block (a time column within a decade)
+            one = int(h[(0,) * h.ndim])
+            text = bytes((one >> (8 * i)) & 0xFF for i in range(exp_len)).decode("latin-1")
+            if _template(b"1" + text.encode("latin-1"), mark) is None:
+                return None
+            p = int(text[1:]) - frac
+            if -22 <= p <= 22:
+                if p > 0:
+                    vals *= _MUL10[22 + p]
+                elif p < 0:
+                    vals /= _DIV10[22 + p]
+                return _finish(f, vals, neg, slow, mark)
+        lead = 2 if exp_signed else 1
+        letter = _ESIGNED if exp_signed else _EPLAIN
+        sign = np.take(letter, (h & np.uint64((1 << (8 * lead)) - 1)).view(np.int64))
+        h >>= np.uint64(8 * lead)
+        text = h.view(np.int64)
+        if exp_digits == 3:
+            power = np.take(_EDIGIT, text & 0xFF)
+            power *= 100
+            h >>= np.uint64(8)
+            power += np.take(_EDIGITS, text)
+        else:
+            power = np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text)
+        if not sign.all() or power.min() < 0:
+            return None
+        power *= sign
+        power += 22 - frac  # an index into _MUL10 and _DIV10
+        _scale(vals, power, slow)
+        slow = _far(power, slow)
+    elif frac:
+        vals /= _DIV10[22 - frac]
+    return _finish(f, vals, neg, slow, mark)
+
+
+def _far(power: np.ndarray, slow: np.ndarray | None) -> np.ndarray | None:
+    far = (power < 0) | (power > 44)
+    if not far.any():
+        return slow
+    return far if slow is None else slow | far
+
+
+def _scale(vals: np.ndarray, power: np.ndarray, slow) -> None:
+    """vals * 10**(power - 22), one correctly rounded operation (powers beyond +-22: see _far)."""
+    lo, hi = int(power.min()), int(power.max())
+    if lo == hi and 0 <= lo <= 44:
+        vals *= _MUL10[lo]
+        vals /= _DIV10[lo]
+        return
+    if lo < 0 or hi > 44:
+        power = np.clip(power, 0, 44)
+        lo, hi = max(lo, 0), min(hi, 44)
+    if hi > 22:
+        vals *= np.take(_MUL10, power)  # np.take: a gather faster than indexing
+    if lo < 22:
+        vals /= np.take(_DIV10, power)
+
+
+_SIGNS = np.ones(256)
+_SIGNS[45] = -1.0
+
+
+def _finish(f, vals: np.ndarray, neg: np.ndarray, slow: np.ndarray | None, mark: int) -> np.ndarray | None:
+    """The signs set and the values beyond one exact operation converted from their text."""
+    first = f.first
+    if neg.any():  # the values are not negative yet: -0 becomes -0.0, as float() gives
+        vals *= np.take(_SIGNS, first)
+    if slow is not None and slow.any():
+        at = np.flatnonzero(slow)
+        try:
+            vals.reshape(-1)[at] = _exact(f.text(at), mark == 44)
+        except ValueError:  # not a number after all: the general parse names it
+            return None
+    return vals
+
+
+def _general(f, mark: int, exponents: bool = True) -> np.ndarray | None:
+    """The values of fields `f` each in its own form (a sign or a blank, digits with or without a mark
+    anywhere, an exponent or none: numbers printed in their shortest form), or None where one is not a
+    number of up to 16 mantissa digits. `exponents`: whether the block holds an 'e' or 'E' at all.
+
+    Per field and all vectorised: the exponent letter is found among the last 8 bytes (a zero byte of
+    the word XOR 'e', case folded), its sign and up to 3 digits read from the same word; the mantissa
+    (at most 16 bytes) is two words ending where it ends, the one decimal mark in it found the same way
+    and squeezed out (the bytes before it move up one byte, across the two words), and the digits become
+    integers by the SWAR steps, which check that every other byte is a digit. Values are exact as in
+    `_templated`."""
+    length = f.length if isinstance(f.length, np.ndarray) else np.full(f.n, f.length, np.int64)
+    first = f.first
+    neg = first == 45
+    signed = neg | (first == 43)
+    signed |= first == 32
+    ml = length - signed  # the mantissa's bytes, the exponent taken off below
+    if not exponents and int(ml.max()) > 8:
+        f.word(8)  # both words in one gather
+    x = f.word(0)
+    keep = np.take(_KEEP, np.minimum(ml, 8))  # the field's bytes (sign off) among the last 8
+    power: np.ndarray | None = None
+    back: np.ndarray | None = None
+    hits = None
+    if exponents:
+        z = x | np.uint64(0x2020202020202020)
+        z ^= np.uint64(0x6565656565656565)  # a zero byte where 'e' or 'E' is
+        hits = _zero_bytes(z)
+        del z
+        hits &= keep
+        hits &= np.uint64(0x00FFFFFFFFFFFFFF)  # a letter is followed by a digit
+        if not hits.any():
+            hits = None
+    if hits is not None:
+        hits &= ~hits + np.uint64(1)  # the lowest: the text's first letter
+        hits -= np.uint64(1)
+        j = np.bitwise_count(hits).astype(np.int64)
+        del hits
+        j >>= 3  # the letter's byte (8: none)
+        back = 8 - j  # the exponent's length, letter to end (0: none)
+        q = x >> (8 * (j + 1)).astype(np.uint64)  # the bytes after the letter
+        c = q & np.uint64(0xFF)
+        eneg = c == 45
+        esig = eneg | (c == 43)
+        q >>= esig.astype(np.uint64) * np.uint64(8)
+        nd = back - 1 - esig  # the exponent's digits
+        if (nd > 3).any() or ((nd < 1) & (back > 0)).any():
+            return None
+        np.maximum(nd, 0, out=nd)
+        q ^= _Z3
+        q &= np.take(_LOW, nd)
+        if (int(np.bitwise_or.reduce((q + _S76) | q, axis=None)) & 0x808080) != 0:
+            return None
+        q <<= (8 * (3 - nd)).astype(np.uint64)  # digits to the top of 3 bytes
+        power = (q & np.uint64(0xFF)).astype(np.int64) * 100
+        power += ((q >> np.uint64(8)) & np.uint64(0xFF)).astype(np.int64) * 10
+        power += (q >> np.uint64(16)).astype(np.int64)
+        np.negative(power, out=power, where=eneg)
+        ml -= back
+        keep = np.take(_KEEP, np.minimum(ml, 8))
+    if ml.min() < 1:
+        return None
+    long = ml > 16
+    two = int(ml.max()) > 8
+    marks = np.uint64(0x0101010101010101 * (mark ^ 0x30))
+    ylo = x if back is None else f.word_at(back)
+    ylo = ylo ^ _Z3
+    ylo &= keep
+    del keep
+    plo = _zero_bytes(ylo ^ marks)  # 0x80 at the mark (bytes outside the field are 0: not a mark)
+    plo >>= np.uint64(7)  # 1 at the foot of the mark's byte
+    count = np.bitwise_count(plo)
+    if two:
+        yhi = f.word(8) if back is None else f.word_at(back + 8)
+        yhi = yhi ^ _Z3
+        yhi &= np.take(_KEEP, np.clip(ml - 8, 0, 8))
+        phi = _zero_bytes(yhi ^ marks)
+        phi >>= np.uint64(7)
+        count += np.bitwise_count(phi)
+    nf = None
+    if count.any():
+        if int(count.max()) > 1 or (ml - count).min() < 1:
+            return None
+        # clear the mark, then squeeze the digits before it up one byte
+        markx = np.uint64(mark ^ 0x30)
+        ylo ^= plo * markx
+        nf = _bytes_above(plo)
+        inlo = plo != 0
+        below = plo - inlo  # the bytes below the mark (0 when the mark is not in this word)
+        below &= ylo
+        below *= np.uint64(255)
+        ylo += below
+        if two:
+            yhi ^= phi * markx
+            inhi = phi != 0
+            nf += np.where(inhi, 8 + _bytes_above(phi), 0).astype(np.uint8)
+            # a mark in the low word: the high word's last byte moves down into it
+            carry = (yhi >> np.uint64(56)) * inlo
+            ylo |= carry
+            yhi <<= inlo.astype(np.uint64) * np.uint64(8)
+            below = phi - inhi
+            below &= yhi
+            below *= np.uint64(255)
+            yhi += below
+        del below
+    mant = _word_digits(ylo)
+    if mant is None:
+        return None
+    if two:
+        high = _word_digits(yhi)
+        if high is None:
+            return None
+        high *= np.uint64(10**8)
+        mant += high
+        del high
+    vals = mant.astype(np.float64)
+    slow = long | (mant > np.uint64(1 << 53)) if two else (long if long.any() else None)
+    del mant
+    if power is not None or nf is not None:
+        p = np.full(vals.shape, 22, np.int64) if power is None else power + 22
+        if nf is not None:
+            p -= nf
+        _scale(vals, p, slow)
+        slow = _far(p, slow)
+    return _finish(f, vals, neg, slow, mark)
+
+
+def _exponents(buf: bytearray, start: int, stop: int) -> bool:
+    return buf.find(b"e", start, stop) >= 0 or buf.find(b"E", start, stop) >= 0
+
+
+class _Reader:
+    """Blocks of whole lines read column by column, without a step per line or per number.
+
+    Where the fields are: when every line of a block has one length and its fields sit at the same
+    places (the way instruments print; a blank where a sign is not), each field's bytes are strided views
+    of the block, checked at the separators (_Strided); otherwise the field ends are every delimiter and
+    line break, found by one search over the block (_Gathered). How they are read: a column whose fields
+    all have its first line's printed form (digits after the mark, the exponent's form) is read by that
+    form (`_templated`); a column of numbers in their shortest form, each its own, field by field
+    (`_general`). A block this does not fit (a quote, nan, a wrong field count, a field that is not a
+    number) is left to the general parse, which names what is wrong."""
 
     def __init__(self, layout: Layout, keep: list[int]) -> None:
         self.ncols = layout.columns
         self.keep = keep
         self.delim = ord(layout.delimiter) if layout.delimiter in ",;\t" else -1
         self.mark = 44 if layout.decimal_comma else 46
+        self._plans: dict[bytes, tuple | None] = {}
 
     def parse(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
         """(the columns `keep`, the line count) of buf[start:stop] (whole lines), or None."""
+        got = self._fixed(buf, start, stop)
+        return got if got is not None else self._delimited(buf, start, stop)
+
+    def _values(self, f, form, exponents: bool) -> np.ndarray | None:
+        vals = _templated(f, form, self.mark) if form is not None else None
+        return vals if vals is not None else _general(f, self.mark, exponents)
+
+    def _fixed(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
         n = stop - start
-        if self.delim < 0 or n < 2 or start < 8:
+        w = buf.find(b"\n", start, stop) + 1 - start
+        if w < 2 or n % w:
+            return None
+        row = bytes(buf[start : start + w])
+        if row not in self._plans:
+            if len(self._plans) > 64:
+                self._plans.clear()
+            self._plans[row] = self._plan(row)
+        plan = self._plans[row]
+        if plan is None:
+            return None
+        fields, fixed = plan
+        rows = n // w
+        m = np.ndarray((rows, w), np.uint8, buf, start)
+        for col, byte in fixed:  # the separators, the blanks before a field, the line end
+            if not (m[:, col] == byte).all():
+                return None
+        out = []
+        exponents = _exponents(buf, start, stop)
+        for k in self.keep:
+            s, e, form = fields[k]
+            vals = self._values(_Strided(buf, start, rows, w, s, e), form, exponents)
+            if vals is None:
+                return None
+            out.append(vals)
+        return out, rows
+
+    def _plan(self, row: bytes) -> tuple | None:
+        """From a block's first line: each field's (start, end, form) and the bytes every line must
+        share (all bytes outside the fields). A field starts at its sign, or at the blank just before
+        its first digit (where other lines put a '-')."""
+        w = len(row)
+        body = row[:-1].rstrip(b"\r")
+        if self.delim >= 0:
+            parts, at = [], 0
+            for piece in body.split(bytes([self.delim])):
+                parts.append((at, at + len(piece)))
+                at += len(piece) + 1
+        else:
+            parts = [(mt.start(), mt.end()) for mt in re.finditer(rb"[^ \t]+", body)]
+        if len(parts) != self.ncols:
+            return None
+        fields = []
+        inside = np.zeros(w, bool)
+        for a, z in parts:
+            while a < z and row[a] == 32:
+                a += 1
+            if a == z:
+                return None
+            s = a
+            if row[a] in (43, 45):
+                a += 1
+            elif a > 0 and row[a - 1] == 32:
+                s = a - 1
+            form = _template(row[a:z], self.mark)
+            fields.append((s, z, form))
+            inside[s:z] = True
+        fixed = [(c, row[c]) for c in range(w) if not inside[c]]
+        return fields, fixed
+
+    def _delimited(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
+        n = stop - start
+        if self.delim < 0 or n < 2:
             return None
         b = np.frombuffer(buf, np.uint8, n, start)
         sep = b == 10
@@ -694,15 +906,13 @@ class _Delimited:
             stops[:, -1] -= 1
             if buf.count(b"\r", start, stop) != rows or not (b[stops[:, -1]] == 13).all():
                 return None
-        after = np.ndarray((n - 1,), np.uint8, buf, start + 1)  # after[p]: the byte after position p
         forms = {}
         for k in self.keep:
             s0 = int(grid[0, k - 1]) + 1 if k else 0
             tok = bytes(buf[start + s0 : start + int(stops[0, k])])
-            forms[k] = _template(tok[1:] if tok[:1] in (b"-", b"+") else tok, self.mark)
-            if forms[k] is None:
-                return None
+            forms[k] = _template(tok[1:] if tok[:1] in (b"-", b"+", b" ") else tok, self.mark)
         out: list[np.ndarray] = []
+        exponents = _exponents(buf, start, stop)
         keep = list(self.keep)
         while keep:
             k = keep.pop(0)
@@ -711,135 +921,19 @@ class _Delimited:
                 keep.pop(0)
                 m += 1
             if k:
-                prev = grid[:, k - 1 : k + m - 1].ravel()  # the separator before each field
-                e = stops[:, k : k + m].ravel()
+                s = grid[:, k - 1 : k + m - 1] + 1  # after the separator before each field
+                e = stops[:, k : k + m]
             else:
-                prev = np.empty(rows, np.int64)
-                prev[0] = -1
-                prev[1:] = grid[:-1, -1]
-                e = stops[:, 0].copy()
-            first = after[prev]
-            if not k:
-                first[0] = buf[start]
-            vals = self._column(buf, start, n, forms[k], first, prev, e)
+                s = np.empty((rows, 1), np.int64)
+                s[0] = 0
+                s[1:, 0] = grid[:-1, -1]
+                s[1:] += 1
+                e = stops[:, :1]
+            vals = self._values(_Gathered(buf, start, n, s, e), forms[k], exponents)
             if vals is None:
                 return None
-            if m == 1:
-                out.append(vals)
-            else:
-                grouped = vals.reshape(rows, m)
-                out += [grouped[:, j] for j in range(m)]
+            out += [vals[:, j] for j in range(m)]
         return out, rows
-
-    def _column(self, buf, start: int, n: int, form, first, prev, e) -> np.ndarray | None:
-        """The values of the fields between `prev` + 1 and `e` (positions from `start`) written as
-        `form`; `first`: each field's first byte."""
-        has_mark, frac, exp_len, exp_signed, exp_digits = form
-        neg = first == 45
-        signed = neg | (first == 43)
-        tail = (frac + 1 if has_mark else 0) + exp_len
-        digits = e - prev
-        digits -= 1 + tail - frac
-        digits -= signed  # the mantissa's digits per field
-        lo, hi = int(digits.min()), int(digits.max())
-        if lo < max(frac, 1) or hi > 8 + frac or hi > 19:
-            return None
-
-        def words_to(back: int, at: np.ndarray) -> np.ndarray:
-            """The 8 bytes that end `back` bytes before each position `at`."""
-            if start >= 8 + back:
-                return np.ndarray((n,), "<u8", buf, start - 8 - back, (1,))[at]
-            return np.ndarray((n,), "<u8", buf, start - 8, (1,))[at - back]
-
-        if has_mark and hi <= 7:  # the whole mantissa in one word: squeeze the mark out
-            y = words_to(exp_len, e)
-            m = 8 * (7 - frac)  # the mark's bit offset
-            y ^= np.uint64(0x3030303030303030 ^ ((self.mark ^ 0x30) << m))  # digits to 0..9, the mark to 0
-            if (int(np.bitwise_or.reduce(y)) >> m) & 0xFF:
-                return None
-            low = y & np.uint64((1 << m) - 1)
-            low *= np.uint64(255)
-            y += low  # the bytes below the mark moved up one byte
-            del low
-            y &= np.take(_KEEP, digits)
-            mant = _word_digits(y)
-        else:
-            back = exp_len + (frac + 1 if has_mark else 0)
-            if has_mark and not (_byte_at(buf, start, n, e - back) == self.mark).all():
-                return None
-            y = words_to(back, e)
-            y ^= _Z3
-            y &= np.take(_KEEP, digits - frac)
-            mant = _word_digits(y)
-            for end, count in _runs(-exp_len, frac):
-                if mant is None:
-                    break
-                y = words_to(-end, e)
-                y ^= _Z3
-                y &= _KEEP[count]
-                part = _word_digits(y)
-                if part is None:
-                    return None
-                mant *= np.uint64(10**count)
-                mant += part
-        if mant is None:
-            return None
-        vals = mant.astype(np.float64)
-        slow = mant > np.uint64(1 << 53) if hi > 15 else None  # beyond an exact double
-        del mant
-        if exp_len:
-            # the exponent's text (letter, sign, digits) as the low bytes of one word, read by table
-            h = words_to(0, e)
-            h >>= np.uint64(8 * (8 - exp_len))
-            lead = 2 if exp_signed else 1
-            letter = _ESIGNED if exp_signed else _EPLAIN
-            sign = np.take(letter, (h & np.uint64((1 << (8 * lead)) - 1)).view(np.int64))
-            h >>= np.uint64(8 * lead)
-            text = h.view(np.int64)
-            if exp_digits == 3:
-                power = np.take(_EDIGIT, text & 0xFF)
-                power *= 100
-                h >>= np.uint64(8)
-                power += np.take(_EDIGITS, text)
-            else:
-                power = np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text)
-            if not sign.all() or power.min() < 0:
-                return None
-            power *= sign
-            power += 22 - frac  # an index into _MUL10 and _DIV10
-            lo, hi = int(power.min()), int(power.max())
-            if lo < 0 or hi > 44:
-                far = (power < 0) | (power > 44)
-                slow = far if slow is None else slow | far
-                np.clip(power, 0, 44, out=power)
-                lo, hi = max(lo, 0), min(hi, 44)
-            if hi > 22:
-                vals *= np.take(_MUL10, power)
-            if lo < 22:
-                vals /= np.take(_DIV10, power)
-        elif frac:
-            vals /= _POW10[frac]
-        if neg.any():  # set the sign bit (the values are not negative yet: -0 stays -0.0, as float() gives)
-            bits = neg.astype(np.uint64)
-            bits <<= np.uint64(63)
-            vals.view(np.uint64)[:] |= bits
-        if slow is not None and slow.any():
-            at = np.flatnonzero(slow)
-            s = prev[at] + 1
-            lens = e[at] - s
-            width = int(lens.max())
-            text = np.full((len(at), width), 32, np.uint8)
-            b = np.frombuffer(buf, np.uint8, n, start)
-            for j in range(width):
-                inside = lens > j
-                text[inside, j] = b[s[inside] + j]
-            vals[at] = _exact(text, self.mark == 44)
-        return vals
-
-
-def _byte_at(buf, start: int, n: int, at: np.ndarray) -> np.ndarray:
-    """The bytes at positions `at` (from `start`) of a block of `n` bytes."""
-    return np.frombuffer(buf, np.uint8, n, start)[at]
 
 
 def _exact(tokens: np.ndarray, decimal_comma: bool) -> np.ndarray:

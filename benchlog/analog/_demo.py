@@ -75,6 +75,56 @@ def _single_shot(part: str, seed: int, kind: str, dt_ns: float, span_ms: float, 
     )
 
 
+def _digits(m: np.ndarray, width: int, lead: bool = False) -> np.ndarray:
+    """Rows of the `width` decimal digits of the integers `m` (ASCII); `lead`: leading zeros but the last
+    become NUL bytes, which are left out when written (numbers then print in their own width)."""
+    d = (m[:, None] // 10 ** np.arange(width - 1, -1, -1, dtype=np.int64)) % 10
+    text = (d + 48).astype(np.uint8)
+    if lead:
+        zeros = np.logical_and.accumulate(d == 0, axis=1)
+        zeros[:, -1] = False
+        text[zeros] = 0
+    return text
+
+
+def _column(n: int, byte: str) -> np.ndarray:
+    return np.full((n, 1), ord(byte), np.uint8)
+
+
+def _fixed(x: np.ndarray, decimals: int, mark: str = ".") -> np.ndarray:
+    """Rows of '%.{decimals}f' text (numpy's rounding, vectorised: a line costs no Python step)."""
+    m = np.round(np.abs(x) * 10**decimals).astype(np.int64)
+    sign = np.where(np.signbit(x), ord("-"), 0).astype(np.uint8)[:, None]
+    whole = _digits(m // 10**decimals, max(1, len(str(int(m.max()) // 10**decimals))), lead=True)
+    return np.hstack((sign, whole, _column(len(x), mark), _digits(m % 10**decimals, decimals)))
+
+
+def _scientific(x: np.ndarray, decimals: int) -> np.ndarray:
+    """Rows of '%.{decimals}E' text, exponents within +-99 (vectorised like _fixed)."""
+    a = np.abs(x)
+    e = np.floor(np.log10(np.where(a > 0, a, 1.0))).astype(np.int64)
+    mant = np.round(a / 10.0**e * 10**decimals).astype(np.int64)
+    roll = mant >= 10 ** (decimals + 1)
+    mant, e = np.where(roll, mant // 10, mant), np.where(roll, e + 1, e)
+    digits = _digits(mant, decimals + 1)
+    sign = np.where(np.signbit(x), ord("-"), 0).astype(np.uint8)[:, None]
+    esign = np.where(e < 0, ord("-"), ord("+")).astype(np.uint8)[:, None]
+    n = len(x)
+    return np.hstack((sign, digits[:, :1], _column(n, "."), digits[:, 1:], _column(n, "E"), esign,
+                      _digits(np.abs(e), 2)))  # fmt: skip
+
+
+def _lines(*fields: np.ndarray, delimiter: str) -> bytes:
+    """Fields (rows of text) joined by `delimiter`, one line a row, NUL bytes left out."""
+    n = len(fields[0])
+    parts = []
+    for f in fields:
+        parts += [f, _column(n, delimiter)]
+    parts[-1] = _column(n, "\n")
+    rows = np.hstack(parts).ravel()
+    return rows[rows != 0].tobytes()
+
+
 def make_demo(folder: str | Path, seed: int = 2026) -> list[Path]:
     """Write the demo captures into `folder` (created); return the files written."""
     out = Path(folder)
@@ -85,11 +135,11 @@ def make_demo(folder: str | Path, seed: int = 2026) -> list[Path]:
     # 1. a bench scope's CSV: comma, decimal point, scientific notation, time column, trigger at 0
     v, t0, rows = _single_shot("AG-MS5", seed, "make", 100.0, 15.0, 2.0)
     path = out / "AG-MS5_make.csv"
-    with path.open("w") as f:
-        f.write(f"# {NOTE}\n# Brightwater Appliance Lab, bench A, unit AG-MS5-DEMO\n")
-        f.write("Sample Interval,1.000000E-07\nTrigger,falling edge at 50 %\nTime,Contact\n")
+    with path.open("wb") as f:
+        f.write(f"# {NOTE}\n# Brightwater Appliance Lab, bench A, unit AG-MS5-DEMO\n".encode())
+        f.write(b"Sample Interval,1.000000E-07\nTrigger,falling edge at 50 %\nTime,Contact\n")
         t = t0 + np.arange(len(v)) * 1e-7
-        np.savetxt(f, np.column_stack((t, v)), fmt=["%.7E", "%.4E"], delimiter=",")
+        f.write(_lines(_scientific(t, 7), _scientific(v, 4), delimiter=","))
     written.append(path)
     truth[path.name] = rows
 
@@ -97,11 +147,11 @@ def make_demo(folder: str | Path, seed: int = 2026) -> list[Path]:
     for kind in ("make", "break"):
         v, t0, rows = _single_shot("VS-505", seed + 1, kind, 200.0, 20.0, 2.0)
         path = out / f"VS-505_{kind}.csv"
-        with path.open("w") as f:
-            f.write(f"{NOTE}\nSample rate;5 MS/s\nStart;{t0:.4f} s\n".replace(".", ","))
-            f.write("Index;Contact [V]\n")
-            body = "\n".join(f"{i};{x:.4f}" for i, x in enumerate(v)).replace(".", ",")
-            f.write(body + "\n")
+        with path.open("wb") as f:
+            f.write(f"{NOTE}\nSample rate;5 MS/s\nStart;{t0:.4f} s\n".replace(".", ",").encode())
+            f.write(b"Index;Contact [V]\n")
+            index = _digits(np.arange(len(v)), len(str(len(v))), lead=True)
+            f.write(_lines(index, _fixed(v, 4, mark=","), delimiter=";"))
         written.append(path)
         truth[path.name] = rows
 
@@ -114,9 +164,7 @@ def make_demo(folder: str | Path, seed: int = 2026) -> list[Path]:
     coil = 24.0 - render_contact(t[d], lv[d], 0, start_ns=0.0, dt_ns=1_000.0, n=n, v_open=24.0, r_contact=0.0,
                                  ramp_ns=20_000.0, noise_v=0.05, rng=rng)  # fmt: skip
     path = out / "AG-MS5_cycles.npz"
-    np.savez_compressed(
-        path, dt=np.float64(1e-6), contact=contact.astype(np.float32), coil=coil.astype(np.float32)
-    )
+    np.savez(path, dt=np.float64(1e-6), contact=contact.astype(np.float32), coil=coil.astype(np.float32))
     written.append(path)
     truth[path.name] = _truth_rows(tr, 0.0)
 

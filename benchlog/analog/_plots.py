@@ -2,8 +2,11 @@
 
 `text_chart` draws it in the terminal (plotext); `plot_capture` returns PNG bytes (matplotlib, Agg) for
 the report. Both show the same stretch: around one actuation (the first one with bounce, or the one
-asked for), or the whole capture. Long traces are reduced to a min/max envelope per column, so a spike
-one sample wide still shows.
+asked for), or the whole capture, and the same things, each named in a legend with its value: the
+contact voltage, both levels of the voltage definition (open above, closed below), the edges derived
+from them, each actuation's bounce (first touch to settled), and, when an input is given, its two
+thresholds (VT+ and VT-) and the voltage at the RC node in front of it. Long traces are reduced to a
+min/max envelope per column, so a spike one sample wide still shows.
 """
 
 from __future__ import annotations
@@ -34,6 +37,25 @@ class ChartData:
     edge_v: np.ndarray
     bounce_ms: list[tuple[float, float]]
     title: str
+    input_levels: tuple[float, float] | None = None  # (VT+, VT-) of the input the contact drives
+    input_name: str = ""
+    rc_label: str = ""  # the RC network the node voltage is for, e.g. "10 kohm, 82 nF"
+
+    def labels(self) -> dict[str, str]:
+        """The legend's words for each thing drawn (both plots use them)."""
+        out = {
+            "trace": "contact V",
+            "open": f"open above {self.open_above:.3g} V",
+            "closed": f"closed below {self.closed_below:.3g} V",
+            "edges": "derived edges",
+            "bounce": "bounce: first touch to settled",
+        }
+        if self.node_v is not None:
+            out["node"] = f"RC node ({self.rc_label})" if self.rc_label else "RC node"
+        if self.input_levels is not None:
+            out["vt_plus"] = f"input VT+ {self.input_levels[0]:.3g} V"
+            out["vt_minus"] = f"input VT- {self.input_levels[1]:.3g} V"
+        return out
 
 
 def _span(cap: Capture, measured: Measured, actuation: int | None) -> tuple[int, int, int | None]:
@@ -78,8 +100,12 @@ def chart_data(
     tau_s: float | None = None,
     actuation: int | None = None,
     points: int = 2000,
+    input_levels: tuple[float, float] | None = None,
+    input_name: str = "",
+    rc_label: str = "",
 ) -> ChartData:
-    """The stretch to draw; `tau_s` adds the RC node (the trace through a first-order filter)."""
+    """The stretch to draw; `tau_s` adds the RC node (the trace through a first-order filter),
+    `input_levels` the (VT+, VT-) of the input it drives."""
     k0, k1, which = _span(cap, measured, actuation)
     idx = np.arange(k0, k1)
     t_ms = (cap.times_s(idx) - cap.t0_s) * 1e3
@@ -102,58 +128,110 @@ def chart_data(
                 bounce.append((float(f), float(s)))
     what = f"actuation {which + 1}" if which is not None else "whole capture"
     title = f"{cap.source} - {measured.channel}, {what}"
-    return ChartData(tt, vv, node_t, node_v, lv.open_above, lv.closed_below, e_ms[inside], e_v, bounce, title)
+    return ChartData(
+        tt,
+        vv,
+        node_t,
+        node_v,
+        lv.open_above,
+        lv.closed_below,
+        e_ms[inside],
+        e_v,
+        bounce,
+        title,
+        input_levels,
+        input_name,
+        rc_label,
+    )
 
 
 _ANSI = re.compile(r"\x1b\[[0-9;]*m")
 
 
 def text_chart(data: ChartData, width: int = 100, height: int = 28, colour: bool = False) -> str:
-    """The chart as terminal text (plotext)."""
+    """The chart as terminal text (plotext), with its key below it. Without colour the lines look alike,
+    so each level is named on the chart at its end (the definition's at the right, the input's at the
+    left), the bounce between its vertical lines, and the traces by their markers in the key."""
     import plotext
 
+    words = data.labels()
     f = plotext.figure
     f.clear()
     f.plot_size(width, height)
     f.theme("default" if colour else "colorless")
-    f.draw(f.signal(data.t_ms.tolist(), data.v.tolist()).lines().label("contact V"))
+    f.draw(f.signal(data.t_ms.tolist(), data.v.tolist()).lines())
+    key = [f"▚ {words['trace']}"]
     if data.node_v is not None and data.node_t_ms is not None:
-        f.draw(f.signal(data.node_t_ms.tolist(), data.node_v.tolist()).lines().label("RC node"))
+        f.draw(f.signal(data.node_t_ms.tolist(), data.node_v.tolist(), marker="•"))
+        key.append(f"• {words['node']}")
     if len(data.edge_t_ms):
-        f.draw(f.signal(data.edge_t_ms.tolist(), data.edge_v.tolist(), marker="x").label("edges"))
-    f.line(data.open_above, label="open above")
-    f.line(data.closed_below, label="closed below")
-    for first, settle in data.bounce_ms:
+        f.draw(f.signal(data.edge_t_ms.tolist(), data.edge_v.tolist(), marker="x"))
+        key.append(f"x {words['edges']}")
+    left, right = float(data.t_ms[0]), float(data.t_ms[-1])
+    for y, word, x, side in (
+        (data.open_above, words["open"], right, "right"),
+        (data.closed_below, words["closed"], right, "right"),
+        *(
+            (
+                (data.input_levels[0], words["vt_plus"], left, "left"),
+                (data.input_levels[1], words["vt_minus"], left, "left"),
+            )
+            if data.input_levels is not None
+            else ()
+        ),
+    ):
+        f.line(y)
+        f.draw(f.text(x, y, word, alignment=side))
+    top = float(max(data.v.max(), data.open_above))
+    for i, (first, settle) in enumerate(data.bounce_ms):
         f.line(first, orientation="v")
         f.line(settle, orientation="v")
-    f.title(data.title + " (bounce between the vertical lines)")
+        if i == 0:
+            f.draw(f.text((first + settle) / 2, top, "bounce", alignment="center"))
+    if data.bounce_ms:
+        key.append(f"│ │ {words['bounce']}")
+    f.legend(active=False)
+    f.title(data.title)
     f.label("ms")
     text = f.build().string()
     f.clear()
+    text = text.rstrip("\n") + "\n  key: " + "   ".join(key) + "\n"
     return text if colour else _ANSI.sub("", text)
 
 
-def plot_capture(data: ChartData) -> bytes:
-    """The chart as PNG bytes (matplotlib, Agg), for the report."""
+def capture_figure(data: ChartData):
+    """The chart as a matplotlib figure (Agg); its legend names each thing drawn."""
     import matplotlib
 
     matplotlib.use("Agg", force=True)
     import matplotlib.pyplot as plt
 
+    words = data.labels()
     fig, ax = plt.subplots(figsize=(9, 4.5), constrained_layout=True)
-    for first, settle in data.bounce_ms:
-        ax.axvspan(first, settle, color="tab:orange", alpha=0.15, lw=0)
-    ax.plot(data.t_ms, data.v, lw=0.8, color="tab:blue", label="contact voltage")
+    for i, (first, settle) in enumerate(data.bounce_ms):
+        ax.axvspan(first, settle, color="tab:orange", alpha=0.15, lw=0, label=None if i else words["bounce"])
+    ax.plot(data.t_ms, data.v, lw=0.8, color="tab:blue", label=words["trace"])
     if data.node_v is not None:
-        ax.plot(data.node_t_ms, data.node_v, lw=1.4, color="tab:green", label="RC node")
-    ax.axhline(data.open_above, color="tab:red", ls="--", lw=0.9, label="open above")
-    ax.axhline(data.closed_below, color="tab:purple", ls="--", lw=0.9, label="closed below")
+        ax.plot(data.node_t_ms, data.node_v, lw=1.4, color="tab:green", label=words["node"])
+    ax.axhline(data.open_above, color="tab:red", ls="--", lw=0.9, label=words["open"])
+    ax.axhline(data.closed_below, color="tab:purple", ls="--", lw=0.9, label=words["closed"])
+    if data.input_levels is not None:
+        ax.axhline(data.input_levels[0], color="tab:green", ls=":", lw=1.1, label=words["vt_plus"])
+        ax.axhline(data.input_levels[1], color="tab:olive", ls=":", lw=1.1, label=words["vt_minus"])
     if len(data.edge_t_ms):
-        ax.plot(data.edge_t_ms, data.edge_v, "x", color="black", ms=5, label="derived edges")
+        ax.plot(data.edge_t_ms, data.edge_v, "x", color="black", ms=5, label=words["edges"])
     ax.set_xlabel("ms from the first sample")
     ax.set_ylabel("V")
-    ax.set_title(data.title + " (shaded: bounce)", fontsize=10)
-    ax.legend(loc="best", fontsize=8)
+    ax.set_title(data.title, fontsize=10)
+    ax.legend(loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8)
+    return fig
+
+
+def plot_capture(data: ChartData) -> bytes:
+    """The chart as PNG bytes (matplotlib, Agg), for the report."""
+    import matplotlib.pyplot as plt
+
+    fig = capture_figure(data)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=100)
     plt.close(fig)

@@ -29,7 +29,7 @@ from benchlog.analysis import (
     load_spec,
     summarize,
 )
-from benchlog.design import find_input, load_thresholds
+from benchlog.design import find_input, format_si, load_thresholds
 from benchlog.errors import DataError
 
 RULE_SOURCE = "the rule of MIL-PRF-39016 / MIL-STD-202 method 310, from memory"
@@ -176,12 +176,14 @@ def scope_capture(path: str | Path, opts: ScopeOptions) -> ScopeResult:
         "rc": None,
     }
     tau = None
+    chart_input: dict = {}
     if opts.compare or opts.design:
         row = find_input(load_thresholds(opts.thresholds), opts.input_name or "")
         supply = opts.supply or row.supply
         v_open = levels.v_open if levels.v_open is not None else supply
+        (p_lo, p_hi), (m_lo, m_hi) = row.at_supply(supply)
+        chart_input = {"input_levels": ((p_lo + p_hi) / 2, (m_lo + m_hi) / 2), "input_name": row.name}
         if opts.compare:
-            (p_lo, p_hi), (m_lo, m_hi) = row.at_supply(supply)
             inp = DigitalInput((p_lo + p_hi) / 2, (m_lo + m_hi) / 2, supply, opts.sample_us * 1e3, row.name)
             drives = drive_edges(cap, cap.volts[drive_i]) if drive_i is not None else None
             cmp = compare(cap, trace, measured, inp, settings, drives)
@@ -220,8 +222,9 @@ def scope_capture(path: str | Path, opts: ScopeOptions) -> ScopeResult:
             }
             if d.chosen is not None:
                 tau = d.chosen.r * d.chosen.c
+                chart_input["rc_label"] = f"{format_si(d.chosen.r, 'ohm')}, {format_si(d.chosen.c, 'F')}"
     actuation = None if opts.actuation is None else opts.actuation - 1
-    chart = chart_data(cap, trace, measured, tau_s=tau, actuation=actuation)
+    chart = chart_data(cap, trace, measured, tau_s=tau, actuation=actuation, **chart_input)
     return ScopeResult(doc, chart, measured)
 
 

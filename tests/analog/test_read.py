@@ -189,10 +189,12 @@ def test_bad_input_is_one_clear_line(tmp_path, text, message):
 
 
 def _fixed_block(path, layout) -> list[np.ndarray] | None:
-    """The byte-matrix reader's columns for the whole data of `path` as one block (None: not fixed)."""
+    """The block reader's columns for the whole data of `path` as one block, every line of one length
+    and layout read at fixed places (None: not fixed)."""
     buf = bytearray(csv_reader._PAD) + path.read_bytes()[layout.data_offset :]
-    reader = csv_reader._FixedWidth(layout, list(range(layout.columns)))
-    return reader.parse(buf, csv_reader._PAD, len(buf))
+    reader = csv_reader._Reader(layout, list(range(layout.columns)))
+    got = reader._fixed(buf, csv_reader._PAD, len(buf))
+    return None if got is None else got[0]
 
 
 def _fixed_width_rows(n: int, decimal: str = ".") -> list[str]:

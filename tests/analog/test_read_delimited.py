@@ -1,7 +1,9 @@
-"""The delimited-lines reader (`_csv._Delimited`): lines of any length, each column in one printed form.
+"""The block reader on lines of any length (`_csv._Reader`, fields found by their delimiters): a column in
+one printed form, or each field in its own (numbers in their shortest form, as %g prints them).
 
 The reference for every value is Python's own `float()` on the printed text (correctly rounded decimal
-conversion); where the reader hands a block on to the general parse, the result must not change.
+conversion), and `numpy.loadtxt` on a small file; where the reader hands a block on to the general
+parse, the result must not change.
 """
 
 from __future__ import annotations
@@ -17,11 +19,13 @@ from benchlog.errors import DataError
 
 
 def _delimited_block(path, layout) -> list[np.ndarray] | None:
-    """The delimited reader's columns for the whole data of `path` as one block (None: not taken)."""
+    """The block reader's columns for the whole data of `path` as one block, fields found by their
+    delimiters (None: not taken)."""
     buf = bytearray(csv_reader._PAD) + path.read_bytes()[layout.data_offset :]
     if buf[-1] != 10:
         buf += b"\n"
-    got = csv_reader._Delimited(layout, list(range(layout.columns))).parse(buf, csv_reader._PAD, len(buf))
+    reader = csv_reader._Reader(layout, list(range(layout.columns)))
+    got = reader._delimited(buf, csv_reader._PAD, len(buf))
     return None if got is None else got[0]
 
 
@@ -107,10 +111,8 @@ def test_the_benchmark_shape_is_taken_and_exact(tmp_path):
     ("body", "why"),
     [
         ("1,2.5\n2,nan\n", "nan"),
-        ("1,2.5\n2,2.5e3\n", "a field in another form"),
-        ("1, 2.5\n2,3.5\n", "a blank"),
+        ("1,  2.5\n2,3.5\n", "two blanks"),
         ('1,"2.5"\n2,3.5\n', "a quote"),
-        ("1,123456789.5\n2,3.5\n", "more than 8 whole digits"),
     ],
 )
 def test_blocks_it_cannot_read_are_left_to_the_general_parse(tmp_path, body, why):
@@ -120,6 +122,81 @@ def test_blocks_it_cannot_read_are_left_to_the_general_parse(tmp_path, body, why
     cap = read_capture(str(path), time_column=None, interval_s=1.0)
     ref = [float(x.split(",")[1].strip().strip('"')) for x in body.splitlines()]  # reference: float()
     assert np.array_equal(cap.volts[1], ref, equal_nan=True)
+
+
+@pytest.mark.parametrize(
+    "body",
+    [
+        "1,2.5\n2,2.5e3\n",  # a field in another form
+        "1, 2.5\n2,3.5\n",  # a blank where a sign is not
+        "1,123456789.5\n2,3.5\n",  # more than 8 whole digits
+        "1,5\n2,-0.000123457\n3,4.99\n4,1e-07\n5,-12345.6\n6,.5\n7,5.\n8,+7E+300\n9,3.3e-310\n",
+    ],
+)
+def test_fields_each_in_its_own_form_are_read_field_by_field(tmp_path, body):
+    path = tmp_path / "x.csv"
+    path.write_text("t,v\n" + body)
+    got = _delimited_block(path, csv_reader.sniff(path))
+    assert got is not None
+    ref = np.array([float(x.split(",")[1]) for x in body.splitlines()])  # reference: Python's float()
+    assert _same_bits(got[1], ref)
+
+
+_SHORTEST = ["{!r}", "{:g}", "{:.3g}", "{:.12g}", "{:.4f}", "{:.2e}", "{:.9f}", "{:+g}"]
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    st.lists(
+        st.tuples(
+            st.floats(-1e5, 1e5, allow_nan=False),
+            st.sampled_from(_SHORTEST),
+            st.floats(allow_nan=False, allow_infinity=False, width=32),
+            st.sampled_from(_SHORTEST),
+        ),
+        min_size=1,
+        max_size=120,
+    ),
+    st.sampled_from([(",", ".", "\n"), (";", ",", "\n"), ("\t", ".", "\r\n")]),
+)
+def test_shortest_form_lines_are_exactly_float(tmp_path_factory, rows, convention):
+    # every field in its own form (repr, %g, fixed, scientific, any sign): each row picks a format per
+    # field, so no column has one printed form; reference: Python's float() on each field
+    delim, mark, eol = convention
+    texts = [(fa.format(a), fb.format(b)) for a, fa, b, fb in rows]
+    path = tmp_path_factory.mktemp("s") / "s.csv"
+    lines = [
+        f"{i}{delim}{x.replace('.', mark)}{delim}{y.replace('.', mark)}" for i, (x, y) in enumerate(texts)
+    ]
+    path.write_bytes((f"Sample Interval{delim}1e-6" + eol + eol.join(lines) + eol).encode())
+    got = _delimited_block(path, csv_reader.sniff(path))
+    assert got is not None  # taken by the vectorised reader, not the per-token general parse
+    for k in (0, 1):
+        ref = np.array([float(t[k]) for t in texts])  # reference: Python's float()
+        assert _same_bits(got[k + 1], ref)
+    cap = read_capture(str(path), time_column=0)
+    assert _same_bits(cap.volts[0], np.array([float(t[0]) for t in texts]))
+
+
+def test_shortest_form_capture_agrees_with_numpy_loadtxt(tmp_path):
+    # a small %g export (semicolons, decimal comma); reference: numpy.loadtxt on the same file, read with
+    # the decimal comma turned into a point (loadtxt's float conversion is correctly rounded)
+    rng = np.random.default_rng(17)
+    t = (np.arange(2000) - 700) * 1e-7
+    places = rng.integers(0, 6, (2000, 2))
+    v = np.array([[round(x, int(k)) for x, k in zip(r, p, strict=True)] for r, p in zip(
+        rng.normal(2.5, 2.6, (2000, 2)), places, strict=True)])  # fmt: skip
+    body = "".join(f"{a:g};{b:g};{c:g}\n" for a, (b, c) in zip(t, v, strict=True))
+    path = tmp_path / "g.csv"
+    path.write_text("Time [s];CH1;CH2\n" + body.replace(".", ","))
+    assert len({len(x) for x in body.splitlines()}) > 5
+    ref = np.loadtxt(body.splitlines(), delimiter=";")  # reference: numpy.loadtxt
+    got = _delimited_block(path, csv_reader.sniff(path))
+    assert got is not None
+    for k in range(3):
+        assert _same_bits(got[k], ref[:, k])
+    cap = read_capture(str(path))
+    assert _same_bits(cap.volts[0], ref[:, 1]) and _same_bits(cap.volts[1], ref[:, 2])
 
 
 @pytest.mark.parametrize(

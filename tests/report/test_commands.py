@@ -330,3 +330,29 @@ def test_data_checksum_follows_the_data(tmp_path):
         sums.append(data_checksum([ev.incumbent, ev.candidate]))
     assert sums[0] == sums[1]  # the same data in another file
     assert sums[0] != sums[2]  # other data
+
+
+def test_report_shows_analog_captures_measured_by_the_voltage_definitions(small_db, tmp_path):
+    import numpy as np
+
+    from benchlog.analog import render_contact
+
+    # a make at 1 ms whose contact reopens twice: closed at 1.0, 1.3 and 1.7 ms, open again at 1.2 and
+    # 1.5 ms (the truth the capture is rendered from), sampled at 1 MS/s
+    edges = np.array([1.0e6, 1.2e6, 1.3e6, 1.5e6, 1.7e6])
+    v = render_contact(edges, np.array([1, 0, 1, 0, 1]), 0, start_ns=0.0, dt_ns=1000.0, n=8000)
+    folder = tmp_path / "captures"
+    folder.mkdir()
+    np.savez(folder / "make.npz", dt=np.float64(1e-6), contact=v)
+    out = tmp_path / "r.html"
+    argv = ["report", "--db", small_db, "--incumbent", "AG-MS5", "--candidate", "VS-505", "-o", str(out)]
+    assert main([*argv, "--captures", str(folder)]) in (0, 1, 2)
+    text = out.read_text()
+    assert "<h2>Analog captures</h2>" in text and '<img alt="capture make.npz"' in text
+    row = re.search(r"<td>make</td><td[^>]*>([\d.]+)</td><td[^>]*>([\d.]+)</td><td[^>]*>(\d+)</td>", text)
+    assert row is not None
+    # bounce from the first touch to the last closure: 700 us, within a sample interval (1 us) of the
+    # rendered truth; two reopenings
+    assert abs(float(row.group(2)) - 700.0) <= 1.0 and row.group(3) == "2"
+    (tmp_path / "empty").mkdir()
+    assert main([*argv, "--force", "--captures", str(tmp_path / "empty")]) == 10

@@ -23,6 +23,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         default="qualification.html",
     )
     p.add_argument("--force", action="store_true", help="replace FILE if it exists")
+    p.add_argument(
+        "--captures",
+        nargs="+",
+        metavar="PATH",
+        help="analog captures (CSV, .npz, WAV, or a folder of them) to show, measured by the voltage "
+        "definitions as benchlog scope does",
+    )
     add_quality_file(p)
 
 
@@ -99,7 +106,12 @@ def run(args: argparse.Namespace) -> int:
     if Path(args.output).exists() and not args.force:
         raise UsageError(f"{args.output} exists: give --force to replace it, or -o another file")
     ev = evaluate(args, with_runs=True)
-    write_report(args.output, ev, report_info(args), pdf=args.pdf)
+    captures = None
+    if args.captures:
+        from benchlog.views.report._captures import capture_figures
+
+        captures = capture_figures(args.captures)
+    write_report(args.output, ev, report_info(args), pdf=args.pdf, captures=captures)
     q = ev.qualification
     print(f"wrote {args.output}: verdict {q.outcome} (exit {q.exit_code})")
     return q.exit_code

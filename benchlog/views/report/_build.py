@@ -127,7 +127,14 @@ def pdf_wanted(path: str, pdf: bool) -> bool:
     return pdf or path.lower().endswith(".pdf")
 
 
-def write_report(path: str, ev: Evaluation, info: ReportInfo | None = None, *, pdf: bool = False) -> None:
+def write_report(
+    path: str,
+    ev: Evaluation,
+    info: ReportInfo | None = None,
+    *,
+    pdf: bool = False,
+    captures: list | None = None,
+) -> None:
     """Render and write the report: HTML, or PDF when `pdf` is set or the name ends in .pdf (laid out
     by WeasyPrint from the same page and its print styles; no browser involved). Written beside the
     target and renamed, so a failed write never replaces a good report."""
@@ -146,6 +153,7 @@ def write_report(path: str, ev: Evaluation, info: ReportInfo | None = None, *, p
         spec=ev.spec,
         store=ev.store,
         info=info,
+        captures=captures,
     )
     if as_pdf:
         data = _pdf_bytes(page)

@@ -86,6 +86,35 @@ def _img(plot: Plot, alt: str) -> str:
     )
 
 
+def _captures_section(captures: list) -> str:
+    """Analog captures given with the report: per file its actuations by the voltage definitions and
+    the figure of one of them."""
+    out = [
+        "<h2>Analog captures</h2>",
+        '<p class="small">Oscilloscope or ADC captures given with this report, measured by the voltage '
+        "definitions (edges where the voltage across the contact crosses two thresholds, each state held "
+        "a minimum time), as <span class=mono>benchlog scope</span> measures them. Each figure shows one "
+        "actuation: the voltage, both thresholds, the derived edges and the bounce.</p>",
+    ]
+    for c in captures:
+        rows = [
+            [
+                escape(r["kind"]),
+                _num(r["t_first_ms"], "{:.3f}"),
+                _num(r["bounce_us"], "{:.1f}"),
+                str(r["bounce_count"]),
+                str(r["chatter"]),
+                escape(", ".join(r["flags"]) or "-"),
+            ]
+            for r in c.rows
+        ]
+        table = _table(["actuation", "first ms", "bounce us", "bounces", "chatter", "flags"], rows)
+        head = f"<h3>{escape(c.name)}</h3><p class=small>Edges by {escape(c.rule)}.</p>"
+        out.append(_keep(head, _img(c.plot, f"capture {c.name}")))
+        out.append(table)
+    return "".join(out)
+
+
 def _keep(*blocks: str) -> str:
     """Blocks printed on one page (a heading with its figure, a figure with its caption)."""
     return '<div class="keep">' + "".join(blocks) + "</div>"
@@ -610,6 +639,7 @@ def render_report(
     spec=None,
     store: str = "",
     info: ReportInfo | None = None,
+    captures: list | None = None,
 ) -> str:
     info = info or ReportInfo()
     created = created or datetime.now(UTC)
@@ -721,6 +751,8 @@ def render_report(
     h.append(_life_section(q, lots, "<h2>Life</h2>"))
     h.append("<h2>Runs and incidents</h2>")
     h.append(_runs_section(lots))
+    if captures:
+        h.append(_captures_section(captures))
     h.append(_keep("<h2>Spec used</h2>", f"<p>{escape(spec_name)}</p>"))
     h.append(f"<pre>{escape(spec_text)}</pre>")
     h.append(
