@@ -23,11 +23,18 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
 GPD_MIN = 500
 LOGNORMAL_MIN = 20
 _BOOT = 200
+
+
+def _stats():
+    """scipy.stats, imported on first use: the analog package and the demo import this module's
+    package without fitting a tail (scipy.stats costs a process over a second of CPU to import)."""
+    from scipy import stats
+
+    return stats
 
 
 def zero_event_bound(n: int, confidence: float = 0.95) -> float:
@@ -81,13 +88,13 @@ class Tail:
 
     def _sf(self, x: np.ndarray, frac, shape, scale) -> np.ndarray:
         if self.model == "generalized Pareto":
-            tail = frac * stats.genpareto.sf(np.maximum(x - self.threshold, 0.0), shape, scale=scale)
+            tail = frac * _stats().genpareto.sf(np.maximum(x - self.threshold, 0.0), shape, scale=scale)
             emp = np.mean(self.values[None, :] > np.atleast_1d(x)[:, None], axis=1).reshape(np.shape(x))
             return np.where(x > self.threshold, tail, emp)
         if self.model == "lognormal":
             with np.errstate(divide="ignore"):
                 z = (np.log(np.maximum(x, 1e-300)) - scale) / shape
-            return frac * stats.norm.sf(z)
+            return frac * _stats().norm.sf(z)
         return np.mean(self.values[None, :] > np.atleast_1d(x)[:, None], axis=1).reshape(np.shape(x))
 
     def sf(self, x: float | np.ndarray) -> np.ndarray:
@@ -104,11 +111,11 @@ class Tail:
     def isf(self, p: float) -> float:
         """Smallest figure (ns) whose estimated exceedance probability is at most `p`."""
         if self.model == "generalized Pareto" and p < self.frac:
-            return float(self.threshold + stats.genpareto.isf(p / self.frac, self.shape, scale=self.scale))
+            return float(self.threshold + _stats().genpareto.isf(p / self.frac, self.shape, scale=self.scale))
         if self.model == "lognormal":
             if p >= self.frac:
                 return 0.0
-            return float(np.exp(self.scale + self.shape * stats.norm.isf(p / self.frac)))
+            return float(np.exp(self.scale + self.shape * _stats().norm.isf(p / self.frac)))
         return float(np.quantile(self.values, 1.0 - p)) if len(self.values) else 0.0
 
 

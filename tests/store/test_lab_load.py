@@ -17,7 +17,7 @@ def lab_db(request, tmp_path):
 
 def test_a_shared_store_under_load_loses_nothing_and_stays_sound(lab_db, tmp_path):
     fig = run_lab(
-        lab_db, benches=2, sampler_s=30.0, speed=2.0, kill_every_s=10.0, check_every_s=3.0, workdir=tmp_path
+        lab_db, benches=2, sampler_s=20.0, speed=2.0, kill_every_s=8.0, check_every_s=3.0, workdir=tmp_path
     )
     assert len(fig["kills"]) >= 1
     # the simulator drives each unit through exactly the run's target: one make and one break a cycle.
