@@ -7,7 +7,7 @@ import numpy as np
 from matplotlib.image import imread
 
 from benchlog.stats import LifeTable, UnitSample, fit_weibull
-from benchlog.views.report._plots import ecdf_png, suspension_marks, weibull_png
+from benchlog.views.report._plots import ecdf_png, suspension_marks, trend_png, weibull_png
 
 LIMIT_RED = np.array([0xB2, 0x22, 0x22]) / 255  # the colour the limit line is drawn in
 
@@ -58,3 +58,11 @@ def test_distribution_axis_shows_the_limit_and_the_upper_tail():
     assert lo <= 0 and 3.0 < hi < 6.0  # ms: past the limit, not out to the 18 ms outliers
     assert np.percentile(values, 99.9) / 1e3 < hi  # the upper tail is in view
     assert plot.requirement == 3.0 and len(_red_columns(plot.png)) > 0
+
+
+def test_a_trend_with_too_few_windows_is_drawn_as_a_note_not_an_empty_legend():
+    # a short run (the demo at 200 cycles) has one window per unit: `report` failed with matplotlib's
+    # "no artists with labels" warning (an error in the suite, and an empty legend box for a user)
+    one = (np.array([100]), np.array([0.0004]))
+    plot = trend_png("make_bounce", [("N01", 0, *one), ("N02", 1, *one)], ["AG-MS5", "VS-505"], None, 95)
+    assert imread(io.BytesIO(plot.png)).shape[0] > 100

@@ -20,7 +20,9 @@ def test_db_status_and_upgrade(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "revision  0001" in out and "pending   0002" in out
     assert main(["db", "upgrade", "--db", db]) == 0
-    assert "upgraded from 0001 to 0007 (0002, 0003, 0004, 0005, 0006, 0007)" in capsys.readouterr().out
+    head = head_revision()
+    steps = ", ".join(f"{n:04d}" for n in range(2, int(head) + 1))
+    assert f"upgraded from 0001 to {head} ({steps})" in capsys.readouterr().out
     assert main(["db", "status", "--db", db]) == 0
     assert main(["db", "upgrade", "--db", db]) == 0
     assert f"already at revision {head_revision()}" in capsys.readouterr().out

@@ -295,12 +295,14 @@ def run(args: argparse.Namespace) -> int:
     t0 = time.monotonic()
     jobs, stop, thread = start_demo(db, args.cycles, args.seed)
     try:
-        captures = write_captures(folder, args.seed)  # while the benches record
+        # while the benches record; a stop signal meanwhile ends their runs as "stopped", as below
+        with stop_signals(stop):
+            captures = write_captures(folder, args.seed)
     except BaseException:
         stop.set()
         _finish(thread)
         raise
-    if args.no_dash or not sys.stdout.isatty():
+    if args.no_dash or not sys.stdout.isatty() or stop.is_set():
         # Ctrl-C, SIGTERM or SIGHUP: the recording ends its run as "stopped" however long that takes
         # on a loaded machine; a second signal stops at once
         with stop_signals(stop):

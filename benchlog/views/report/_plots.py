@@ -121,9 +121,15 @@ def ecdf_png(
     tail.set_ylim(floor / 2, 1.0)
     tail.set_ylabel("share above (log scale)")
     tail.set_title("upper tail", fontsize=9)
-    ax.legend(loc="lower right", fontsize=7.5, frameon=True, framealpha=0.9, edgecolor="#dddddd")
+    _legend(ax, loc="lower right", fontsize=7.5, frameon=True, framealpha=0.9, edgecolor="#dddddd")
     fig.tight_layout()
     return Plot(_png(fig), (x_lo, x_hi), limit * k if limit is not None else None)
+
+
+def _legend(ax, **kw) -> None:
+    """The axes' legend, when anything drawn has a label (an empty legend is a warning, and a box)."""
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(**kw)
 
 
 def trend_png(
@@ -157,8 +163,18 @@ def trend_png(
         ax.axhline(limit * k, color="#b22222", linestyle="--", linewidth=1.2, label="limit")
     ax.set_xlabel("life cycles")
     ax.set_ylabel(f"p{percentile:g} {m.label} ({m.display_unit})")
+    if not seen:
+        ax.text(
+            0.5,
+            0.5,
+            "no unit has two windows of cycles yet: no trend to draw",
+            transform=ax.transAxes,
+            ha="center",
+            va="center",
+            color="#555555",
+        )
     _style(ax)
-    ax.legend(loc="best", fontsize=8, frameon=True, framealpha=0.9, edgecolor="#dddddd")
+    _legend(ax, loc="best", fontsize=8, frameon=True, framealpha=0.9, edgecolor="#dddddd")
     fig.tight_layout()
     lo, hi = ax.get_xlim()
     return Plot(_png(fig), (float(lo), float(hi)))
@@ -245,7 +261,7 @@ def weibull_png(
     ax.set_xlabel("cycles (log scale); ticks along the bottom: suspensions, a number beside one counts units")
     ax.set_ylabel("share failed (Weibull scale)")
     _style(ax)
-    ax.legend(loc="upper left", fontsize=8, frameon=True, framealpha=0.9, edgecolor="#dddddd")
+    _legend(ax, loc="upper left", fontsize=8, frameon=True, framealpha=0.9, edgecolor="#dddddd")
     fig.tight_layout()
     lo, hi = ax.get_xlim()
     return Plot(_png(fig), (float(lo), float(hi)), float(life) if life else None)
