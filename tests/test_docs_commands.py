@@ -115,7 +115,8 @@ def test_every_docs_command_runs_on_the_demo(demo_folder, monkeypatch, capsys):
         err = capsys.readouterr().err
         said = f"{name}: {shlex.join(argv)}\n{err}"
         assert "Traceback" not in err and "internal error" not in err, said
-        assert code == 0, said
+        judged = argv[1] in ("qualify", "report")  # their exit status is the verdict (docs/commands.md)
+        assert code in ((0, 1, 2) if judged else (0,)), said
         ran += 1
     assert ran >= 10
     assert set(PARSED_ONLY) <= {shlex.join(a[1:]) for _, a in docs_commands()}  # none stale
