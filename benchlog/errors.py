@@ -6,6 +6,7 @@ BenchlogError                 any error benchlog reports to a user
  +-- ProtocolError            the sampler spoke something the host cannot work with at all
  +-- StoreError               the database cannot be opened, migrated, read or written
  |    +-- StoreBusyError      another recorder holds the run or bench
+ |    +-- StoreUnreachable    no connection to the database server (it may come back)
  +-- SpecError                a part spec file is missing or malformed (names file, key, expectation)
  +-- ConfigError              a malformed or unusable configuration or input file (preset, settings)
  +-- DataError                not enough or inconsistent data for the asked analysis
@@ -47,6 +48,10 @@ class StoreBusyError(StoreError):
     exit_code = 7
 
 
+class StoreUnreachable(StoreError):
+    """No connection could be made to the database: an outage, not a wrong or damaged database."""
+
+
 class SpecError(BenchlogError):
     exit_code = 8
 
@@ -71,6 +76,7 @@ __all__ = [
     "ProtocolError",
     "StoreError",
     "StoreBusyError",
+    "StoreUnreachable",
     "SpecError",
     "ConfigError",
     "DataError",

@@ -12,7 +12,7 @@ from alembic.script import ScriptDirectory
 from sqlalchemy import Engine
 from sqlalchemy.exc import SQLAlchemyError
 
-from benchlog.errors import StoreError
+from benchlog.errors import StoreError, StoreUnreachable
 
 
 def migrations_dir() -> Path:
@@ -39,7 +39,12 @@ def head_revision() -> str:
 
 def current_revision(engine: Engine) -> str | None:
     try:
-        with engine.connect() as conn:
+        conn = engine.connect()
+    except SQLAlchemyError as exc:
+        # no connection at all (a server restarting, a network cut): an outage, not a wrong database
+        raise StoreUnreachable(f"cannot connect: {exc.orig if exc.orig else exc}") from exc
+    try:
+        with conn:
             return MigrationContext.configure(conn).get_current_revision()
     except SQLAlchemyError as exc:
         raise StoreError(f"cannot read the schema revision: {exc.orig if exc.orig else exc}") from exc

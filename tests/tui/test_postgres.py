@@ -19,6 +19,7 @@ from textual.widgets import DataTable
 
 from benchlog.views.tui import BenchDashboard
 from benchlog.views.tui._runs import RunsScreen
+from benchlog.views.tui._source import Problem, StoreSource
 from tests.conftest import need_postgres_url
 
 from ._build import build
@@ -137,3 +138,29 @@ async def test_server_outage_is_shown_and_survived(pg_schema):
         assert scr.problem is None and table.row_count == 2
         assert app.source.reconnects >= 1
     relay.cut()
+
+
+def test_a_server_gone_while_the_store_reopens_is_an_outage_not_a_wrong_database(pg_schema):
+    # the first read after the cut fails on the live connection and drops the store; the next one
+    # reopens it and cannot connect at all. That second failure was shown as "not a current benchlog
+    # database" (kind no_schema): a loaded CI run caught the dashboard test in that second read.
+    base, schema = pg_schema
+    build(_with_schema(base, schema), cycles=100)
+    u = make_url(base)
+    relay = Relay(u.host or "127.0.0.1", u.port or 5432)
+    source = StoreSource(_with_schema(u.set(port=relay.port).render_as_string(hide_password=False), schema))
+    try:
+        assert source.read(lambda store: len(store.runs())) == 2
+        relay.cut()
+        kinds = []
+        for _ in range(3):
+            got = source.read(lambda store: len(store.runs()))
+            assert isinstance(got, Problem), got
+            kinds.append(got.kind)
+        assert kinds == ["outage"] * 3
+        relay.restore()
+        assert source.read(lambda store: len(store.runs())) == 2
+        assert source.reconnects == 1
+    finally:
+        source.close()
+        relay.cut()

@@ -15,7 +15,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from benchlog.errors import BenchlogError, DataError
+from benchlog.errors import BenchlogError, DataError, StoreUnreachable
 from benchlog.store import Store, resolve_url
 
 
@@ -79,6 +79,9 @@ class StoreSource:
                 f"No benchlog database at {self.shown} yet. Record a run with `benchlog record`, "
                 "or try `benchlog demo`."
             )
+        elif isinstance(exc, StoreUnreachable):
+            kind = "outage"
+            message = f"Cannot reach {self.shown}: {text}"
         elif "schema" in text or "revision" in text:
             kind = "no_schema"
             message = f"Not a current benchlog database: {text}"
