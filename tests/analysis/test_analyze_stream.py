@@ -10,26 +10,16 @@ import pytest
 
 from benchlog.analysis import Summaries, load_spec, summarize
 from benchlog.analysis._summary import ValueCounts
-from benchlog.sim import Bench, load_preset
+from benchlog.sim import load_preset
 from benchlog.views.cli.cmd_analyze import analyze_file
-from benchlog.wire import Go, Plan
+from tests.clock.test_clock_replay import recording
 
 S = 1_000_000_000
 
 
 def capture(tmp_path, cfg, seconds: float):
-    bench = Bench(cfg, 8)
-    recs = bench.advance_to(0)
-    for ch in bench.units:
-        recs += bench.command(Plan(ch, 20_000, 20_000, 0))
-    recs += bench.command(Go())
-    data = bytearray(bench.encode(recs))
-    t = 0
-    while t < seconds * S:
-        t += S // 4
-        data += bench.encode(bench.advance_to(t))
     path = tmp_path / "capture.bin"
-    path.write_bytes(bytes(data))
+    path.write_bytes(recording(cfg, seconds, seed=8))
     return path
 
 
