@@ -11,7 +11,7 @@ verdict, reason = unit_verdict(rows[rows["channel"] == 0], spec)
 Definitions of every metric: docs/metrics.md; the spec file format: docs/spec.md.
 """
 
-from benchlog.analysis._analyzer import Analyzer, AnalyzerCounters, blank_incomplete, measure
+from benchlog.analysis._analyzer import Analyzer, AnalyzerCounters, blank_incomplete, measure, power_off_ns
 from benchlog.analysis._drift import (
     DRIFT_METRICS,
     DRIFT_POINTS,
@@ -104,6 +104,7 @@ __all__ = [
     "WINDOW_DTYPE",
     "baseline",
     "blank_incomplete",
+    "power_off_ns",
     "coarse_windows",
     "cusum",
     "drift",

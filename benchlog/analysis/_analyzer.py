@@ -9,6 +9,17 @@ that could change it can still arrive. Memory is the chunk plus one actuation pe
 
 Because emission only ever happens for windows the later data cannot touch, and the cut always falls on
 a glitch-run boundary, the result does not depend on how the stream was chunked.
+
+A sampler reset (a RESET incident) is a stretch in which nothing was seen, and the sampler comes back
+with every actuator off: a closed contact whose coil lost power opened unseen. So at a reset every driven
+channel's drive goes off (`power_off_ns`: just after the last record heard before it; a channel already
+off repeats its level, which switches nothing), and the contact's level is not carried over: as at the
+start of data, the first edge after the reset tells the level before it. When that edge repeats the last
+level heard before the reset, the contact moved while the sampler was off, and an edge to the other level
+is placed at the power loss (in the window the reset cuts, which is not measured). Only this one window's
+flags can depend on the chunking: when it is emitted before any edge after the reset has arrived, the
+level is changed from the next window on instead. A cable pulled from a sampler that keeps running (a
+DISCONNECT, no reset) keeps the contact's level: edges lost in it show as repeated levels.
 """
 
 from __future__ import annotations
@@ -29,7 +40,7 @@ from benchlog.analysis._types import (
     MAKE,
     empty_actuations,
 )
-from benchlog.events import Incident, TimedDrives, TimedEdges
+from benchlog.events import RESET, Incident, TimedDrives, TimedEdges
 
 _FAR = np.iinfo(np.int64).max // 4
 _I64 = np.zeros(0, np.int64)
@@ -51,6 +62,8 @@ class _Channel:
     cycle_base: int = 0
     done_until: int = -_FAR  # every actuation starting before this has been emitted
     late_edges: int = 0
+    # resets whose first edge after them has not arrived: (last run time before, power off)
+    unsure: list[tuple[int, int]] = field(default_factory=list)
 
 
 @dataclass(slots=True)
@@ -89,6 +102,7 @@ class Analyzer:
         self._incidents: list[Incident] = []
         self._max_t = -_FAR
         self._held: dict[int, np.ndarray] = {}  # form C rows waiting for their partner's row
+        self._drive_sources: set[int] = set()  # channels drive records came for
         self._window_end: dict[int, np.ndarray] = {}
 
     # -- public -------------------------------------------------------------------------------------
@@ -103,13 +117,15 @@ class Analyzer:
         """Take one chunk; return the actuations finished by it (sorted by start time)."""
         edges = edges if edges is not None else TimedEdges.empty()
         drives = drives if drives is not None else TimedDrives.empty()
+        incidents = list(incidents)
         self._incidents.extend(incidents)
         for arr in (edges.t_ns, drives.t_ns):
             if len(arr):
                 self._max_t = max(self._max_t, int(arr.max()))
         for inc in self._incidents:
             self._max_t = max(self._max_t, int(inc.t_end_ns))
-        self._take(edges, drives)
+        resets = sorted((int(i.t_start_ns), power_off_ns(i)) for i in incidents if i.kind == RESET)
+        self._take(edges, drives, resets)
         horizon = self._max_t - self.settings.lateness_ns
         if until_ns is not None:
             horizon = max(horizon, int(until_ns))
@@ -129,9 +145,18 @@ class Analyzer:
             self._channels[c] = ch
         return ch
 
-    def _take(self, edges: TimedEdges, drives: TimedDrives) -> None:
+    def _take(self, edges: TimedEdges, drives: TimedDrives, resets: list[tuple[int, int]]) -> None:
         self.counters.edges_in += len(edges)
         self.counters.drives_in += len(drives)
+        if resets:
+            if self.settings.mode != "free":
+                drives = self._power_offs(drives, resets)
+            for c in np.unique(np.concatenate((edges.channel, drives.channel))).tolist():
+                self._chan(int(c))
+            for ch in self._channels.values():
+                ch.unsure.extend(resets)
+        if len(drives):
+            self._drive_sources.update(np.unique(drives.channel).tolist())
         if len(edges):
             order = np.argsort(edges.channel, kind="stable")
             chans = edges.channel[order]
@@ -148,6 +173,21 @@ class Analyzer:
                     targets.append(partner)
                 for target in targets:
                     self._take_drives(self._chan(target), drives.t_ns[sel], drives.level[sel])
+
+    def _power_offs(self, drives: TimedDrives, resets: list[tuple[int, int]]) -> TimedDrives:
+        """`drives` and a drive-off at each reset's power loss for every channel driven before it."""
+        t, c = [drives.t_ns], [drives.channel]
+        for _, t_off in resets:
+            chans = self._drive_sources | set(np.unique(drives.channel[drives.t_ns < t_off]).tolist())
+            t.append(np.full(len(chans), t_off, np.int64))
+            c.append(np.array(sorted(chans), np.uint8))
+        t_all, c_all = np.concatenate(t), np.concatenate(c)
+        lv = np.concatenate((drives.level, np.zeros(len(t_all) - len(drives), np.uint8)))
+        cyc = drives.cycle
+        if cyc is not None:
+            cyc = np.concatenate((cyc, np.full(len(t_all) - len(drives), -1, np.int64)))
+        order = np.argsort(t_all, kind="stable")
+        return TimedDrives(t_all[order], c_all[order], lv[order], None if cyc is None else cyc[order])
 
     def _take_edges(self, ch: _Channel, t: np.ndarray, lv: np.ndarray) -> None:
         t = t.astype(np.int64, copy=False)
@@ -168,9 +208,32 @@ class Analyzer:
             order = np.argsort(t_all, kind="stable")
             t_all, lv_all = t_all[order], lv_all[order]
             ch.level_before = 1 - int(lv_all[0]) if ch.done_until == -_FAR else ch.level_before
+        if ch.unsure:
+            t_all, lv_all = self._after_resets(ch, t_all, lv_all)
         before = len(t_all)
         ch.t, ch.lv = dedupe(t_all, lv_all, int(ch.level_before))
         self.counters.repeated_levels += before - len(ch.t)
+
+    def _after_resets(self, ch: _Channel, t: np.ndarray, lv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The contact's level across each reset, from the first edge after it (see the module doc)."""
+        while ch.unsure:
+            t_last, t_off = ch.unsure[0]
+            i = int(np.searchsorted(t, t_last, "right"))  # the first edge the restarted sampler sent
+            if i == len(t):
+                break  # no edge since the reset yet
+            ch.unsure.pop(0)
+            prev = int(lv[i - 1]) if i else ch.level_before
+            if prev is None or prev != int(lv[i]):
+                continue
+            # the contact moved while the sampler was off (a closed contact opens with its coil)
+            moved = 1 - int(lv[i])
+            if i == 0 and t_off < ch.done_until:
+                ch.level_before = moved  # the window the reset cut is emitted: from the next one on
+            else:
+                at = t_off if i == 0 else max(t_off, int(t[i - 1]) + 1)
+                t = np.insert(t, i, at)
+                lv = np.insert(lv, i, np.uint8(moved))
+        return t, lv
 
     def _take_drives(self, ch: _Channel, t: np.ndarray, lv: np.ndarray) -> None:
         t = t.astype(np.int64, copy=False)
@@ -442,6 +505,12 @@ def _transfer(mine: np.ndarray, other: np.ndarray, tol: int) -> None:
     break_settle = np.where(mine["kind"] == BREAK, mine["t_settle_ns"], o["t_settle_ns"])
     ok &= (make_first >= 0) & (break_settle >= 0)
     mine["transfer_us"] = np.where(ok, (make_first - break_settle) / 1e3, mine["transfer_us"])
+
+
+def power_off_ns(reset: Incident) -> int:
+    """Run time at which a sampler reset's power loss is placed: just after the last record heard before
+    it (the RESET incident's start), never after the first record of the restarted sampler."""
+    return min(int(reset.t_start_ns) + 1, int(reset.t_end_ns))
 
 
 def blank_incomplete(rows: np.ndarray) -> np.ndarray:

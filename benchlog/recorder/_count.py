@@ -16,9 +16,10 @@ run cycle `base + c - 1` (0-based), and a count `n` means `base + n` run cycles 
 - A sampler reset ends the plan (its count starts again from 0): the run cycles done so far become the
   base, and the recorder plans the cycles still due again (`replan`, `started`). A cycle whose drive-on
   was heard and whose drive-off was not (power failed within it) is done: its coil was energised. Its
-  actuator went off with the power, so a drive-off is placed just after the last record heard before the
-  reset (`cut_off`, for the analysis): its make and break overlap the reset and are not measured, and the
-  first drive-on of the new plan starts a make again (a drive repeating the last level switches nothing).
+  actuator went off with the power: the analysis places a drive-off just after the last record heard
+  before the reset (`power_off_ns`), and the break it starts is numbered with the cycle here; its make
+  and break overlap the reset and are not measured, and the first drive-on of the new plan starts a make
+  again, from the contact's level after the reset.
 - A cycle whose drive records were damaged may get no actuation row although its drive-on arrived (the
   analysis measures from drive to drive: a lost drive-off merges the cycle with the next one, and the
   last drive of a channel is measured only when a later one comes, or at the end of data). Such cycles
@@ -34,6 +35,7 @@ from collections import deque
 
 import numpy as np
 
+from benchlog.analysis import power_off_ns
 from benchlog.events import CYCLES_NOT_OBSERVED, RESET, Incident
 from benchlog.wire import GoAccepted
 
@@ -61,7 +63,6 @@ class SamplerCount:
         self._host_last = 0
         self.replan = False  # a reset ended the sampler's plans: plan the cycles still due again
         self._on: dict[int, int] = {}  # channel -> run cycle of a drive-on heard with no drive after it
-        self.cut_off: list[tuple[int, int]] = []  # (t_ns, channel): drive-offs a reset made, for analysis
         self.not_observed = 0
 
     # -- feeding ------------------------------------------------------------------------------------
@@ -91,7 +92,7 @@ class SamplerCount:
         host = item_host(timed)
         for t, kind, item in events:
             if kind == 0:
-                self._reset(int(item.t_start_ns), t)  # type: ignore[attr-defined]
+                self._reset(power_off_ns(item), t)  # type: ignore[arg-type]
             elif kind == 1:
                 self._go(t, item.record.channels)  # type: ignore[attr-defined]
             elif kind == 2:
@@ -104,12 +105,10 @@ class SamplerCount:
         self._host_last = host
         return out
 
-    def _reset(self, t_last: int, t: int) -> None:
-        """The sampler restarted between run times `t_last` (the last record heard) and `t`."""
-        off = min(t_last + 1, t)
+    def _reset(self, off: int, t: int) -> None:
+        """The sampler lost power at run time `off` and restarted by `t`."""
         for ch, k in sorted(self._on.items()):  # the power went, and the actuator with it
             self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES)).append((off, k))
-            self.cut_off.append((off, ch))
         self._on.clear()
         for ch in list(self.base):
             b = self.base[ch]

@@ -21,7 +21,7 @@ import numpy as np
 
 from benchlog.analysis import AnalysisSettings, Analyzer, judge
 from benchlog.errors import PortError, StoreError
-from benchlog.events import EVENT_COMMAND, Incident, TimedDrives
+from benchlog.events import EVENT_COMMAND, Incident
 from benchlog.store import (
     END_ALL_FAILED,
     END_IDLE,
@@ -148,12 +148,9 @@ class Recorder:
             if len(t):
                 self._heard_ns = max(self._heard_ns, int(np.max(t)))
         unseen = self.count.push(timed)
-        drives = timed.drives
-        if self.count.cut_off:  # a reset cut cycles short: their actuators went off with the power
-            drives = _with_drive_offs(drives, self.count.cut_off)
-            self.count.cut_off = []
+        # a reset's drive-offs (the actuators went off with the power) are placed by the analysis
         rows, numbered = self.count.number(
-            self.analyzer.push(timed.edges, drives, timed.incidents, until_ns=until)
+            self.analyzer.push(timed.edges, timed.drives, timed.incidents, until_ns=until)
         )
         unseen += self.count.holes(rows, numbered)
         self._take(rows, timed.edges if self.keep_edges else None, list(timed.incidents) + unseen, numbered)
@@ -320,7 +317,10 @@ class Recorder:
     def finish(self, reason: str, detail: str = "") -> None:
         """End of data: finish the analysis, judge the last cycles, write everything, end the run."""
         self._batch_at = datetime.now(UTC)
-        rows, numbered = self.count.number(self.analyzer.flush())
+        # the data ran as long as the sampler's records say (its beats too): a last actuation that settled
+        # before the end of them is measured, not cut short by the end of data
+        heard = self._heard_ns + 1 if self._heard_ns >= 0 else None
+        rows, numbered = self.count.number(self.analyzer.flush(until_ns=heard))
         self._take(rows, None, self.count.holes(rows, numbered), numbered)
         # cycles the sampler completed and the analysis measured nothing of: reported, and counted
         self._take(rows[:0], None, self.count.settle())
@@ -428,18 +428,6 @@ class Recorder:
         if on_progress:
             on_progress(self.progress(getattr(feed, "connected", True)))
         return reason
-
-
-def _with_drive_offs(drives: TimedDrives, offs: list[tuple[int, int]]) -> TimedDrives:
-    """`drives` and drive-offs at (t_ns, channel), in time order (they carry no sampler cycle)."""
-    t = np.concatenate((drives.t_ns, np.array([o[0] for o in offs], np.int64)))
-    ch = np.concatenate((drives.channel, np.array([o[1] for o in offs], np.uint8)))
-    lv = np.concatenate((drives.level, np.zeros(len(offs), np.uint8)))
-    cyc = None
-    if drives.cycle is not None:
-        cyc = np.concatenate((drives.cycle, np.full(len(offs), -1, np.int64)))
-    order = np.argsort(t, kind="stable")
-    return TimedDrives(t[order], ch[order], lv[order], None if cyc is None else cyc[order])
 
 
 def _halt(feed) -> None:

@@ -7,38 +7,52 @@ not through a pty: the host's clock follows the sampler's, so the power fails at
 cycle, after the host heard everything sent before it (a bus-powered board on a pulled cable; the port's
 outage is noted as the feed notes it). The commands the recorder owes the sampler after the reset go to
 the simulated sampler through `Recorder.send_pending`, as they go to a port.
+
+The power cut also releases every closed contact while the sampler is blind: every actuation outside the
+cycle the cut fell in must be measured as the simulator's truth says (`Truth.actuations`), the first cycle
+planned again included, at every point of a cycle the power can fail and in both wire forms. A cable
+pulled from a self-powered board (no reset) must keep the contact's state across the outage.
 """
 
 from __future__ import annotations
 
 import re
 
+import numpy as np
 import pytest
 
-from benchlog.analysis import load_spec
+from benchlog.analysis import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE, NO_VERDICT, STUCK, load_spec
 from benchlog.clock import Timeline
-from benchlog.events import CYCLES_NOT_OBSERVED, RESET
+from benchlog.events import CYCLES_NOT_OBSERVED, DISCONNECT, RESET
 from benchlog.recorder import Recorder
 from benchlog.sim import Bench
 from benchlog.store import Store
-from benchlog.wire import Go, Plan
+from benchlog.wire import Decoder, Go, Plan
 from tests.recorder._helpers import demo_config, start_run
 
 MS = 1_000_000
 ON_US = OFF_US = 50_000  # cycle k (1-based) switches on at (k - 1) * 100 ms + 0.1 ms (GO starts 0.1 ms on)
 TARGET = 100
 CHANNELS = (0, 1)
+CUT_CYCLE = 31  # the cuts fall in cycle 31 (1-based), which switches on at 3,000.1 ms
+CUT_CYCLE_ON_MS = (CUT_CYCLE - 1) * 100 + 0.1
+KINDS = {"make": MAKE, "break": BREAK}
+FLUSH_MS = 500
 # the demo units (seed 5) operate 4.3-8.7 ms and release 2.5-5.6 ms after their drive
 
 
 class _Host:
     """The recorder's side of the sampler: records placed by the recorder's own timeline at host time =
-    sampler time, in steps of `step_ms` each followed by a commit; commands written to the sampler."""
+    sampler time, in steps of `step_ms`, committed every `FLUSH_MS` of sampler time (the recorder's own
+    pace); commands written to the sampler. With `wire` the records travel as bytes in that form
+    (encoded by the sampler, read by the decoder, as a port's bytes are); without, as records."""
 
-    def __init__(self, bench: Bench, rec: Recorder) -> None:
+    def __init__(self, bench: Bench, rec: Recorder, wire: str | None = None) -> None:
         self.bench, self.rec, self.timeline = bench, rec, Timeline()
+        self.decoder = Decoder() if wire else None
         self.sent: list = []
         self._replies: list = []
+        self._flushed_ns = 0
         records = bench.advance_to(bench.now_ns)
         for cmd in [*rec.plans(ON_US, OFF_US), Go()]:  # what `benchlog record` sends first
             self.sent.append(cmd)
@@ -52,14 +66,27 @@ class _Host:
 
     def _push(self, records: list, t_ns: int) -> None:
         records, self._replies = self._replies + records, []
+        if self.decoder is not None:
+            records = self.decoder.feed(self.bench.encode(records))
+            if self.decoder.sequence_kept:  # as the feed does: nothing lost, no wraps to guess
+                self.decoder.sequence_kept = None
+                self.timeline.outage_bridged()
         self.rec.push(self.timeline.push(records, t_ns))
         self.rec.send_pending(self)
-        self.rec.maybe_flush(force=True)
+        if t_ns - self._flushed_ns >= FLUSH_MS * MS:
+            self._flushed_ns = t_ns
+            self.rec.maybe_flush(force=True)
 
     def run_to(self, t_end_ns: int, step_ms: int = 100) -> None:
         while self.bench.now_ns < t_end_ns:
             t = min(self.bench.now_ns + step_ms * MS, t_end_ns)
             self._push(self.bench.advance_to(t), t)
+
+    def _outage(self, t_cut: int) -> None:
+        """The port was gone from `t_cut` to now: the feed reports the outage first."""
+        if self.decoder is not None:
+            self.decoder.outage()
+        self.timeline.note_disconnect(t_cut, self.bench.now_ns)
 
     def power_cut(self, off_ms: float, cable_pulled: bool) -> None:
         """The board is off for `off_ms` and comes back reset (after its boot time); with the cable
@@ -67,20 +94,46 @@ class _Host:
         t_cut = self.bench.now_ns
         records = self.bench.power_cycle(int(off_ms * MS))
         if cable_pulled:
-            self.timeline.note_disconnect(t_cut, t_cut + int(off_ms * MS))
+            self._outage(t_cut)
         self._push(records, self.bench.now_ns)
 
+    def cable_pull(self, off_ms: float) -> None:
+        """A self-powered board keeps running with the cable out for `off_ms`: what it sends meanwhile
+        is lost, and the feed reports the outage."""
+        t_cut = self.bench.now_ns
+        self.bench.advance_to(t_cut + int(off_ms * MS))
+        self._outage(t_cut)
 
-def _recorded_through_a_power_cut(tmp_path, cut_ms: float, off_ms: float, cable_pulled: bool):
+
+def _cut_at(bench: Bench, cut) -> int:
+    """Sampler time of a cut point: ms, or ("make" | "break", fraction): that far into channel 0's
+    bounce on the make or break of cycle 31 (the simulator's truth; the bounce must be there)."""
+    if not isinstance(cut, tuple):
+        return int(cut * MS)
+    kind, frac = cut
+    act = bench.truth.actuations
+    row = act[(act["channel"] == 0) & (act["cycle"] == CUT_CYCLE - 1) & (act["kind"] == KINDS[kind])]
+    assert len(row) == 1 and row["bounce_count"][0] > 0, row
+    t0, t1 = int(row["t_first_ns"][0]), int(row["t_settle_ns"][0])
+    return t0 + int(frac * (t1 - t0))
+
+
+def _recorded_through_a_power_cut(
+    tmp_path, cut, off_ms: float, cable_pulled: bool, wire: str | None = None, resets: bool = True
+):
     store = Store.open(str(tmp_path / "reset.sqlite"))
     writer = start_run(store, CHANNELS, TARGET, "bench P")
     spec = load_spec("AG-MS5")
     rec = Recorder(writer, settings=spec.settings(), specs=dict.fromkeys(CHANNELS, spec))
-    bench = Bench(demo_config(), 5)
-    host = _Host(bench, rec)
-    host.run_to(int(cut_ms * MS))
+    bench = Bench(demo_config() if wire is None else demo_config().with_sampler(form=wire), 5)
+    host = _Host(bench, rec, wire)
+    host.run_to(int(CUT_CYCLE_ON_MS * MS) + MS)  # cycle 31 switched on: its truth is drawn
+    host.run_to(_cut_at(bench, cut))
     started = dict(bench.truth.cycles)  # cycles begun before the power failed (the cut one too)
-    host.power_cut(off_ms, cable_pulled)
+    if resets:
+        host.power_cut(off_ms, cable_pulled)
+    else:
+        host.cable_pull(off_ms)
     end = bench.now_ns + 3 * TARGET * (ON_US + OFF_US) * 1000  # a ceiling in sampler time, not a wait
     while not rec.target_reached() and bench.now_ns < end:
         host.run_to(bench.now_ns + 100 * MS)
@@ -108,41 +161,116 @@ def _not_observed(store, run_id: int) -> dict[int, list[int]]:
 CASES = {
     # cycle 31 switches on at 3,000.1 ms: its contact makes ~5 ms later, it switches off at 3,050.1 ms
     # and the contact releases ~3-6 ms after that. A cut within the on-phase is the cycle counted yet
-    # unfinished: the plan sent again after it was one cycle too long
-    "cable-pulled-before-a-make": (3_002.1, 10_000.0, True),
-    "cable-pulled-after-a-make": (3_030.0, 10_000.0, True),
-    "cable-pulled-before-a-break": (3_052.0, 10_000.0, True),
-    "cable-pulled-in-an-off-phase": (3_075.0, 10_000.0, True),
+    # unfinished: the plan sent again after it was one cycle too long. Cut points in a bounce are placed
+    # by channel 0's true bounce (channel 1 is wherever its own contact is then).
+    # name: (cut point, power off for ms, cable pulled, wire form)
+    "cable-pulled-before-a-make": (3_002.1, 10_000.0, True, "line"),
+    "cable-pulled-in-a-make-bounce": (("make", 0.5), 10_000.0, True, "line"),
+    "cable-pulled-after-a-make": (3_030.0, 10_000.0, True, "line"),
+    "cable-pulled-before-a-break": (3_052.0, 10_000.0, True, "line"),
+    "cable-pulled-in-a-break-bounce": (("break", 0.5), 10_000.0, True, "line"),
+    "cable-pulled-in-an-off-phase": (3_075.0, 10_000.0, True, "line"),
     # a brown-out: the board resets in place, the port stays (nothing reports an outage)
-    "brown-out-after-a-make": (3_030.0, 20.0, False),
+    "brown-out-after-a-make": (3_030.0, 20.0, False, "line"),
+    "packed-cable-pulled-after-a-make": (3_030.0, 10_000.0, True, "packed"),
+    "packed-brown-out-in-a-make-bounce": (("make", 0.5), 20.0, False, "packed"),
 }
 
 
-@pytest.mark.parametrize(("cut_ms", "off_ms", "cable_pulled"), CASES.values(), ids=CASES.keys())
-def test_the_plan_sent_again_after_a_reset_ends_each_unit_at_its_target(
-    tmp_path, cut_ms, off_ms, cable_pulled
-):
+@pytest.fixture(scope="module", params=CASES.values(), ids=CASES.keys())
+def recording(request, tmp_path_factory):
+    """One recording through a power cut per case, read by the tests below."""
+    cut, off_ms, cable_pulled, wire = request.param
     store, run_id, bench, host, started = _recorded_through_a_power_cut(
-        tmp_path, cut_ms, off_ms, cable_pulled
+        tmp_path_factory.mktemp("reset"), cut, off_ms, cable_pulled, wire
+    )
+    yield store, run_id, bench, host, started
+    store.close()
+
+
+def test_the_plan_sent_again_after_a_reset_ends_each_unit_at_its_target(recording):
+    store, run_id, bench, host, started = recording
+    truth = bench.truth
+    assert len(truth.resets) == 1 and len(store.incidents(run_id, kind=RESET)) == 1
+    # planned twice: at the start, and after the reset for exactly the cycles still due
+    plans = [c for c in host.sent if isinstance(c, Plan)]
+    assert sum(isinstance(c, Go) for c in host.sent) == 2 and len(plans) == 2 * len(CHANNELS)
+    again = {p.channel: p.cycles for p in plans[len(CHANNELS) :]}
+    assert again == {ch: TARGET - started[ch] for ch in CHANNELS}
+    gaps = _not_observed(store, run_id)
+    for ru in store.run_units(run_id):
+        ch = ru.channel
+        assert truth.cycles[ch] == TARGET, (ch, truth.cycles[ch])
+        assert (ru.cycles_done, ru.unit.cycles) == (TARGET, TARGET), ch
+        # every cycle is measured (a make row under its cycle) or reported not observed, never both
+        makes = store.actuations(units=[ru.unit.id], kind="make")["cycle"].tolist()
+        lost = gaps.get(ch, [])
+        assert len(set(makes)) == len(makes) and len(set(lost)) == len(lost)
+        assert not set(makes) & set(lost), sorted(set(makes) & set(lost))
+        assert sorted(makes + lost) == list(range(TARGET)), sorted(set(range(TARGET)) - set(makes + lost))
+
+
+NOT_MEASURED = INCOMPLETE | MISSED | STUCK | NO_CHANGE
+
+
+def _measured_as_the_truth(store, bench, ru, unmeasured: set[int]) -> np.ndarray:
+    """Check the unit's actuations: a make and a break for every cycle outside `unmeasured` (the cycles
+    the cut reached), each measured with its operate or release time, bounce and a verdict, equal to the
+    simulator's truth; returns the rows."""
+    rows = store.actuations(units=[ru.unit.id])
+    ch = ru.channel
+    mine = rows[~np.isin(rows["cycle"], sorted(unmeasured))]
+    keys = list(zip(mine["cycle"].tolist(), mine["kind"].tolist(), strict=True))
+    assert keys == [(c, k) for c in range(TARGET) if c not in unmeasured for k in (MAKE, BREAK)], ch
+    bad = mine[((mine["flags"] & NOT_MEASURED) != 0) | (mine["verdict"] == NO_VERDICT)]
+    assert not len(bad), (ch, [(int(r["cycle"]), int(r["kind"]), int(r["flags"])) for r in bad])
+    act = bench.truth.actuations
+    t = act[(act["channel"] == ch) & np.isin(act["cycle"], mine["cycle"])]
+    t = t[np.lexsort((t["kind"], t["cycle"]))]
+    np.testing.assert_array_equal(t["cycle"], mine["cycle"])
+    # sampler ticks are 1 us and its clock runs 35 ppm off true time: a couple of us at most
+    np.testing.assert_allclose(mine["transit_us"], t["transit_us"], atol=2.5, err_msg=f"channel {ch}")
+    np.testing.assert_allclose(mine["bounce_us"], t["bounce_us"], atol=2.5, err_msg=f"channel {ch}")
+    np.testing.assert_array_equal(mine["bounce_count"], t["bounce_count"], err_msg=f"channel {ch}")
+    return rows
+
+
+def test_after_a_reset_the_contact_is_measured_as_the_simulator_moved_it(recording):
+    """The power cut released every closed contact (its coil lost power) while the sampler could not
+    see it: the first cycle planned again must be measured like any other (its make from an open
+    contact), and only the cycle the cut fell in goes unmeasured."""
+    store, run_id, bench, host, started = recording
+    for ru in store.run_units(run_id):
+        cut = started[ru.channel] - 1  # the cycle whose coil was on last before the power failed
+        rows = _measured_as_the_truth(store, bench, ru, {cut})
+        first = rows[rows["cycle"] == cut + 1]  # the first cycle after the reset
+        assert np.isfinite(first["transit_us"]).all() and np.isfinite(first["bounce_us"]).all(), first
+
+
+SELF_POWERED = {
+    "after-a-make": (3_030.0, "line"),
+    "packed-in-a-break-bounce": (("break", 0.5), "packed"),
+}
+
+
+@pytest.mark.parametrize(("cut", "wire"), SELF_POWERED.values(), ids=SELF_POWERED.keys())
+def test_a_cable_pulled_from_a_self_powered_board_keeps_the_contact_state(tmp_path, cut, wire):
+    """No reset: the sampler went on cycling for the 1 s the cable was out (what it sent meanwhile is
+    lost), the contact state is kept across the outage, and every cycle after it is measured as the
+    truth; the cycles the outage hid are reported not observed."""
+    store, run_id, bench, host, started = _recorded_through_a_power_cut(
+        tmp_path, cut, 1_000.0, True, wire, resets=False
     )
     try:
-        truth = bench.truth
-        assert len(truth.resets) == 1 and len(store.incidents(run_id, kind=RESET)) == 1
-        # planned twice: at the start, and after the reset for exactly the cycles still due
-        plans = [c for c in host.sent if isinstance(c, Plan)]
-        assert sum(isinstance(c, Go) for c in host.sent) == 2 and len(plans) == 2 * len(CHANNELS)
-        again = {p.channel: p.cycles for p in plans[len(CHANNELS) :]}
-        assert again == {ch: TARGET - started[ch] for ch in CHANNELS}
+        assert not bench.truth.resets and not store.incidents(run_id, kind=RESET)
+        assert len(store.incidents(run_id, kind=DISCONNECT)) == 1
+        assert sum(isinstance(c, Go) for c in host.sent) == 1
         gaps = _not_observed(store, run_id)
         for ru in store.run_units(run_id):
             ch = ru.channel
-            assert truth.cycles[ch] == TARGET, (ch, truth.cycles[ch])
-            assert (ru.cycles_done, ru.unit.cycles) == (TARGET, TARGET), ch
-            # every cycle is measured (a make row under its cycle) or reported not observed, never both
-            makes = store.actuations(units=[ru.unit.id], kind="make")["cycle"].tolist()
-            lost = gaps.get(ch, [])
-            assert len(set(makes)) == len(makes) and len(set(lost)) == len(lost)
-            assert not set(makes) & set(lost), sorted(set(makes) & set(lost))
-            assert sorted(makes + lost) == list(range(TARGET)), sorted(set(range(TARGET)) - set(makes + lost))
+            assert bench.truth.cycles[ch] == TARGET and (ru.cycles_done, ru.unit.cycles) == (TARGET, TARGET)
+            lost = gaps[ch]  # about 10 cycles ran with the cable out, from the one after the cut
+            assert lost == list(range(started[ch], started[ch] + len(lost))) and 9 <= len(lost) <= 11, lost
+            _measured_as_the_truth(store, bench, ru, {started[ch] - 1, *lost})
     finally:
         store.close()
