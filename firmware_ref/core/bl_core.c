@@ -1,7 +1,7 @@
 /*
  * The sampler core: capture queue (main-loop side), record output in either form, host commands,
- * the cycle driver and beats. No heap, no floating point; 64-bit arithmetic only where a command
- * converts microseconds to ticks.
+ * the cycle driver and beats; protocol version 2 (docs/protocol.md). No heap, no floating point;
+ * 64-bit arithmetic only where a command converts between microseconds and ticks.
  *
  * How records keep their order: everything that carries a tick goes through the one capture queue.
  * The pin-change ISR queues edges; the main loop queues a marker for each actuator switching and
@@ -9,6 +9,11 @@
  * queue is therefore in tick order, and a beat's captured count covers exactly the edges queued
  * (or dropped) before it. The output step drains the queue into the encoder only while the UART
  * has room for the worst case of one step, so bl_poll never blocks.
+ *
+ * How cycles are counted: on the output side, as the drive markers leave the queue, so that a drive
+ * record's cycle and a beat's counts always agree with the records before them in the stream. The
+ * marker of a channel's first switching after GO carries a flag that restarts its count there; the
+ * GO-accepted record is a marker too, queued just before those, in the same critical section.
  */
 #include "bl_core.h"
 
@@ -26,14 +31,29 @@ static uint32_t n_dropped, n_short, n_edges_out;
 
 /* Our own notices are short; the protocol allows 120 bytes. */
 #define NOTE_MAX 64u
+#define MAX2(a, b) ((a) > (b) ? (a) : (b))
+/*
+ * The longest of each form (the frame buffer holds a line too). Packed: a beat with every channel
+ * listed, or a notice; the announcement (at most 46 bytes) is shorter. Line: a beat with every channel
+ * listed, or a notice; an announcement is at most 61 bytes, a plan accepted 45.
+ */
 #define FRAME_BUF_EDGES (BL_EDGES_HEAD + 3u * BL_FRAME_EDGES + BL_CRC)
-#define FRAME_BUF_OTHER (BL_HDR + 7u + 32u + BL_CRC + 24u)
-#define FRAME_BUF (FRAME_BUF_EDGES > FRAME_BUF_OTHER ? FRAME_BUF_EDGES : FRAME_BUF_OTHER)
-/* Bytes any single non-edge record can take on the wire, in either form. */
-#define COST_RECORD (BL_COBS_MAX(FRAME_BUF_OTHER) > 80u ? BL_COBS_MAX(FRAME_BUF_OTHER) : 80u)
-#define COST_LINE_EDGE 20u
+#define PACKED_OTHER MAX2(BL_HDR + 25u + 5u * BL_MAX_CHANNELS + BL_CRC, BL_HDR + NOTE_MAX + BL_CRC)
+#define LINE_OTHER MAX2(BL_LINE_BEAT_MAX(BL_MAX_CHANNELS), 2u + NOTE_MAX + 8u)
+#define FRAME_BUF MAX2(FRAME_BUF_EDGES, MAX2(PACKED_OTHER, LINE_OTHER))
+/* Bytes any single non-edge record can take on the wire (packed: with the 0x00 a fresh stream starts with). */
+#define COST_PACKED (BL_COBS_MAX(PACKED_OTHER) + 1u)
+#define COST_LINE LINE_OTHER
+#define COST_LINE_EDGE 22u /* "E c l tttttttt*LLCCCC\n" */
 
+/*
+ * Markers (queue entries with changed = 0), told apart by `levels`: a beat; GO accepted (its channels
+ * are the first-switching markers queued right after it); or an actuator switching: channel in bits
+ * 0-3, the new level, and whether it is the channel's first switching after GO.
+ */
 #define MARK_BEAT 0x80u
+#define MARK_GO 0x40u
+#define MARK_FIRST 0x20u
 #define MARK_LEVEL 0x10u
 
 enum { PLAN_NONE, PLAN_READY, PLAN_ON, PLAN_OFF };
@@ -46,6 +66,7 @@ typedef struct {
 static bl_board_t board;
 static uint32_t tick_mask, tick_half, flush_ticks, beat_ticks;
 static uint8_t hex_digits, packed;
+static uint8_t fresh; /* no packed frame sent since reset or FORM P: the next starts with a 0x00 */
 static uint16_t seq;
 
 static uint8_t frame[FRAME_BUF];
@@ -54,13 +75,18 @@ static uint32_t pending_first, pending_last;
 
 static bl_entry_t cur; /* the entry being emitted, edge by edge */
 
-static uint32_t next_beat, snap_captured, snap_dropped, snap_short;
+static uint32_t next_beat, snap_dropped, snap_short;
 static uint32_t told_dropped, told_short;
 static uint8_t beat_queued, note_overflow, note_short;
 
 static plan_t plans[BL_MAX_CHANNELS];
 static uint8_t go_wanted, cycling;
 static bl_mask_t note_finished;
+
+/* the output side's count: cycles completed per channel since its plan started, and the channels
+ * that started one since reset (every beat lists them) */
+static uint32_t out_cycles[BL_MAX_CHANNELS];
+static bl_mask_t out_listed;
 
 static char cmd[BL_CMD_MAX + 1];
 static uint8_t cmd_len, cmd_overlong;
@@ -75,6 +101,11 @@ static uint8_t reached(uint32_t now, uint32_t due)
 static uint32_t us_to_ticks(uint32_t us)
 {
     return (uint32_t)(((uint64_t)us * board.clock_hz + 500000u) / 1000000u);
+}
+
+static uint32_t ticks_to_us(uint32_t ticks)
+{
+    return (uint32_t)(((uint64_t)ticks * 1000000u + board.clock_hz / 2u) / board.clock_hz);
 }
 
 static uint16_t seen_dropped, seen_short;
@@ -117,11 +148,20 @@ static void q_push_marker(uint32_t tick, bl_mask_t what)
 
 static uint16_t cost_flush(void)
 {
-    return pending ? (uint16_t)BL_COBS_MAX(BL_EDGES_HEAD + 3u * pending + BL_CRC) : 0u;
+    return pending ? (uint16_t)(BL_COBS_MAX(BL_EDGES_HEAD + 3u * pending + BL_CRC) + 1u) : 0u;
+}
+
+static uint16_t cost_record(void)
+{
+    return packed ? COST_PACKED : COST_LINE;
 }
 
 static void send_frame(uint8_t type, uint16_t len)
 {
+    if (fresh) { /* whatever the host received before (half a frame, noise at power-up) ends here */
+        bl_port_tx(0);
+        fresh = 0;
+    }
     bl_frame_header(frame, type, seq++);
     bl_cobs_put(frame, bl_frame_seal(frame, len), bl_port_tx);
 }
@@ -167,22 +207,42 @@ static void add_edge(uint8_t channel, uint8_t level, uint32_t tick)
         flush_edges();
 }
 
-static void send_drive(uint8_t channel, uint8_t level, uint32_t tick)
+static void send_drive(uint8_t channel, uint8_t level, uint32_t tick, uint32_t cycle)
 {
     flush_edges();
     if (packed)
-        send_frame(BL_T_DRIVE, bl_pack_drive(frame, channel, level, tick));
+        send_frame(BL_T_DRIVE, bl_pack_drive2(frame, channel, level, tick, cycle));
     else
-        send_line(bl_line_drive((char *)frame, channel, level, tick, hex_digits));
+        send_line(bl_line_drive2((char *)frame, channel, level, tick, hex_digits, cycle));
 }
 
-static void send_beat(uint32_t tick, uint32_t captured, uint32_t dropped)
+static void send_beat(uint32_t tick, uint32_t captured, uint32_t dropped, uint32_t short_pulses)
 {
     flush_edges();
     if (packed)
-        send_frame(BL_T_BEAT, bl_pack_beat(frame, tick, captured, dropped));
+        send_frame(BL_T_BEAT, bl_pack_beat2(frame, tick, captured, dropped, short_pulses, out_listed, out_cycles));
     else
-        send_line(bl_line_beat((char *)frame, tick, captured, dropped, hex_digits));
+        send_line(bl_line_beat2((char *)frame, tick, captured, dropped, hex_digits, short_pulses, out_listed,
+                                out_cycles));
+}
+
+static void send_plan_ok(uint8_t channel, const plan_t *p)
+{
+    uint32_t on_us = ticks_to_us(p->on_ticks), off_us = ticks_to_us(p->off_ticks);
+    flush_edges();
+    if (packed)
+        send_frame(BL_T_PLAN_OK, bl_pack_plan_ok(frame, channel, on_us, off_us, p->cycles));
+    else
+        send_line(bl_line_plan_ok((char *)frame, channel, on_us, off_us, p->cycles));
+}
+
+static void send_go_ok(bl_mask_t channels, uint32_t tick)
+{
+    flush_edges();
+    if (packed)
+        send_frame(BL_T_GO_OK, bl_pack_go_ok(frame, channels, tick));
+    else
+        send_line(bl_line_go_ok((char *)frame, channels, tick, hex_digits));
 }
 
 static void send_pong(uint16_t token)
@@ -205,21 +265,25 @@ static void send_announce(void)
                                    board.board_id));
 }
 
-/* Notice text is printable ASCII without '*' (the line form's checksum mark). */
-static void send_notice(const char *text)
+/*
+ * Notice text is printable ASCII without '*' (the line form's checksum mark). Made so in place: both
+ * callers build the text in their own buffer of NOTE_MAX + 1 bytes, and a second copy here would
+ * cost 65 bytes of the stack on its deepest path.
+ */
+static void send_notice(char *text)
 {
-    char clean[NOTE_MAX + 1];
     uint8_t n = 0;
     for (; text[n] && n < NOTE_MAX; n++) {
         char c = text[n];
-        clean[n] = (c < 0x20 || c > 0x7e || c == '*') ? '?' : c;
+        if (c < 0x20 || c > 0x7e || c == '*')
+            text[n] = '?';
     }
-    clean[n] = 0;
+    text[n] = 0;
     flush_edges();
     if (packed)
-        send_frame(BL_T_NOTICE, bl_pack_notice(frame, clean));
+        send_frame(BL_T_NOTICE, bl_pack_notice(frame, text));
     else
-        send_line(bl_line_notice((char *)frame, clean));
+        send_line(bl_line_notice((char *)frame, text));
 }
 
 /* ---- commands ---- */
@@ -252,16 +316,28 @@ static uint8_t parse_u32(const char *s, uint32_t *out)
     return 1;
 }
 
-/* why: BL_FLASH text; what: RAM text */
-static void refuse(const char *why, const char *what)
+/* why: BL_FLASH text; what: RAM text, or BL_FLASH text when what_in_flash (no RAM copy at boot) */
+static void refuse_text(const char *why, const char *what, uint8_t what_in_flash)
 {
     char text[NOTE_MAX + 1];
     char *p = bl_put_fstr(text, why, 44);
+    uint8_t room;
     *p++ = ':';
     *p++ = ' ';
-    p = bl_put_str(p, what, (uint8_t)(NOTE_MAX - 2u - (p - text)));
+    room = (uint8_t)(NOTE_MAX - (p - text));
+    p = what_in_flash ? bl_put_fstr(p, what, room) : bl_put_str(p, what, room);
     *p = 0;
     send_notice(text);
+}
+
+static void refuse(const char *why, const char *what)
+{
+    refuse_text(why, what, 0);
+}
+
+static void refuse_f(const char *why, const char *what)
+{
+    refuse_text(why, what, 1);
 }
 
 static uint8_t any_plan(void)
@@ -314,6 +390,7 @@ static void plan_command(char **argv)
     p->cycles = cycles;
     p->done = 0;
     p->state = PLAN_READY;
+    send_plan_ok((uint8_t)ch, p);
 }
 
 static void run_command(void)
@@ -339,14 +416,18 @@ static void run_command(void)
         send_pong((uint16_t)v);
     } else if (argc == 2 && streq(argv[0], BL_FLASH("FORM")) && (streq(argv[1], BL_FLASH("L")) || streq(argv[1], BL_FLASH("P")))) {
         flush_edges();
+        if (argv[1][0] == 'P' && !packed)
+            fresh = 1;
         packed = (argv[1][0] == 'P');
     } else if (argc == 5 && streq(argv[0], BL_FLASH("PLAN"))) {
         plan_command(argv);
     } else if (argc == 1 && streq(argv[0], BL_FLASH("GO"))) {
-        if (cycling || go_wanted)
-            refuse(BL_FLASH("GO ignored"), "already cycling");
+        /* channels already cycling go on; GO starts the others that have a plan (none: an empty
+         * acknowledgement, as the simulated sampler gives) */
+        if (go_wanted)
+            refuse_f(BL_FLASH("GO ignored"), BL_FLASH("already starting"));
         else if (!any_plan())
-            refuse(BL_FLASH("GO ignored"), "no PLAN");
+            refuse_f(BL_FLASH("GO ignored"), BL_FLASH("no PLAN"));
         else
             go_wanted = 1;
     } else if (argc == 1 && streq(argv[0], BL_FLASH("HALT"))) {
@@ -363,14 +444,14 @@ static void run_command(void)
 static void serve_commands(void)
 {
     for (;;) {
-        if (bl_port_tx_room() < cost_flush() + COST_RECORD)
+        if (bl_port_tx_room() < cost_flush() + cost_record())
             return;
         int c = bl_port_rx();
         if (c < 0)
             return;
         if (c == '\n') {
             if (cmd_overlong)
-                refuse(BL_FLASH("command too long"), "ignored");
+                refuse_f(BL_FLASH("command too long"), BL_FLASH("ignored"));
             else if (cmd_len) {
                 cmd[cmd_len] = 0;
                 run_command();
@@ -394,7 +475,7 @@ static void start_cycling(void)
     uint8_t k = 0;
     for (uint8_t ch = 0; ch < board.channels; ch++)
         k += plans[ch].state == PLAN_READY;
-    if (q_free() <= BL_MAX_CHANNELS + k)
+    if (q_free() <= BL_MAX_CHANNELS + k + 1u)
         return; /* try again next pass */
     /* switch every output first, then read the tick: the record then lags the pins by a few
      * cycles rather than leading them by the loop */
@@ -403,11 +484,12 @@ static void start_cycling(void)
         if (plans[ch].state == PLAN_READY)
             bl_port_set_actuator(ch, 1);
     uint32_t t = bl_port_now();
+    q_push_marker(t, MARK_GO);
     for (uint8_t ch = 0; ch < board.channels; ch++) {
         plan_t *p = &plans[ch];
         if (p->state != PLAN_READY)
             continue;
-        q_push_marker(t, (bl_mask_t)(ch | MARK_LEVEL));
+        q_push_marker(t, (bl_mask_t)(ch | MARK_LEVEL | MARK_FIRST));
         p->state = PLAN_ON;
         p->done = 0;
         p->next = (t + p->on_ticks) & tick_mask;
@@ -472,7 +554,36 @@ static void serve_beat(void)
 
 /* ---- output ---- */
 
-static uint8_t serve_notes(void)
+/* The channels of a GO-accepted marker: the first-switching markers queued right behind it. */
+static bl_mask_t go_channels(uint32_t tick)
+{
+    bl_mask_t channels = 0;
+    for (uint8_t i = bl_q_tail; i != bl_q_head; i++) {
+        volatile bl_entry_t *e = &bl_q[i & (BL_QUEUE_LEN - 1u)];
+        if (e->changed || (e->levels & (MARK_BEAT | MARK_GO | MARK_FIRST)) != MARK_FIRST || e->tick != tick)
+            break;
+        channels |= (bl_mask_t)(1u << (e->levels & 0x0Fu));
+    }
+    return channels;
+}
+
+/* A drive marker leaves the queue: count the channel's cycles here, in stream order. */
+static void out_drive(const bl_entry_t *m)
+{
+    uint8_t ch = (uint8_t)(m->levels & 0x0Fu);
+    uint8_t on = (m->levels & MARK_LEVEL) ? 1u : 0u;
+    if (m->levels & MARK_FIRST) {
+        out_cycles[ch] = 0;
+        out_listed |= (bl_mask_t)(1u << ch);
+    }
+    if (!on)
+        out_cycles[ch]++; /* a cycle is completed when its actuator switches off */
+    send_drive(ch, on, m->tick, on ? out_cycles[ch] + 1u : out_cycles[ch]);
+}
+
+/* not inlined: its text buffer then takes stack only while a notice is made, not under every other
+ * call bl_poll makes */
+__attribute__((noinline)) static uint8_t serve_notes(void)
 {
     char text[NOTE_MAX + 1];
     char *p = text;
@@ -508,7 +619,7 @@ static void serve_output(void)
     for (;;) {
         uint16_t room = bl_port_tx_room();
         uint16_t flush = cost_flush();
-        if (room < flush + COST_RECORD)
+        if (room < flush + cost_record())
             return;
         if (serve_notes())
             continue;
@@ -525,8 +636,7 @@ static void serve_output(void)
             if (!cur.changed) {
                 if (cur.levels & MARK_BEAT) {
                     /* every edge before the marker has left the queue: captured = sent + dropped */
-                    snap_captured = n_edges_out + snap_dropped;
-                    send_beat(cur.tick, snap_captured, snap_dropped);
+                    send_beat(cur.tick, n_edges_out + snap_dropped, snap_dropped, snap_short);
                     beat_queued = 0;
                     if (snap_dropped != told_dropped) {
                         told_dropped = snap_dropped;
@@ -536,13 +646,15 @@ static void serve_output(void)
                         told_short = snap_short;
                         note_short = 1;
                     }
+                } else if (cur.levels & MARK_GO) {
+                    send_go_ok(go_channels(cur.tick), cur.tick);
                 } else {
-                    send_drive((uint8_t)(cur.levels & 0x0Fu), (cur.levels & MARK_LEVEL) ? 1u : 0u, cur.tick);
+                    out_drive(&cur);
                 }
                 continue;
             }
         }
-        if (!packed && room < COST_LINE_EDGE + COST_RECORD)
+        if (!packed && room < COST_LINE_EDGE + COST_LINE)
             return;
         uint8_t ch = 0;
         while (!(cur.changed & (1u << ch)))
@@ -564,6 +676,8 @@ void bl_init(const bl_board_t *b)
     tick_half = (tick_mask >> 1) + 1u;
     hex_digits = (uint8_t)((board.counter_bits + 3u) / 4u);
     packed = board.packed;
+    fresh = 1;
+    out_listed = 0;
     flush_ticks = us_to_ticks(BL_FLUSH_US);
     /* a beat at least every second and every quarter wrap: aim for half of the tighter one */
     beat_ticks = board.clock_hz / 2u;
@@ -577,6 +691,7 @@ void bl_init(const bl_board_t *b)
     bl_isr_owed = 0;
     for (uint8_t ch = 0; ch < BL_MAX_CHANNELS; ch++) {
         plans[ch].state = PLAN_NONE;
+        out_cycles[ch] = 0;
         bl_port_set_actuator(ch, 0);
     }
     send_announce();

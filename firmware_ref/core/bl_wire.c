@@ -280,15 +280,19 @@ uint16_t bl_pack_drive2(uint8_t *raw, uint8_t channel, uint8_t level, uint32_t t
 }
 
 uint16_t bl_pack_beat2(uint8_t *raw, uint32_t tick, uint32_t captured, uint32_t dropped, uint32_t short_pulses,
-                       uint8_t n, const uint8_t *chans, const uint32_t *cycles)
+                       bl_mask_t listed, const uint32_t *cycles)
 {
     uint16_t len = bl_pack_beat(raw, tick, captured, dropped);
+    uint16_t count_at = (uint16_t)(len + 4u);
     bl_le32(raw + len, short_pulses);
-    raw[len + 4] = n;
+    raw[count_at] = 0;
     len += 5u;
-    for (uint8_t i = 0; i < n; i++) {
-        raw[len] = chans[i];
-        bl_le32(raw + len + 1, cycles[i]);
+    for (uint8_t ch = 0; listed; ch++, listed >>= 1) {
+        if (!(listed & 1u))
+            continue;
+        raw[len] = ch;
+        bl_le32(raw + len + 1, cycles[ch]);
+        raw[count_at]++;
         len += 5u;
     }
     return len;
@@ -327,7 +331,7 @@ uint8_t bl_line_drive2(char *buf, uint8_t channel, uint8_t level, uint32_t tick,
 }
 
 uint8_t bl_line_beat2(char *buf, uint32_t tick, uint32_t captured, uint32_t dropped, uint8_t hex_digits,
-                      uint32_t short_pulses, uint8_t n, const uint8_t *chans, const uint32_t *cycles)
+                      uint32_t short_pulses, bl_mask_t listed, const uint32_t *cycles)
 {
     char *p = buf;
     *p++ = 'B';
@@ -339,11 +343,13 @@ uint8_t bl_line_beat2(char *buf, uint32_t tick, uint32_t captured, uint32_t drop
     p = bl_put_dec(p, dropped);
     *p++ = ' ';
     p = bl_put_dec(p, short_pulses);
-    for (uint8_t i = 0; i < n; i++) {
+    for (uint8_t ch = 0; listed; ch++, listed >>= 1) {
+        if (!(listed & 1u))
+            continue;
         *p++ = ' ';
-        p = bl_put_hex(p, chans[i], 1);
+        p = bl_put_hex(p, ch, 1);
         *p++ = ':';
-        p = bl_put_hex(p, cycles[i], hex_len(cycles[i]));
+        p = bl_put_hex(p, cycles[ch], hex_len(cycles[ch]));
     }
     return line_end(buf, p);
 }

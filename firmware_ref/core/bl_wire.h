@@ -2,7 +2,7 @@
  * Encoders for docs/protocol.md, versions 1 and 2: CRC-32/ISO-HDLC, COBS, the CRC-16 line check, and
  * the record layouts of both forms. They only fill buffers; the core decides when the bytes go out.
  * `bl_wire_version` chooses the version the announcement states and the line check (version 1: `*hh`,
- * version 2: `*LLCCCC`); the core itself still runs version 1.
+ * version 2: `*LLCCCC`). The core runs version 2; the version 1 writers stay for the golden vectors.
  */
 #ifndef BL_WIRE_H
 #define BL_WIRE_H
@@ -11,7 +11,7 @@
 
 #include "bl_config.h"
 
-#define BL_PROTOCOL_VERSION 1
+#define BL_PROTOCOL_VERSION 2
 
 enum {
     BL_T_EDGES = 0x01,
@@ -62,22 +62,27 @@ uint16_t bl_pack_notice(uint8_t *raw, const char *text);
 uint16_t bl_pack_announce(uint8_t *raw, uint32_t clock_hz, uint8_t bits, uint8_t channels, const char *id);
 /* version 2 */
 uint16_t bl_pack_drive2(uint8_t *raw, uint8_t channel, uint8_t level, uint32_t tick, uint32_t cycle);
+/* beats: `listed` the channels to report (bit i = channel i, sent ascending), `cycles[i]` channel i's count */
 uint16_t bl_pack_beat2(uint8_t *raw, uint32_t tick, uint32_t captured, uint32_t dropped, uint32_t short_pulses,
-                       uint8_t n, const uint8_t *chans, const uint32_t *cycles);
+                       bl_mask_t listed, const uint32_t *cycles);
 uint16_t bl_pack_plan_ok(uint8_t *raw, uint8_t channel, uint32_t on_us, uint32_t off_us, uint32_t cycles);
 uint16_t bl_pack_go_ok(uint8_t *raw, uint16_t mask, uint32_t tick);
 
-/* Line form: each writes one whole line with "*hh\n" into buf, returns its length (<= 160). */
+/* Line form: each writes one whole line with its check and "\n" into buf, returns its length. */
 uint8_t bl_line_edge(char *buf, uint8_t channel, uint8_t level, uint32_t tick, uint8_t hex_digits);
 uint8_t bl_line_drive(char *buf, uint8_t channel, uint8_t level, uint32_t tick, uint8_t hex_digits);
 uint8_t bl_line_beat(char *buf, uint32_t tick, uint32_t captured, uint32_t dropped, uint8_t hex_digits);
 uint8_t bl_line_pong(char *buf, uint16_t token);
 uint8_t bl_line_notice(char *buf, const char *text);
 uint8_t bl_line_announce(char *buf, uint32_t clock_hz, uint8_t bits, uint8_t channels, const char *id);
-/* version 2 (a beat line is at most 6 + 8 + 3 * 11 + 16 * 11 + 7 bytes: give it 240) */
+/*
+ * version 2. The longest line is a beat: "B " and 8 tick digits, three counts of up to 10 digits each
+ * after a space, " c:nnnnnnnn" per listed channel, then "*LLCCCC\n".
+ */
+#define BL_LINE_BEAT_MAX(channels) (2u + 8u + 3u * 11u + 11u * (channels) + 8u)
 uint8_t bl_line_drive2(char *buf, uint8_t channel, uint8_t level, uint32_t tick, uint8_t hex_digits, uint32_t cycle);
 uint8_t bl_line_beat2(char *buf, uint32_t tick, uint32_t captured, uint32_t dropped, uint8_t hex_digits,
-                      uint32_t short_pulses, uint8_t n, const uint8_t *chans, const uint32_t *cycles);
+                      uint32_t short_pulses, bl_mask_t listed, const uint32_t *cycles);
 uint8_t bl_line_plan_ok(char *buf, uint8_t channel, uint32_t on_us, uint32_t off_us, uint32_t cycles);
 uint8_t bl_line_go_ok(char *buf, uint16_t mask, uint32_t tick, uint8_t hex_digits);
 

@@ -3,10 +3,12 @@
  *
  *   blhost run [options] SCRIPT      run the core; the bytes it sends go to stdout
  *   blhost encode                    encode records given as text on stdin (golden vectors):
- *                                    form L|P, seq N, bits N, maxedges N, then one record a line:
- *                                    announce HZ BITS CHANNELS ID | drive CH LEVEL TICK |
- *                                    beat TICK CAPTURED DROPPED | pong TOKEN | notice TEXT |
- *                                    edges CH:LEVEL:TICK ...
+ *                                    form L|P, seq N, bits N, maxedges N, version 1|2, then one
+ *                                    record a line: announce HZ BITS CHANNELS ID |
+ *                                    drive CH LEVEL TICK [CYCLE] |
+ *                                    beat TICK CAPTURED DROPPED [SHORT CH:CYCLES ...] |
+ *                                    planok CH ON_US OFF_US CYCLES | gook MASK TICK |
+ *                                    pong TOKEN | notice TEXT | edges CH:LEVEL:TICK ...
  *   blhost cobs | crc                COBS-encode stdin / print the CRC-32 of stdin
  *   blhost selftest                  the core's own C checks
  *
@@ -381,21 +383,22 @@ static int encode(void)
             const char *q = rest + k;
             int k2 = 0;
             if (sscanf(q, " %lu%n", &sp, &k2) == 1) {
-                uint8_t chans[16];
-                uint32_t cycles[16];
-                uint8_t n = 0;
+                uint32_t cycles[BL_MAX_CHANNELS] = {0};
+                bl_mask_t listed = 0;
                 unsigned ch;
                 unsigned long cy;
                 q += k2;
-                while (n < 16 && sscanf(q, " %u:%lu%n", &ch, &cy, &k2) == 2) {
-                    chans[n] = (uint8_t)ch;
-                    cycles[n++] = (uint32_t)cy;
+                while (sscanf(q, " %u:%lu%n", &ch, &cy, &k2) == 2) {
+                    if (ch >= BL_MAX_CHANNELS || (listed >> ch) & 1u)
+                        return fail("beat counts need distinct channels below BL_MAX_CHANNELS", no);
+                    listed |= (bl_mask_t)(1u << ch);
+                    cycles[ch] = (uint32_t)cy;
                     q += k2;
                 }
                 if (packed)
-                    len = bl_pack_beat2(raw, (uint32_t)t, (uint32_t)c, (uint32_t)d, (uint32_t)sp, n, chans, cycles);
+                    len = bl_pack_beat2(raw, (uint32_t)t, (uint32_t)c, (uint32_t)d, (uint32_t)sp, listed, cycles);
                 else
-                    ll = bl_line_beat2(text, (uint32_t)t, (uint32_t)c, (uint32_t)d, digits, (uint32_t)sp, n, chans,
+                    ll = bl_line_beat2(text, (uint32_t)t, (uint32_t)c, (uint32_t)d, digits, (uint32_t)sp, listed,
                                        cycles);
             } else if (packed)
                 len = bl_pack_beat(raw, (uint32_t)t, (uint32_t)c, (uint32_t)d);

@@ -75,9 +75,11 @@ int bl_selftest(void)
         check(cobs_is(raw, 255, want, 258), "COBS 255 non-zero bytes");
     }
 
-    /* line form: the checksum is the XOR of every byte before '*' (docs/protocol.md) */
+    /* line form, version 1: the checksum is the XOR of every byte before '*' (docs/protocol.md) */
     {
         char line[64];
+        uint8_t version = bl_wire_version;
+        bl_wire_version = 1;
         uint8_t n = bl_line_edge(line, 3, 1, 0x0003d090u, 8);
         line[n] = 0;
         uint8_t x = 0;
@@ -89,6 +91,30 @@ int bl_selftest(void)
         n = bl_line_beat(line, 0x000f4240u, 1520, 0, 8);
         line[n] = 0;
         check(strncmp(line, "B 000f4240 1520 0*", 18) == 0 && n == 21, "line beat");
+        bl_wire_version = version;
+    }
+
+    /*
+     * line form, version 2 (what the core sends): "*LLCCCC", the body's length and its CRC-16/IBM-3740;
+     * the examples of docs/protocol.md, whose checks were computed with Python's binascii.crc_hqx
+     * (init 0xFFFF), a reference implementation of the same CRC
+     */
+    {
+        char line[240];
+        const uint32_t counts[4] = {0x10e, 0, 0, 0x10d};
+        check(BL_PROTOCOL_VERSION == 2 && bl_wire_version == 2, "the core speaks version 2");
+        uint8_t n = bl_line_edge(line, 3, 1, 0x0003d090u, 8);
+        line[n] = 0;
+        check(strcmp(line, "E 3 1 0003d090*0eb777\n") == 0, "line edge, version 2");
+        n = bl_line_beat2(line, 0x000f4240u, 1520, 0, 8, 3, 0x09u, counts);
+        line[n] = 0;
+        check(strcmp(line, "B 000f4240 1520 0 3 0:10e 3:10d*1f04ab\n") == 0, "line beat, version 2");
+        /* the longest beat line fits the size the core reserves for it */
+        uint32_t most[16];
+        for (int i = 0; i < 16; i++)
+            most[i] = 0xFFFFFFFFu;
+        n = bl_line_beat2(line, 0xFFFFFFFFu, 4294967295u, 4294967295u, 8, 4294967295u, 0xFFFFu, most);
+        check(n == BL_LINE_BEAT_MAX(16), "longest beat line");
     }
 
     /* decimal and hex helpers at their limits */

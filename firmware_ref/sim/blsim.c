@@ -3,6 +3,7 @@
  * exact emulated times, and bridges its UART to a pseudo-terminal (or a file).
  *
  *   blsim --elf FILE --script FILE [--pty | --out FILE] [--packed-strap] [--actuator-log FILE]
+ *         [--relay US]
  *
  * Script lines (emulated nanoseconds since reset, non-decreasing; '#' starts a comment):
  *
@@ -13,7 +14,14 @@
  * A pin changes at the first instruction boundary at or after its cycle (at most 4 cycles, 250 ns,
  * late at 16 MHz). With --pty the harness prints "pty PATH" on stdout, waits for a line on stdin
  * (so the reader can open the port first), runs no faster than real time (so the host's commands
- * arrive when a bench's would), prints "done CYCLES cycles, stack N bytes at most", and keeps the terminal open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver.
+ * arrive when a bench's would), prints "done CYCLES cycles, stack N bytes at most", and keeps the terminal
+ * open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver. A
+ * line (or the end) on stdin while the emulation runs ends it, as an `end` event would.
+ *
+ * --relay US puts a relay on every channel: its contact follows its actuator, closing US microseconds
+ * after the actuator switches on (touching, reopening 40 us later, closing for good 60 us after that)
+ * and opening US / 2 microseconds after it switches off (with one reclosure of 30 us). Script edges and
+ * relay edges on one channel are not meant to be mixed.
  * Wiring (as on the board, see ../README.md): channels 0-5 on PD2-PD7, 6-7 on PB0-PB1; actuators
  * 0-5 on PC0-PC5, 6-7 on PB2-PB3; strap PB4.
  */
@@ -57,6 +65,15 @@ static size_t rx_head, rx_tail;
 static int uart_ready = 1;
 static avr_irq_t *uart_in;
 static uint8_t last_portc, last_portb;
+
+/* relay contacts that follow the actuators (--relay): pending contact changes, any order */
+typedef struct {
+    uint64_t cycle;
+    int channel, level;
+} relay_ev_t;
+static relay_ev_t relay_ev[256];
+static unsigned relay_n;
+static uint64_t relay_cycles; /* operate delay in CPU cycles; 0 = no relays */
 
 static avr_ioport_external_t ext_d = {.name = 'D', .mask = 0xFC, .value = 0xFC};
 static avr_ioport_external_t ext_b = {.name = 'B', .mask = 0x13, .value = 0x13};
@@ -127,31 +144,70 @@ static void queue_rx(const uint8_t *p, size_t n)
     feed_uart();
 }
 
-/* Actuator outputs: log each switching with its emulated time. */
-static void log_port(uint8_t now, uint8_t *last, uint8_t mask, int shift, int first_channel)
+static void relay_add(uint64_t cycle, int channel, int level)
+{
+    if (relay_n == sizeof relay_ev / sizeof relay_ev[0])
+        die("too many relay contact changes pending");
+    relay_ev[relay_n++] = (relay_ev_t){cycle, channel, level};
+}
+
+/* A relay's contact answers its coil: a make with one reopening, a break with one reclosure. */
+static void relay_follow(int channel, int on)
+{
+    uint64_t us = FREQ / 1000000u;
+    if (on) {
+        uint64_t t = avr->cycle + relay_cycles;
+        relay_add(t, channel, 1);
+        relay_add(t + 40 * us, channel, 0);
+        relay_add(t + 100 * us, channel, 1);
+    } else {
+        uint64_t t = avr->cycle + relay_cycles / 2;
+        relay_add(t, channel, 0);
+        relay_add(t + 30 * us, channel, 1);
+        relay_add(t + 80 * us, channel, 0);
+    }
+}
+
+/* Actuator outputs: log each switching with its emulated time; relays follow them. */
+static void port_changed(uint8_t now, uint8_t *last, uint8_t mask, int shift, int first_channel)
 {
     uint8_t changed = (uint8_t)((now ^ *last) & mask);
     *last = now;
-    for (int bit = 0; bit < 8; bit++)
-        if (changed & (1u << bit))
+    for (int bit = 0; bit < 8; bit++) {
+        if (!(changed & (1u << bit)))
+            continue;
+        if (actuator_log)
             fprintf(actuator_log, "%llu %d %d\n", (unsigned long long)(avr->cycle * 1000000000ull / FREQ),
                     first_channel + bit - shift, (now >> bit) & 1);
+        if (relay_cycles)
+            relay_follow(first_channel + bit - shift, (now >> bit) & 1);
+    }
 }
 
 static void portc_out(struct avr_irq_t *irq, uint32_t value, void *param)
 {
     (void)irq;
     (void)param;
-    if (actuator_log)
-        log_port((uint8_t)value, &last_portc, 0x3F, 0, 0);
+    port_changed((uint8_t)value, &last_portc, 0x3F, 0, 0);
 }
 
 static void portb_out(struct avr_irq_t *irq, uint32_t value, void *param)
 {
     (void)irq;
     (void)param;
-    if (actuator_log)
-        log_port((uint8_t)value, &last_portb, 0x0C, 2, 6);
+    port_changed((uint8_t)value, &last_portb, 0x0C, 2, 6);
+}
+
+/* A contact closes (1) or opens (0): its pull-up pin goes low or high. */
+static void set_contact(int channel, int level)
+{
+    int high = !level;
+    if (channel < 6)
+        ext_d.value = (ext_d.value & ~(1u << (channel + 2))) | (unsigned)high << (channel + 2);
+    else
+        ext_b.value = (ext_b.value & ~(1u << (channel - 6))) | (unsigned)high << (channel - 6);
+    set_external();
+    avr_raise_irq(pin_irq[channel], (uint32_t)high);
 }
 
 static size_t load_script(const char *path, event_t **out)
@@ -232,13 +288,15 @@ int main(int argc, char **argv)
             use_pty = 1;
         else if (!strcmp(argv[i], "--packed-strap"))
             packed_strap = 1;
+        else if (!strcmp(argv[i], "--relay") && i + 1 < argc && atoi(argv[i + 1]) > 0)
+            relay_cycles = (uint64_t)atoi(argv[++i]) * (FREQ / 1000000u);
         else
             die("usage: blsim --elf FILE --script FILE [--pty | --out FILE] [--packed-strap] "
-                "[--actuator-log FILE]");
+                "[--actuator-log FILE] [--relay US]");
     }
     if (!elf || !script || use_pty == !!out_path)
         die("usage: blsim --elf FILE --script FILE [--pty | --out FILE] [--packed-strap] "
-            "[--actuator-log FILE]");
+            "[--actuator-log FILE] [--relay US]");
 
     event_t *ev;
     size_t n = load_script(script, &ev);
@@ -312,23 +370,30 @@ int main(int argc, char **argv)
     uint64_t stop = n ? ev[n - 1].cycle + FREQ / 50u : FREQ / 10u;
     uint64_t next_poll = 0;
     int state = cpu_Running;
-    uint16_t min_sp = 0xFFFF; /* deepest stack seen (SPL/SPH at data 0x5D/0x5E) */
+    /*
+     * Deepest stack seen (SPL/SPH at data 0x5D/0x5E). A frame the compiler allocates writes SPH and SPL
+     * in two instructions with one between them, so SP reads up to 256 bytes off for two samples; only
+     * a depth held for three samples in a row counts.
+     */
+    uint16_t min_sp = 0xFFFF, sp1 = 0xFFFF, sp2 = 0xFFFF;
     while (state != cpu_Done && state != cpu_Crashed && avr->cycle < stop) {
         while (i < n && ev[i].cycle <= avr->cycle) {
             event_t *e = &ev[i++];
             if (e->kind == EV_EDGE) {
-                int high = !e->level; /* a closed contact pulls its pin low */
-                if (e->channel < 6)
-                    ext_d.value = (ext_d.value & ~(1u << (e->channel + 2))) | (unsigned)high << (e->channel + 2);
-                else
-                    ext_b.value = (ext_b.value & ~(1u << (e->channel - 6))) | (unsigned)high << (e->channel - 6);
-                set_external();
-                avr_raise_irq(pin_irq[e->channel], (uint32_t)high);
+                set_contact(e->channel, e->level);
             } else if (e->kind == EV_CMD) {
                 queue_rx((const uint8_t *)e->text, strlen(e->text));
                 queue_rx((const uint8_t *)"\n", 1);
             } else {
                 stop = e->cycle;
+            }
+        }
+        for (unsigned k = 0; k < relay_n;) {
+            if (relay_ev[k].cycle <= avr->cycle) {
+                set_contact(relay_ev[k].channel, relay_ev[k].level);
+                relay_ev[k] = relay_ev[--relay_n];
+            } else {
+                k++;
             }
         }
         if (use_pty && avr->cycle >= next_poll) {
@@ -343,12 +408,20 @@ int main(int argc, char **argv)
             ssize_t r = read(master, buf, sizeof buf);
             if (r > 0)
                 queue_rx(buf, (size_t)r);
+            struct pollfd host = {.fd = 0, .events = POLLIN};
+            if (poll(&host, 1, 0) > 0)
+                stop = avr->cycle; /* the host is done (a line or the end on stdin) */
             next_poll = avr->cycle + 1600; /* every 100 us of emulated time */
         }
         state = avr_run(avr);
         uint16_t sp = (uint16_t)(avr->data[0x5D] | avr->data[0x5E] << 8);
-        if (sp < min_sp)
-            min_sp = sp;
+        uint16_t held = sp > sp1 ? sp : sp1;
+        if (sp2 > held)
+            held = sp2;
+        if (held < min_sp)
+            min_sp = held;
+        sp2 = sp1;
+        sp1 = sp;
     }
     if (state == cpu_Crashed)
         die("the firmware crashed");

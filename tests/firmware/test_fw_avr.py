@@ -11,11 +11,27 @@ import subprocess
 import threading
 from pathlib import Path
 
+import numpy as np
 import pytest
 import serial
 from _fw_helpers import decode_all, edge_rows, others
 
-from benchlog.wire import Announce, Beat, Drive, Fault, Notice, Pong, SequenceGap
+from benchlog.analysis import AnalysisSettings
+from benchlog.events import CYCLES_NOT_OBSERVED
+from benchlog.ingest import Feed
+from benchlog.recorder import Recorder
+from benchlog.store import END_TARGET, Store
+from benchlog.wire import (
+    Announce,
+    Beat,
+    Drive,
+    Fault,
+    GoAccepted,
+    Notice,
+    PlanAccepted,
+    Pong,
+    SequenceGap,
+)
 from tests.conftest import HANG_S
 
 FLASH = 32 * 1024  # ATmega328P: 32 KiB flash, 2 KiB SRAM (the part's datasheet, from memory)
@@ -103,8 +119,12 @@ def run_on_pty(
         port = serial.serial_for_url(first[1], baudrate=500_000, timeout=0.2)
         proc.stdin.write("go\n")
         proc.stdin.flush()
-        data = bytearray(port.read_until(b"\n" if not flags else b"\x00"))  # the announcement
-        port.write(b"PING 9\nPLAN 2 3000 2000 4\nGO\n")
+        # the announcement; in the packed form after the 0x00 a fresh packed stream starts with
+        data = bytearray(port.read_until(b"\x00" if flags else b"\n"))
+        if flags:
+            data += port.read_until(b"\x00")
+        # an unknown command too: a notice's path is the core's deepest use of the stack
+        port.write(b"PING 9\nPLAN 2 3000 2000 4\nGO\nWHAT\n")
         # read while the emulation runs, so a full terminal buffer can never stall the harness
         stop = threading.Event()
 
@@ -145,7 +165,9 @@ def test_emulated_board_times_a_scripted_bounce(
     assert stack_bytes <= STACK - 64  # the static-RAM budget leaves room for what was used
     records = decode_all(data)
     assert not [r for r in records if isinstance(r, Fault | SequenceGap)]
-    assert records[0] == Announce(1, 2_000_000, 32, 8, "blref-avr8")
+    assert records[0] == Announce(2, 2_000_000, 32, 8, "blref-avr8")
+    if strap == "packed":
+        assert data[:1] == b"\x00"  # docs/protocol.md: a 0x00 before a version 2 sampler's first frame
     assert Pong(9) in records  # the host-to-board path through the pty works too
     got = edge_rows(records)
     assert [(ch, lv) for ch, lv, _ in got] == [(ch, lv) for _, ch, lv in rows]  # every edge, none extra
@@ -153,7 +175,7 @@ def test_emulated_board_times_a_scripted_bounce(
     # the counter starts some microseconds after reset: align on the first edge
     offset = got[0][2] * TICK_NS - rows[0][0]
     errors = [tick * TICK_NS - offset - t for (_, _, tick), (t, _, _) in zip(got, rows, strict=True)]
-    print(f"\n{strap} form: timestamp error {min(errors)} to {max(errors)} ns")
+    print(f"\n{strap} form: timestamp error {min(errors)} to {max(errors)} ns, stack at most {stack_bytes} B")
     assert max(map(abs, errors)) <= ISOLATED_TOLERANCE_NS
 
     # bounce time of each actuation (first to last edge of its burst) against the script
@@ -169,11 +191,18 @@ def test_emulated_board_times_a_scripted_bounce(
 
     beats = [r for r in records if isinstance(r, Beat)]
     assert beats[-1].captured == len(rows) and beats[-1].dropped == 0
-    assert [r for r in records if isinstance(r, Notice)] == [Notice("channel 2 finished its plan: 4 cycles")]
+    assert [r for r in records if isinstance(r, Notice)] == [
+        Notice("unknown command: WHAT"),
+        Notice("channel 2 finished its plan: 4 cycles"),
+    ]
 
     # the cycle driver on the emulated board: PLAN 2 3000 2000 4 -> four 3 ms pulses, 5 ms apart
     drives = [r for r in records if isinstance(r, Drive)]
     assert [(d.channel, d.level) for d in drives] == [(2, 1), (2, 0)] * 4
+    assert [d.cycle for d in drives] == [1, 1, 2, 2, 3, 3, 4, 4]  # on and off of one cycle share its number
+    assert PlanAccepted(2, 3000, 2000, 4) in records
+    assert [r for r in records if isinstance(r, GoAccepted)] == [GoAccepted((2,), drives[0].tick)]
+    assert beats[-1].cycles == ((2, 4),)
     switched = [tuple(int(x) for x in line.split()) for line in actuator_log.splitlines()]
     assert [(ch, lv) for _, ch, lv in switched] == [(2, 1), (2, 0)] * 4
     for d, (ns, _, _) in zip(drives, switched, strict=True):
@@ -248,3 +277,121 @@ def test_edges_at_the_16_bit_timer_wrap_keep_their_high_half(
     assert [lv for _, lv, _ in got] == [lv for _, lv in rows]
     for (_, _, tick), (t, _) in zip(got, rows, strict=True):
         assert abs(tick * TICK_NS + timer_start_ns - t) <= ISOLATED_TOLERANCE_NS
+
+
+class _Observed:
+    """The real feed, with every batch it gives the recorder kept for the test to read afterwards."""
+
+    def __init__(self, feed: Feed) -> None:
+        self.feed = feed
+        self.batches: list = []
+
+    def poll(self, timeout: float = 0.1):
+        timed = self.feed.poll(timeout)
+        self.batches.append(timed)
+        return timed
+
+    def __getattr__(self, name: str):
+        return getattr(self.feed, name)
+
+
+@pytest.mark.parametrize("strap", ["line", "packed"])
+def test_emulated_board_speaks_version_2_to_the_recorder(
+    blsim: Path, avr_elf: Path, tmp_path: Path, strap: str
+) -> None:
+    """Protocol version 2 on the emulated board through the host's whole recording path (pty, pyserial,
+    decoder, timeline, recorder, store): a relay on channels 0 and 6 (one on each input port) follows its
+    actuator; the recorder plans N cycles on both and records until the sampler says they are done. The
+    board acknowledges PLAN and GO, numbers every drive 1..N per channel, its beats count the cycles
+    the drives completed, and the store's life counts are N exactly, each cycle measured."""
+    n, on_us, off_us, channels = 12, 10_000, 10_000, (0, 6)
+    script = tmp_path / "script.txt"
+    script.write_text(f"{int(HANG_S * 1e9)} end\n")  # ended on stdin once the run is recorded
+    flags = ["--packed-strap"] if strap == "packed" else []
+    proc = subprocess.Popen(
+        [str(blsim), "--elf", str(avr_elf), "--script", str(script), "--pty", "--relay", "2000", *flags],
+        stdin=subprocess.PIPE,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    stop = threading.Event()
+    timer = threading.Timer(HANG_S, stop.set)  # a ceiling only a hang reaches
+    try:
+        first = proc.stdout.readline().split()
+        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
+            first = proc.stdout.readline().split()
+        assert first[:1] == ["pty"], first
+        with Store.open(str(tmp_path / "fw.sqlite")) as store:
+            lot = store.register_lot(store.register_part("FW-RELAY", "test"), "L1")
+            units = {ch: store.register_unit(lot, f"R-{ch}") for ch in channels}
+            profile = {"on_ms": on_us / 1000, "off_ms": off_us / 1000, "cycles": n}
+            bench = store.register_bench("fw bench")
+            writer = store.start_run(bench, units, profile=profile, target_cycles=n)
+            # the relay settles within 0.1 ms of each switching; a cycle is 20 ms
+            rec = Recorder(writer, settings=AnalysisSettings(settle_ns=2_000_000))
+            with Feed(first[1], baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
+                feed = _Observed(live)
+                proc.stdin.write("go\n")
+                proc.stdin.flush()
+                timer.start()
+                while not any(t.announcements for t in feed.batches) and not stop.is_set():
+                    rec.push(feed.poll(0.05))  # the board is up: its announcement is in
+                feed.start_cycling(rec.plans(on_us, off_us))
+                reason = rec.run(feed, stop, grace_s=0.3)
+                faults = live.counters.decode_faults
+            proc.stdin.write("end\n")  # the run is recorded: stop the emulation
+            proc.stdin.flush()
+            done = proc.stdout.readline()
+            assert done.startswith("done"), done + proc.stderr.read()
+            run_units = store.run_units(writer.run_id)
+            unobserved = store.incidents(writer.run_id, kind=CYCLES_NOT_OBSERVED)
+            makes = {ch: store.actuations(units=[units[ch]], kind="make")["cycle"] for ch in channels}
+    finally:
+        timer.cancel()
+        proc.stdin.close()
+        try:
+            proc.wait(timeout=HANG_S)
+        finally:
+            if proc.poll() is None:  # never outlives the test
+                proc.kill()
+                proc.wait()
+        proc.stdout.close()
+        proc.stderr.close()
+
+    stack_bytes = int(done.split()[4])  # deepest stack the harness saw
+    print(f"\n{strap} form, recorder path: stack {stack_bytes} bytes at most")
+    assert reason == END_TARGET and faults == 0
+    assert stack_bytes <= STACK - 64
+    batches = feed.batches
+    assert [a.version for t in batches for a in t.announcements] == [2]
+    accepted = [a.record for t in batches for a in t.accepted]
+    drive_t = np.concatenate([t.drives.t_ns for t in batches])
+    drive_ch = np.concatenate([t.drives.channel for t in batches])
+    drive_lv = np.concatenate([t.drives.level for t in batches])
+    drive_cy = np.concatenate([t.drives.cycle for t in batches if t.drives.cycle is not None])
+    assert len(drive_cy) == len(drive_t)  # every drive numbered
+    assert accepted == [
+        PlanAccepted(0, on_us, off_us, n),
+        PlanAccepted(6, on_us, off_us, n),
+        GoAccepted(channels, accepted[-1].tick),  # its tick against the drives: the test above
+    ]
+    offs = {}
+    for ch in channels:
+        mine = np.flatnonzero(drive_ch == ch)
+        mine = mine[np.argsort(drive_t[mine], kind="stable")]
+        assert drive_lv[mine].tolist() == [1, 0] * n
+        assert drive_cy[mine].tolist() == [c for c in range(1, n + 1) for _ in (0, 1)]  # 1..N, on and off
+        offs[ch] = np.sort(drive_t[mine][drive_lv[mine] == 0])
+    counts = [c for t in batches for c in t.counts]
+    assert counts and all(c.short == 0 for c in counts)
+    for c in counts:  # each beat counts the cycles whose drive-off came before it
+        for ch, k in c.cycles:
+            before = int(np.searchsorted(offs[ch], c.t_ns, side="left"))
+            assert before <= k <= int(np.searchsorted(offs[ch], c.t_ns, side="right")), (c, ch)
+    assert dict(counts[-1].cycles) == dict.fromkeys(channels, n)
+    # the store: the sampler's count is each unit's life in this run, every cycle measured
+    assert {ru.channel: ru.cycles_done for ru in run_units} == dict.fromkeys(channels, n)
+    assert {ru.channel: ru.unit.cycles for ru in run_units} == dict.fromkeys(channels, n)
+    assert unobserved == []
+    assert {ch: sorted(m.tolist()) for ch, m in makes.items()} == dict.fromkeys(channels, list(range(n)))

@@ -15,7 +15,19 @@ import pytest
 from _fw_helpers import decode_all, edge_rows, others, run_host
 from cobs import cobs
 
-from benchlog.wire import Announce, Beat, Drive, Edges, Fault, Notice, Pong, SequenceGap, cobs_decode
+from benchlog.wire import (
+    Announce,
+    Beat,
+    Drive,
+    Edges,
+    Fault,
+    GoAccepted,
+    Notice,
+    PlanAccepted,
+    Pong,
+    SequenceGap,
+    cobs_decode,
+)
 from tests.conftest import HANG_S
 
 FORMS = ["L", "P"]
@@ -84,7 +96,7 @@ def test_scripted_edges_decode_exactly(blhost: Path, tmp_path: Path, form: str) 
     assert (b"\x00" in data) == (form == "P")
     records = decode_all(data)
     assert not [r for r in records if isinstance(r, Fault | SequenceGap)]
-    assert records[0] == Announce(1, 1_000_000, 32, 8, "blref-host")
+    assert records[0] == Announce(2, 1_000_000, 32, 8, "blref-host")
     assert edge_rows(records) == want
 
     # beats: captured covers exactly the edges before each beat; one at least every 0.5 s
@@ -94,7 +106,7 @@ def test_scripted_edges_decode_exactly(blhost: Path, tmp_path: Path, form: str) 
         if isinstance(r, Edges):
             seen += len(r)
         elif isinstance(r, Beat):
-            assert (r.captured, r.dropped) == (seen, 0)
+            assert (r.captured, r.dropped, r.short, r.cycles) == (seen, 0, 0, ())
             beats.append(r.tick)
     assert beats[0] == 0 and len(beats) >= 3
     assert max(b - a for a, b in zip(beats, beats[1:], strict=False)) <= 500_000 + 10
@@ -103,7 +115,8 @@ def test_scripted_edges_decode_exactly(blhost: Path, tmp_path: Path, form: str) 
 def test_packed_frames_follow_the_flush_rules(blhost: Path, tmp_path: Path) -> None:
     script, _ = bounce_script(seed=11)
     data, _ = run_host(blhost, script, tmp_path, "--form", "P")
-    frames = [cobs_decode(f) for f in data.split(b"\x00")[:-1]]
+    assert data[:1] == b"\x00"  # a fresh packed stream starts with one (docs/protocol.md, version 2)
+    frames = [cobs_decode(f) for f in data[1:].split(b"\x00")[:-1]]
     seqs = [int.from_bytes(f[1:3], "little") for f in frames]
     assert seqs == list(range(len(frames)))  # +1 per frame, every type counts
     sizes = []
@@ -130,7 +143,7 @@ def test_16_bit_counter_wraps_and_beats_keep_the_host_in_step(blhost: Path, tmp_
     script = "".join(f"{tick} edge 1 {lv}\n" for tick, lv in rows) + "1000000 end\n"
     data, _ = run_host(blhost, script, tmp_path, "--bits", "16", "--form", "P")
     records = decode_all(data)
-    assert records[0] == Announce(1, 1_000_000, 16, 8, "blref-host")
+    assert records[0] == Announce(2, 1_000_000, 16, 8, "blref-host")
     # unwrap every tick-bearing record in stream order, as a host would
     absolute, prev, edges_abs = 0, 0, []
     beat_gaps = []
@@ -177,6 +190,7 @@ def test_a_pulse_shorter_than_a_tick_is_counted(blhost: Path, tmp_path: Path) ->
     records = decode_all(run_host(blhost, script, tmp_path)[0])
     assert edge_rows(records) == [(2, 1, 5000)]
     assert Notice("1 pin changes too short to time since reset") in records
+    assert [r.short for r in records if isinstance(r, Beat)][-1] == 1  # version 2: beats carry the count
 
 
 def test_commands(blhost: Path, tmp_path: Path) -> None:
@@ -189,10 +203,10 @@ def test_commands(blhost: Path, tmp_path: Path) -> None:
     fence = data.index(b"P 1*")  # the line form ends with the answer to PING 1
     cut = data.index(b"\n", fence) + 1
     head, tail = decode_all(data[:cut]), decode_all(data[cut:])
-    announce = Announce(1, 1_000_000, 32, 8, "blref-host")
+    announce = Announce(2, 1_000_000, 32, 8, "blref-host")
     assert others(head) == [
         announce,
-        Beat(0, 0, 0),
+        Beat(0, 0, 0, 0, ()),
         Pong(42),
         announce,
         Notice("unknown command: PING 70000"),
@@ -202,7 +216,7 @@ def test_commands(blhost: Path, tmp_path: Path) -> None:
         Notice("PLAN needs channel on_us off_us cycles: 9"),  # channel 9 of 8
         Pong(1),
     ]
-    assert b"\x00" in data[cut:]
+    assert data[cut : cut + 1] == b"\x00"  # FORM P: the packed form starts with a 0x00 (version 2)
     assert tail[0] == Pong(2) and edge_rows(tail) == [(4, 1, 2000)]
 
 
@@ -211,7 +225,7 @@ def test_cycle_driver_switches_on_schedule(blhost: Path, tmp_path: Path) -> None
         "100 cmd PLAN 2 20000 30000 3\n100 cmd PLAN 5 1000 1500 0\n10000 cmd GO\n"
         "10500 cmd PLAN 1 10 10 1\n10600 cmd GO\n"
         "60000 edge 2 1\n60040 edge 2 0\n60100 edge 2 1\n"
-        "120000 cmd HALT\n200000 cmd PLAN 2 20000 30000 1\n200000 cmd GO\n400000 end\n"
+        "120000 cmd HALT\n200000 cmd PLAN 2 20000 30000 1\n200000 cmd GO\n1100000 end\n"
     )
     log = tmp_path / "actuators.log"
     for form in FORMS:
@@ -230,9 +244,35 @@ def test_cycle_driver_switches_on_schedule(blhost: Path, tmp_path: Path) -> None
         assert ch5[-1][1] == 0 and 117_500 <= ch5[-1][0] <= 120_010  # it stopped at HALT, and off
         texts = [r.text for r in records if isinstance(r, Notice)]
         assert "PLAN refused while cycling, HALT first: 1" in texts
-        assert "GO ignored: already cycling" in texts
         assert "channel 2 finished its plan: 3 cycles" not in texts  # HALT came first
         assert "channel 2 finished its plan: 1 cycles" in texts
+        # version 2: PLAN and GO acknowledged with what the sampler took; a GO while every planned
+        # channel cycles starts none (as the simulated sampler answers it)
+        plans = [r for r in records if isinstance(r, PlanAccepted)]
+        assert plans == [PlanAccepted(2, 20000, 30000, 3), PlanAccepted(5, 1000, 1500, 0)] + [
+            PlanAccepted(2, 20000, 30000, 1)
+        ]
+        goes = [r for r in records if isinstance(r, GoAccepted)]
+        assert [g.channels for g in goes] == [(2, 5), (), (2,)]
+        assert goes[0].tick == go
+        assert goes[2].tick == min(t for t, ch, _ in drives if ch == 2 and t >= 200_000)
+        ch2_cycles = [r.cycle for r in records if isinstance(r, Drive) and r.channel == 2]
+        assert ch2_cycles == [1, 1, 2, 2, 3, 3, 1, 1]
+        # docs/protocol.md: a drive carries its cycle (1 = the first after GO; on and off of one cycle
+        # share it), a cycle is completed when the actuator switches off (HALT's switching too), and
+        # each beat lists, per channel started since reset, the cycles completed by then
+        done: dict[int, int] = {}
+        n_beats = 0
+        for r in records:
+            if isinstance(r, GoAccepted):
+                done.update(dict.fromkeys(r.channels, 0))
+            elif isinstance(r, Drive):
+                done[r.channel] += 0 if r.level else 1
+                assert r.cycle == done[r.channel] + r.level, r
+            elif isinstance(r, Beat):
+                assert dict(r.cycles) == done and [c for c, _ in r.cycles] == sorted(done)
+                n_beats += 1
+        assert n_beats >= 3 and done[5] == len([1 for _, ch, lv in drives if ch == 5 and not lv])
         # every tick-bearing record leaves in tick order (drives and edges share one queue)
         ticks = []
         for r in records:

@@ -47,10 +47,12 @@ def test_stream_vector(path):
     records = [record_from_json(r) for r in vec["records"]]
     line = bytes.fromhex(vec["line_hex"])
     packed = bytes.fromhex(vec["packed_hex"])
+    preamble = bytes.fromhex(vec.get("packed_preamble_hex", ""))  # a fresh version 2 sampler's 0x00
     assert line.decode("ascii") == vec["line_text"]
     assert LineEncoder().encode_all(records) == line
     assert (
-        PackedEncoder(max_edges=vec["max_edges"], sequence=vec["first_sequence"]).encode_all(records)
+        preamble
+        + PackedEncoder(max_edges=vec["max_edges"], sequence=vec["first_sequence"]).encode_all(records)
         == packed
     )
     for data in (line, packed):
@@ -66,7 +68,7 @@ def test_stream_vector(path):
         else:
             assert int(check, 16) == functools.reduce(operator.xor, body.encode(), 0)
     joined = b"".join(bytes.fromhex(f["cobs_hex"]) + b"\0" for f in vec["packed_frames"])
-    assert joined == packed
+    assert preamble + joined == packed
     for seq, f in enumerate(vec["packed_frames"], start=vec["first_sequence"]):
         raw = bytes.fromhex(f["raw_hex"])
         assert reference_cobs_decode(bytes.fromhex(f["cobs_hex"])) == raw
