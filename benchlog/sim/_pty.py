@@ -377,7 +377,7 @@ class PtySampler:
         """The cable is out for `seconds` of wall time: the pty goes; a self-powered sampler runs on
         unheard (keeping its pace), a bus-powered one is off and comes back reset."""
         bench = self.bench
-        start = time.time()
+        start, start_mono = time.time(), time.monotonic()
         self.bytes_lost_unplugged += len(self._backlog) + sum(len(d) for _, d, _ in self._held)
         self._backlog.clear()
         self._held.clear()
@@ -392,7 +392,9 @@ class PtySampler:
                     self.bytes_lost_unplugged += len(bench.step_bytes(step))
             time.sleep(0.005)
         if powers_off:
-            target = sim0 + int((time.monotonic() - wall0) * self.speed * 1e9)
-            self._send_records(bench.power_cycle(max(0, target - bench.now_ns)))
+            # off for as long as the cable was out (not for however far the simulation lagged the wall
+            # clock before the pull: on a loaded machine that lag is seconds of sampler time)
+            off_ns = int((time.monotonic() - start_mono) * self.speed * 1e9)
+            self._send_records(bench.power_cycle(off_ns))
         self._open_pty()
         self.outages.append((start, time.time()))

@@ -65,8 +65,11 @@ serial = "E3"
 SPEED = 20.0
 
 
-def run_bench(cfg, seconds_sampler: float, plan_cycles: int, seed: int = 7, speed: float = SPEED):
-    """Serve `cfg` on a pty, read it with a Feed, cycle all four units; returns (sim, feed, timed)."""
+def run_bench(cfg, seconds_sampler: float, plan_cycles: int, seed: int = 7, speed: float = SPEED, until=None):
+    """Serve `cfg` on a pty, read it with a Feed, cycle all four units; returns (sim, feed, timed).
+
+    `until(parts)`, if given, must also hold before the reading stops (and then 2 s more of sampler time
+    are read): an event the test waits for, such as the host hearing the board again after a pull."""
     parts = []
     with PtySampler(cfg, seed=seed, speed=speed) as sim:
         with Feed(sim.path, speed=speed, wait_s=2.0, backoff_s=(0.01, 0.1)) as feed:
@@ -76,6 +79,15 @@ def run_bench(cfg, seconds_sampler: float, plan_cycles: int, seed: int = 7, spee
                 parts.append(feed.poll(0.05))
                 assert sim.error is None
                 assert time.monotonic() < ceiling, "the simulated bench stopped advancing"
+            if until is not None:
+                while not until(parts):
+                    parts.append(feed.poll(0.05))
+                    assert sim.error is None
+                    assert time.monotonic() < ceiling, "the awaited event never came"
+                settled = sim.bench.now_ns + 2e9
+                while sim.bench.now_ns < settled:
+                    parts.append(feed.poll(0.05))
+                    assert time.monotonic() < ceiling, "the simulated bench stopped advancing"
             # the plan is done by now: read on until every edge sent is received or reported lost (a
             # loaded machine may be slow to read the last of it; only a hang reaches the ceiling)
             while feed.counters.edges + feed.counters.edges_lost < len(sim.bench.truth.sent):
@@ -179,7 +191,10 @@ def test_bus_powered_board_comes_back_reset_and_idle():
     the clock) and has forgotten its plans, so cycling stops until the host plans again."""
     faults = "pull_at_s = 6.0\npull_for_s = 0.15\npull_powers_off = true"
     cfg = parse_config(CONFIG.format(form="line", bits=32, clock_hz=1_000_000, faults=faults), "bus.toml")
-    sim, counters, timed = run_bench(cfg, seconds_sampler=14.0, plan_cycles=0, seed=5)
+    # the host takes a moment to reopen the port: wait for it to hear the board again (on a loaded
+    # machine that can be after the sampler's 14 s)
+    heard_again = lambda parts: any(i.kind == RESET for p in parts for i in p.incidents)  # noqa: E731
+    sim, counters, timed = run_bench(cfg, seconds_sampler=14.0, plan_cycles=0, seed=5, until=heard_again)
     kinds = [i.kind for i in timed.incidents]
     assert kinds.count(DISCONNECT) == 1 and kinds.count(RESET) == 1
     reset = next(i for i in timed.incidents if i.kind == RESET)
@@ -187,6 +202,9 @@ def test_bus_powered_board_comes_back_reset_and_idle():
     assert np.count_nonzero(timed.edges.t_ns > reset.t_end_ns) == 0  # idle after the power loss
     assert np.count_nonzero(timed.edges.t_ns < reset.t_start_ns) > 1000
     assert len(sim.bench.truth.resets) == 1 and not sim.bench.pending_cycles()
+    # the board was off for as long as the cable was out, not for however far the simulation lagged
+    (out,) = sim.outages
+    assert sim.bench.truth.resets[0] - 6e9 <= ((out[1] - out[0]) * SPEED + 0.5) * 1e9
 
 
 def test_a_sampler_that_holds_its_output_through_a_pulled_cable_loses_no_time():
