@@ -68,12 +68,14 @@ class PtySampler:
         self._held: list[tuple[int, bytes, bool]] = []  # (sampler time, bytes, holds an announcement)
         self._sticky: bytes | None = None  # an announcement no reader has heard yet
         self._cmd_buf = bytearray()
-        self._pull_request: float | None = None
+        self._pull_request: tuple[float, bool] | None = None
+        self._pull_at_cycle: int | None = None
         self.bytes_written = 0
         self.bytes_lost_unplugged = 0
         self.bytes_lost_unheard = 0
         self._last_progress = time.monotonic()
         self._listening_since: float | None = None
+        self.pulled_at_cycles: list[int] = []  # cycles every planned channel had done at each pull
         self.outages: list[tuple[float, float]] = []  # wall-clock (time.time) start/end of each pull
         # an open port that takes nothing for this long has a stuck reader: its output is discarded
         self.unheard_s = UNHEARD_S
@@ -102,11 +104,14 @@ class PtySampler:
         if self._tmpdir:
             shutil.rmtree(self._tmpdir, ignore_errors=True)
 
-    def pull_cable(self, seconds: float, hold: bool = False) -> None:
-        """Pull the cable now (from any thread) for `seconds` of wall time. `hold`: a sampler whose buffer
-        holds the whole outage: what was sent before the pull is read first, what the sampler sends
-        while the cable is out comes after it is back, so the outage costs no data and a seeded run
-        stays the same however long it lasts."""
+    def pull_cable(self, seconds: float, hold: bool = False, at_cycle: int | None = None) -> None:
+        """Pull the cable (from any thread) for `seconds` of wall time: now, or with `at_cycle` once every
+        planned channel has done that many cycles (a point in the sampler's run that a host slowed by
+        a loaded machine cannot step past). `hold`: a sampler whose buffer holds the whole outage: what
+        was sent before the pull is read first, what the sampler sends while the cable is out comes
+        after it is back, so the outage costs no data and a seeded run stays the same however long it
+        lasts."""
+        self._pull_at_cycle = at_cycle
         self._pull_request = (float(seconds), bool(hold))
 
     @property
@@ -169,8 +174,9 @@ class PtySampler:
         sim0 = bench.now_ns
         self._send_records(bench.advance_to(bench.now_ns))
         while not self._stop.is_set():
-            if self._pull_request is not None:
+            if self._pull_request is not None and self._pull_due():
                 (seconds, hold), self._pull_request = self._pull_request, None
+                self.pulled_at_cycles.append(min(bench.cycles_done.values(), default=0))
                 if hold:
                     self._unplugged_holding(seconds, wall0, sim0)
                 else:
@@ -199,6 +205,11 @@ class PtySampler:
                 self.bytes_lost_unheard += len(self._backlog)
                 self._backlog.clear()
             self._wait()
+
+    def _pull_due(self) -> bool:
+        at = self._pull_at_cycle
+        done = self.bench.cycles_done
+        return at is None or (bool(done) and min(done.values()) >= at)
 
     @property
     def listening(self) -> bool:

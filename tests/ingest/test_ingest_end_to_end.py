@@ -251,3 +251,23 @@ def test_a_sampler_that_holds_its_output_through_a_pulled_cable_loses_no_time():
     truth = set(zip(sent["channel"].tolist(), sent["level"].tolist(), sent_ns, strict=True))
     got = zip(e.channel.tolist(), e.level.tolist(), (e.t_ns - offset).tolist(), strict=True)
     assert all(x in truth for x in got)
+
+
+def test_a_pull_set_for_a_cycle_comes_at_that_cycle_however_late_the_host_reads():
+    """The demo pulls a cable a third of the way into a run that lasts a tenth of a second of wall time:
+    a host slowed by a loaded machine must not be able to step past that point. The sampler pulls at
+    the cycle itself.
+    Truth: the simulator's own cycle count."""
+    cfg = parse_config(CONFIG.format(form="packed", bits=32, clock_hz=1_000_000, faults=""), "late.toml")
+    speed = 300.0
+    with PtySampler(cfg, seed=2, speed=speed) as sim:
+        sim.pull_cable(0.2, hold=True, at_cycle=30)
+        with Feed(sim.path, speed=speed, wait_s=2.0, backoff_s=(0.01, 0.1)) as feed:
+            feed.start_cycling([Plan(ch, 50_000, 50_000, 200) for ch in range(4)])
+            ceiling = time.monotonic() + HANG_S
+            while not sim.outages:
+                feed.poll(0.05)
+                assert sim.error is None and time.monotonic() < ceiling, "the cable was never pulled"
+    # the sampler advances at most one step (5 ms of wall time: 1.5 s, 15 cycles of 100 ms) at a time
+    (at,) = sim.pulled_at_cycles
+    assert 30 <= at <= 30 + 15

@@ -196,17 +196,14 @@ def record_bench(db: str, job: BenchJob, aged_for: int, stop: threading.Event) -
         for timed in early:
             rec.push(timed)
         feed.start_cycling(rec.plans(int(ON_MS * 1000), int(OFF_MS * 1000)))
-
-        pulled: list[float] = []  # monotonic time of the pull
+        if job.pull:  # the link goes down a third of the way in, and comes back (at x300 the whole run
+            # can pass in a moment the host is busy: the sampler itself pulls at that cycle)
+            sim.pull_cable(PULL_FOR_S, hold=True, at_cycle=(job.stop_after or job.cycles) // 3)
         moved = [time.monotonic(), -1]  # when the cycle count last moved, and to what
 
         def progress(p) -> None:
             now = time.monotonic()
-            target = job.stop_after or job.cycles
-            if job.pull and not pulled and p.cycles_done >= target // 3:
-                pulled.append(now)
-                sim.pull_cable(PULL_FOR_S, hold=True)  # the link goes down and comes back
-            back = not job.pull or (pulled and now - pulled[0] > PULL_FOR_S + 1.0)
+            back = not job.pull or (sim.outages and time.time() - sim.outages[0][1] > 1.0)
             if job.stop_after and p.cycles_done >= job.stop_after and back:
                 stop.set()
             if p.cycles_done != moved[1]:
