@@ -314,6 +314,19 @@ def run_lab(
                         )
                     ).all()
                 )
+                # the killed bench per unit, to read a count that is off: (makes, breaks, highest cycle)
+                fig["killed_units"] = [
+                    tuple(r)
+                    for r in c.execute(
+                        text(
+                            "SELECT u.serial, sum(CASE WHEN a.kind = 0 THEN 1 ELSE 0 END), "
+                            "sum(CASE WHEN a.kind = 1 THEN 1 ELSE 0 END), max(a.cycle) FROM actuations a "
+                            "JOIN units u ON u.id = a.unit_id JOIN runs r ON r.id = a.run_id "
+                            "JOIN benches b ON b.id = r.bench_id WHERE b.name = 'lab bench 0' "
+                            "GROUP BY u.serial ORDER BY u.serial"
+                        )
+                    ).all()
+                ]
         fig["stored"] = {name: int(n) for name, n in sorted(stored.items())}
         fig["expected_per_bench"] = 2 * CHANNELS * cycles
         return fig
