@@ -129,7 +129,9 @@ class Recorder:
             # every cycle begun counts, its rows written or not: after a reset the base holds the cycle it
             # cut short and the last ones before it, whose rows the analysis may still hold
             done = max(int(self.writer.cycles_done[ch]), self.count.started(ch) or 0)
-            left = 0 if not target else max(1, target - done)
+            if target and done >= target:
+                continue  # nothing due (a plan of 0 cycles would mean "until halted")
+            left = 0 if not target else target - done
             out.append(Plan(ch, int(on_us), int(off_us), int(left)))
         return out
 

@@ -135,3 +135,23 @@ def test_a_resumed_recorder_counts_each_cycle_once_and_numbers_it_truly(tmp_path
             assert off == [], (ch, off[:5])
     finally:
         store.close()
+
+
+def test_a_run_resumed_at_its_target_plans_no_cycle_more(tmp_path):
+    """A recorder killed after the run's last cycle was counted (its make written, the run not yet
+    closed) leaves the run at its target. `record --sim` starts a new simulated sampler with each
+    recorder: the resumed recorder must plan nothing on such a channel (a plan of 0 cycles means "until
+    halted", so it sent 1: the lab-load test stored an extra make and break, cycle 200 of a 200-cycle
+    target, on every unit, 3,208 actuations of 3,200). The other channel is planned for what it still
+    owes. Common practice, no source: a life test stops at its target."""
+    store = Store.open(str(tmp_path / "at-target.sqlite"))
+    try:
+        writer = start_run(store, CHANNELS, TARGET, "bench T")
+        writer.cycles_done[0], writer.cycles_done[1] = TARGET, TARGET - 3
+        writer.flush()
+        writer.abandon()
+        store.release_bench(writer.bench_id, writer.lease_token)
+        rec = _recorder(store.resume_run(writer.run_id))
+        assert [(p.channel, p.cycles) for p in rec.plans(ON_US, OFF_US)] == [(1, 3)]
+    finally:
+        store.close()
