@@ -5,11 +5,13 @@ terminal."""
 
 from __future__ import annotations
 
+from rich.text import Text
 from textual.widgets import DataTable
 
 from benchlog.store import END_TARGET, Store
 from benchlog.views.tui import BenchDashboard
 from benchlog.views.tui._data import cycles_text, value_text
+from benchlog.views.tui._help import HELP
 from benchlog.views.tui._runs import RunsScreen
 from benchlog.views.tui._units import UnitsScreen
 
@@ -135,3 +137,21 @@ async def test_demo_shaped_units_fit_80_columns_and_widen_at_160(tmp_path):
         assert "Make" in labels and "Op/Rel" in labels  # the full table where it fits (p95/max pairs)
         await _check_units_fit(pilot, scr)
 
+
+async def test_help_never_wraps_a_line_at_80x24(built):
+    path, _ = built
+    app = BenchDashboard(path, refresh_s=0)
+    async with app.run_test(size=SMALL) as pilot:
+        await settle(pilot, RunsScreen)
+        await pilot.press("question_mark")
+        await pilot.pause()
+        box = app.screen.query_one("#help-box")
+        text = app.screen.query_one("#help-text")
+        lines = Text.from_markup(HELP).plain.split("\n")
+        assert box.region.right <= SMALL[0] and box.region.bottom <= SMALL[1]
+        assert max(Text(line).cell_len for line in lines) <= text.size.width
+        assert text.size.height == len(lines)  # one screen line a text line: nothing wrapped
+        assert box.max_scroll_x == 0 and box.max_scroll_y > 0  # the rest is a scroll away, not clipped
+        box.scroll_end(animate=False)
+        await pilot.pause()
+        assert box.scroll_y == box.max_scroll_y == text.size.height - box.scrollable_content_region.height
