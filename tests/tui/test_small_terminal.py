@@ -16,7 +16,7 @@ from benchlog.views.tui._runs import RunsScreen
 from benchlog.views.tui._units import UnitsScreen
 
 from ._build import actuations, register
-from ._pilot import column, settle, until
+from ._pilot import cell_text, column, settle, until
 
 SMALL = (80, 24)
 
@@ -51,8 +51,8 @@ async def test_units_keep_their_rows_at_24_lines(built):
 
 
 def demo_shaped(path: str) -> int:
-    """16 units with the demo's 13-character serials: two drift (one past its limit), one welded, one
-    with many chatter events. Returns the run id."""
+    """16 units with the demo's 13-character serials: two drift (one on all four metrics), one fails by
+    missed makes, one has many chatter events. Returns the run id."""
     with Store.open(path) as store:
         ag = register(
             store, "AG-MS5", "Ashgrove Components", "L1", [f"AG-MS5-L1-{i:03d}" for i in range(1, 9)]
@@ -67,8 +67,10 @@ def demo_shaped(path: str) -> int:
             a = actuations(range(16), lo, lo + 399, seed=lo, growth={3: 1.0, 12: 3.0})
             a = a[~((a["channel"] == 9) & (a["cycle"] >= 600))]
             a["chatter"][a["channel"] == 14] = 5
+            slow = a["channel"] == 12  # its operate and release times drift too: a long drift cell
+            a["transit_us"][slow] *= 1.0 + 3.0 * a["cycle"][slow] / 1000.0
             if lo <= 600 < lo + 400:
-                w.mark_failed(units[9], 600, "welded")
+                w.mark_failed(units[9], 600, "missed_make")
             w.add(actuations=a)
             w.flush()
         w.close(END_TARGET)
@@ -130,12 +132,15 @@ async def test_demo_shaped_units_fit_80_columns_and_widen_at_160(tmp_path):
         assert sum(u.drifting for u in scr.rows) >= 2
         assert any(u.unit.status == "failed" for u in scr.rows)
         await _check_units_fit(pilot, scr)
+        units = scr.query_one("#units", DataTable)
+        slow = [u.channel for u in scr.rows].index(12)
+        assert cell_text(units, slow, "drift").endswith("…")  # no room for the four metrics: cut, marked
         await pilot.resize_terminal(160, 50)
         await pilot.pause()
-        units = scr.query_one("#units", DataTable)
         labels = [c.label.plain.strip() for c in units.ordered_columns]
         assert "Make" in labels and "Op/Rel" in labels  # the full table where it fits (p95/max pairs)
         await _check_units_fit(pilot, scr)
+        assert cell_text(units, slow, "drift").startswith("DRIFT mk+brk+op")  # whole where it fits
 
 
 async def test_help_never_wraps_a_line_at_80x24(built):
