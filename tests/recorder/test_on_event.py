@@ -235,3 +235,46 @@ def test_a_store_error_is_told_as_the_end_of_the_run(tmp_path):
         store.close()
     (ended,) = [t["stdin"] for t in _told(out) if t["stdin"]["event"] == "run_ended"]
     assert ended["reason"] == "store_error" and "disk is full" in ended["detail"]
+
+
+# a second part whose contacts wear fast: at 500 per 100,000 cycles their bounce count and lengths double
+# in 200 cycles (docs/simulator.md), so a short run shows the unit drifting while the other stays steady
+WEARING = """
+[populations.VS-505]
+supplier = "Vellmar Switchgear"
+operate = { median_us = 6900.0, sigma = 0.10 }
+release = { median_us = 3500.0, sigma = 0.10 }
+make = { count_mean = 3.0, first_gap_us = 380.0, dwell_us = 160.0, decay = 0.58, jitter = 0.30 }
+break = { count_mean = 2.0, first_gap_us = 1000.0, dwell_us = 350.0, decay = 0.62, jitter = 0.30 }
+wear_per_100k = WEAR
+life_shape = 2.4
+life_scale = 420000.0
+failure = { welded = 1.0 }
+"""
+
+
+def test_a_unit_starting_to_drift_is_told_once_with_the_stored_flag(tmp_path):
+    db = str(tmp_path / "drift.sqlite")
+    cmd, out = _hook(tmp_path, "ok")
+    text = SAMPLER.replace("LIFE_SHAPE", "2.4").replace("LIFE_SCALE", "420000.0")  # no unit fails
+    text = text.replace(
+        'population = "AG-MS5"\nserial = "EV-002"', 'population = "VS-505"\nserial = "EV-002"'
+    )
+    sampler = tmp_path / "wearing.toml"
+    sampler.write_text(text + WEARING.replace("WEAR", "500.0"))
+    argv = _record(str(sampler), db, "--profile", "50:50:400", "--window", "20", "--sim-seed", "7")
+    assert main([*argv, "--on-event", cmd]) == 0
+    with Store.open(db, readonly=True) as store:
+        (run,) = store.runs()
+        units = {ru.channel: ru.unit for ru in store.run_units(run.id)}
+    told = [t for t in _told(out) if t["stdin"]["event"] == "drift_flagged"]
+    flagged = {ch: u for ch, u in units.items() if u.first_drift_cycle is not None}
+    assert 1 in flagged  # the wearing unit drifts
+    assert sorted(t["stdin"]["channel"] for t in told) == sorted(flagged)  # each flag told, once
+    for t in told:
+        ev, u = t["stdin"], flagged[t["stdin"]["channel"]]
+        assert (ev["unit"], ev["unit_id"], ev["part"], ev["lot"]) == (u.serial, u.id, u.part_number, u.lot)
+        assert (ev["cycle"], ev["metric"]) == (u.first_drift_cycle, u.first_drift_metric)
+        assert ev["run"] == run.id and ev["bench"] == "EV"
+        for k, v in ev.items():  # the same facts in the command's environment
+            assert t["env"]["BENCHLOG_" + k.upper()] == str(v)

@@ -40,8 +40,10 @@ async def settle(pilot, screen_type=None, timeout: float = HANG_S):
 
 
 def cell_text(table: DataTable, row: int, column: str) -> str:
+    """What a cell shows, without the spaces around it (a table without cell padding puts its gap
+    between columns in the cells)."""
     value = table.get_cell_at((row, table.get_column_index(column)))
-    return value.plain if hasattr(value, "plain") else str(value)
+    return (value.plain if hasattr(value, "plain") else str(value)).strip()
 
 
 def column(table: DataTable, name: str) -> list[str]:

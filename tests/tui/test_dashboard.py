@@ -28,6 +28,7 @@ from ._build import actuations, build
 from ._pilot import cell_text, column, settle, until
 
 SIZE = (100, 30)
+WIDE = (130, 30)  # the units' full table fits (below it turns compact: tests/tui/test_small_terminal.py)
 
 
 def rolling_p95_max(store: Store, unit_id: int, kind: int, window: int = 100, windows: int = 10):
@@ -84,7 +85,7 @@ async def test_navigate_filter_sort_history_and_back(built):
     path, ids = built
     store = Store.open(path, readonly=True)
     app = BenchDashboard(path, refresh_s=0)
-    async with app.run_test(size=SIZE) as pilot:
+    async with app.run_test(size=WIDE) as pilot:  # the units' full table (p95/max pairs)
         units = await open_run(pilot, ids["run1"])
         t = units.query_one("#units", DataTable)
         assert t.row_count == 8

@@ -46,8 +46,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     e.add_argument(
         "--on-event",
         metavar="CMD",
-        help="run CMD on each event (a unit failed, a unit's first actuation out of spec, the link lost,"
-        " the run ended): the event as JSON on its standard input and BENCHLOG_* variables; CMD is split"
+        help="run CMD on each event (a unit failed, a unit's first actuation out of spec, a unit's first"
+        " drift flag, the link lost, the run ended): the event as JSON on its standard input and BENCHLOG_*"
+        " variables; CMD is split"
         " into words as a shell would, and run without a shell",
     )
     e.add_argument(

@@ -10,6 +10,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.widgets import DataTable, Footer, Input, Static
 
+from benchlog.store import FAILED, REMOVED
 from benchlog.views._times import first_break_text, first_drift_text
 
 from ._base import DIM_STYLE, DRIFT_STYLE, FAIL_STYLE, MARGINAL_STYLE, PASS_STYLE, DataScreen, StatusLine
@@ -43,6 +44,9 @@ SORTS = {
 VERDICT_FILTERS = (None, FAIL, MARGINAL, PASS)
 # the table's abbreviations, one line under it (the view line above it names the figures' units)
 UNITS_KEY = "Ch channel  Drift: mk/brk bounce, op/rel time, @N limit near N, over: past it"
+# the compact table's figure headings are the drift cell's names (mk brk op rel), explained once
+COMPACT_KEY = "Ch channel  mk/brk bounce, op/rel time  Drift: @N limit near N, over: past it"
+FAILURE_WORDS = {"welded": "welded", "missed_make": "no make", "chatter": "chatter"}
 
 
 def _nz(v: float) -> float:
@@ -83,6 +87,59 @@ def pair(f) -> str:
     return f"{value_text(f.p95)}/{value_text(f.max)}"
 
 
+def status_text(row: UnitRow) -> Text:
+    """The compact table's one word for a unit: its verdict while it lives, or `FAILED` and how (a failed
+    unit fails its verdict)."""
+    u = row.unit
+    if u.status == FAILED:
+        mode = u.failure_mode or ""
+        return Text(f"FAILED {FAILURE_WORDS.get(mode, mode.replace('_', ' '))}".rstrip(), style=FAIL_STYLE)
+    if u.status == REMOVED:
+        return Text("REMOVED", style=DIM_STYLE)
+    return verdict_text(row)
+
+
+def compact_cells(u: UnitRow) -> dict[str, Text]:
+    """The cells of the compact table: p95 only, one column a figure, each cell led by its one-space
+    gap (the compact table has no cell padding)."""
+    f = u.figures
+    cells = {
+        "ch": Text(str(u.channel), justify="right"),
+        "unit": Text(u.unit.serial),
+        "cycles": Text(cycles_text(u.unit.cycles), justify="right"),
+        "status": status_text(u),
+        "mk": Text(value_text(f["make_bounce"].p95), justify="right"),
+        "brk": Text(value_text(f["break_bounce"].p95), justify="right"),
+        "op": Text(value_text(f["operate_time"].p95), justify="right"),
+        "rel": Text(value_text(f["release_time"].p95), justify="right"),
+        "chat": Text(str(u.chatter), justify="right"),
+        "drift": drift_cell(u, word=False),
+    }
+    for c in cells.values():
+        c.pad_left(1)
+    return cells
+
+
+def wide_cells(u: UnitRow) -> dict[str, Text | str]:
+    f = u.figures
+    return {
+        "ch": str(u.channel),
+        "unit": Text(u.unit.serial),
+        "cycles": cycles_text(u.unit.cycles),
+        "life": life_text(u),
+        "verdict": verdict_text(u),
+        "make": pair(f["make_bounce"]),
+        "break": pair(f["break_bounce"]),
+        "drift": drift_cell(u),
+        "oprel": f"{value_text(f['operate_time'].p95)}/{value_text(f['release_time'].p95)}",
+        "chat": str(u.chatter),
+    }
+
+
+def _width(cell: Text | str) -> int:
+    return cell.cell_len if isinstance(cell, Text) else Text(cell).cell_len
+
+
 class UnitsScreen(DataScreen):
     CSS_PATH = "_units.tcss"
     BINDINGS = [
@@ -119,8 +176,8 @@ class UnitsScreen(DataScreen):
         yield StatusLine()
         yield Footer()
 
-    WIDE = 100  # below this many columns the unit's cycles fold into the pane below (and its Life cell)
-    COLUMNS = (
+    # the full table where it fits; else one column a figure (p95; the max folds into the pane below)
+    WIDE_COLUMNS = (
         ("Ch", "ch"),
         ("Unit", "unit"),
         ("Cycles", "cycles"),
@@ -132,10 +189,23 @@ class UnitsScreen(DataScreen):
         ("Op/Rel", "oprel"),
         ("Chatter", "chat"),
     )
+    COMPACT_COLUMNS = (
+        ("Ch", "ch"),
+        ("Unit", "unit"),
+        ("Cycles", "cycles"),
+        ("Status", "status"),
+        ("Mk", "mk"),
+        ("Brk", "brk"),
+        ("Op", "op"),
+        ("Rel", "rel"),
+        ("Chatter", "chat"),
+        ("Drift", "drift"),
+    )
+    RIGHT = frozenset({"ch", "cycles", "mk", "brk", "op", "rel", "chat"})
 
     def on_mount(self) -> None:
         self._wide: bool | None = None
-        self._layout(self.size.width >= self.WIDE or self.size.width == 0)
+        self._layout(True)
         self.query_one("#filter", Input).display = False
         self._fit_pane()
         self.request()
@@ -146,16 +216,32 @@ class UnitsScreen(DataScreen):
         self._wide = wide
         t = self.query_one("#units", DataTable)
         t.clear(columns=True)
-        for label, key in self.COLUMNS:
-            if wide or key != "cycles":
+        t.cell_padding = 1 if wide else 0
+        for label, key in self.WIDE_COLUMNS if wide else self.COMPACT_COLUMNS:
+            if wide:
                 t.add_column(label, key=key)
+            else:
+                t.add_column(Text(f" {label}", justify="right" if key in self.RIGHT else "left"), key=key)
+        self.query_one("#units-key", Static).update(Text(UNITS_KEY if wide else COMPACT_KEY, style=DIM_STYLE))
+
+    def _room(self) -> int:
+        """The columns the table can fill without scrolling sideways: the screen's, less a scrollbar."""
+        return self.size.width - self.query_one("#units", DataTable).styles.scrollbar_size_vertical
+
+    def _fits_wide(self, units: list[UnitRow]) -> bool:
+        """Whether the full table fits (measured on every unit of the run, so a filter keeps the layout)."""
+        if self.size.width == 0:
+            return True
+        cells = [wide_cells(u) for u in units]
+        need = sum(
+            max([len(label)] + [_width(c[key]) for c in cells]) + 2 for label, key in self.WIDE_COLUMNS
+        )
+        return need <= self._room()
 
     def on_resize(self, _event) -> None:
         self._fit_pane()
-        if self._wide is not None and (self.size.width >= self.WIDE) != self._wide:
-            self._layout(self.size.width >= self.WIDE)
-            if isinstance(self.last_data, RunDetail):
-                self._fill()
+        if isinstance(self.last_data, RunDetail):
+            self._fill()
 
     def _fit_pane(self) -> None:
         """On a short terminal (24 lines) the units keep the room: the pane below shrinks to a few
@@ -207,28 +293,26 @@ class UnitsScreen(DataScreen):
         t = self.query_one("#units", DataTable)
         selected = self._selected()
         keep = selected.unit.id if selected else None
+        data = self.last_data
+        self._layout(self._fits_wide(data.units if isinstance(data, RunDetail) else []))
         self.rows = self._visible()
         t.clear()
-        keys = [k for _, k in self.COLUMNS if self._wide or k != "cycles"]
-        for u in self.rows:
-            f = u.figures
-            cells = {
-                "ch": str(u.channel),
-                "unit": Text(u.unit.serial),
-                "cycles": cycles_text(u.unit.cycles),
-                "life": life_text(u),
-                "verdict": verdict_text(u),
-                "make": pair(f["make_bounce"]),
-                "break": pair(f["break_bounce"]),
-                "drift": drift_cell(u, word=bool(self._wide)),
-                "oprel": f"{value_text(f['operate_time'].p95)}/{value_text(f['release_time'].p95)}",
-                "chat": str(u.chatter),
-            }
+        if self._wide:
+            keys = [k for _, k in self.WIDE_COLUMNS]
+            rows = [wide_cells(u) for u in self.rows]
+        else:
+            keys = [k for _, k in self.COMPACT_COLUMNS]
+            rows = [compact_cells(u) for u in self.rows]
+            self._fit_drift(rows)
+        for u, cells in zip(self.rows, rows, strict=True):
             t.add_row(*(cells[k] for k in keys), key=str(u.unit.id))
         if self.rows:
             idx = next((i for i, u in enumerate(self.rows) if u.unit.id == keep), 0)
             t.move_cursor(row=idx)
-        view = Text(" ms, last 10 windows: make/break p95/max, op/rel p95", style=DIM_STYLE)
+        if self._wide:
+            view = Text(" ms, last 10 windows: make/break p95/max, op/rel p95", style=DIM_STYLE)
+        else:
+            view = Text(" ms, p95 of the last 10 windows", style=DIM_STYLE)
         view.append(f"   sort: {self.sort_key}{' (reversed)' if self.reverse else ''}")
         if self.verdict_filter is not None:
             view.append(f"   verdict: {VERDICT_LABEL_SHORT[self.verdict_filter]}")
@@ -242,6 +326,18 @@ class UnitsScreen(DataScreen):
             view.append(f"   reading trends, {self.last_data.missing} to go", style="bold")
         self.query_one("#view-line", Static).update(view)
         self._show_info()
+
+    def _fit_drift(self, rows: list[dict[str, Text]]) -> None:
+        """The drift cell, last, takes what the other compact columns leave; a longer one ends in an
+        ellipsis (the pane below has the whole flag in words)."""
+        other = sum(
+            max([len(label) + 1] + [c[key].cell_len for c in rows])
+            for label, key in self.COMPACT_COLUMNS
+            if key != "drift"
+        )
+        room = max(len(" Drift"), self._room() - other)
+        for c in rows:
+            c["drift"].truncate(room, overflow="ellipsis")
 
     def _selected(self) -> UnitRow | None:
         t = self.query_one("#units", DataTable)
