@@ -17,7 +17,7 @@ import numpy as np
 
 from benchlog.errors import DataError
 from benchlog.stats._compare import UnitSample
-from benchlog.stats._unit_effect import UnitEffect
+from benchlog.stats._unit_effect import UnitEffect, median_noise, pivots
 from benchlog.stats._verdict import PASS, decide_at_most
 
 __all__ = ["Characteristic", "operating_characteristic", "UnitModel"]
@@ -92,6 +92,7 @@ def operating_characteristic(
     rng = np.random.default_rng(seed)
     values = max(20, min(int(cycles), MAX_VALUES_PER_UNIT))
     effect = UnitEffect.from_parts(0.0, model.sigma, 2, model.residuals)
+    noise = float(median_noise(effect.residuals, np.array([values]))[0])  # as UnitEffect of a lot
     out = np.zeros((len(units), len(ratios)))
     total = len(units) * len(ratios)
     done = 0
@@ -103,8 +104,7 @@ def operating_characteristic(
                 ybar, s = y.mean(axis=1), y.std(axis=1, ddof=1)
                 u = rng.chisquare(n - 1, (populations, draws))
                 z = rng.standard_normal((populations, draws))
-                sig = s[:, None] * np.sqrt((n - 1) / u)
-                q.append((ybar[:, None] - z * sig / np.sqrt(n), sig))
+                q.append(pivots(ybar[:, None], s[:, None], noise, n, u, z))
             top = max(float(q[0][1].max()), float(q[1][1].max()))
             grid = np.linspace(0.0, top, 97)
             g = effect.scale_quantile(grid, percentile / 100.0)

@@ -6,10 +6,10 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
+from scipy import integrate, stats
 
 from benchlog.stats import UnitSample, pooled_percentile
-from benchlog.stats._unit_effect import METHOD, UnitEffect, bounds
+from benchlog.stats._unit_effect import METHOD, UnitEffect, bounds, median_noise
 
 
 def test_without_within_unit_spread_the_bound_is_the_normal_tolerance_bound():
@@ -50,3 +50,31 @@ def test_the_default_method_and_its_fallback_for_counts():
     counts = UnitSample.of(rng.poisson(0.3, len(unit)).astype(float), unit)  # unit medians are 0
     iv = pooled_percentile(counts, 95.0)
     assert iv.method != METHOD and "bootstrap" in iv.method
+
+
+def test_the_variance_of_a_sample_median_is_the_order_statistics():
+    # The median of m = 101 normal values is its 51st order statistic: its variance, integrated with
+    # scipy over the order statistic's density Beta.pdf(Phi(x); 51, 51) phi(x), is 0.01549 for sd 1
+    # (the asymptotic pi / (2 m) = 0.01555: Kendall and Stuart, The Advanced Theory of Statistics,
+    # vol. 1; from memory). median_noise reads it off 256 quantiles of log-normal residuals (log-sd w).
+    m, k, w = 101, 51, 0.5
+    density = lambda x: stats.beta.pdf(stats.norm.cdf(x), k, k) * stats.norm.pdf(x)  # noqa: E731
+    exact = integrate.quad(lambda x: x * x * density(x), -4, 4)[0]
+    assert exact == pytest.approx(math.pi / (2 * m), rel=0.01)
+    r = np.exp(w * stats.norm.ppf((np.arange(256) + 0.5) / 256))
+    assert median_noise(r, np.array([m]))[0] == pytest.approx(w * w * exact, rel=0.03)
+
+
+def test_the_medians_sampling_noise_is_not_counted_as_a_unit_effect():
+    # 400 units alike (no unit effect), 101 log-normal actuations each (log-sd 0.5): their log medians
+    # still spread by the sampling noise of a median, sd 0.5 sqrt(pi / (2 m)) = 0.062 (the asymptotic
+    # variance above). The unit-to-unit sigma the model keeps is what remains beyond that noise; crediting
+    # the units with all of it (sigma = 0.063, as before) set every percentile and its bounds high.
+    m, w, units = 101, 0.5, 400
+    rng = np.random.default_rng(11)
+    values = np.exp(w * rng.standard_normal((units, m)))
+    noise_sd = w * math.sqrt(math.pi / (2 * m))
+    spread = np.log(np.median(values, axis=1)).std(ddof=1)
+    assert spread == pytest.approx(noise_sd, rel=0.1)  # 400 medians: their sd within ~4 % of its mean
+    model = UnitEffect.of(UnitSample.of(values.ravel(), np.repeat(np.arange(units), m)))
+    assert model.sigma < 0.5 * noise_sd
