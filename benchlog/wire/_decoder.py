@@ -127,10 +127,9 @@ class _FramePlan:
 
 def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
     """Little-endian unsigned integers of `size` bytes at offsets `at` of `d`, as uint64."""
-    out = np.zeros(len(at), np.uint64)
-    for k in range(size):
-        out |= d[at + k].astype(np.uint64) << np.uint64(8 * k)
-    return out
+    # one gather of whole words read as little-endian, not a gather and a shift per byte
+    words = d[at[:, None] + np.arange(size)]
+    return words.view(f"<u{size}").reshape(-1).astype(np.uint64)
 
 
 def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineContext) -> _FramePlan:
@@ -177,13 +176,13 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     is_drive &= (d_channel < ctx.channels) & (d_level <= 1) & in_range(d_tick)
     d_cycle = np.where(n == 21, _le(d, at + 13, 4).astype(np.int64), -1)
     is_beat = (kind == TYPE_BEAT) & (n == 23)
-    b_tick = _le(d, at + 3, 8)
+    b_tick = _le(d, at + 3, 8)  # a beat's tick, or an edge frame's base tick: the same bytes
     is_beat &= in_range(b_tick)
     # edge frames: base tick, count, then 3-byte entries
     count = np.where(n >= 12, d[at + 11], 0).astype(np.int64)
     size = 16 + 3 * count
     is_edges = (kind == TYPE_EDGES) & (count > 0) & ((n == size) | ((ctx.version > 1) & (n > size)))
-    base = _le(d, at + 3, 8)
+    base = b_tick
     ef = np.flatnonzero(is_edges)
     cnt = count[ef]
     first = np.cumsum(cnt) - cnt
