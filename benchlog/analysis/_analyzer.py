@@ -87,12 +87,15 @@ class Analyzer:
         rows = an.push(timed.edges, timed.drives, timed.incidents)
     rows = an.flush()
     ```
-    `push` returns the actuations finished so far, `flush` the rest at the end of data. The optional
+    `push` returns the actuations finished so far (sorted by start time; with `ordered=False` grouped by
+    channel instead, each channel's in start order), `flush` the rest at the end of data. The optional
     `spec` (a PartSpec) judges each emitted actuation (sets `verdict`); without `settings` its settle
     window, chatter threshold and glitch floor are used.
     """
 
-    def __init__(self, settings: AnalysisSettings | None = None, spec: object | None = None) -> None:
+    def __init__(
+        self, settings: AnalysisSettings | None = None, spec: object | None = None, *, ordered: bool = True
+    ) -> None:
         if settings is None:
             settings = spec.settings() if hasattr(spec, "settings") else AnalysisSettings()
         self.settings = settings
@@ -104,6 +107,9 @@ class Analyzer:
         self._held: dict[int, np.ndarray] = {}  # form C rows waiting for their partner's row
         self._drive_sources: set[int] = set()  # channels drive records came for
         self._window_end: dict[int, np.ndarray] = {}
+        # False: rows come grouped by channel (each channel's in start order), not sorted across
+        # channels, for a caller that only summarises them per channel (saves moving every row)
+        self.ordered = ordered
 
     # -- public -------------------------------------------------------------------------------------
 
@@ -273,7 +279,7 @@ class Analyzer:
         rows = np.concatenate(parts) if parts else empty_actuations()
         rows = self._mark_incomplete(rows)
         rows = self._pair_form_c(rows, final)
-        if len(rows) > 1:
+        if self.ordered and len(rows) > 1:
             # rows come per channel in ascending order, so a stable sort on start time orders by
             # (start, channel); timsort merges the per-channel runs cheaply
             order = np.argsort(rows["t_start_ns"], kind="stable")
