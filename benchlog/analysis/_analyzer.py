@@ -87,15 +87,13 @@ class Analyzer:
         rows = an.push(timed.edges, timed.drives, timed.incidents)
     rows = an.flush()
     ```
-    `push` returns the actuations finished so far (sorted by start time; with `ordered=False` grouped by
-    channel instead, each channel's in start order), `flush` the rest at the end of data. The optional
-    `spec` (a PartSpec) judges each emitted actuation (sets `verdict`); without `settings` its settle
-    window, chatter threshold and glitch floor are used.
+    `push` returns the actuations finished so far (sorted by start time; with `ordered` set to False,
+    grouped by channel instead, each channel's in start order), `flush` the rest at the end of data. The
+    optional `spec` (a PartSpec) judges each emitted actuation (sets `verdict`); without `settings` its
+    settle window, chatter threshold and glitch floor are used.
     """
 
-    def __init__(
-        self, settings: AnalysisSettings | None = None, spec: object | None = None, *, ordered: bool = True
-    ) -> None:
+    def __init__(self, settings: AnalysisSettings | None = None, spec: object | None = None) -> None:
         if settings is None:
             settings = spec.settings() if hasattr(spec, "settings") else AnalysisSettings()
         self.settings = settings
@@ -109,7 +107,7 @@ class Analyzer:
         self._window_end: dict[int, np.ndarray] = {}
         # False: rows come grouped by channel (each channel's in start order), not sorted across
         # channels, for a caller that only summarises them per channel (saves moving every row)
-        self.ordered = ordered
+        self.ordered = True
 
     # -- public -------------------------------------------------------------------------------------
 

@@ -562,26 +562,52 @@ class Decoder:
         drives_before = np.zeros(len(fast) + 1, np.int64)
         np.cumsum(is_drive.astype(np.int64), out=drives_before[1:])
         no_cycle = np.full(int(drives_before[-1]), -1, np.int64)
-        no_beats = np.zeros(0, np.int64)
-        taken = 0  # rows of the fast arrays already emitted
+        taken = 0  # rows of the fast arrays already counted
+        block_from = 0  # rows of the fast arrays not yet in an emitted block
+        beats: list[Beat] = []  # version 1 beats among them, and how many fast rows precede each
+        beat_at: list[int] = []
         prev = 0
         c = self.counters
+
+        def emit() -> None:
+            nonlocal block_from, beats, beat_at
+            if taken == block_from and not beats:
+                return
+            r = slice(block_from, taken)
+            n_drives = int(drives_before[taken] - drives_before[block_from])
+            kinds, chans, levels, ticks = row_kind[r], channel[r], level[r], tick[r]
+            if beats:  # the beats as rows of the block, where they came, as the packed form gives them
+                at = np.asarray(beat_at, np.intp)
+                kinds = np.insert(kinds, at, BLOCK_BEAT)
+                chans = np.insert(chans, at, 0)
+                levels = np.insert(levels, at, 0)
+                ticks = np.insert(ticks, at, np.array([b.tick for b in beats], np.uint64))
+            captured = np.array([b.captured for b in beats], np.int64)
+            dropped = np.array([b.dropped for b in beats], np.int64)
+            self._out.append(Block(kinds, chans, levels, ticks, no_cycle[:n_drives], captured, dropped))
+            block_from, beats, beat_at = taken, [], []
+
         for j in breaks.tolist():
             if j > prev:
                 k = j - prev
-                r = slice(taken, taken + k)
                 n_drives = int(drives_before[taken + k] - drives_before[taken])
                 self._bad_units = self._bad_bytes = 0
                 c.records += k
                 c.edges += k - n_drives
-                cycle = no_cycle[:n_drives]
-                self._out.append(Block(row_kind[r], channel[r], level[r], tick[r], cycle, no_beats, no_beats))
                 taken += k
             if j == n_lines:
                 break
             prev = j + 1
             line_start = int(starts[j])
             rec, check = parse_line(body[line_start : int(ends[j])], ctx)
+            if isinstance(rec, Beat) and rec.short is None:  # goes into the block: no break in it
+                ctx.check_level = max(ctx.check_level, check)
+                self._bad_units = self._bad_bytes = 0
+                c.records += 1
+                beats.append(rec)
+                beat_at.append(taken - block_from)
+                continue
+            emit()
             if isinstance(rec, str):
                 line_end = int(nl[j]) + 1
                 if self._fault(rec, line_end - line_start):
@@ -589,6 +615,7 @@ class Decoder:
             else:
                 ctx.check_level = max(ctx.check_level, check)
                 self._good(rec)
+        emit()
         return None
 
     def _hold(self, tail: bytes, limit: int, terminator: bytes) -> bytes:

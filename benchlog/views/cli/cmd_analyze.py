@@ -152,10 +152,9 @@ def analyze_file(
         nonlocal analyzer, pending_edges
         if analyzer is None and timeline.clock_hz:
             res = max(1, 1_000_000_000 // int(timeline.clock_hz))
+            analyzer = Analyzer(settings.with_(resolution_ns=max(settings.resolution_ns, res)), spec)
             # the summaries take rows in any order across channels: no sort unless rows are asked for
-            analyzer = Analyzer(
-                settings.with_(resolution_ns=max(settings.resolution_ns, res)), spec, ordered=rows is not None
-            )
+            analyzer.ordered = rows is not None
         incidents.extend(timed.incidents)
         if analyzer is not None:
             pending.append(timed)
