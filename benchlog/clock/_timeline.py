@@ -894,7 +894,9 @@ class Timeline:
         # Edges after a beat and before the next one count as received before it when their tick is at
         # or before its tick (in flight when it was sent); the beat pending from earlier takes those
         # before the first beat here.
-        after = np.searchsorted(j, np.arange(len(k)), "right")  # beats at or before each row
+        marks = np.zeros(len(k), np.intp)
+        marks[j] = 1
+        after = np.cumsum(marks)  # beats at or before each row (j: distinct rows, sorted)
         bound = np.empty(nb + 1, np.int64)
         bound[0] = self._beat.rel if self._beat is not None else np.iinfo(np.int64).min
         bound[1:] = rel[j]
