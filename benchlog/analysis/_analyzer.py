@@ -38,6 +38,7 @@ from benchlog.analysis._types import (
     FREE_RUNNING,
     INCOMPLETE,
     MAKE,
+    concat_actuations,
     empty_actuations,
 )
 from benchlog.events import RESET, Incident, TimedDrives, TimedEdges
@@ -271,10 +272,10 @@ class Analyzer:
                 early = self._process(ch, int(ch.t[-1]) + 1, True)
                 early["flags"][-1:] |= INCOMPLETE
                 self.counters.closed_early += 1
-                rows = np.concatenate((rows, early))
+                rows = concat_actuations((rows, early))
             if len(rows):
                 parts.append(rows)
-        rows = np.concatenate(parts) if parts else empty_actuations()
+        rows = concat_actuations(parts)
         rows = self._mark_incomplete(rows)
         rows = self._pair_form_c(rows, final)
         if self.ordered and len(rows) > 1:
@@ -314,7 +315,7 @@ class Analyzer:
             if len(rows):
                 out.append(rows)
             if not (final or cap <= eff):
-                return np.concatenate(out) if out else empty_actuations()
+                return concat_actuations(out)
             _, group_start, _, _ = filter_glitches(ch.t, floor)
             self._cut(ch, cap, group_start)
             ch.done_until = cap
@@ -329,7 +330,7 @@ class Analyzer:
             rows = empty_actuations()
         if len(rows):
             out.append(rows)
-        return np.concatenate(out) if out else empty_actuations()
+        return concat_actuations(out)
 
     def _cut(self, ch: _Channel, t_cut: int, group_start: np.ndarray) -> None:
         """Forget raw edges before the glitch run holding the first edge at or after `t_cut`."""
