@@ -10,12 +10,15 @@ scipy itself.
 from __future__ import annotations
 
 import math
-from statistics import NormalDist
 from typing import NamedTuple
 
 import numpy as np
 
-_NORMAL = NormalDist()
+
+def _normal():
+    from statistics import NormalDist  # statistics is slow to import, and only this needs it
+
+    return NormalDist()
 
 
 class TheilSen(NamedTuple):
@@ -56,7 +59,7 @@ def theil_sen(y, x, alpha: float = 0.95) -> TheilSen:
     intercept = float(np.median(y) - slope * np.median(x))
     if alpha > 0.5:
         alpha = 1.0 - alpha
-    z = _NORMAL.inv_cdf(alpha / 2.0)
+    z = _normal().inv_cdf(alpha / 2.0)
     n = len(y)
     nt = len(slopes)
     sigsq = (n * (n - 1) * (2 * n + 5) - _tie_sum(x) - _tie_sum(y)) / 18.0

@@ -12,25 +12,6 @@ Definitions of every metric: docs/metrics.md; the spec file format: docs/spec.md
 """
 
 from benchlog.analysis._analyzer import Analyzer, AnalyzerCounters, blank_incomplete, measure, power_off_ns
-from benchlog.analysis._drift import (
-    DRIFT_METRICS,
-    DRIFT_POINTS,
-    WINDOW_DTYPE,
-    Baseline,
-    DriftMonitor,
-    DriftReport,
-    Projection,
-    baseline,
-    coarse_windows,
-    cusum,
-    drift,
-    drift_horizon,
-    drift_limit,
-    ewma,
-    judge_drift,
-    project,
-    window_stats,
-)
 from benchlog.analysis._settings import DEFAULT_CHATTER_THRESHOLD_NS, AnalysisSettings, load_settings
 from benchlog.analysis._spec import (
     METRICS,
@@ -67,6 +48,40 @@ from benchlog.analysis._types import (
 )
 
 Segmenter = Analyzer  # the same object: it segments and measures in one pass
+
+# drift names load on first use: a command that only measures (`analyze`) does not pay for the module
+_DRIFT_NAMES = frozenset(
+    (
+        "DRIFT_METRICS",
+        "DRIFT_POINTS",
+        "WINDOW_DTYPE",
+        "Baseline",
+        "DriftMonitor",
+        "DriftReport",
+        "Projection",
+        "baseline",
+        "coarse_windows",
+        "cusum",
+        "drift",
+        "drift_horizon",
+        "drift_limit",
+        "ewma",
+        "judge_drift",
+        "project",
+        "window_stats",
+    )
+)
+
+
+def __getattr__(name: str):
+    if name in _DRIFT_NAMES:
+        from benchlog.analysis import _drift
+
+        value = getattr(_drift, name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
 
 __all__ = [
     "ACTUATION_DTYPE",

@@ -38,6 +38,7 @@ from benchlog.analysis._types import (
     FREE_RUNNING,
     INCOMPLETE,
     MAKE,
+    concat_actuations,
     empty_actuations,
 )
 from benchlog.events import RESET, Incident, TimedDrives, TimedEdges
@@ -87,9 +88,10 @@ class Analyzer:
         rows = an.push(timed.edges, timed.drives, timed.incidents)
     rows = an.flush()
     ```
-    `push` returns the actuations finished so far, `flush` the rest at the end of data. The optional
-    `spec` (a PartSpec) judges each emitted actuation (sets `verdict`); without `settings` its settle
-    window, chatter threshold and glitch floor are used.
+    `push` returns the actuations finished so far (sorted by start time; with `ordered` set to False,
+    grouped by channel instead, each channel's in start order), `flush` the rest at the end of data. The
+    optional `spec` (a PartSpec) judges each emitted actuation (sets `verdict`); without `settings` its
+    settle window, chatter threshold and glitch floor are used.
     """
 
     def __init__(self, settings: AnalysisSettings | None = None, spec: object | None = None) -> None:
@@ -104,6 +106,9 @@ class Analyzer:
         self._held: dict[int, np.ndarray] = {}  # form C rows waiting for their partner's row
         self._drive_sources: set[int] = set()  # channels drive records came for
         self._window_end: dict[int, np.ndarray] = {}
+        # False: rows come grouped by channel (each channel's in start order), not sorted across
+        # channels, for a caller that only summarises them per channel (saves moving every row)
+        self.ordered = True
 
     # -- public -------------------------------------------------------------------------------------
 
@@ -267,13 +272,13 @@ class Analyzer:
                 early = self._process(ch, int(ch.t[-1]) + 1, True)
                 early["flags"][-1:] |= INCOMPLETE
                 self.counters.closed_early += 1
-                rows = np.concatenate((rows, early))
+                rows = concat_actuations((rows, early))
             if len(rows):
                 parts.append(rows)
-        rows = np.concatenate(parts) if parts else empty_actuations()
+        rows = concat_actuations(parts)
         rows = self._mark_incomplete(rows)
         rows = self._pair_form_c(rows, final)
-        if len(rows) > 1:
+        if self.ordered and len(rows) > 1:
             # rows come per channel in ascending order, so a stable sort on start time orders by
             # (start, channel); timsort merges the per-channel runs cheaply
             order = np.argsort(rows["t_start_ns"], kind="stable")
@@ -310,7 +315,7 @@ class Analyzer:
             if len(rows):
                 out.append(rows)
             if not (final or cap <= eff):
-                return np.concatenate(out) if out else empty_actuations()
+                return concat_actuations(out)
             _, group_start, _, _ = filter_glitches(ch.t, floor)
             self._cut(ch, cap, group_start)
             ch.done_until = cap
@@ -325,7 +330,7 @@ class Analyzer:
             rows = empty_actuations()
         if len(rows):
             out.append(rows)
-        return np.concatenate(out) if out else empty_actuations()
+        return concat_actuations(out)
 
     def _cut(self, ch: _Channel, t_cut: int, group_start: np.ndarray) -> None:
         """Forget raw edges before the glitch run holding the first edge at or after `t_cut`."""

@@ -107,7 +107,7 @@ class _Channel:
         return v
 
 
-def _select(rows: np.ndarray, which: str) -> np.ndarray:
+def _select(rows, which: str) -> np.ndarray:
     if which == _MAKE:
         return rows["kind"] == MAKE
     if which == _BREAK:
@@ -116,7 +116,7 @@ def _select(rows: np.ndarray, which: str) -> np.ndarray:
         return rows["drive_level"] == 1
     if which == _RELEASE:
         return rows["drive_level"] == 0
-    return np.ones(len(rows), bool)
+    return np.ones(len(rows["kind"]), bool)
 
 
 class Summaries:
@@ -147,19 +147,29 @@ class Summaries:
     def add(self, actuations: np.ndarray) -> None:
         if not len(actuations):
             return
+        # the columns used, each read once and grouped by channel (one stable sort: rows keep their
+        # order within a channel), not a copy of whole rows per channel
+        names = {"channel", "kind", "flags", "cycle", "glitches", "chatter", "drive_level"}
+        names.update(column for column, _, _ in self._wanted)
         channels = actuations["channel"]
-        present = np.unique(channels).tolist()
-        for c in present:
-            rows = actuations[channels == c] if len(present) > 1 else actuations
+        if (channels[1:] == channels[:-1]).all():
+            cols = {name: actuations[name] for name in names}
+            bounds = [0, len(actuations)]
+        else:
+            order = np.argsort(channels, kind="stable")
+            cols = {name: actuations[name][order] for name in names}
+            bounds = [0, *(np.flatnonzero(np.diff(cols["channel"])) + 1).tolist(), len(actuations)]
+        for a, b in zip(bounds[:-1], bounds[1:], strict=True):
+            c = int(cols["channel"][a])
             ch = self._channels.get(c)
             if ch is None:
                 ch = self._channels[c] = _Channel()
-            self._add(ch, rows)
+            self._add(ch, {name: col[a:b] for name, col in cols.items()})
 
-    def _add(self, ch: _Channel, rows: np.ndarray) -> None:
+    def _add(self, ch: _Channel, rows: dict[str, np.ndarray]) -> None:
         flags = rows["flags"]
         kind = rows["kind"]
-        ch.actuations += len(rows)
+        ch.actuations += len(flags)
         ch.makes += int(np.count_nonzero(kind == MAKE))
         ch.breaks += int(np.count_nonzero(kind == BREAK))
         ch.max_cycle = max(ch.max_cycle, int(rows["cycle"].max()))
@@ -167,10 +177,12 @@ class Summaries:
         ch.missed += int(np.count_nonzero(flags & MISSED))
         ch.stuck += int(np.count_nonzero(flags & STUCK))
         ch.no_change += int(np.count_nonzero(flags & NO_CHANGE))
-        good = rows[(flags & (INCOMPLETE | NO_CHANGE)) == 0]
-        if not len(good):
+        is_good = (flags & (INCOMPLETE | NO_CHANGE)) == 0
+        n_good = int(np.count_nonzero(is_good))
+        if not n_good:
             return
-        ch.complete += len(good)
+        good = rows if n_good == len(flags) else {name: col[is_good] for name, col in rows.items()}
+        ch.complete += n_good
         ch.glitches += int(good["glitches"].clip(min=0).sum())
         ch.chatter += int(good["chatter"].clip(min=0).sum())
         lo, hi = int(good["cycle"].min()), int(good["cycle"].max())
@@ -179,8 +191,8 @@ class Summaries:
         failed = (good["flags"] & (MISSED | STUCK)) != 0
         n_failed = int(np.count_nonzero(failed))
         if n_failed and ch.first_missed is None:
-            first = good[int(np.argmax(failed))]
-            ch.first_missed = (bool(first["flags"] & STUCK), int(first["cycle"]))
+            first = int(np.argmax(failed))
+            ch.first_missed = (bool(good["flags"][first] & STUCK), int(good["cycle"][first]))
         ch.missed_good += n_failed
         for column, which, drop_missed in self._wanted:
             sel = _select(good, which)

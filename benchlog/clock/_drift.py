@@ -42,6 +42,29 @@ class DriftEstimator:
             self._sampler = self._sampler[::2]
             self._step *= 2
 
+    def add_many(self, host_ns: np.ndarray, sampler_ns: np.ndarray) -> None:
+        """`add` for each pair in order, with the thinning worked out per stretch, not per pair."""
+        host, sampler = list(host_ns), list(sampler_ns)
+        i, n = 0, len(host)
+        while i < n:
+            first = i + (-self._seen) % self._step  # the next pair `add` would keep
+            room = MAX_KEPT + 1 - len(self._host)  # pairs kept before the next halving
+            last = first + (room - 1) * self._step
+            if last >= n:
+                self._host += host[first : n : self._step]
+                self._sampler += sampler[first : n : self._step]
+                self._dirty = self._dirty or first < n
+                self._seen += n - i
+                return
+            self._host += host[first : last + 1 : self._step]
+            self._sampler += sampler[first : last + 1 : self._step]
+            self._dirty = True
+            self._seen += last + 1 - i
+            self._host = self._host[::2]
+            self._sampler = self._sampler[::2]
+            self._step *= 2
+            i = last + 1
+
     def ppm(self) -> float | None:
         """Sampler-clock error in ppm (positive: the sampler's clock runs fast), or None for too few."""
         if not self._dirty:

@@ -217,7 +217,7 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     back = rel < prior_hi - tl._back_tolerance()
     t = tl._ns0 + ticks_to_ns_array(rel, hz)
     beat_pos = seg.beats()[0]
-    row_group = np.searchsorted(beat_pos, np.arange(n), "left")
+    row_group = _count_before(beat_pos, n, 1)  # beats before each row
     step = tl.replay_step()
     offset = (tl._replay_host + step * (row_group + 1) - tl._epoch_start_host) - t
     starts = np.flatnonzero(np.diff(row_group, prepend=-1))
@@ -234,6 +234,14 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
         return int(row_group[int(np.argmax(bad))])
     b.rel, b.hi, b.t, b.row_group, b.offset = rel, hi, t, row_group, offset
     return None
+
+
+def _count_before(pos: np.ndarray, n: int, shift: int) -> np.ndarray:
+    """For each row 0..n-1, how many of the distinct sorted positions `pos` are at or below the row
+    minus `shift`: `np.searchsorted(pos, np.arange(n), "left" if shift else "right")`, in one pass."""
+    marks = np.zeros(n + shift, np.intp)
+    marks[pos + shift] = 1
+    return np.cumsum(marks[:n])
 
 
 def _commit(tl: Timeline, b: _Batch) -> Timed:

@@ -894,7 +894,9 @@ class Timeline:
         # Edges after a beat and before the next one count as received before it when their tick is at
         # or before its tick (in flight when it was sent); the beat pending from earlier takes those
         # before the first beat here.
-        after = np.searchsorted(j, np.arange(len(k)), "right")  # beats at or before each row
+        marks = np.zeros(len(k), np.intp)
+        marks[j] = 1
+        after = np.cumsum(marks)  # beats at or before each row (j: distinct rows, sorted)
         bound = np.empty(nb + 1, np.int64)
         bound[0] = self._beat.rel if self._beat is not None else np.iinfo(np.int64).min
         bound[1:] = rel[j]
@@ -906,8 +908,11 @@ class Timeline:
         host = beat_host[m0:m1]
         cap, drop = captured[m0:m1], dropped[m0:m1]
         self._beats.append(np.stack([tb, host, cap, drop], axis=1))
-        for h, tt in zip(host.tolist(), tb.tolist(), strict=True):
-            self._drift.add(self._scaled(h - self._epoch_start_host), tt)
+        if self.time_scale == 1.0:
+            self._drift.add_many((host - self._epoch_start_host).tolist(), tb.tolist())
+        else:
+            for h, tt in zip(host.tolist(), tb.tolist(), strict=True):
+                self._drift.add(self._scaled(h - self._epoch_start_host), tt)
         settle = [
             (b_.rel, b_.t_ns, b_.host_ns, b_.captured, b_.dropped, b_.received_before, b_.late + int(late[0]))
             for b_ in ([self._beat] if self._beat is not None else [])

@@ -87,7 +87,6 @@ RANGE = "value out of range"
 
 _EDGE_HEAD = np.dtype([("base", "<u8"), ("count", "u1")])
 _TERMINATOR = re.compile(rb"[\n\x00]")
-_V2_CHECK = re.compile(rb"\*[0-9a-fA-F]{6}\r?\n")
 _FIXED_PAYLOAD = {TYPE_PONG: 2, TYPE_PLAN_ACCEPTED: 13, TYPE_GO_ACCEPTED: 10}
 
 
@@ -125,12 +124,20 @@ class _FramePlan:
     dropped: np.ndarray
 
 
+def _v2_checks(a: np.ndarray) -> bool:
+    """Whether any line may end in a version 2 check (`*` and six hex digits): the third byte after
+    some `*` is not the line's end, as it is in a version 1 check (`*hh`). (A numpy pass over the
+    stars, quicker than a regular expression tried at each one.)"""
+    star = np.flatnonzero(a == 0x2A)
+    after = a[star[star + 3 < len(a)] + 3]
+    return not ((after == 0x0A) | (after == 0x0D)).all()
+
+
 def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
     """Little-endian unsigned integers of `size` bytes at offsets `at` of `d`, as uint64."""
-    out = np.zeros(len(at), np.uint64)
-    for k in range(size):
-        out |= d[at + k].astype(np.uint64) << np.uint64(8 * k)
-    return out
+    # one gather of whole words read as little-endian, not a gather and a shift per byte
+    words = d[at[:, None] + np.arange(size)]
+    return words.view(f"<u{size}").reshape(-1).astype(np.uint64)
 
 
 def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineContext) -> _FramePlan:
@@ -177,13 +184,13 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     is_drive &= (d_channel < ctx.channels) & (d_level <= 1) & in_range(d_tick)
     d_cycle = np.where(n == 21, _le(d, at + 13, 4).astype(np.int64), -1)
     is_beat = (kind == TYPE_BEAT) & (n == 23)
-    b_tick = _le(d, at + 3, 8)
+    b_tick = _le(d, at + 3, 8)  # a beat's tick, or an edge frame's base tick: the same bytes
     is_beat &= in_range(b_tick)
     # edge frames: base tick, count, then 3-byte entries
     count = np.where(n >= 12, d[at + 11], 0).astype(np.int64)
     size = 16 + 3 * count
     is_edges = (kind == TYPE_EDGES) & (count > 0) & ((n == size) | ((ctx.version > 1) & (n > size)))
-    base = _le(d, at + 3, 8)
+    base = b_tick
     ef = np.flatnonzero(is_edges)
     cnt = count[ef]
     first = np.cumsum(cnt) - cnt
@@ -515,12 +522,10 @@ class Decoder:
         including the first line that may change it (an announcement, a stronger check than the stream
         has carried). So results never depend on how the stream was split into reads."""
         level = self._ctx.check_level
-        if body[:1] != b"A" and b"\nA" not in body[:-1]:  # the usual case, found at C speed
-            if level == CHECK_CRC or (
-                b"*" not in body if level == CHECK_NONE else not _V2_CHECK.search(body)
-            ):
-                return len(body)
         a = np.frombuffer(body, np.uint8)
+        if body[:1] != b"A" and body.find(b"\nA", 0, len(body) - 1) < 0:  # the usual case
+            if level == CHECK_CRC or (b"*" not in body if level == CHECK_NONE else not _v2_checks(a)):
+                return len(body)
         nl = np.flatnonzero(a == 0x0A)
         starts = np.empty_like(nl)
         starts[0] = 0
@@ -557,26 +562,52 @@ class Decoder:
         drives_before = np.zeros(len(fast) + 1, np.int64)
         np.cumsum(is_drive.astype(np.int64), out=drives_before[1:])
         no_cycle = np.full(int(drives_before[-1]), -1, np.int64)
-        no_beats = np.zeros(0, np.int64)
-        taken = 0  # rows of the fast arrays already emitted
+        taken = 0  # rows of the fast arrays already counted
+        block_from = 0  # rows of the fast arrays not yet in an emitted block
+        beats: list[Beat] = []  # version 1 beats among them, and how many fast rows precede each
+        beat_at: list[int] = []
         prev = 0
         c = self.counters
+
+        def emit() -> None:
+            nonlocal block_from, beats, beat_at
+            if taken == block_from and not beats:
+                return
+            r = slice(block_from, taken)
+            n_drives = int(drives_before[taken] - drives_before[block_from])
+            kinds, chans, levels, ticks = row_kind[r], channel[r], level[r], tick[r]
+            if beats:  # the beats as rows of the block, where they came, as the packed form gives them
+                at = np.asarray(beat_at, np.intp)
+                kinds = np.insert(kinds, at, BLOCK_BEAT)
+                chans = np.insert(chans, at, 0)
+                levels = np.insert(levels, at, 0)
+                ticks = np.insert(ticks, at, np.array([b.tick for b in beats], np.uint64))
+            captured = np.array([b.captured for b in beats], np.int64)
+            dropped = np.array([b.dropped for b in beats], np.int64)
+            self._out.append(Block(kinds, chans, levels, ticks, no_cycle[:n_drives], captured, dropped))
+            block_from, beats, beat_at = taken, [], []
+
         for j in breaks.tolist():
             if j > prev:
                 k = j - prev
-                r = slice(taken, taken + k)
                 n_drives = int(drives_before[taken + k] - drives_before[taken])
                 self._bad_units = self._bad_bytes = 0
                 c.records += k
                 c.edges += k - n_drives
-                cycle = no_cycle[:n_drives]
-                self._out.append(Block(row_kind[r], channel[r], level[r], tick[r], cycle, no_beats, no_beats))
                 taken += k
             if j == n_lines:
                 break
             prev = j + 1
             line_start = int(starts[j])
             rec, check = parse_line(body[line_start : int(ends[j])], ctx)
+            if isinstance(rec, Beat) and rec.short is None:  # goes into the block: no break in it
+                ctx.check_level = max(ctx.check_level, check)
+                self._bad_units = self._bad_bytes = 0
+                c.records += 1
+                beats.append(rec)
+                beat_at.append(taken - block_from)
+                continue
+            emit()
             if isinstance(rec, str):
                 line_end = int(nl[j]) + 1
                 if self._fault(rec, line_end - line_start):
@@ -584,6 +615,7 @@ class Decoder:
             else:
                 ctx.check_level = max(ctx.check_level, check)
                 self._good(rec)
+        emit()
         return None
 
     def _hold(self, tail: bytes, limit: int, terminator: bytes) -> bytes:

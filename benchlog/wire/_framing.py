@@ -77,12 +77,14 @@ def cobs_decode_spans(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tu
     idx = np.arange(len(starts))
     codes = []  # code byte positions, link by link
     silent = []  # code bytes after a 0xFF block: no zero stands in their place
+    silent_span = []  # the span each of those is in
     prev_full = None
     while len(p):
         codes.append(p)
         code = a[p]
         if prev_full is not None and prev_full.any():
             silent.append(p[prev_full])
+            silent_span.append(idx[prev_full])
         nxt = p + code
         done = nxt >= end
         if done.any():
@@ -107,6 +109,12 @@ def cobs_decode_spans(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tu
         np.add.at(inside, ends, -1)
         keep &= np.cumsum(inside, dtype=np.int8)[:n] > 0
     kept = np.flatnonzero(keep)
+    if covered:
+        # a span keeps all its bytes but its first code byte and its silent ones (each inside it)
+        lens = (ends - starts).astype(np.int64) - 1
+        if silent_span:
+            lens -= np.bincount(np.concatenate(silent_span), minlength=len(starts))
+        return ok, values[kept], np.cumsum(lens) - lens, lens
     first = np.searchsorted(kept, starts)
     return ok, values[kept], first, np.searchsorted(kept, ends) - first
 

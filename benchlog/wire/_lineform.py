@@ -256,10 +256,11 @@ def fast_edge_lines(
     ok &= channel < ctx.channels
     level = a[s + 4] - np.uint8(0x30)
     ok &= level <= 1
-    check_digits = [HEX_VALUE[a[e - k]] for k in range(6, 0, -1)]  # the six after a version 2 `*`
     has_crc = (e - s >= 13) & (a[e - 7] == 0x2A)
+    starred = np.flatnonzero(has_crc)  # read the six digits after a version 2 `*` on those lines only
+    check_digits = [HEX_VALUE[a[e[starred] - k]] for k in range(6, 0, -1)]
     for d in check_digits:
-        has_crc &= d < 16
+        has_crc[starred] &= d < 16
     has_xor = ~has_crc & (a[e - 3] == 0x2A)
     kind = np.where(has_crc, CHECK_CRC, np.where(has_xor, CHECK_XOR, CHECK_NONE))
     ok &= kind >= ctx.check_level
@@ -275,11 +276,13 @@ def fast_edge_lines(
     ok &= ~has_xor | ((hi < 16) & (lo < 16) & (xor == ((hi << 4) | lo)))
     if has_crc.any():
         crc_rows = np.flatnonzero(has_crc & ok)
+        in_starred = np.searchsorted(starred, crc_rows)
+        digits = [d[in_starred] for d in check_digits]
         body_len = (tick_end - s)[crc_rows]
-        said_len = (check_digits[0][crc_rows].astype(np.int64) << 4) | check_digits[1][crc_rows]
+        said_len = (digits[0].astype(np.int64) << 4) | digits[1]
         said_crc = np.zeros(len(crc_rows), np.uint16)
-        for d in check_digits[2:]:
-            said_crc = (said_crc << np.uint16(4)) | d[crc_rows].astype(np.uint16)
+        for d in digits[2:]:
+            said_crc = (said_crc << np.uint16(4)) | d.astype(np.uint16)
         good = (said_len == body_len) & (crc16_spans(a, s[crc_rows], body_len) == said_crc)
         ok[crc_rows[~good]] = False
     tick = np.zeros(len(cand), np.uint64)

@@ -32,12 +32,23 @@ def _command_modules() -> list[ModuleType]:
     return [importlib.import_module(f"{__name__}.{n}") for n in names]
 
 
+def _named_command(argv: Sequence[str]) -> list[ModuleType] | None:
+    """The module of the command `argv` names, when it names one: running a command needs no other
+    command's module (each imports its own), so start-up stays short."""
+    name = argv[0] if argv else ""
+    if not name.isidentifier() or not any(
+        os.path.isfile(os.path.join(d, f"cmd_{name}.py")) for d in __path__
+    ):
+        return None
+    return [importlib.import_module(f"{__name__}.cmd_{name}")]
+
+
 class _OneLineParser(argparse.ArgumentParser):
     def error(self, message: str) -> None:  # type: ignore[override]
         self.exit(USAGE, f"benchlog: error: {message} (see: {self.prog} --help)\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(modules: list[ModuleType] | None = None) -> argparse.ArgumentParser:
     parser = _OneLineParser(
         prog="benchlog",
         description="Record, measure and qualify mechanical switches and relays on a sampler bench.",
@@ -46,7 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"benchlog {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_OneLineParser)
-    for mod in _command_modules():
+    for mod in _command_modules() if modules is None else modules:
         p = sub.add_parser(
             mod.NAME,
             help=mod.HELP,
@@ -62,8 +73,9 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     from benchlog.views.cli._signals import raise_on_stop_signals
 
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    args_in = sys.argv[1:] if argv is None else list(argv)
+    parser = build_parser(_named_command(args_in))
+    args = parser.parse_args(args_in)
     if not getattr(args, "_run", None):
         parser.print_help()
         return USAGE

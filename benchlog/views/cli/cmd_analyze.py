@@ -153,6 +153,8 @@ def analyze_file(
         if analyzer is None and timeline.clock_hz:
             res = max(1, 1_000_000_000 // int(timeline.clock_hz))
             analyzer = Analyzer(settings.with_(resolution_ns=max(settings.resolution_ns, res)), spec)
+            # the summaries take rows in any order across channels: no sort unless rows are asked for
+            analyzer.ordered = rows is not None
         incidents.extend(timed.incidents)
         if analyzer is not None:
             pending.append(timed)
