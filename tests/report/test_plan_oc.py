@@ -23,4 +23,12 @@ def test_plan_oc_from_the_incumbents_recorded_units(tmp_path, capsys):
     counts = np.ones(len(sample.values), int) if sample.weights is None else sample.weights.astype(int)
     values, unit = np.repeat(sample.values, counts), np.repeat(sample.unit, counts)
     med = [np.median(values[unit == u]) for u in range(sample.n_units)]
-    assert UnitModel.from_sample(sample).sigma == pytest.approx(np.std(np.log(med), ddof=1))
+    # less the medians' own sampling noise tau^2 (the model's `noise`, held to the median's order
+    # statistic by tests/stats): sigma^2 = s^2 - tau^2, the one-way random-effects split
+    from benchlog.stats._unit_effect import UnitEffect
+
+    spread = np.std(np.log(med), ddof=1)
+    model = UnitEffect.of(sample)
+    assert model.spread == pytest.approx(spread)
+    want = np.sqrt(max(spread**2 - model.noise, 0.0))
+    assert UnitModel.from_sample(sample).sigma == pytest.approx(want)

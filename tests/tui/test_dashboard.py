@@ -343,3 +343,13 @@ def test_a_long_run_fills_in_batch_by_batch(built):
         assert batches > 8
         assert [u.figures for u in part.units] == [u.figures for u in full.units]
         assert [u.verdict for u in part.units] == [u.verdict for u in full.units]
+
+
+async def test_a_refresh_due_while_the_dashboard_closes_is_harmless(tmp_path):
+    """The refresh timer can fire once more after the last screen has gone (a loaded suite run raised
+    ScreenStackError there, at the end of test_live_run_written_by_another_thread)."""
+    app = BenchDashboard(str(tmp_path / "none.sqlite"), refresh_s=0)
+    async with app.run_test(size=SIZE) as pilot:
+        await settle(pilot, RunsScreen)
+    assert not app.screen_stack
+    app.action_refresh_now()  # the timer's call, with no screen left

@@ -66,6 +66,8 @@ class BenchDashboard(App):
             self.set_interval(self.refresh_s, self.action_refresh_now)
 
     def action_refresh_now(self) -> None:
+        if not self.screen_stack:  # the refresh timer can fire once more while the app closes
+            return
         screen = self.screen
         if isinstance(screen, DataScreen):
             screen.request()
