@@ -362,12 +362,7 @@ class _Session:
         )
         for timed in early:
             rec.push(timed)
-        # the plans and GO wait, like a re-plan after a reset, if the cable is out just now (a port that
-        # refuses them is no reason to stop a recording); the recording loop sends them when it is back
-        from benchlog.wire import Go
-
-        rec.pending = [*rec.plans(int(on_ms * 1000), int(off_ms * 1000)), Go()]
-        rec.send_pending(self.feed)
+        self.feed.start_cycling(rec.plans(int(on_ms * 1000), int(off_ms * 1000)))
         tty = sys.stderr.isatty()
         print(
             f"benchlog: recording run {self.writer.run_id} on {len(self.writer.units)} channels"
