@@ -4,7 +4,7 @@
 writer = store.start_run(bench_id, {0: unit_a, 1: unit_b}, profile=..., target_cycles=200_000)
 rec = Recorder(writer, settings=AnalysisSettings(), specs={0: spec, 1: spec})
 with Feed(url) as feed:
-    feed.start_cycling(rec.plans(on_us=50_000, off_us=50_000))
+    rec.start(feed, on_us=50_000, off_us=50_000)
     reason = rec.run(feed, stop=threading.Event())
 ```
 """
@@ -30,12 +30,16 @@ from benchlog.store import (
     END_TARGET,
     RunWriter,
 )
+from benchlog.wire import GoAccepted
 
 from ._count import SamplerCount
 from ._drift import DriftWatch
 from ._life import LifeJudge
 
 FLUSH_EVERY_S = 0.5
+# wall seconds a connected sampler has to answer GO (a GO-accepted record, or any drive record) before
+# the plans and GO are sent again: a sampler answers within milliseconds, a loaded host may take seconds
+ANSWER_S = 3.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -110,6 +114,12 @@ class Recorder:
         self._heard_ns = -(1 << 62)  # latest run time of a record heard (edges, drives, beats)
         self._profile: tuple[int, int] | None = None  # (on_us, off_us) of the plans sent
         self.pending: list = []  # commands to send the sampler (plans again after a reset)
+        # a start owed an answer: the channels planned that no GO-accepted named and no drive record showed
+        # cycling yet, and the monotonic time since which they are waited for (None: none waited for)
+        self._awaiting: set[int] = set()
+        self._awaiting_since: float | None = None
+        self._start_cut = False  # the link went down while a start was owed: send all of it again
+        self.starts_resent = 0  # plans and GO sent again because the sampler never answered them
         self._batch_at = datetime.now(UTC)  # host wall-clock time of the batch being judged
         # each living unit's trends judged for drift as their windows complete (the first flag is kept)
         self.drift = DriftWatch(writer, self.specs)
@@ -135,12 +145,39 @@ class Recorder:
             out.append(Plan(ch, int(on_us), int(off_us), int(left)))
         return out
 
+    def start(self, feed, on_us: int, off_us: int) -> None:
+        """Queue the plans for the cycles still due and GO, and send what the port takes now.
+
+        What the port refuses (the cable out just now) waits in `pending` for the recording loop. A
+        start cut by a lost link, or whose GO a connected sampler leaves unanswered for `ANSWER_S`
+        (commands lost with a cable pulled before the sampler read them, or damaged on the way), is sent
+        again whole by `run`: a recording never waits forever on a bench that was not told to start."""
+        self._profile = (int(on_us), int(off_us))
+        self._queue_start()
+        self.send_pending(feed)
+
+    def _queue_start(self) -> None:
+        from benchlog.wire import Go
+
+        plans = self.plans(*self._profile)  # type: ignore[misc]
+        self.pending = [*plans, Go()]
+        self._awaiting = {p.channel for p in plans}
+        self._awaiting_since = time.monotonic() if self._awaiting else None
+        self._start_cut = False
+
     # -- feeding ------------------------------------------------------------------------------------
     def push(self, timed) -> None:
         """One `Timed` batch from the feed (edges, drives, incidents)."""
         self._batch_at = datetime.now(UTC)  # the host's time of the batch: when its failures are judged
         if len(timed.drives):
             self.last_drive_at = time.monotonic()
+        if self._awaiting:  # channels the sampler started (it said so, or they are cycling)
+            self._awaiting.difference_update(np.unique(timed.drives.channel).tolist())
+            for a in getattr(timed, "accepted", ()):
+                if isinstance(a.record, GoAccepted):
+                    self._awaiting.difference_update(a.record.channels)
+            if not self._awaiting:
+                self._awaiting_since = None
         until = None
         beats = getattr(timed, "beats", None)
         if beats is not None and len(beats):
@@ -159,21 +196,38 @@ class Recorder:
         if self.count.replan:
             self.count.replan = False
             if self._profile is not None and not self.target_reached():
-                from benchlog.wire import Go
-
-                # the sampler reset and forgot its plans: the cycles still due, again
-                self.pending = [*self.plans(*self._profile), Go()]
+                self._queue_start()  # the sampler reset and forgot its plans: the cycles still due, again
 
     def send_pending(self, feed) -> None:
         """Send the commands the recorder owes the sampler; those the port refuses wait for the next call."""
+        from benchlog.wire import Go
+
         while self.pending:
             try:
                 feed.send(self.pending[0])
             except (PortError, OSError):
                 return
-            self.pending.pop(0)
+            if isinstance(self.pending.pop(0), Go) and self._awaiting:
+                self._awaiting_since = time.monotonic()  # the answer is waited for from now
             if self.last_drive_at is not None:
                 self.last_drive_at = time.monotonic()  # a new plan: its first drive is yet to come
+
+    def _answer_due(self, connected: bool, now: float) -> None:
+        """Queue the plans and GO again when a start was cut by a lost link (some of it may have gone out
+        and been lost with the cable), or when a connected sampler left channels of it unstarted for
+        `ANSWER_S` (GO lost or damaged). A sampler that did hear it starts nothing twice: GO leaves
+        cycling channels alone, and the plans are recomputed for the cycles still due."""
+        if self._awaiting_since is None or self._profile is None:
+            return
+        if not connected:
+            self._start_cut = True
+            self._awaiting_since = now
+        elif self._start_cut or (not self.pending and now - self._awaiting_since > ANSWER_S):
+            if self.target_reached():
+                self._awaiting, self._awaiting_since = set(), None
+                return
+            self.starts_resent += 1
+            self._queue_start()
 
     def _take(self, rows: np.ndarray, edges, incidents, numbered: np.ndarray | None = None) -> None:
         if len(rows):
@@ -384,6 +438,7 @@ class Recorder:
                 connected = getattr(feed, "connected", True)
                 if self.last_drive_at is not None and not connected:
                     self.last_drive_at = now  # the sampler's silence counts from the reconnection
+                self._answer_due(connected, now)
                 if self.events is not None:
                     if connected:
                         down_since, told_down = None, False

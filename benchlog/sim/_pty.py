@@ -70,6 +70,8 @@ class PtySampler:
         self._cmd_buf = bytearray()
         self._pull_request: tuple[float, bool] | None = None
         self._pull_at_cycle: int | None = None
+        self._pull_on_command = False  # the pull waits for the host's next command, which it loses
+        self._command_arrived = False
         self.bytes_written = 0
         self.bytes_lost_unplugged = 0
         self.bytes_lost_unheard = 0
@@ -104,14 +106,20 @@ class PtySampler:
         if self._tmpdir:
             shutil.rmtree(self._tmpdir, ignore_errors=True)
 
-    def pull_cable(self, seconds: float, hold: bool = False, at_cycle: int | None = None) -> None:
+    def pull_cable(
+        self, seconds: float, hold: bool = False, at_cycle: int | None = None, on_command: bool = False
+    ) -> None:
         """Pull the cable (from any thread) for `seconds` of wall time: now, or with `at_cycle` once every
         planned channel has done that many cycles (a point in the sampler's run that a host slowed by
-        a loaded machine cannot step past). `hold`: a sampler whose buffer holds the whole outage: what
+        a loaded machine cannot step past), or with `on_command` as the host's next command arrives (a
+        cable knocked out as the host writes: that command, and whatever the host writes until the port
+        is gone, never reach the sampler). `hold`: a sampler whose buffer holds the whole outage: what
         was sent before the pull is read first, what the sampler sends while the cable is out comes
         after it is back, so the outage costs no data and a seeded run stays the same however long it
         lasts."""
         self._pull_at_cycle = at_cycle
+        self._command_arrived = False
+        self._pull_on_command = bool(on_command)
         self._pull_request = (float(seconds), bool(hold))
 
     @property
@@ -176,6 +184,7 @@ class PtySampler:
         while not self._stop.is_set():
             if self._pull_request is not None and self._pull_due():
                 (seconds, hold), self._pull_request = self._pull_request, None
+                self._pull_on_command = self._command_arrived = False
                 self.pulled_at_cycles.append(min(bench.cycles_done.values(), default=0))
                 if hold:
                     self._unplugged_holding(seconds, wall0, sim0)
@@ -207,6 +216,8 @@ class PtySampler:
             self._wait()
 
     def _pull_due(self) -> bool:
+        if self._pull_on_command:
+            return self._command_arrived
         at = self._pull_at_cycle
         done = self.bench.cycles_done
         return at is None or (bool(done) and min(done.values()) >= at)
@@ -301,6 +312,9 @@ class PtySampler:
             raise
         if self._listening_since is None:
             self._listening_since = time.monotonic()
+        if self._pull_on_command and self._pull_request is not None:
+            self._command_arrived = bool(chunk)  # lost: the pull comes before anything is obeyed
+            return
         self._cmd_buf += chunk
         while True:
             nl = self._cmd_buf.find(b"\n")

@@ -195,7 +195,7 @@ def record_bench(db: str, job: BenchJob, aged_for: int, stop: threading.Event) -
         rec = Recorder(writer, settings=first.settings() if first else None, specs=specs)
         for timed in early:
             rec.push(timed)
-        feed.start_cycling(rec.plans(int(ON_MS * 1000), int(OFF_MS * 1000)))
+        rec.start(feed, int(ON_MS * 1000), int(OFF_MS * 1000))
         if job.pull:  # the link goes down a third of the way in, and comes back (at x300 the whole run
             # can pass in a moment the host is busy: the sampler itself pulls at that cycle)
             sim.pull_cable(PULL_FOR_S, hold=True, at_cycle=(job.stop_after or job.cycles) // 3)

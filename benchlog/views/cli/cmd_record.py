@@ -362,7 +362,9 @@ class _Session:
         )
         for timed in early:
             rec.push(timed)
-        self.feed.start_cycling(rec.plans(int(on_ms * 1000), int(off_ms * 1000)))
+        # a port that refuses the plans just now (the cable out) does not end the recording: they wait, and
+        # are sent again if the sampler never answers them (see Recorder.start)
+        rec.start(self.feed, int(on_ms * 1000), int(off_ms * 1000))
         tty = sys.stderr.isatty()
         print(
             f"benchlog: recording run {self.writer.run_id} on {len(self.writer.units)} channels"
