@@ -140,16 +140,21 @@ def run_on_pty(
         reader.join(timeout=HANG_S)
         port.close()
     finally:
-        proc.stdin.close()
-        try:
-            proc.wait(timeout=HANG_S)
-        finally:
-            if proc.poll() is None:  # never outlives the test
-                proc.kill()
-                proc.wait()
+        _end(proc)
+    return bytes(data), log.read_text(), int(done.split()[4])  # deepest stack the harness saw
+
+
+def _end(proc) -> None:
+    """End the harness (its input closed) and close its pipes; it never outlives the test."""
+    proc.stdin.close()
+    try:
+        proc.wait(timeout=HANG_S)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
         proc.stdout.close()
         proc.stderr.close()
-    return bytes(data), log.read_text(), int(done.split()[4])  # deepest stack the harness saw
 
 
 @pytest.mark.parametrize("strap", ["line", "packed"])
@@ -349,15 +354,7 @@ def test_emulated_board_speaks_version_2_to_the_recorder(
             makes = {ch: store.actuations(units=[units[ch]], kind="make")["cycle"] for ch in channels}
     finally:
         timer.cancel()
-        proc.stdin.close()
-        try:
-            proc.wait(timeout=HANG_S)
-        finally:
-            if proc.poll() is None:  # never outlives the test
-                proc.kill()
-                proc.wait()
-        proc.stdout.close()
-        proc.stderr.close()
+        _end(proc)
 
     stack_bytes = int(done.split()[4])  # deepest stack the harness saw
     print(f"\n{strap} form, recorder path: stack {stack_bytes} bytes at most")

@@ -37,15 +37,20 @@ async def test_runs_fit_80_columns(built):
         assert box.region.right <= SMALL[0] and box.region.bottom <= SMALL[1]
 
 
+async def _units_of_run1(pilot, ids) -> UnitsScreen:
+    """From the runs screen, open the first run's units."""
+    runs = await settle(pilot, RunsScreen)
+    t = runs.query_one("#runs", DataTable)
+    t.move_cursor(row=column(t, "run").index(str(ids["run1"])))
+    await pilot.press("enter")
+    return await settle(pilot, UnitsScreen)
+
+
 async def test_units_keep_their_rows_at_24_lines(built):
     path, ids = built
     app = BenchDashboard(path, refresh_s=0)
     async with app.run_test(size=SMALL) as pilot:
-        runs = await settle(pilot, RunsScreen)
-        t = runs.query_one("#runs", DataTable)
-        t.move_cursor(row=column(t, "run").index(str(ids["run1"])))
-        await pilot.press("enter")
-        scr = await settle(pilot, UnitsScreen)
+        scr = await _units_of_run1(pilot, ids)
         units = scr.query_one("#units", DataTable)
         assert units.row_count == 8 and units.size.height >= units.row_count + 1  # header and every row
 
@@ -112,11 +117,7 @@ async def test_every_unit_figure_fits_80_columns(built):
     path, ids = built
     app = BenchDashboard(path, refresh_s=0)
     async with app.run_test(size=SMALL) as pilot:
-        runs = await settle(pilot, RunsScreen)
-        t = runs.query_one("#runs", DataTable)
-        t.move_cursor(row=column(t, "run").index(str(ids["run1"])))
-        await pilot.press("enter")
-        await _check_units_fit(pilot, await settle(pilot, UnitsScreen))
+        await _check_units_fit(pilot, await _units_of_run1(pilot, ids))
 
 
 async def test_demo_shaped_units_fit_80_columns_and_widen_at_160(tmp_path):
