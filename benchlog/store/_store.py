@@ -401,6 +401,10 @@ class Store(ReadAPI, SummaryReadAPI, StreamReadAPI):
                         .returning(s.Run.id)
                     ).scalar()
                 )
+                # a unit is on one bench at a time: its life count is one sequence of cycles
+                busy = self._units_busy(c, list(units.values()), except_run=run_id)
+                if busy:
+                    raise StoreBusyError(busy)
                 lives = dict(
                     c.execute(
                         select(s.UnitLife.unit_id, s.UnitLife.cycles).where(
@@ -421,10 +425,34 @@ class Store(ReadAPI, SummaryReadAPI, StreamReadAPI):
                         for ch, u in sorted(units.items())
                     ],
                 )
+        except StoreBusyError:
+            self.release_bench(bench_id, token)
+            raise
         except SQLAlchemyError as exc:
             self.release_bench(bench_id, token)
             raise _store_error("start the run", exc) from exc
         return RunWriter(self, run_id, token)
+
+    def _units_busy(self, c, unit_ids: list[int], except_run: int) -> str | None:
+        """Why these units cannot go into a new run now: one of them is in another run that a live
+        recorder writes (its bench's lease is current), or None. The units' rows are locked first (FOR
+        UPDATE on PostgreSQL; SQLite's write lock, taken by the caller's insert, serialises anyway), so
+        two recorders starting on the same units at once cannot both pass."""
+        c.execute(select(s.Unit.id).where(s.Unit.id.in_(unit_ids)).with_for_update()).all()
+        rows = c.execute(
+            select(s.RunUnit.run_id, s.Unit.serial, s.Run.bench_id)
+            .join(s.Run, s.Run.id == s.RunUnit.run_id)
+            .join(s.Unit, s.Unit.id == s.RunUnit.unit_id)
+            .where(s.RunUnit.unit_id.in_(unit_ids), s.Run.ended_at.is_(None), s.Run.id != except_run)
+            .order_by(s.RunUnit.run_id, s.RunUnit.channel)
+        ).all()
+        now = time.time()
+        for run_id, serial, bench_id in rows:
+            bench = c.execute(select(s.Bench).where(s.Bench.id == bench_id)).mappings().one()
+            why = self._lease_busy(c, bench, now)
+            if why:
+                return f"unit {serial!r} is in run {run_id}, still being recorded: {why}"
+        return None
 
     def resume_run(self, run_id: int) -> RunWriter:
         """Reopen an interrupted run for a new segment on the same units, keeping its cycle counts."""
@@ -454,6 +482,28 @@ class Store(ReadAPI, SummaryReadAPI, StreamReadAPI):
                 )
         except SQLAlchemyError as exc:
             raise _store_error("resume the run", exc) from exc
+        try:
+            with self.engine.connect() as c:
+                later = c.execute(
+                    select(s.RunUnit.run_id, s.Unit.serial)
+                    .join(s.Unit, s.Unit.id == s.RunUnit.unit_id)
+                    .where(
+                        s.RunUnit.run_id > run_id,
+                        s.RunUnit.unit_id.in_(
+                            select(s.RunUnit.unit_id).where(s.RunUnit.run_id == run_id).scalar_subquery()
+                        ),
+                    )
+                    .order_by(s.RunUnit.run_id)
+                    .limit(1)
+                ).first()
+        except SQLAlchemyError as exc:
+            raise _store_error("resume the run", exc) from exc
+        if later is not None:
+            # its life went on in that run: cycles resumed here would be counted twice
+            raise StoreError(
+                f"run {run_id} cannot be resumed: unit {later[1]!r} has been in run {later[0]} since,"
+                " which counted its cycles on from this run's; start a new run"
+            )
         token = self.acquire_bench(run["bench_id"])
         try:
             with self.engine.begin() as c:
