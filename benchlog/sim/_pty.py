@@ -18,12 +18,13 @@ import tempfile
 import threading
 import time
 import tty
+from collections import deque
 from pathlib import Path
 
 from benchlog.errors import ConfigError, PortError
 from benchlog.sim._bench import Bench
 from benchlog.sim._config import SimConfig
-from benchlog.wire import PROTOCOL_VERSION, Announce, LineEncoder, PackedEncoder
+from benchlog.wire import PROTOCOL_VERSION, Announce, Edges, LineEncoder, PackedEncoder
 
 BACKLOG_LIMIT = 1 << 20  # bytes waiting for the pty before the sampler stops generating
 STEP_WALL_S = 0.005  # sampler time advances in steps of this much wall time (times speed)
@@ -31,6 +32,7 @@ MAX_LAG_WALL_S = 0.5  # a reader slower than this much behind slows simulated ti
 UNHEARD_S = 5.0  # an open port took nothing for this long: its reader is stuck, output is discarded
 # (seconds, not less: a reader on a loaded machine can be starved for most of a second and is not stuck)
 HOLD_NS = 200_000_000  # while no reader has the port open, the sampler keeps only its latest output
+MARKS_KEPT_BYTES = 1 << 22  # output read this long ago is surely out of any port buffer
 SETTLE_S = 0.05  # a reader that just opened the port is left this long to finish configuring it
 
 
@@ -65,7 +67,14 @@ class PtySampler:
         self._slave = -1
         self.slave_name = ""
         self._backlog = bytearray()
-        self._held: list[tuple[int, bytes, bool]] = []  # (sampler time, bytes, holds an announcement)
+        # (sampler time, bytes, holds an announcement, edges in it)
+        self._held: list[tuple[int, bytes, bool, int]] = []
+        # edges in what was queued for the port: (stream offset where a chunk of output ends, its edges)
+        self._marks: deque[tuple[int, int]] = deque()
+        self._queued_bytes = 0  # bytes ever queued for the port (the stream offset of the backlog's end)
+        # per pull: edges the sampler had sent that had not all reached the host (in its output buffer,
+        # or written to the port and not read) when the cable went: a bus-powered board loses them
+        self.edges_in_flight_at_pulls: list[int] = []
         self._sticky: bytes | None = None  # an announcement no reader has heard yet
         self._cmd_buf = bytearray()
         self._pull_request: tuple[float, bool] | None = None
@@ -213,6 +222,7 @@ class PtySampler:
                 # and what it sends is lost (a reader that opens later hears the stream from then on)
                 self.bytes_lost_unheard += len(self._backlog)
                 self._backlog.clear()
+                self._marks.clear()
             self._wait()
 
     def _pull_due(self) -> bool:
@@ -248,14 +258,14 @@ class PtySampler:
         data = bench.damage(bench.encode(records))
         if self._listening_since is not None:
             self._deliver_held()
-            self._send(data)
+            self._send(data, _edges_in(records))
             return
         announces = [r for r in records if isinstance(r, Announce)]
         if announces:
             enc = LineEncoder(version=PROTOCOL_VERSION) if bench.form == "line" else PackedEncoder()
             self._sticky = enc.encode(announces[-1])
         if data:
-            self._held.append((bench.now_ns, data, bool(announces)))
+            self._held.append((bench.now_ns, data, bool(announces), _edges_in(records)))
         cut = 0
         while cut < len(self._held) and self._held[cut][0] < bench.now_ns - HOLD_NS:
             self.bytes_lost_unheard += len(self._held[cut][1])
@@ -264,18 +274,21 @@ class PtySampler:
 
     def _deliver_held(self) -> None:
         if self._held or self._sticky:
-            if self._sticky is not None and not any(a for _, _, a in self._held):
+            if self._sticky is not None and not any(a for _, _, a, _ in self._held):
                 self._send(self._sticky)
-            for _, data, _ in self._held:
-                self._send(data)
+            for _, data, _, edges in self._held:
+                self._send(data, edges)
             self._held.clear()
             self._sticky = None
 
-    def _send(self, data: bytes) -> None:
+    def _send(self, data: bytes, edges: int = 0) -> None:
         if data:
             if not self._backlog:
                 self._last_progress = time.monotonic()
             self._backlog += data
+            self._queued_bytes += len(data)
+            if edges:
+                self._marks.append((self._queued_bytes, edges))
 
     def _flush(self) -> None:
         if not self.listening:
@@ -294,6 +307,8 @@ class PtySampler:
             self.bytes_written += n
             self._last_progress = time.monotonic()
             del self._backlog[:n]
+        while self._marks and self._marks[0][0] < self.bytes_written - MARKS_KEPT_BYTES:
+            self._marks.popleft()  # long read: a port's buffer holds far less than that
 
     def _read_commands(self) -> None:
         if self._master < 0:
@@ -403,7 +418,12 @@ class PtySampler:
         unheard (keeping its pace), a bus-powered one is off and comes back reset."""
         bench = self.bench
         start, start_mono = time.time(), time.monotonic()
-        self.bytes_lost_unplugged += len(self._backlog) + sum(len(d) for _, d, _ in self._held)
+        read = self.bytes_written - self._unread()  # stream offset the host has read up to (about)
+        self.edges_in_flight_at_pulls.append(
+            sum(e for end, e in self._marks if end > read) + sum(e for *_, e in self._held)
+        )
+        self._marks.clear()
+        self.bytes_lost_unplugged += len(self._backlog) + sum(len(d) for _, d, _, _ in self._held)
         self._backlog.clear()
         self._held.clear()
         self._cmd_buf.clear()
@@ -423,3 +443,7 @@ class PtySampler:
             self._send_records(bench.power_cycle(off_ns))
         self._open_pty()
         self.outages.append((start, time.time()))
+
+
+def _edges_in(records: list) -> int:
+    return sum(len(r) for r in records if isinstance(r, Edges))

@@ -80,7 +80,14 @@ def _cable_pull(store, bus_powered: bool) -> None:
     stored = sum(len(store.edges(u)) for u in w.units.values())
     sent = int(np.isin(sim.bench.truth.sent["channel"], [0, 1]).sum())
     reported = sum(i.edges_lost or 0 for i in store.incidents(w.run_id))
-    assert stored == counters.edges and stored + reported == sent
+    assert stored == counters.edges
+    if bus_powered:
+        # what the board still held to send (its output buffer, and the port's) went with its power: no
+        # beat after the reset can count it (its counts restart at 0). A host that kept up loses none; a
+        # loaded one loses at most those edges (seen: 2 in a loaded suite run), never reports more
+        assert 0 <= sent - stored - reported <= sim.edges_in_flight_at_pulls[0]
+    else:
+        assert stored + reported == sent  # the first beat after the outage counts what was lost
 
 
 @pytest.mark.parametrize("form", ["line", "packed"])
