@@ -69,9 +69,7 @@ def test_a_run_whose_units_went_on_elsewhere_cannot_be_resumed(open_store):
     new = _start(store, "bench B", units)  # an interrupted run does not hold its units
     new.add(actuations=actuations([0, 1], range(7)))
     new.close("target")
-    with pytest.raises(
-        StoreError, match=rf"run {old.run_id} cannot be resumed: unit .VS-000. has been in"
-    ):
+    with pytest.raises(StoreError, match=rf"run {old.run_id} cannot be resumed: unit .VS-000. has been in"):
         store.resume_run(old.run_id)
     cycles = store.actuations(units=[units[1]], kind="make")["cycle"]
     assert list(cycles) == list(range(17)) and np.all(np.diff(cycles) == 1)
