@@ -297,4 +297,8 @@ class Link:
                 reader.write(data)
         except (serial.SerialException, OSError) as exc:
             raise PortError(f"cannot send to {self.url}: {_reason(exc)}") from exc
+        except (TypeError, AttributeError, ValueError) as exc:
+            # the reader closed the port (cable pulled) while this write waited: pyserial's descriptor is
+            # gone under it (seen: TypeError from select on a closed port)
+            raise PortError(f"cannot send to {self.url}: the port closed during the write") from exc
         self.bytes_out += len(data)
