@@ -19,7 +19,7 @@ from datetime import UTC, datetime
 
 import numpy as np
 
-from benchlog.analysis import AnalysisSettings, Analyzer, judge
+from benchlog.analysis import BREAK, FAIL, AnalysisSettings, Analyzer, judge
 from benchlog.errors import PortError, StoreError
 from benchlog.events import EVENT_COMMAND, Incident
 from benchlog.store import (
@@ -30,7 +30,7 @@ from benchlog.store import (
     END_TARGET,
     RunWriter,
 )
-from benchlog.wire import GoAccepted
+from benchlog.wire import Go, GoAccepted, Halt, Plan
 
 from ._count import SamplerCount
 from ._drift import DriftWatch
@@ -128,8 +128,6 @@ class Recorder:
     # -- what to send -------------------------------------------------------------------------------
     def plans(self, on_us: int, off_us: int):
         """One PLAN per channel of the run, for the cycles still to do (0 = endless)."""
-        from benchlog.wire import Plan
-
         self._profile = (int(on_us), int(off_us))
         out = []
         target = self.writer.target_cycles
@@ -157,8 +155,6 @@ class Recorder:
         self.send_pending(feed)
 
     def _queue_start(self) -> None:
-        from benchlog.wire import Go
-
         plans = self.plans(*self._profile)  # type: ignore[misc]
         self.pending = [*plans, Go()]
         self._awaiting = {p.channel for p in plans}
@@ -200,8 +196,6 @@ class Recorder:
 
     def send_pending(self, feed) -> None:
         """Send the commands the recorder owes the sampler; those the port refuses wait for the next call."""
-        from benchlog.wire import Go
-
         while self.pending:
             try:
                 feed.send(self.pending[0])
@@ -262,8 +256,6 @@ class Recorder:
 
     def _tell_spec(self, rows: np.ndarray) -> None:
         """The event of each unit's first actuation failing its spec (once per unit and recording)."""
-        from benchlog.analysis import BREAK, FAIL
-
         bad = np.flatnonzero(rows["verdict"] == FAIL)
         if not len(bad):
             return
@@ -488,8 +480,6 @@ class Recorder:
 
 
 def _halt(feed) -> None:
-    from benchlog.wire import Halt
-
     try:
         feed.send(Halt())
     except (PortError, OSError, AttributeError):

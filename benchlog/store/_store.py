@@ -480,10 +480,6 @@ class Store(ReadAPI, SummaryReadAPI, StreamReadAPI):
                     ).scalar()
                     or 0,
                 )
-        except SQLAlchemyError as exc:
-            raise _store_error("resume the run", exc) from exc
-        try:
-            with self.engine.connect() as c:
                 later = c.execute(
                     select(s.RunUnit.run_id, s.Unit.serial)
                     .join(s.Unit, s.Unit.id == s.RunUnit.unit_id)
