@@ -354,7 +354,7 @@ class SummaryKeeper:
             self._dirty.add(key)
 
     def write(self, conn, *, final: bool = False) -> int:
-        """Store every window touched since the last write; returns how many rows were written."""
+        """Store every window touched since the last committed write; returns how many rows were written."""
         from sqlalchemy import and_, bindparam, delete, insert, select
 
         from . import _schema as s
@@ -412,11 +412,15 @@ class SummaryKeeper:
                 }
             )
         conn.execute(insert(s.Summary), rows)
+        return len(rows)
+
+    def committed(self) -> None:
+        """The transaction `write` wrote in has committed: its windows are clean, and those a unit has
+        moved past are let go. (Until then they stay dirty: a put-off commit writes them again.)"""
         self._dirty.clear()
         for key in [k for k in self._open if k[2] < self._latest.get(k[0], k[2])]:
             del self._open[key]
             self._known.discard(key)
-        return len(rows)
 
 
 def _last_window(unit: np.ndarray, win: np.ndarray) -> tuple[list[int], list[int]]:

@@ -27,7 +27,7 @@ from benchlog.events import Incident, TimedEdges
 
 from . import _schema as s
 from ._codec import encode_edges
-from ._engine import _one_line, damaged
+from ._engine import BUSY_TIMEOUT_MS, _one_line, damaged
 from ._rollup import RollupKeeper
 from ._summary import SummaryKeeper
 
@@ -66,6 +66,53 @@ PIPE_CHUNK = 4096  # rows per executemany on large batches
 RATE_WINDOW_S = 10.0
 _TIME_FIELDS = tuple(n for n in ("t_start_ns", "t_first_ns", "t_settle_ns", "t_end_ns") if n in ACT_FIELDS)
 LEASE_SECONDS = 15.0
+# A commit during a run waits this long for another program's write lock, then is put off to the next
+# flush (SQLite's busy timeout on the writer's connection); the recorder meanwhile reads its port.
+COMMIT_WAIT_MS = 2_000
+# A store whose write lock is held this long without a break ends the recording (resumable).
+STORE_WAIT_S = 600.0
+# PostgreSQL SQLSTATEs of a transaction that lost to another one and may simply be run again
+_PG_TRY_AGAIN = {"40001", "40P01", "55P03"}
+
+
+class _LockWait(Exception):
+    """Another program holds the write lock: the transaction was rolled back and may be run again."""
+
+
+def _is_lock_wait(exc: BaseException) -> bool:
+    """True for SQLite's SQLITE_BUSY / SQLITE_LOCKED and PostgreSQL's serialization failure, deadlock
+    and lock-not-available: the transaction rolled back whole, and the same one may be tried again."""
+    orig = getattr(exc, "orig", None) or exc
+    code = getattr(orig, "sqlite_errorcode", None)
+    if code is not None:
+        return code & 0xFF in (sqlite3.SQLITE_BUSY, sqlite3.SQLITE_LOCKED)
+    state = getattr(orig, "sqlstate", None)
+    if state is not None:
+        return state in _PG_TRY_AGAIN
+    text = str(orig).lower()
+    return "database is locked" in text or "database table is locked" in text or "database is busy" in text
+
+
+@dataclass
+class _Batch:
+    """One flush's worth, in the store's units and life cycles; kept whole while its commit is put off."""
+
+    acts: np.ndarray
+    units: np.ndarray
+    incidents: list
+    chunks: list
+    rollups: list
+    done: int
+
+    def joined(self, newer: _Batch) -> _Batch:
+        return _Batch(
+            np.concatenate([self.acts, newer.acts]),
+            np.concatenate([self.units, newer.units]),
+            self.incidents + newer.incidents,
+            self.chunks + newer.chunks,
+            self.rollups + newer.rollups,
+            newer.done,
+        )
 
 
 def _store_error(action: str, exc: BaseException) -> StoreError:
@@ -156,6 +203,7 @@ class FlushStats:
     incidents: int = 0
     rollups: int = 0
     seconds: float = 0.0
+    put_off: bool = False  # another program held the write lock: the batch waits for the next flush
 
 
 def failing_actuation_ns(conn, unit_id: int, cycle: int, mode: str) -> int | None:
@@ -262,6 +310,12 @@ class RunWriter:
         self._last_flush = time.monotonic()
         self._last_done = self.run_cycles_done()
         self._conn = engine.connect()
+        if self._conn.dialect.name == "sqlite":
+            self._conn.exec_driver_sql(f"PRAGMA busy_timeout={COMMIT_WAIT_MS}")
+            self._conn.commit()
+        self._held: _Batch | None = None  # a batch whose commit was put off (another writer's lock)
+        self._locked_since: float | None = None
+        self.commits_put_off = 0
         self._seed_open_windows()
 
     # -- feeding ------------------------------------------------------------------------------------
@@ -441,65 +495,117 @@ class RunWriter:
 
     # -- committing ---------------------------------------------------------------------------------
     def flush(self, *, final: bool = False) -> FlushStats:
+        """Commit what was added since the last commit, in one transaction.
+
+        Another program holding the store's write lock (a second bench's recorder, `db` commands) is
+        waited for up to COMMIT_WAIT_MS; past that the commit is put off and nothing is lost: the batch
+        is kept, whole, and goes with the next flush (`FlushStats.put_off`), while the recorder goes on
+        reading its port. A final flush tries again until it commits; only a store locked for
+        STORE_WAIT_S without a break ends the recording (the run is left resumable at its last commit)."""
         t0 = time.perf_counter()
+        batch, pending = self._take_batch(final)
+        while True:
+            try:
+                self._commit(batch, final, pending)
+                break
+            except _LockWait as exc:
+                pending = None  # settled: the batch holds all of it now
+                self._held = batch
+                now = time.monotonic()
+                if self._locked_since is None:
+                    self._locked_since = now
+                waited = now - self._locked_since
+                if waited >= STORE_WAIT_S:
+                    raise StoreError(
+                        "cannot write to the database: another program has held its write lock for"
+                        f" {waited:.0f} s ({exc})"
+                    ) from exc
+                if not final:
+                    self.commits_put_off += 1
+                    return FlushStats(put_off=True, seconds=time.perf_counter() - t0)
+                time.sleep(0.1)
+        self._held = None
+        self._locked_since = None
         stats = FlushStats()
+        stats.actuations = len(batch.acts)
+        stats.edges = sum(c["count"] for c in batch.chunks)
+        stats.incidents = len(batch.incidents)
+        stats.rollups = len(batch.rollups)
+        if self.keep_rollups:
+            self._rollups_written.extend(batch.rollups)
+        self._life.clear()
+        self._last_flush = time.monotonic()
+        self._last_done = batch.done
+        stats.seconds = time.perf_counter() - t0
+        return stats
+
+    def _take_batch(self, final: bool) -> tuple[_Batch, tuple]:
+        """What was added since the last flush, joined to the batch a put-off commit still holds. Its
+        rollups, summaries and edge chunks (numpy sorts, zlib) are worked out by a helper thread while
+        the actuations go in: `_settle` adds them to the batch."""
         acts = np.concatenate(self._acts) if self._acts else np.zeros(0, ACTUATION_DTYPE)
         units = np.concatenate(self._act_units) if self._act_units else np.zeros(0, np.int64)
-        # rollups and edge chunks (numpy sorts, zlib) are worked out beside the actuation inserts
+        edges, incidents = self._edges, self._incidents
+        self._acts, self._act_units, self._edges, self._incidents = [], [], [], []
         side: dict = {}
 
         def prepare() -> None:
             try:
                 side["rollups"] = self._rollups.add(units, acts, final=final)
                 self._summaries.add(units, acts, final=final)
-                side["chunks"] = self._chunks()
+                side["chunks"] = self._chunks(edges)
             except BaseException as exc:  # re-raised in the flushing thread
                 side["error"] = exc
 
         helper = threading.Thread(target=prepare, name="benchlog-rollups", daemon=True)
         helper.start()
-        now = time.time()
         done = self.run_cycles_done()
         self._rate = self._update_rate(done)
+        batch = _Batch(acts, units, incidents, [], [], done)
+        if self._held is not None:
+            batch = self._held.joined(batch)
+        return batch, (helper, side)
+
+    def _settle(self, batch: _Batch, pending: tuple) -> None:
+        helper, side = pending
+        helper.join()
+        if "error" in side:
+            raise side["error"]
+        batch.rollups.extend(r[:3] + (self.run_id,) + r[4:] for r in side["rollups"])
+        batch.chunks.extend(side["chunks"])
+
+    def _commit(self, b: _Batch, final: bool, pending: tuple | None) -> None:
         conn = self._conn
+        # what the progress write takes from these is given back if the transaction does not commit
+        due = (
+            dict(self._break_due),
+            {u: dict(v) for u, v in self._drift_due.items()},
+            dict(self._fail_time_due),
+        )
         try:
             with conn.begin():
                 try:
-                    if len(acts):
+                    if len(b.acts):
                         if conn.dialect.name == "sqlite":
-                            self._insert_by_channel(conn, acts)
+                            self._insert_by_channel(conn, b.acts)
                         else:
-                            bulk_insert_actuations(conn, to_stored(acts, units, self.run_id).tolist())
+                            bulk_insert_actuations(conn, to_stored(b.acts, b.units, self.run_id).tolist())
                 finally:
-                    helper.join()
-                if "error" in side:
-                    raise side["error"]
-                rollups, chunks = side["rollups"], side["chunks"]
-                if chunks:
-                    conn.execute(insert(s.EdgeChunk), chunks)
-                if self._incidents:
-                    conn.execute(insert(s.Incident), [self._incident_row(i) for i in self._incidents])
-                rollups = [r[:3] + (self.run_id,) + r[4:] for r in rollups]
-                bulk_insert_rollups(conn, rollups)
+                    if pending is not None:
+                        self._settle(b, pending)
+                if b.chunks:
+                    conn.execute(insert(s.EdgeChunk), b.chunks)
+                if b.incidents:
+                    conn.execute(insert(s.Incident), [self._incident_row(i) for i in b.incidents])
+                bulk_insert_rollups(conn, b.rollups)
                 self._summaries.write(conn, final=final)
-                self._write_progress(conn, now, done)
+                self._write_progress(conn, time.time(), b.done)
         except DB_ERRORS as exc:
+            self._break_due, self._drift_due, self._fail_time_due = due
+            if _is_lock_wait(exc):
+                raise _LockWait(_one_line(exc)) from exc
             raise _store_error("write to the database", exc) from exc
-        stats.actuations = len(acts)
-        stats.edges = sum(c["count"] for c in chunks)
-        stats.incidents = len(self._incidents)
-        stats.rollups = len(rollups)
-        if self.keep_rollups:
-            self._rollups_written.extend(rollups)
-        self._acts.clear()
-        self._act_units.clear()
-        self._edges.clear()
-        self._incidents.clear()
-        self._life.clear()
-        self._last_flush = time.monotonic()
-        self._last_done = done
-        stats.seconds = time.perf_counter() - t0
-        return stats
+        self._summaries.committed()
 
     def _update_rate(self, done: int) -> float:
         """Cycles per second over the last RATE_WINDOW_S seconds of flushes."""
@@ -628,10 +734,10 @@ class RunWriter:
             "cycles_lost": getattr(inc, "cycles_lost", None),
         }
 
-    def _chunks(self) -> list[dict]:
-        if not self._edges:
+    def _chunks(self, edges: list[TimedEdges]) -> list[dict]:
+        if not edges:
             return []
-        e = TimedEdges.concat(self._edges)
+        e = TimedEdges.concat(edges)
         order = np.argsort(e.channel, kind="stable")
         ch_sorted = e.channel[order]
         chans, starts = np.unique(ch_sorted, return_index=True)
@@ -698,36 +804,55 @@ class RunWriter:
             raise _store_error("reopen the run", exc) from exc
 
     def close(self, end_reason: str, detail: str = "") -> None:
-        """Final flush (partial rollup windows too), end the run, release the bench lease."""
+        """Final flush (partial rollup windows too), end the run, release the bench lease. Another
+        program's write lock is waited out as in a final flush."""
         if self.closed:
             return
         try:
             self.flush(final=True)
-            with self._conn.begin():
-                self._conn.execute(
-                    update(s.Run)
-                    .where(s.Run.id == self.run_id)
-                    .values(ended_at=self.store.now(), end_reason=end_reason, end_detail=detail)
-                )
-                self._conn.execute(
-                    update(s.Bench)
-                    .where(s.Bench.id == self.bench_id, s.Bench.lease_token == self.lease_token)
-                    .values(lease_token=None, lease_host=None, lease_pid=None, lease_until=None)
-                )
+            since = time.monotonic()
+            while True:
+                try:
+                    self._end_run(end_reason, detail)
+                    break
+                except DB_ERRORS as exc:
+                    if not _is_lock_wait(exc) or time.monotonic() - since >= STORE_WAIT_S:
+                        raise
+                    time.sleep(0.1)
         except DB_ERRORS as exc:
             raise _store_error("end the run", exc) from exc
         finally:
             self.closed = True
+            self._let_go()
+
+    def _end_run(self, end_reason: str, detail: str) -> None:
+        with self._conn.begin():
+            self._conn.execute(
+                update(s.Run)
+                .where(s.Run.id == self.run_id)
+                .values(ended_at=self.store.now(), end_reason=end_reason, end_detail=detail)
+            )
+            self._conn.execute(
+                update(s.Bench)
+                .where(s.Bench.id == self.bench_id, s.Bench.lease_token == self.lease_token)
+                .values(lease_token=None, lease_host=None, lease_pid=None, lease_until=None)
+            )
+
+    def _let_go(self) -> None:
+        """Give the connection back to the pool as the engine made it (SQLite's own busy timeout)."""
+        try:
+            self._conn.rollback()
+            if self._conn.dialect.name == "sqlite":
+                self._conn.exec_driver_sql(f"PRAGMA busy_timeout={BUSY_TIMEOUT_MS}")
+                self._conn.commit()
+        except DB_ERRORS:
+            pass
+        try:
             self._conn.close()
+        except SQLAlchemyError:
+            pass
 
     def abandon(self) -> None:
         """Drop the connection without writing (after a store error); the lease runs out by itself."""
         self.closed = True
-        try:
-            self._conn.rollback()
-        except SQLAlchemyError:
-            pass
-        try:
-            self._conn.close()
-        except SQLAlchemyError:
-            pass
+        self._let_go()
