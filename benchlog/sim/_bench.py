@@ -141,7 +141,7 @@ class Bench:
         # beats), and per channel the run cycle its count restarted from at a reset
         self.cycles_done: dict[int, int] = {}
         self._cycle_base: dict[int, int] = {}
-        self._fresh = True  # nothing sent since reset: a packed stream starts with a 0x00
+        self._fresh = True  # nothing sent since reset: a 0x00 (packed) or an empty line first
         self._reset_at: int | None = None
         self._reset_done = False
         self._buffer_level = 0.0
@@ -506,8 +506,8 @@ class Bench:
         data = b"".join(enc.encode(r) for r in records)
         if data and self._fresh:
             self._fresh = False
-            if self.form == "packed":  # whatever came before, the first frame starts clean
-                data = b"\0" + data
+            # whatever came before (a line or frame the reset cut), the first record starts clean
+            data = (b"\0" if self.form == "packed" else b"\r\n") + data
         return data
 
     def damage(self, data: bytes, t_ns: int | None = None) -> bytes:

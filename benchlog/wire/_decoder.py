@@ -44,6 +44,7 @@ from benchlog.wire._framing import DecodeError, cobs_decode, cobs_decode_spans, 
 from benchlog.wire._lineform import (
     CHECK_CRC,
     CHECK_NONE,
+    EMPTY,
     MAX_LINE,
     MAX_LINE_V2,
     TOO_LONG,
@@ -279,6 +280,7 @@ class Decoder:
         self._expected_seq: int | None = None
         self._undecided = 0  # bytes dropped while undecided, reported as one fault at the decision
         self._idle = 0  # of those, lone 0x00 delimiters (a packed sampler's idle or sync bytes)
+        self._blank = 0  # and empty lines (a line sampler's delimiter after a reset)
         self._out: list[Record] = []
         self._form_asked: str | None = None  # the host asked for this form (FORM L / FORM P)
         self._after_outage = False  # the link went down: judge the next frame's sequence number
@@ -461,6 +463,7 @@ class Decoder:
         frame_start = line_start = 0
         found: tuple[str, int] | None = None
         idle = 0
+        blanks: list[tuple[int, int]] = []  # empty lines (where they end, their bytes): delimiters too
         for m in _TERMINATOR.finditer(buf):
             p = m.start()
             if buf[p] == 0:
@@ -476,24 +479,29 @@ class Decoder:
                 if not isinstance(rec, str | Unknown):
                     found = ("line", line_start)
                     break
+                if rec == EMPTY:
+                    blanks.append((p + 1, p + 1 - line_start))
                 line_start = p + 1
         self._idle += idle  # every one of them lies before frame_start, so before keep and start
         if found is None:
             keep = max(frame_start, len(buf) - MAX_ENCODED)
+            self._blank += sum(n for end, n in blanks if end <= keep)  # the rest is read again
             self._undecided += keep
             if self._undecided >= REDETECT_BYTES:  # report long noise now, not only once it ends
-                if self._undecided > self._idle:
-                    self._fault(BEFORE_FIRST, self._undecided - self._idle)
-                self._undecided = self._idle = 0
+                if self._undecided > self._idle + self._blank:
+                    self._fault(BEFORE_FIRST, self._undecided - self._idle - self._blank)
+                self._undecided = self._idle = self._blank = 0
             return buf[keep:]
         self.form, start = found
         self._form_asked = None
         self._undecided += start
-        # delimiters ahead of the first frame are how a packed stream starts, not noise
-        noise = self._undecided - (self._idle if self.form == "packed" else 0)
+        self._blank += sum(n for end, n in blanks if end <= start)
+        # delimiters ahead of the first record are how a stream starts, not noise: 0x00 before a
+        # packed frame, an empty line before a line
+        noise = self._undecided - (self._idle if self.form == "packed" else self._blank)
         if noise:
             self._fault(BEFORE_FIRST, noise)
-        self._undecided = self._idle = 0
+        self._undecided = self._idle = self._blank = 0
         self._bad_units = self._bad_bytes = 0
         return buf[start:]
 
@@ -608,6 +616,8 @@ class Decoder:
                 beat_at.append(taken - block_from)
                 continue
             emit()
+            if rec == EMPTY:  # a version 2 sampler's delimiter after a reset: nothing, and not a fault
+                continue
             if isinstance(rec, str):
                 line_end = int(nl[j]) + 1
                 if self._fault(rec, line_end - line_start):

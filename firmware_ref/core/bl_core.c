@@ -41,9 +41,10 @@ static uint32_t n_dropped, n_short, n_edges_out;
 #define PACKED_OTHER MAX2(BL_HDR + 25u + 5u * BL_MAX_CHANNELS + BL_CRC, BL_HDR + NOTE_MAX + BL_CRC)
 #define LINE_OTHER MAX2(BL_LINE_BEAT_MAX(BL_MAX_CHANNELS), 2u + NOTE_MAX + 8u)
 #define FRAME_BUF MAX2(FRAME_BUF_EDGES, MAX2(PACKED_OTHER, LINE_OTHER))
-/* Bytes any single non-edge record can take on the wire (packed: with the 0x00 a fresh stream starts with). */
+/* Bytes any single non-edge record can take on the wire (with the 0x00 or the empty line a fresh stream
+ * starts with; a fresh line stream's first line is the announcement, never an edge). */
 #define COST_PACKED (BL_COBS_MAX(PACKED_OTHER) + 1u)
-#define COST_LINE LINE_OTHER
+#define COST_LINE (LINE_OTHER + 2u)
 #define COST_LINE_EDGE 22u /* "E c l tttttttt*LLCCCC\n" */
 
 /*
@@ -66,7 +67,7 @@ typedef struct {
 static bl_board_t board;
 static uint32_t tick_mask, tick_half, flush_ticks, beat_ticks;
 static uint8_t hex_digits, packed;
-static uint8_t fresh; /* no packed frame sent since reset or FORM P: the next starts with a 0x00 */
+static uint8_t fresh; /* nothing sent since reset (or no frame since FORM P): a 0x00 or an empty line first */
 static uint16_t seq;
 
 static uint8_t frame[FRAME_BUF];
@@ -168,6 +169,11 @@ static void send_frame(uint8_t type, uint16_t len)
 
 static void send_line(uint8_t len)
 {
+    if (fresh) { /* a line the reset cut (or power-up noise) ends here, not in the announcement */
+        bl_port_tx('\r');
+        bl_port_tx('\n');
+        fresh = 0;
+    }
     for (uint8_t i = 0; i < len; i++)
         bl_port_tx(frame[i]);
 }

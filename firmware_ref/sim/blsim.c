@@ -15,8 +15,9 @@
  * late at 16 MHz). With --pty the harness prints "pty PATH" on stdout, waits for a line on stdin
  * (so the reader can open the port first), runs no faster than real time (so the host's commands
  * arrive when a bench's would), prints "done CYCLES cycles, stack N bytes at most", and keeps the terminal
- * open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver. A
- * line (or the end) on stdin while the emulation runs ends it, as an `end` event would.
+ * open until stdin closes. Bytes the host writes to the terminal reach the emulated UART receiver. The
+ * line "reset" on stdin while the emulation runs power-cycles the board (see power_cycle; logged as
+ * "NS reset" in the actuator log); any other line (or the end) ends it, as an `end` event would.
  *
  * --relay US puts a relay on every channel: its contact follows its actuator, closing US microseconds
  * after the actuator switches on (touching, reopening 40 us later, closing for good 60 us after that)
@@ -196,6 +197,35 @@ static void portb_out(struct avr_irq_t *irq, uint32_t value, void *param)
     (void)irq;
     (void)param;
     port_changed((uint8_t)value, &last_portb, 0x0C, 2, 6);
+}
+
+/*
+ * The board loses its supply and gets it back (a bus-powered board whose cable was pulled): the
+ * actuators drop out (logged as switching off; relays follow), bytes not yet through the UART are lost,
+ * and the firmware starts again at its reset vector. The contacts keep their levels; the reset vector
+ * finds them as they are.
+ */
+static void power_cycle(void)
+{
+    port_changed(0, &last_portc, 0x3F, 0, 0);
+    port_changed((uint8_t)(last_portb & ~0x0Cu), &last_portb, 0x0C, 2, 6);
+    if (actuator_log)
+        fprintf(actuator_log, "%llu reset\n", (unsigned long long)(avr->cycle * 1000000000ull / FREQ));
+    rx_tail = rx_head;
+    avr_reset(avr);
+    uart_ready = 1;
+    set_external();
+    /*
+     * The reset cleared the PIN registers, but each pin's IRQ still holds its level, and simavr passes on
+     * only a change: the stored level is flipped first (no notification, so no pin change reaches the
+     * part), then the real one is raised.
+     */
+    for (int ch = 0; ch < 9; ch++) {
+        avr_irq_t *irq = ch < 8 ? pin_irq[ch] : avr_io_getirq(avr, AVR_IOCTL_IOPORT_GETIRQ('B'), IOPORT_IRQ_PIN4);
+        uint32_t level = ch < 6 ? (ext_d.value >> (ch + 2)) & 1 : (ext_b.value >> (ch < 8 ? ch - 6 : 4)) & 1;
+        irq->value = !level;
+        avr_raise_irq(irq, level);
+    }
 }
 
 /* A contact closes (1) or opens (0): its pull-up pin goes low or high. */
@@ -409,8 +439,13 @@ int main(int argc, char **argv)
             if (r > 0)
                 queue_rx(buf, (size_t)r);
             struct pollfd host = {.fd = 0, .events = POLLIN};
-            if (poll(&host, 1, 0) > 0)
-                stop = avr->cycle; /* the host is done (a line or the end on stdin) */
+            if (poll(&host, 1, 0) > 0) {
+                char said[64];
+                if (fgets(said, sizeof said, stdin) && !strcmp(said, "reset\n"))
+                    power_cycle(); /* the host pulled the board's supply */
+                else
+                    stop = avr->cycle; /* the host is done (another line or the end on stdin) */
+            }
             next_poll = avr->cycle + 1600; /* every 100 us of emulated time */
         }
         state = avr_run(avr);

@@ -129,6 +129,8 @@ def main(blhost: str) -> None:
     # the shared stream-vector fields too, so the Python encoders are held to the C bytes
     packed = bytes.fromhex(vector["packed_hex"])
     assert packed[:1] == b"\0", "a version 2 sampler starts its packed stream with a 0x00"
+    line = bytes.fromhex(vector["line_hex"])
+    assert line[:2] == b"\r\n", "a version 2 sampler starts its line stream with an empty line"
     frames = packed[1:].split(b"\0")[:-1]
     raws = [cobs_decode(f) for f in frames]
     vector.update(
@@ -136,8 +138,9 @@ def main(blhost: str) -> None:
         max_edges=32,
         first_sequence=0,
         packed_preamble_hex="00",
+        line_preamble_hex="0d0a",
         records=[frame_record(r, 16) for r in raws],
-        line_text=bytes.fromhex(vector["line_hex"]).decode("ascii"),
+        line_text=line[2:].decode("ascii"),
         packed_frames=[{"raw_hex": r.hex(), "cobs_hex": f.hex()} for r, f in zip(raws, frames, strict=True)],
     )
     (OUT / "firmware_host_session.json").write_text(json.dumps(vector, indent=1) + "\n")

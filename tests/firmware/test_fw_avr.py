@@ -17,7 +17,7 @@ import serial
 from _fw_helpers import decode_all, edge_rows, others
 
 from benchlog.analysis import AnalysisSettings
-from benchlog.events import CYCLES_NOT_OBSERVED
+from benchlog.events import CYCLES_NOT_OBSERVED, RESET
 from benchlog.ingest import Feed
 from benchlog.recorder import Recorder
 from benchlog.store import END_TARGET, Store
@@ -390,5 +390,104 @@ def test_emulated_board_speaks_version_2_to_the_recorder(
     # the store: the sampler's count is each unit's life in this run, every cycle measured
     assert {ru.channel: ru.cycles_done for ru in run_units} == dict.fromkeys(channels, n)
     assert {ru.channel: ru.unit.cycles for ru in run_units} == dict.fromkeys(channels, n)
+    assert unobserved == []
+    assert {ch: sorted(m.tolist()) for ch, m in makes.items()} == dict.fromkeys(channels, list(range(n)))
+
+
+class _ResetAt(_Observed):
+    """The feed, and the board's supply pulled (`reset` to the harness) once every planned channel's
+    drive-off of cycle `at` has reached the host."""
+
+    def __init__(self, feed: Feed, proc, channels, at: int) -> None:
+        super().__init__(feed)
+        self.proc, self.channels, self.at = proc, channels, at
+        self.offs = dict.fromkeys(channels, 0)
+        self.reset_sent = False
+
+    def poll(self, timeout: float = 0.1):
+        timed = super().poll(timeout)
+        if timed is not None and not self.reset_sent:
+            d = timed.drives
+            for ch in self.channels:
+                self.offs[ch] += int(((d.channel == ch) & (d.level == 0)).sum())
+            if all(k >= self.at for k in self.offs.values()):
+                self.reset_sent = True
+                self.proc.stdin.write("reset\n")
+                self.proc.stdin.flush()
+        return timed
+
+
+def test_emulated_board_reset_mid_run_is_planned_again_and_counts_true(
+    blsim: Path, avr_elf: Path, tmp_path: Path
+) -> None:
+    """A bus-powered board that loses its supply mid-run (the harness resets the emulated part, its
+    actuators dropping out): the firmware starts again and announces itself, the recorder records the
+    reset and plans the cycles still due, and each unit's life in the store equals the cycles its
+    actuator really made, by the harness's own log of the actuator pins (the ground truth here). The
+    reset comes in a long off phase, after the host has heard cycle 4's drive-off, so no drive-on is in
+    flight when the power goes."""
+    n, on_us, off_us, channels, at = 10, 10_000, 200_000, (0, 6), 4
+    script = tmp_path / "script.txt"
+    script.write_text(f"{int(HANG_S * 1e9)} end\n")  # ended on stdin once the run is recorded
+    log = tmp_path / "actuators.txt"
+    proc = subprocess.Popen(
+        [str(blsim), "--elf", str(avr_elf), "--script", str(script), "--pty", "--relay", "2000"]
+        + ["--actuator-log", str(log)],
+        stdin=subprocess.PIPE,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    stop = threading.Event()
+    timer = threading.Timer(HANG_S, stop.set)  # a ceiling only a hang reaches
+    try:
+        first = proc.stdout.readline().split()
+        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
+            first = proc.stdout.readline().split()
+        assert first[:1] == ["pty"], first
+        with Store.open(str(tmp_path / "fw.sqlite")) as store:
+            lot = store.register_lot(store.register_part("FW-RELAY", "test"), "L1")
+            units = {ch: store.register_unit(lot, f"R-{ch}") for ch in channels}
+            profile = {"on_ms": on_us / 1000, "off_ms": off_us / 1000, "cycles": n}
+            bench = store.register_bench("fw bench")
+            writer = store.start_run(bench, units, profile=profile, target_cycles=n)
+            rec = Recorder(writer, settings=AnalysisSettings(settle_ns=2_000_000))
+            with Feed(first[1], baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
+                feed = _ResetAt(live, proc, channels, at)
+                proc.stdin.write("go\n")
+                proc.stdin.flush()
+                timer.start()
+                while not any(t.announcements for t in feed.batches) and not stop.is_set():
+                    rec.push(feed.poll(0.05))  # the board is up: its announcement is in
+                rec.start(feed, on_us, off_us)
+                reason = rec.run(feed, stop, grace_s=0.3)
+            proc.stdin.write("end\n")  # the run is recorded: stop the emulation
+            proc.stdin.flush()
+            done = proc.stdout.readline()
+            assert done.startswith("done"), done + proc.stderr.read()
+            run_units = store.run_units(writer.run_id)
+            resets = store.incidents(writer.run_id, kind=RESET)
+            unobserved = store.incidents(writer.run_id, kind=CYCLES_NOT_OBSERVED)
+            makes = {ch: store.actuations(units=[units[ch]], kind="make")["cycle"] for ch in channels}
+    finally:
+        timer.cancel()
+        _end(proc)
+
+    assert feed.reset_sent and reason == END_TARGET
+    assert [a.version for t in feed.batches for a in t.announcements] == [2, 2]  # at power-up, and again
+    assert len(resets) == 1
+    # the truth: the actuator pins as the harness saw them switch
+    lines = [ln.split() for ln in log.read_text().splitlines()]
+    cut = next(i for i, ln in enumerate(lines) if ln[1] == "reset")
+    ons = {ch: sum(1 for ln in lines if ln[1:] == [str(ch), "1"]) for ch in channels}
+    before = {ch: sum(1 for ln in lines[:cut] if ln[1:] == [str(ch), "1"]) for ch in channels}
+    assert all(at <= k < n for k in before.values()), before  # the reset came mid-run
+    assert ons == dict.fromkeys(channels, n)  # re-planned for the cycles still due, no more, no fewer
+    accepted = [a.record for t in feed.batches for a in t.accepted]
+    replans = [a for a in accepted if isinstance(a, PlanAccepted)][len(channels) :]
+    assert {a.channel: a.cycles for a in replans} == {ch: n - before[ch] for ch in channels}
+    # the store: each unit's life is the cycles its actuator made, every one measured once
+    assert {ru.channel: ru.cycles_done for ru in run_units} == ons
+    assert {ru.channel: ru.unit.cycles for ru in run_units} == ons
     assert unobserved == []
     assert {ch: sorted(m.tolist()) for ch, m in makes.items()} == dict.fromkeys(channels, list(range(n)))

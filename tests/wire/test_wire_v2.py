@@ -93,6 +93,32 @@ def test_a_version_1_stream_that_carried_checksums_is_held_to_them():
     assert flatten(out)[-1] == ("E", 3, 1, 0x0003D090) and dec.counters.faults == 0
 
 
+def test_a_reset_mid_line_loses_the_cut_line_and_not_the_announcement_after_it():
+    """A version 2 sampler starts each life with an empty line: the line its reset cut ends there.
+    (The emulated board showed it: a reset mid-beat glued the beat's first half to the announcement.)"""
+    enc = LineEncoder()
+    before = enc.encode_all([V2, Drive(1, 1, 0x20, 1)])
+    beat = enc.encode(Beat(0x30, 2, 0, 0, ((1, 1),)))
+    cut = beat[: len(beat) // 2]  # the power went mid-line
+    life = enc.encode_all([V2, Drive(1, 1, 0x10, 1)])
+    want = flatten([V2, Drive(1, 1, 0x20, 1), V2, Drive(1, 1, 0x10, 1)])
+    data = before + cut + b"\r\n" + life
+    for pieces in ([data], [data[i : i + 1] for i in range(len(data))]):  # whole, and byte by byte
+        dec = Decoder()
+        out = [r for piece in pieces for r in dec.feed(piece)]
+        assert flatten(out) == want
+        assert dec.counters.faults == 1  # the cut line, and nothing else
+    # without it the cut line runs into the announcement, and the new life's announcement is lost
+    dec = Decoder()
+    out = dec.feed(before + cut + life)
+    assert sum(isinstance(r, Announce) for r in out) == 1
+    # a fresh sampler's first bytes: the empty line is not noise before the first line, nor a fault later
+    for data in (b"\r\n" + life, life + b"\r\n\r\n" + enc.encode(Drive(1, 0, 0x40, 1))):
+        dec = Decoder()
+        assert isinstance(dec.feed(data)[0], Announce)
+        assert dec.counters.faults == 0
+
+
 _record = st.one_of(
     st.builds(
         lambda c, lv, t: Edges.of([(c, lv, t)]),
@@ -214,7 +240,12 @@ def _stream(seed: int, form: str, version: int) -> bytes:
             else:
                 recs.append(Drive(min(ch, chans - 1), i % 2, t))
             recs.append(Edges.of([(ch, i % 2, t)]))  # channel may be out of range: a range fault
-        parts.append(enc.encode_all(recs[:1]) + b"".join(_safe(enc, r) for r in recs[1:]))
+        part = enc.encode_all(recs[:1]) + b"".join(_safe(enc, r) for r in recs[1:])
+        if version >= 2:  # each life after a reset starts clean (0x00 or an empty line)...
+            part = (b"\0" if form == "packed" else b"\r\n") + part
+        if k < 2 and rng.random() < 0.5:  # ...and the reset may have cut the last record of the one before
+            part = part[: len(part) - rng.randint(1, 6)]
+        parts.append(part)
     return b"".join(parts)
 
 
