@@ -32,3 +32,6 @@ def test_a_shared_store_under_load_loses_nothing_and_stays_sound(lab_db, tmp_pat
     assert fig["final_check"][0] == 0, fig["final_check"][1]
     assert fig["check_failed"] == [] and fig["status_failed"] == []
     assert not [line for line in fig["dash"] if line.startswith("dash-error")]
+    # the dashboard process read the store while the lab ran, and said so when told to stop (SIGTERM)
+    summary = [line.split() for line in fig["dash"] if line.startswith("dash ")]
+    assert summary and int(summary[0][1]) >= 1, fig["dash"]
