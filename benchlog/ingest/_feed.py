@@ -27,6 +27,7 @@ from benchlog.link import Chunk, Link, Outage
 from benchlog.wire import Command, Decoder, Go, Plan, SetForm, Who, encode_command
 
 GREET_AFTER_S = 0.3  # data but no announcement for this long: ask for one
+MIN_POLL_S = 0.02  # the shortest time between two polls that take what arrived (see `poll`)
 
 
 @dataclass(slots=True)
@@ -82,6 +83,7 @@ class Feed:
         self._host0 = time.time_ns()
         self._counters = FeedCounters()
         self._lock = threading.Lock()
+        self._polled_at = 0.0  # monotonic time the last poll took what had arrived
 
     # -- lifecycle ---------------------------------------------------------------------------------
     def __enter__(self) -> Feed:
@@ -162,8 +164,19 @@ class Feed:
         return self.timeline.push(records, self._to_clock(host_ns))
 
     def poll(self, timeout: float = 0.1) -> Timed:
-        """Everything that arrived (waiting up to `timeout` for the first chunk), in run time."""
+        """Everything that arrived (waiting up to `timeout` for the first chunk), in run time.
+
+        Polls come at most every MIN_POLL_S (within `timeout`): a sampler sends in small bursts (the
+        reference firmware every 5 ms), and each poll's work has a fixed cost, so a reader polling as
+        fast as bursts arrive spends its time on that cost. The link's reader thread keeps reading the
+        port meanwhile; nothing waits in the port."""
+        if timeout:
+            rest = MIN_POLL_S - (time.monotonic() - self._polled_at)
+            if rest > 0:
+                time.sleep(min(rest, timeout))
+                timeout = max(timeout - rest, 1e-6)
         items = self.link.drain(timeout)
+        self._polled_at = time.monotonic()
         parts: list[Timed] = []
         group: list[bytes] = []
         group_t0 = group_last = 0

@@ -223,7 +223,8 @@ class PtySampler:
                 self.bytes_lost_unheard += len(self._backlog)
                 self._backlog.clear()
                 self._marks.clear()
-            self._wait()
+            # behind the wall clock (a step is at most STEP_WALL_S of it): go on at once
+            self._wait(0.0 if bench.now_ns < target and len(self._backlog) < BACKLOG_LIMIT else STEP_WALL_S)
 
     def _pull_due(self) -> bool:
         if self._pull_on_command:
@@ -238,13 +239,16 @@ class PtySampler:
         since = self._listening_since
         return since is not None and time.monotonic() - since >= SETTLE_S
 
-    def _wait(self) -> None:
+    def _wait(self, timeout: float = STEP_WALL_S) -> None:
+        """Until a step of sampler time is due: a step per STEP_WALL_S of wall (a board sends in bursts
+        too: the reference firmware every 5 ms or 32 edges). A command from the host, or room in a
+        full port, wakes it sooner."""
         if self._master < 0 or self._listening_since is None:
             time.sleep(0.002)
             return
         wr = [self._master] if self._backlog else []
         try:
-            select.select([self._master], wr, [], 0.002 if not self._backlog else 0.001)
+            select.select([self._master], wr, [], timeout if not self._backlog else min(timeout, 0.001))
         except (OSError, ValueError):
             time.sleep(0.002)
 
