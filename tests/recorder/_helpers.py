@@ -99,13 +99,12 @@ def not_observed_cycles(store, run_id: int) -> dict[int, list[int]]:
     return out
 
 
-def check_cycles_against_truth(store, run_id: int, truth_cycles: dict[int, int], exact: bool = True):
+def check_cycles_against_truth(store, run_id: int, truth_cycles: dict[int, int]):
     """Every cycle the sampler did (the simulator's `Truth.cycles`) is accounted for once: observed (its
     make or its break, or both, measured: a row under its cycle) or reported not observed, never both and
     never twice; each unit's life count is the true count. A cycle with only a break measured (its
-    drive-on lost, its drive-off heard) is observed. `exact=False`: cycles with neither may be missing
-    (byte damage: the analysis withholds the rows of a few cycles whose drives arrived), never extra.
-    Returns channel -> (make cycles, break cycles, not-observed cycles), as run cycles."""
+    drive-on lost, its drive-off heard) is observed. Returns channel -> (make cycles, break cycles,
+    not-observed cycles), as run cycles."""
     gaps = not_observed_cycles(store, run_id)
     out = {}
     for ru in store.run_units(run_id):
@@ -124,8 +123,7 @@ def check_cycles_against_truth(store, run_id: int, truth_cycles: dict[int, int],
         assert not both, (ch, "measured and reported not observed", both)
         accounted, every = measured | set(lost), set(range(truth))
         assert accounted <= every, (ch, "beyond the true count", sorted(accounted - every))
-        if exact:
-            missing = sorted(every - accounted)
-            assert not missing, (ch, "neither measured nor reported", missing)
+        missing = sorted(every - accounted)
+        assert not missing, (ch, "neither measured nor reported", missing)
         out[ch] = (sorted(makes), sorted(breaks), sorted(lost))
     return out
