@@ -250,15 +250,16 @@ def test_after_a_reset_the_contact_is_measured_as_the_simulator_moved_it(recordi
 
 
 SELF_POWERED = {
+    # name: (cut point, cable out for ms, wire form, cycles whose drive-off arrives without their drive-on)
     # cut after cycle 31's make, back within cycle 41's on-phase: its drive-on is lost, its drive-off
     # (4,050.1 ms) and its break arrive: cycle 41 is observed by its break alone
-    "after-a-make": (3_030.0, 1_000.0, "line"),
+    "after-a-make": (3_030.0, 1_000.0, "line", 1),
     # cut in cycle 31's break bounce, back in cycle 41's: both of its drives were lost
-    "packed-in-a-break-bounce": (("break", 0.5), 1_000.0, "packed"),
+    "packed-in-a-break-bounce": (("break", 0.5), 1_000.0, "packed", 0),
     # cut in cycle 31's off-phase, back within cycle 41's on-phase: its drive-off arrives alone after a
     # drive-off (the level heard did not change), so the analysis measures nothing from it and its make
     # edges were lost: cycle 41 is not observed, in the same incident as the cycles before it
-    "in-an-off-phase-back-in-an-on-phase": (3_075.0, 960.0, "line"),
+    "in-an-off-phase-back-in-an-on-phase": (3_075.0, 960.0, "line", 1),
 }
 
 
@@ -276,8 +277,8 @@ def _drives_in_outage(bench, host, ch: int) -> tuple[list[int], list[int]]:
     return both, break_only
 
 
-@pytest.mark.parametrize(("cut", "off_ms", "wire"), SELF_POWERED.values(), ids=SELF_POWERED.keys())
-def test_a_cable_pulled_from_a_self_powered_board_keeps_the_contact_state(tmp_path, cut, off_ms, wire):
+@pytest.mark.parametrize(("cut", "off_ms", "wire", "lone"), SELF_POWERED.values(), ids=SELF_POWERED.keys())
+def test_a_cable_pulled_from_a_self_powered_board_keeps_the_contact_state(tmp_path, cut, off_ms, wire, lone):
     """No reset: the sampler went on cycling for the second the cable was out (what it sent meanwhile is
     lost), the contact state is kept across the outage, and every cycle after it is measured as the
     truth; the cycles the outage hid are reported not observed, in one incident per unit. A cycle whose
@@ -299,6 +300,7 @@ def test_a_cable_pulled_from_a_self_powered_board_keeps_the_contact_state(tmp_pa
             makes, breaks, lost = seen[ch]
             both, break_only = _drives_in_outage(bench, host, ch)
             assert both and both[0] == started[ch], (ch, both, started[ch])  # the cycles after the cut one
+            assert len(break_only) == lone, (ch, break_only)  # the scenario is as its comment says
             # after an on-phase (the last drive heard switched on) the lone drive-off starts a break;
             # after an off-phase it repeats the level heard and starts nothing: the cycle is not observed
             heard_on = isinstance(cut, float) and (cut - 0.1) % 100 < 50
