@@ -9,10 +9,19 @@ run cycle `base + c - 1` (0-based), and a count `n` means `base + n` run cycles 
 - Actuations are numbered by the drive that started them, so cycles the host never saw (an outage, a
   recorder that was down, damaged drive records) leave a gap in the numbers instead of shifting the
   cycles after them.
-- A gap is a CYCLES_NOT_OBSERVED incident per unit with how many cycles it stands for; those cycles
+- A cycle is observed when its make or its break (or both) is measured; a gap is the cycles with
+  neither, a CYCLES_NOT_OBSERVED incident per unit with how many cycles it stands for. Those cycles
   count in the unit's life (the writer's `cycles_done`) but carry no measurement. Cycles the host did
   see count when their actuations are written, so what the store says is always backed by a measurement
-  or by an incident; a recorder killed before a commit leaves cycles the next one reports as a gap.
+  or by an incident, never by both; a recorder killed before a commit leaves cycles the next one reports
+  as a gap.
+- A break-only cycle: its drive-on was lost (an outage ended within its on-phase, or the record was
+  damaged) and its drive-off arrived. The analysis switches only on a change of the drive level heard
+  (`_level`): after a drive-on of an earlier cycle (its drive-off lost too), or with no drive heard yet,
+  the lone drive-off starts a break, numbered with its cycle: the cycle is observed by its break alone
+  (a break row, no make row) and is not in the gap. After a drive-off (an outage that began in an
+  off-phase) it repeats the level and starts nothing, and the cycle's make edges were lost: it is not
+  observed, and goes in the same gap as the cycles before it.
 - A sampler reset ends the plan (its count starts again from 0): the run cycles done so far become the
   base, and the recorder plans the cycles still due again (`replan`, `started`). A cycle whose drive-on
   was heard and whose drive-off was not (power failed within it) is done: its coil was energised. Its
@@ -25,6 +34,8 @@ run cycle `base + c - 1` (0-based), and a count `n` means `base + n` run cycles 
   last drive of a channel is measured only when a later one comes, or at the end of data). Such cycles
   are reported not observed too: when a later cycle's rows are numbered (`holes`), and at the end of
   data up to the sampler's own count (`settle`), so a unit's life count ends equal to the sampler's.
+  Their incident says why by what lay between the records heard around them: an outage of the link or a
+  sampler reset (records lost with it), or else damaged records.
 - `reported`: the run cycles the sampler says a channel completed; the recorder's target is reached on
   it (rows of the last cycle may wait for the end of data, see above).
 """
@@ -36,11 +47,14 @@ from collections import deque
 import numpy as np
 
 from benchlog.analysis import power_off_ns
-from benchlog.events import CYCLES_NOT_OBSERVED, RESET, Incident
+from benchlog.events import CYCLES_NOT_OBSERVED, DISCONNECT, RESET, Incident
 from benchlog.wire import GoAccepted
 
 KEEP_DRIVES = 8192  # recent drives per channel kept to number the actuations they start
+KEEP_OUTAGES = 64  # recent outages and resets kept to tell why a cycle has no actuation
 _LOST_DRIVES = ": no actuation measured, its drive records were damaged"
+_LOST_IN_OUTAGE = ": no actuation measured, its records were lost while the link was down"
+_LOST_IN_RESET = ": no actuation measured, its records were lost with the sampler's reset"
 
 
 class SamplerCount:
@@ -63,6 +77,16 @@ class SamplerCount:
         self._host_last = 0
         self.replan = False  # a reset ended the sampler's plans: plan the cycles still due again
         self._on: dict[int, int] = {}  # channel -> run cycle of a drive-on heard with no drive after it
+        # channel -> level of the last drive heard, as the analysis switches on it (a reset's power loss
+        # is a drive-off); no entry: none heard yet in this segment
+        self._level: dict[int, int] = {}
+        # recent outages of the link and resets: (run time start, end, kind), in arrival order
+        self._outages: deque[tuple[int, int, str]] = deque(maxlen=KEEP_OUTAGES)
+        # channel -> run cycles before it each measured (a numbered row) or reported not observed; and
+        # the run cycles reported not observed from it on, (lo, hi) spans. A gap reported beyond cycles
+        # whose rows are still due must not pass them by: a seen cycle may yet get no row (`holes`)
+        self._accounted: dict[int, int] = {ch: int(writer.cycles_done[ch]) for ch in writer.units}
+        self._reported: dict[int, list[tuple[int, int]]] = {}
         self.not_observed = 0
 
     # -- feeding ------------------------------------------------------------------------------------
@@ -72,6 +96,8 @@ class SamplerCount:
         for inc in timed.incidents:
             if inc.kind == RESET:
                 events.append((int(inc.t_end_ns), 0, inc))
+            if inc.kind in (RESET, DISCONNECT):
+                self._outages.append((int(inc.t_start_ns), int(inc.t_end_ns), inc.kind))
         for acc in getattr(timed, "accepted", ()):
             if isinstance(acc.record, GoAccepted):
                 events.append((acc.t_ns, 1, acc))
@@ -110,6 +136,8 @@ class SamplerCount:
         for ch, k in sorted(self._on.items()):  # the power went, and the actuator with it
             self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES)).append((off, k))
         self._on.clear()
+        for ch in self._level:
+            self._level[ch] = 0
         for ch in list(self.base):
             b = self.base[ch]
             if b is not None:  # a cycle the host saw start counts (power may fail before its drive-off)
@@ -146,8 +174,11 @@ class SamplerCount:
         if b is None:
             return
         seen = self.seen.get(ch, 0)
-        # a cycle is seen when its drive-on arrives: a drive-off alone means its drive-on was lost
-        upto = c - 1 if level else c
+        # a cycle is seen when its drive-on arrives. A drive-off alone (its drive-on lost) is a break-only
+        # cycle, observed by the break it starts, unless it repeats the level heard: then the analysis
+        # measures nothing from it, and the cycle goes with the cycles not observed before it
+        upto = c - 1 if level or self._level.get(ch, 1) else c
+        self._level[ch] = 1 if level else 0
         if upto > seen:
             self._gap(t, ch, b + seen, b + upto, host_ns, out)
         self.seen[ch] = max(seen, c)
@@ -183,6 +214,7 @@ class SamplerCount:
         if k <= 0 or ch not in self.writer.units:
             return
         self.not_observed += k
+        self._reported.setdefault(ch, []).append((lo, hi))
         # they count in the unit's life; the cycles seen count as their actuations are written
         self.writer.cycles_done[ch] = max(self.writer.cycles_done[ch], hi)
         first = self.writer.cycle_base[ch] + lo  # life cycles numbered from 0, as actuations are
@@ -223,8 +255,9 @@ class SamplerCount:
 
     def holes(self, rows: np.ndarray, numbered: np.ndarray) -> list[Incident]:
         """Cycles before the numbered rows of `rows` (from `number`, not yet written) that have no row
-        and were not reported: their drive records were lost, so the analysis measured no actuation for
-        them (rows come per channel in cycle order). They are reported not observed."""
+        and were not reported: records of theirs were lost (damaged, or with an outage or a reset), so
+        the analysis measured no actuation for them (rows come per channel in cycle order). They are
+        reported not observed, with the cause (`_why`)."""
         out: list[Incident] = []
         sel = numbered.copy()
         if not sel.any():
@@ -235,23 +268,54 @@ class SamplerCount:
             mine = rows[sel & (rows["channel"] == ch)]
             run_cycle = mine["cycle"].astype(np.int64) + self.writer.seg_start[ch]
             cycles, first = np.unique(run_cycle, return_index=True)
-            done = int(self.writer.cycles_done[ch])  # every cycle before it is measured or reported
-            lo = np.maximum(np.concatenate(([done], cycles[:-1] + 1)), done)
-            for a, b, i in zip(lo.tolist(), cycles.tolist(), first.tolist(), strict=True):
-                if b > a:  # reported at the start of the first cycle measured after them
-                    self._gap(int(mine["t_start_ns"][i]), ch, a, b, self._host_last, out, _LOST_DRIVES)
+            start = self._accounted.get(ch, 0)  # every cycle before it is measured or reported
+            for b, i in zip(cycles.tolist(), first.tolist(), strict=True):
+                if b > start:  # reported at the start of the first cycle measured after them
+                    t = int(mine["t_start_ns"][i])
+                    for lo, hi in self._unreported(ch, start, b):
+                        self._gap(t, ch, lo, hi, self._host_last, out, self._why(ch, lo, t))
+                start = max(start, b + 1)
+            self._accounted[ch] = start
+            self._reported[ch] = [(lo, hi) for lo, hi in self._reported.get(ch, ()) if hi > start]
         return out
+
+    def _unreported(self, ch: int, lo: int, hi: int) -> list[tuple[int, int]]:
+        """The spans of run cycles lo .. hi - 1 of channel `ch` not reported not observed yet."""
+        out = []
+        for a, b in sorted(self._reported.get(ch, ())):
+            if b <= lo or a >= hi:
+                continue
+            if a > lo:
+                out.append((lo, a))
+            lo = max(lo, b)
+        if hi > lo:
+            out.append((lo, hi))
+        return out
+
+    def _why(self, ch: int, first: int, t_after: int) -> str:
+        """Why run cycles from `first` of channel `ch` have no actuation, the next record measured being
+        at run time `t_after`: an outage of the link or a reset between the last drive heard of an
+        earlier cycle and then lost their records with it; else their drive records were damaged."""
+        t_before = max((t for t, k in self._drives.get(ch, ()) if k < first), default=None)
+        kinds = {
+            kind for t0, t1, kind in self._outages if t0 <= t_after and (t_before is None or t1 >= t_before)
+        }
+        if RESET in kinds:
+            return _LOST_IN_RESET
+        return _LOST_IN_OUTAGE if DISCONNECT in kinds else _LOST_DRIVES
 
     def settle(self) -> list[Incident]:
         """End of data, once the analysis' last rows are written: the cycles the sampler reported
-        completed beyond the last one measured have no measurement (their drive records were lost);
-        they are reported not observed, so each unit's life count is the sampler's."""
+        completed beyond the last one measured have no measurement (their records were lost: damaged,
+        or with an outage or a reset); they are reported not observed, so each unit's life count is the
+        sampler's."""
         out: list[Incident] = []
         for ch in self.writer.units:
             n = self.reported(ch, self._t_last)
-            done = int(self.writer.cycles_done[ch])
-            if n is not None and n > done:
-                self._gap(self._t_last, ch, done, n, self._host_last, out, _LOST_DRIVES)
+            if n is None:
+                continue
+            for lo, hi in self._unreported(ch, self._accounted.get(ch, 0), n):
+                self._gap(self._t_last, ch, lo, hi, self._host_last, out, self._why(ch, lo, self._t_last))
         return out
 
     # -- numbering ----------------------------------------------------------------------------------

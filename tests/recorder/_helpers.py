@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import re
 import threading
 
-from benchlog.analysis import load_spec
+from benchlog.analysis import BREAK, MAKE, load_spec
+from benchlog.events import CYCLES_NOT_OBSERVED
 from benchlog.ingest import Feed
 from benchlog.recorder import Recorder
 from benchlog.sim import PtySampler, load_preset
@@ -79,3 +81,49 @@ def record_sim(
     finally:
         timer.cancel()
     return reason, writer, rec, sim, counters
+
+
+_SPAN = re.compile(r"\(cycles? ([\d,]+)(?:-([\d,]+))? of the unit's life\)")
+
+
+def not_observed_cycles(store, run_id: int) -> dict[int, list[int]]:
+    """Channel -> the life cycles its CYCLES_NOT_OBSERVED incidents name (a cycle named twice, twice)."""
+    out: dict[int, list[int]] = {}
+    for inc in store.incidents(run_id, kind=CYCLES_NOT_OBSERVED):
+        m = _SPAN.search(inc.detail)
+        assert m is not None, inc.detail
+        lo = int(m.group(1).replace(",", ""))
+        hi = int((m.group(2) or m.group(1)).replace(",", ""))
+        assert hi - lo + 1 == inc.cycles_lost, inc.detail
+        out.setdefault(inc.channel, []).extend(range(lo, hi + 1))
+    return out
+
+
+def check_cycles_against_truth(store, run_id: int, truth_cycles: dict[int, int]):
+    """Every cycle the sampler did (the simulator's `Truth.cycles`) is accounted for once: observed (its
+    make or its break, or both, measured: a row under its cycle) or reported not observed, never both and
+    never twice; each unit's life count is the true count. A cycle with only a break measured (its
+    drive-on lost, its drive-off heard) is observed. Returns channel -> (make cycles, break cycles,
+    not-observed cycles), as run cycles."""
+    gaps = not_observed_cycles(store, run_id)
+    out = {}
+    for ru in store.run_units(run_id):
+        ch, base = ru.channel, ru.cycle_base
+        truth = truth_cycles[ch]
+        assert (ru.cycles_done, ru.unit.cycles - base) == (truth, truth), (ch, ru.cycles_done, truth)
+        rows = store.actuations(units=[ru.unit.id])
+        makes = (rows["cycle"][rows["kind"] == MAKE] - base).tolist()
+        breaks = (rows["cycle"][rows["kind"] == BREAK] - base).tolist()
+        lost = [c - base for c in gaps.get(ch, [])]
+        assert len(set(makes)) == len(makes), (ch, "a make row twice", len(makes) - len(set(makes)))
+        assert len(set(breaks)) == len(breaks), (ch, "a break row twice", len(breaks) - len(set(breaks)))
+        assert len(set(lost)) == len(lost), (ch, "a cycle reported not observed twice", sorted(lost))
+        measured = set(makes) | set(breaks)
+        both = sorted(measured & set(lost))
+        assert not both, (ch, "measured and reported not observed", both)
+        accounted, every = measured | set(lost), set(range(truth))
+        assert accounted <= every, (ch, "beyond the true count", sorted(accounted - every))
+        missing = sorted(every - accounted)
+        assert not missing, (ch, "neither measured nor reported", missing)
+        out[ch] = (sorted(makes), sorted(breaks), sorted(lost))
+    return out

@@ -129,6 +129,9 @@ def test_lost_drive_records_at_the_end_cost_no_cycle(tmp_path, picks):
             assert len(gaps) == len(set(gaps))  # no cycle reported twice
             assert measured.isdisjoint(gaps), (ch, sorted(measured & set(gaps)))
             assert measured | set(gaps) == set(range(TARGET)), (ch, sorted(set(range(TARGET)) - measured))
+        # no outage and no reset: a cycle with no actuation is put down to its damaged drive records
+        for inc in store.incidents(writer.run_id, kind=CYCLES_NOT_OBSERVED):
+            assert "link was down" not in inc.detail and "reset" not in inc.detail, inc.detail
 
 
 def _reported(store, run_id: int) -> dict[int, list[int]]:

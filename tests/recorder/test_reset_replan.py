@@ -28,7 +28,7 @@ from benchlog.recorder import Recorder
 from benchlog.sim import Bench
 from benchlog.store import Store
 from benchlog.wire import Decoder, Go, Plan
-from tests.recorder._helpers import demo_config, start_run
+from tests.recorder._helpers import check_cycles_against_truth, demo_config, start_run
 
 MS = 1_000_000
 ON_US = OFF_US = 50_000  # cycle k (1-based) switches on at (k - 1) * 100 ms + 0.1 ms (GO starts 0.1 ms on)
@@ -51,6 +51,7 @@ class _Host:
         self.bench, self.rec, self.timeline = bench, rec, Timeline()
         self.decoder = Decoder() if wire else None
         self.sent: list = []
+        self.outages: list[tuple[int, int]] = []  # sampler time of each cable pull: what it sent is lost
         self._replies: list = []
         self._flushed_ns = 0
         records = bench.advance_to(bench.now_ns)
@@ -102,6 +103,7 @@ class _Host:
         is lost, and the feed reports the outage."""
         t_cut = self.bench.now_ns
         self.bench.advance_to(t_cut + int(off_ms * MS))
+        self.outages.append((t_cut, self.bench.now_ns))
         self._outage(t_cut)
 
 
@@ -248,29 +250,123 @@ def test_after_a_reset_the_contact_is_measured_as_the_simulator_moved_it(recordi
 
 
 SELF_POWERED = {
-    "after-a-make": (3_030.0, "line"),
-    "packed-in-a-break-bounce": (("break", 0.5), "packed"),
+    # name: (cut point, cable out for ms, wire form, cycles whose drive-off arrives without their drive-on)
+    # cut after cycle 31's make, back within cycle 41's on-phase: its drive-on is lost, its drive-off
+    # (4,050.1 ms) and its break arrive: cycle 41 is observed by its break alone
+    "after-a-make": (3_030.0, 1_000.0, "line", 1),
+    # cut in cycle 31's break bounce, back in cycle 41's: both of its drives were lost
+    "packed-in-a-break-bounce": (("break", 0.5), 1_000.0, "packed", 0),
+    # cut in cycle 31's off-phase, back within cycle 41's on-phase: its drive-off arrives alone after a
+    # drive-off (the level heard did not change), so the analysis measures nothing from it and its make
+    # edges were lost: cycle 41 is not observed, in the same incident as the cycles before it
+    "in-an-off-phase-back-in-an-on-phase": (3_075.0, 960.0, "line", 1),
 }
 
 
-@pytest.mark.parametrize(("cut", "wire"), SELF_POWERED.values(), ids=SELF_POWERED.keys())
-def test_a_cable_pulled_from_a_self_powered_board_keeps_the_contact_state(tmp_path, cut, wire):
-    """No reset: the sampler went on cycling for the 1 s the cable was out (what it sent meanwhile is
+def _drives_in_outage(bench, host, ch: int) -> tuple[list[int], list[int]]:
+    """The simulator's truth for channel `ch` about the cable's outage: the cycles (0-based) both of whose
+    drive records were sent while it was out, and those whose drive-on was and whose drive-off was not
+    (break-only cycles)."""
+    [(t0, t1)] = host.outages
+    act = bench.truth.actuations
+    mine = act[act["channel"] == ch]
+    on = {int(r["cycle"]): int(r["t_drive_ns"]) for r in mine[mine["kind"] == MAKE]}
+    off = {int(r["cycle"]): int(r["t_drive_ns"]) for r in mine[mine["kind"] == BREAK]}
+    both = sorted(c for c, t in on.items() if t0 <= t < t1 and t0 <= off[c] < t1)
+    break_only = sorted(c for c, t in on.items() if t0 <= t < t1 and off[c] >= t1)
+    return both, break_only
+
+
+@pytest.mark.parametrize(("cut", "off_ms", "wire", "lone"), SELF_POWERED.values(), ids=SELF_POWERED.keys())
+def test_a_cable_pulled_from_a_self_powered_board_keeps_the_contact_state(tmp_path, cut, off_ms, wire, lone):
+    """No reset: the sampler went on cycling for the second the cable was out (what it sent meanwhile is
     lost), the contact state is kept across the outage, and every cycle after it is measured as the
-    truth; the cycles the outage hid are reported not observed."""
+    truth; the cycles the outage hid are reported not observed, in one incident per unit. A cycle whose
+    drive-on was lost and whose drive-off and break arrived after an on-phase is observed by its break: it
+    has its break row, no make row, and is not in the incident."""
     store, run_id, bench, host, started = _recorded_through_a_power_cut(
-        tmp_path, cut, 1_000.0, True, wire, resets=False
+        tmp_path, cut, off_ms, True, wire, resets=False
     )
     try:
         assert not bench.truth.resets and not store.incidents(run_id, kind=RESET)
         assert len(store.incidents(run_id, kind=DISCONNECT)) == 1
         assert sum(isinstance(c, Go) for c in host.sent) == 1
-        gaps = _not_observed(store, run_id)
+        truth = bench.truth.cycles
+        assert all(truth[ch] == TARGET for ch in CHANNELS), truth
+        seen = check_cycles_against_truth(store, run_id, truth)
+        incidents = store.incidents(run_id, kind=CYCLES_NOT_OBSERVED)
         for ru in store.run_units(run_id):
             ch = ru.channel
-            assert bench.truth.cycles[ch] == TARGET and (ru.cycles_done, ru.unit.cycles) == (TARGET, TARGET)
-            lost = gaps[ch]  # about 10 cycles ran with the cable out, from the one after the cut
-            assert lost == list(range(started[ch], started[ch] + len(lost))) and 9 <= len(lost) <= 11, lost
-            _measured_as_the_truth(store, bench, ru, {started[ch] - 1, *lost})
+            makes, breaks, lost = seen[ch]
+            both, break_only = _drives_in_outage(bench, host, ch)
+            assert both and both[0] == started[ch], (ch, both, started[ch])  # the cycles after the cut one
+            assert len(break_only) == lone, (ch, break_only)  # the scenario is as its comment says
+            # after an on-phase (the last drive heard switched on) the lone drive-off starts a break;
+            # after an off-phase it repeats the level heard and starts nothing: the cycle is not observed
+            heard_on = isinstance(cut, float) and (cut - 0.1) % 100 < 50
+            if heard_on:
+                assert lost == both, (ch, lost, both, break_only)
+                for c in break_only:
+                    assert c in breaks and c not in makes, (ch, c)
+            else:
+                assert lost == sorted(both + break_only), (ch, lost, both, break_only)
+            assert 9 <= len(lost) <= 11 and len([i for i in incidents if i.channel == ch]) == 1, lost
+            observed_by_break = set(break_only) if heard_on else set()
+            rows = _measured_as_the_truth(store, bench, ru, {started[ch] - 1, *lost, *observed_by_break})
+            for c in observed_by_break:  # its break, measured as the truth says
+                mine = rows[rows["cycle"] == c]
+                t = bench.truth.actuations
+                t = t[(t["channel"] == ch) & (t["cycle"] == c) & (t["kind"] == BREAK)]
+                assert mine["kind"].tolist() == [BREAK] and len(t) == 1, (ch, c, mine)
+                np.testing.assert_allclose(mine["transit_us"], t["transit_us"], atol=2.5)
+                np.testing.assert_allclose(mine["bounce_us"], t["bounce_us"], atol=2.5)
+                np.testing.assert_array_equal(mine["bounce_count"], t["bounce_count"])
+                assert not (mine["flags"] & NOT_MEASURED).any() and (mine["verdict"] != NO_VERDICT).all()
+    finally:
+        store.close()
+
+
+def test_a_cycle_heard_between_two_outages_is_reported_lost_to_them(tmp_path):
+    """Two pulls of a self-powered board's cable. The first (in cycle 31's on-phase) ends in cycle 40's
+    off-phase: its drive-off was lost, so cycle 41's drive-on arrives after a drive-on and switches
+    nothing in the analysis; the second pull (in cycle 41's on-phase) takes its drive-off. Cycle 41 was
+    seen yet has no actuation: it must be reported not observed (the cycles the second pull hid are
+    reported first, and must not hide it), as lost while the link was down, not as damaged records."""
+    store = Store.open(str(tmp_path / "two.sqlite"))
+    try:
+        writer = start_run(store, CHANNELS, TARGET, "bench P")
+        spec = load_spec("AG-MS5")
+        rec = Recorder(writer, settings=spec.settings(), specs=dict.fromkeys(CHANNELS, spec))
+        bench = Bench(demo_config(), 5)
+        host = _Host(bench, rec, "line")
+        host.run_to(3_030 * MS)
+        host.cable_pull(950.0)  # back at 3,980 ms: cycle 40 switched off at 3,950.1 ms
+        host.run_to(4_030 * MS)  # cycle 41 switched on at 4,000.1 ms, heard
+        host.cable_pull(950.0)  # back at 4,980 ms: cycle 41 switched off at 4,050.1 ms
+        end = bench.now_ns + 3 * TARGET * (ON_US + OFF_US) * 1000  # a ceiling in sampler time
+        while not rec.target_reached() and bench.now_ns < end:
+            host.run_to(bench.now_ns + 100 * MS)
+        host.run_to(bench.now_ns + 500 * MS)
+        rec.finish("target")
+
+        truth = bench.truth
+        assert not truth.resets and truth.cycles == dict.fromkeys(CHANNELS, TARGET), truth.cycles
+        seen = check_cycles_against_truth(store, writer.run_id, truth.cycles)
+        act = truth.actuations
+        cut = 40  # 0-based: cycle 41
+        for ch in CHANNELS:
+            mine = act[(act["channel"] == ch) & (act["cycle"] == cut)]
+            on = int(mine["t_drive_ns"][mine["kind"] == MAKE][0])
+            off = int(mine["t_drive_ns"][mine["kind"] == BREAK][0])
+            lost_in = [any(t0 <= t < t1 for t0, t1 in host.outages) for t in (on, off)]
+            assert lost_in == [False, True], (ch, on, off, host.outages)  # the truth of the scenario
+            makes, breaks, lost = seen[ch]
+            assert cut in lost and cut not in makes and cut not in breaks, (ch, lost)
+            why = [
+                i.detail
+                for i in store.incidents(writer.run_id, kind=CYCLES_NOT_OBSERVED)
+                if i.channel == ch and f"cycle {cut} of the unit's life" in i.detail
+            ]
+            assert len(why) == 1 and "lost while the link was down" in why[0], why
     finally:
         store.close()
