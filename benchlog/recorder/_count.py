@@ -57,6 +57,39 @@ _LOST_IN_OUTAGE = ": no actuation measured, its records were lost while the link
 _LOST_IN_RESET = ": no actuation measured, its records were lost with the sampler's reset"
 
 
+class _DriveLog:
+    """A channel's recent drives, (run time, run cycle index), the last KEEP_DRIVES of them; `arrays()`
+    gives them in time order as numpy arrays, made again only after new drives arrived (the recorder
+    numbers every batch's actuations with them)."""
+
+    def __init__(self) -> None:
+        self._new: list[tuple[int, int]] = []
+        self._t = np.zeros(0, np.int64)
+        self._k = np.zeros(0, np.int64)
+
+    def append(self, drive: tuple[int, int]) -> None:
+        self._new.append(drive)
+
+    def __bool__(self) -> bool:
+        return bool(self._new) or bool(len(self._t))
+
+    def __iter__(self):
+        t, k = self.arrays()
+        return zip(t.tolist(), k.tolist(), strict=True)
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray]:
+        if self._new:
+            new = np.array(self._new, np.int64).reshape(-1, 2)
+            self._new = []
+            t = np.concatenate([self._t, new[:, 0]])[-KEEP_DRIVES:]
+            k = np.concatenate([self._k, new[:, 1]])[-KEEP_DRIVES:]
+            if len(t) > 1 and (np.diff(t) < 0).any():  # a reset's power-off time may come out of order
+                order = np.argsort(t, kind="stable")
+                t, k = t[order], k[order]
+            self._t, self._k = t, k
+        return self._t, self._k
+
+
 class SamplerCount:
     """Follows the sampler's count for the channels of one run segment (see the module doc)."""
 
@@ -70,7 +103,7 @@ class SamplerCount:
             if b is not None:
                 done = max(0, int(writer.cycles_done[ch]) - b)
                 self.count[ch] = self.seen[ch] = done
-        self._drives: dict[int, deque[tuple[int, int]]] = {}  # channel -> (t_ns, run cycle index)
+        self._drives: dict[int, _DriveLog] = {}  # channel -> (t_ns, run cycle index) of recent drives
         self._first_drive: dict[int, int] = {}  # channel -> time of its first numbered drive heard
         self._count_at: dict[int, int] = {}  # channel -> run time at which `count` last changed
         self._t_last = 0  # latest run time of a counted event, and its host time (for incidents)
@@ -134,7 +167,7 @@ class SamplerCount:
     def _reset(self, off: int, t: int) -> None:
         """The sampler lost power at run time `off` and restarted by `t`."""
         for ch, k in sorted(self._on.items()):  # the power went, and the actuator with it
-            self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES)).append((off, k))
+            self._drives.setdefault(ch, _DriveLog()).append((off, k))
         self._on.clear()
         for ch in self._level:
             self._level[ch] = 0
@@ -183,7 +216,7 @@ class SamplerCount:
             self._gap(t, ch, b + seen, b + upto, host_ns, out)
         self.seen[ch] = max(seen, c)
         self._first_drive.setdefault(ch, t)
-        q = self._drives.setdefault(ch, deque(maxlen=KEEP_DRIVES))
+        q = self._drives.setdefault(ch, _DriveLog())
         q.append((t, b + c - 1))
         if level:
             self._on[ch] = b + c - 1
@@ -339,10 +372,7 @@ class SamplerCount:
             sel = np.flatnonzero(rows["channel"] == ch)
             if not len(sel) or not q:
                 continue
-            t = np.fromiter((x[0] for x in q), np.int64, len(q))
-            run_cycle = np.fromiter((x[1] for x in q), np.int64, len(q))
-            order = np.argsort(t, kind="stable")
-            t, run_cycle = t[order], run_cycle[order]
+            t, run_cycle = q.arrays()
             at = rows["t_start_ns"][sel]
             i = np.clip(np.searchsorted(t, at), 0, len(t) - 1)
             hit = t[i] == at
