@@ -44,6 +44,7 @@ from benchlog.errors import DataError
 
 CHUNK_BYTES = 1 << 20
 _PAD = 40  # bytes kept before a block, so the words a field is read from can start before it
+_TAIL = 16  # bytes kept after a block, so the aligned words a field's last bytes sit in are all there
 _HEAD_BYTES = 1 << 16
 _NUM = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
 _POW10 = 10.0 ** np.arange(0, 309)
@@ -226,8 +227,8 @@ def _blocks(path: Path, offset: int, buffers: int):
         while True:
             step = max(CHUNK_BYTES, len(carry))  # a line longer than a chunk: read on in growing steps
             buf = pool[k % buffers]
-            if len(buf) < _PAD + len(carry) + step + 1:
-                buf = pool[k % buffers] = bytearray(_PAD + len(carry) + step + 1)
+            if len(buf) < _PAD + len(carry) + step + 1 + _TAIL:
+                buf = pool[k % buffers] = bytearray(_PAD + len(carry) + step + 1 + _TAIL)
             start = _PAD + len(carry)
             buf[_PAD:start] = carry
             got = f.readinto(memoryview(buf)[start : start + step])
@@ -300,7 +301,7 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
         n = len(cols[0]) if cols else 0
         read += size
         if not out:  # size the arrays from the first block's bytes per row
-            est = int(remaining / max(size, 1) * n * 1.02) + 1024 if n else bound
+            est = int(remaining / max(size, 1) * n * 1.25) + 1024 if n else bound
             out = [_empty(min(bound, est)) for _ in keep]
         if row + n > len(out[0]):
             if row + n > bound:
@@ -371,12 +372,6 @@ _LOW = np.array([(1 << (8 * k)) - 1 for k in range(9)], np.uint64)  # the first 
 # and among the 8 before them
 _KEEP_LAST = np.array([_KEEP[min(k, 8)] for k in range(17)], np.uint64)
 _KEEP_BEFORE = np.array([_KEEP[max(k - 8, 0)] for k in range(17)], np.uint64)
-_SIGNED = np.zeros(256, np.int64)  # 1 where a field starts with a sign, or a blank where one is not
-_SIGNED[[32, 43, 45]] = 1
-_NEG = np.zeros(256, np.int64)
-_NEG[45] = 1
-_SIGNS = np.ones(256)
-_SIGNS[45] = -1.0
 
 
 class _Scratch:
@@ -509,7 +504,7 @@ class _Strided:
         at += self._line_starts()
         at -= back
         words = np.ndarray((len(self.buf) - 7,), "<u8", self.buf, 0, (1,))
-        return np.take(words, at, out=self.sc("word_at", self.rows))
+        return np.take(words, at, out=self.sc("word_at", self.rows), mode="clip")
 
     def _line_starts(self) -> np.ndarray:
         steps = self.sc("line_starts", self.rows, np.intp)
@@ -536,9 +531,12 @@ def _iota(n: int) -> np.ndarray:
 class _Gathered:
     """Fields anywhere in a block: field i runs from `s[i]` to `e[i]` (positions from the block's start,
     `e` the delimiter or line break after it; arrays of any shape, the values come out in that shape);
-    its bytes are gathered. A gather costs about the same for 8 bytes as for 16 (numpy's cost is per
-    element), so the last 16 bytes of every field are gathered once and the words ending up to 8 bytes
-    before its end are cut from them."""
+    its bytes are gathered. The last 16 bytes of every field are gathered once and the words ending up
+    to 8 bytes before its end are cut from them.
+
+    A gather of 8 bytes from any byte address costs numpy several times what one from an 8-byte-aligned
+    address does, so where the block's buffer allows it (aligned, _TAIL bytes after the block), the
+    bytes are gathered as the aligned words they sit in and shifted into place."""
 
     def __init__(
         self, buf: bytearray, start: int, n: int, s: np.ndarray, e: np.ndarray, sc: _Scratch
@@ -548,15 +546,37 @@ class _Gathered:
         self.n = e.size
         self.length = np.subtract(e, s, out=sc("length", e.shape, np.intp))
         self.block = np.frombuffer(buf, np.uint8, n, start)
-        self.first = np.take(self.block, s, out=sc("first", e.shape, np.uint8))
+        self.first = np.take(self.block, s, out=sc("first", e.shape, np.uint8), mode="clip")
         # item k covers bytes k .. k+7 (k+15) of buf: the one ending at block position p is start + p - 8
         self._words = np.ndarray((start + n - 7,), "<u8", buf, 0, (1,))
         self._pairs = np.ndarray((start + n - 15,), "V16", buf, 0, (1,))
-        self._last16: np.ndarray | None = None
+        aligned = np.frombuffer(buf, np.uint64, len(buf) // 8)
+        self._aligned = aligned if aligned.flags.aligned and len(buf) >= start + n + _TAIL else None
+        self._last16: tuple[np.ndarray, np.ndarray] | None = None
         self._last8: np.ndarray | None = None
 
     def _at(self, offset: int) -> np.ndarray:
         return np.add(self.e, self.start + offset, out=self.sc("at", self.shape, np.intp))
+
+    def _from_aligned(self, first: np.ndarray, words: int, name: str = "window") -> list[np.ndarray]:
+        """The `words` 8-byte words from byte `first` of buf on, per field, from aligned words: the
+        aligned word holding a field's first byte shifted down, the next one's bytes shifted up into
+        it, and so on (`first` is overwritten)."""
+        sc, shape, aligned = self.sc, self.shape, self._aligned
+        down = sc("down", shape)
+        np.bitwise_and(first, 7, out=down.view(np.intp))
+        down <<= np.uint64(3)
+        up = np.subtract(64, down, out=sc("up", shape))  # a shift by 64 gives 0 in numpy
+        first >>= 3
+        nxt = np.take(aligned, first, out=sc("aligned", shape), mode="clip")
+        out = []
+        for k in range(words):
+            w = np.right_shift(nxt, down, out=sc(f"{name} {k}", shape))
+            first += 1
+            np.take(aligned, first, out=nxt, mode="clip")
+            w |= np.left_shift(nxt, up, out=sc("word_t", shape))
+            out.append(w)
+        return out
 
     def word(self, back: int) -> np.ndarray:
         """The 8 bytes that end `back` bytes before each field's end (not to be written to; valid until
@@ -564,13 +584,21 @@ class _Gathered:
         sc, shape = self.sc, self.shape
         if back == 0 and self._last16 is None:
             if self._last8 is None:
-                self._last8 = np.take(self._words, self._at(-8), out=sc("last8", shape))
+                if self._aligned is not None:
+                    (self._last8,) = self._from_aligned(self._at(-8), 1)
+                else:
+                    self._last8 = np.take(self._words, self._at(-8), out=sc("last8", shape), mode="clip")
             return self._last8
         if 0 <= back <= 8:
             if self._last16 is None:
-                got = np.take(self._pairs, self._at(-16), out=sc("last16", shape, "V16"))
-                self._last16 = got.view(np.uint64).reshape(*shape, 2)
-            high, low = self._last16[..., 1], self._last16[..., 0]  # the last 8 bytes, the 8 before
+                if self._aligned is not None:
+                    low, high = self._from_aligned(self._at(-16), 2)
+                    self._last16 = high, low
+                else:
+                    got = np.take(self._pairs, self._at(-16), out=sc("last16", shape, "V16"), mode="clip")
+                    pair = got.view(np.uint64).reshape(*shape, 2)
+                    self._last16 = pair[..., 1], pair[..., 0]
+            high, low = self._last16  # the last 8 bytes, the 8 before
             if back == 0:
                 return high
             if back == 8:
@@ -579,16 +607,18 @@ class _Gathered:
             t = np.right_shift(low, np.uint64(64 - 8 * back), out=sc("word_t", shape))
             w |= t
             return w
-        return np.take(self._words, self._at(-8 - back), out=sc("word", shape))
+        return np.take(self._words, self._at(-8 - back), out=sc("word", shape), mode="clip")
 
     def byte(self, back: int) -> np.ndarray:
         at = self._at(-(back + 1) - self.start)
-        return np.take(self.block, at, out=self.sc("byte", self.shape, np.uint8))
+        return np.take(self.block, at, out=self.sc("byte", self.shape, np.uint8), mode="clip")
 
     def word_at(self, back: np.ndarray) -> np.ndarray:
         at = self._at(-8)
         at -= back
-        return np.take(self._words, at, out=self.sc("word_at", self.shape))
+        if self._aligned is not None:
+            return self._from_aligned(at, 1, "word_at")[0]
+        return np.take(self._words, at, out=self.sc("word_at", self.shape), mode="clip")
 
     def text(self, at: np.ndarray) -> np.ndarray:
         s = self.s.reshape(-1)[at]
@@ -619,13 +649,13 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int, vals: np.nd
     correctly rounded too."""
     has_mark, frac, exp_len, exp_signed, exp_digits = form
     sc, shape = f.sc, f.shape
-    signed = np.take(_SIGNED, f.first, out=sc("signed", shape, np.intp))
+    neg, signed = _sign_flags(f)
     tail = (frac + 1 if has_mark else 0) + exp_len
     digits = None
-    if isinstance(f.length, int) and int(signed.min()) == int(signed.max()):  # one digit count for all
+    if isinstance(f.length, int) and (signed.all() or not signed.any()):  # one digit count for all
         lo = hi = f.length - int(signed.flat[0]) + frac - tail
     else:
-        digits = np.subtract(f.length, signed, out=sc("digits", shape, np.intp))
+        digits = np.subtract(f.length, signed, out=sc("digits", shape, np.intp), dtype=np.intp)
         digits += frac - tail  # the mantissa's digits per field
         lo, hi = int(digits.min()), int(digits.max())
     if lo < max(frac, 1) or hi > 8 + frac or hi > 19:
@@ -639,7 +669,7 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int, vals: np.nd
         np.bitwise_and(y, np.uint64((1 << m) - 1), out=t)
         t *= np.uint64(255)
         y += t  # the bytes below the mark moved up one byte
-        y &= _KEEP[lo] if digits is None else np.take(_KEEP, digits, out=t)
+        y &= _KEEP[lo] if digits is None else np.take(_KEEP, digits, out=t, mode="clip")
         mant = _word_digits(y, t)
     else:
         back = exp_len + (frac + 1 if has_mark else 0)
@@ -650,7 +680,7 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int, vals: np.nd
             y &= _KEEP[lo - frac]
         else:
             digits -= frac
-            y &= np.take(_KEEP, digits, out=t)
+            y &= np.take(_KEEP, digits, out=t, mode="clip")
         mant = _word_digits(y, t)
         for end, count in _runs(-exp_len, frac):
             if mant is None:
@@ -679,42 +709,50 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int, vals: np.nd
                     vals *= _MUL10[22 + p]
                 elif p < 0:
                     vals /= _DIV10[22 + p]
-                return _finish(f, _signs(f, vals), slow, mark)
+                return _finish(f, _signs(vals, neg), slow, mark)
         lead = 2 if exp_signed else 1
         letter = _ESIGNED if exp_signed else _EPLAIN
         np.bitwise_and(h, np.uint64((1 << (8 * lead)) - 1), out=t)
-        sign = np.take(letter, t.view(np.int64), out=sc("esign", shape, np.int64))
+        sign = np.take(letter, t.view(np.int64), out=sc("esign", shape, np.int64), mode="clip")
         h >>= np.uint64(8 * lead)
         text = h.view(np.int64)
         power = sc("power", shape, np.int64)
         if exp_digits == 3:
             np.bitwise_and(text, 0xFF, out=t.view(np.int64))
-            np.take(_EDIGIT, t.view(np.int64), out=power)
+            np.take(_EDIGIT, t.view(np.int64), out=power, mode="clip")
             power *= 100
             h >>= np.uint64(8)
-            power += np.take(_EDIGITS, text, out=t.view(np.int64))
+            power += np.take(_EDIGITS, text, out=t.view(np.int64), mode="clip")
         else:
-            np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text, out=power)
+            np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text, out=power, mode="clip")
         if not sign.all() or int(power.min()) < 0:  # not a letter and sign, or not digits
             return None
         power *= sign
-        index = np.take(_NEG, f.first, out=sc("index", shape, np.intp))
-        index += 2 * (22 - frac)
+        index = np.add(neg, 2 * (22 - frac), out=sc("index", shape, np.intp), dtype=np.intp)
         index += power
         index += power
         slow = _signed_scale(f, vals, index, slow)
     elif frac:
         vals /= _DIV10[22 - frac]
-        _signs(f, vals)
+        _signs(vals, neg)
     else:
-        _signs(f, vals)
+        _signs(vals, neg)
     return _finish(f, vals, slow, mark)
 
 
-def _signs(f, vals: np.ndarray) -> np.ndarray:
+def _sign_flags(f) -> tuple[np.ndarray, np.ndarray]:
+    """(negative, led by a sign or a blank) per field, by comparisons (a table look-up costs more)."""
+    sc, first = f.sc, f.first
+    neg = np.equal(first, 45, out=sc("negative", f.shape, bool))
+    signed = np.equal(first, 43, out=sc("signed", f.shape, bool))
+    signed |= neg
+    signed |= np.equal(first, 32, out=sc("blank", f.shape, bool))
+    return neg, signed
+
+
+def _signs(vals: np.ndarray, neg: np.ndarray) -> np.ndarray:
     """The fields' signs applied (the values are not negative yet: -0 becomes -0.0, as float() gives)."""
-    vals *= np.take(_SIGNS, f.first, out=f.sc("signs", f.shape, np.float64))
-    return vals
+    return np.negative(vals, out=vals, where=neg)
 
 
 def _signed_scale(f, vals: np.ndarray, index: np.ndarray, slow: np.ndarray | None) -> np.ndarray | None:
@@ -729,12 +767,12 @@ def _signed_scale(f, vals: np.ndarray, index: np.ndarray, slow: np.ndarray | Non
     t = f.sc("factor", f.shape, np.float64)
     if lo < 44:  # some p < 22: a division, and the sign with it
         if hi >= 46:
-            vals *= np.take(_MUL_U, index, out=t)
-        vals /= np.take(_DIV_S, index, out=t)
+            vals *= np.take(_MUL_U, index, out=t, mode="clip")
+        vals /= np.take(_DIV_S, index, out=t, mode="clip")
     elif hi >= 46:
-        vals *= np.take(_MUL_S, index, out=t)
+        vals *= np.take(_MUL_S, index, out=t, mode="clip")
     elif hi == 45:  # all p = 22, some negative
-        vals *= np.take(_PM, index, out=t)
+        vals *= np.take(_PM, index, out=t, mode="clip")
     return slow
 
 
@@ -762,14 +800,13 @@ def _general(f, mark: int, exponents: bool, vals: np.ndarray) -> np.ndarray | No
     integers by the SWAR steps, which check that every other byte is a digit. Values are exact as in
     `_templated`."""
     sc, shape = f.sc, f.shape
-    ml = np.take(_SIGNED, f.first, out=sc("ml", shape, np.intp))
-    np.subtract(f.length, ml, out=ml)  # the mantissa's bytes, the exponent taken off below
+    neg, signed = _sign_flags(f)
+    ml = np.subtract(f.length, signed, out=sc("ml", shape, np.intp), dtype=np.intp)  # the mantissa's bytes
     if not exponents and int(ml.max()) > 8:
         f.word(8)  # both words in one gather
     x = f.word(0)
     t, u = sc("t", shape), sc("u", shape)
-    index = np.take(_NEG, f.first, out=sc("index", shape, np.intp))  # 2 * (power + 22) + negative
-    index += 44
+    index = np.add(neg, 44, out=sc("index", shape, np.intp), dtype=np.intp)  # 2 * (power + 22) + negative
     back: np.ndarray | None = None
     hits = None
     if exponents:
@@ -806,7 +843,7 @@ def _general(f, mark: int, exponents: bool, vals: np.ndarray) -> np.ndarray | No
             return None
         np.maximum(nd, 0, out=nd)
         q ^= _Z3
-        q &= np.take(_LOW, nd, out=t)
+        q &= np.take(_LOW, nd, out=t, mode="clip")
         np.add(q, _S76, out=t)
         t |= q
         if (int(np.bitwise_or.reduce(t, axis=None)) & 0x808080) != 0:
@@ -1028,7 +1065,7 @@ class _Reader:
         if rows == 0 or len(ends) % ncols or lines != rows:
             return None
         grid = ends.reshape(rows, ncols)  # positions from `start`
-        if not _all_equal(np.take(b, grid[:, -1], out=sc("last", rows, np.uint8)), 10, sc):
+        if not _all_equal(np.take(b, grid[:, -1], out=sc("last", rows, np.uint8), mode="clip"), 10, sc):
             return None
         stops = grid
         if buf.find(b"\r", start, stop) >= 0:  # CR LF line ends: the last field ends before the CR
@@ -1037,7 +1074,7 @@ class _Reader:
             stops[:, -1] -= 1
             if buf.count(b"\r", start, stop) != rows:
                 return None
-            if not _all_equal(np.take(b, stops[:, -1], out=sc("last", rows, np.uint8)), 13, sc):
+            if not _all_equal(np.take(b, stops[:, -1], out=sc("last", rows, np.uint8), mode="clip"), 13, sc):
                 return None
         forms = {}
         for k in self.keep:
@@ -1053,14 +1090,13 @@ class _Reader:
             while k and keep and keep[0] == k + m and forms[keep[0]] == forms[k]:
                 keep.pop(0)
                 m += 1
-            s = sc("starts", (rows, m), np.intp)
+            s, e = sc("starts", (rows, m), np.intp), sc("ends", (rows, m), np.intp)
+            np.copyto(e, stops[:, k : k + m])  # contiguous: every step after reads it
             if k:
                 np.add(grid[:, k - 1 : k + m - 1], 1, out=s)  # after the separator before each field
-                e = stops[:, k : k + m]
             else:
                 s[0] = 0
                 np.add(grid[:-1, -1:], 1, out=s[1:])
-                e = stops[:, :1]
             f = _Gathered(buf, start, n, s, e, sc)
             vals = self._values(f, forms[k], exponents, self._out(into, k, (rows, m)))
             if vals is None:
