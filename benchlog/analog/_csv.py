@@ -488,6 +488,7 @@ class _Strided:
         self.shape: tuple[int, ...] = (rows,)
         self.length = e - s
         self.first = np.ndarray((rows,), np.uint8, buf, start + s, (w,))
+        self.signs: tuple[np.ndarray, np.ndarray] | None = None
 
     def word(self, back: int) -> np.ndarray:
         """The 8 bytes that end `back` bytes before each field's end (a view of the block: never written
@@ -547,6 +548,7 @@ class _Gathered:
         self.length = np.subtract(e, s, out=sc("length", e.shape, np.intp))
         self.block = np.frombuffer(buf, np.uint8, n, start)
         self.first = np.take(self.block, s, out=sc("first", e.shape, np.uint8), mode="clip")
+        self.signs: tuple[np.ndarray, np.ndarray] | None = None
         # item k covers bytes k .. k+7 (k+15) of buf: the one ending at block position p is start + p - 8
         self._words = np.ndarray((start + n - 7,), "<u8", buf, 0, (1,))
         self._pairs = np.ndarray((start + n - 15,), "V16", buf, 0, (1,))
@@ -741,13 +743,16 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int, vals: np.nd
 
 
 def _sign_flags(f) -> tuple[np.ndarray, np.ndarray]:
-    """(negative, led by a sign or a blank) per field, by comparisons (a table look-up costs more)."""
-    sc, first = f.sc, f.first
-    neg = np.equal(first, 45, out=sc("negative", f.shape, bool))
-    signed = np.equal(first, 43, out=sc("signed", f.shape, bool))
-    signed |= neg
-    signed |= np.equal(first, 32, out=sc("blank", f.shape, bool))
-    return neg, signed
+    """(negative, led by a sign or a blank) per field, by comparisons (a table look-up costs more);
+    kept on `f`, as a column read by its form and then field by field asks twice."""
+    if f.signs is None:
+        sc, first = f.sc, f.first
+        neg = np.equal(first, 45, out=sc("negative", f.shape, bool))
+        signed = np.equal(first, 43, out=sc("signed", f.shape, bool))
+        signed |= neg
+        signed |= np.equal(first, 32, out=sc("blank", f.shape, bool))
+        f.signs = neg, signed
+    return f.signs
 
 
 def _signs(vals: np.ndarray, neg: np.ndarray) -> np.ndarray:
