@@ -13,8 +13,10 @@ search finds every delimiter and line break, and each field's bytes are gathered
 (_Gathered). How a column is read: when all its fields are printed in its first line's form (digits
 after the decimal mark, the exponent's form), by that form (`_templated`); otherwise field by field,
 each in its own form, as numbers printed in their shortest form (%g) come (`_general`). Either way
-the digits are read as 64-bit words, eight digits per word by three multiply-and-shift steps (the SWAR
-method), and a few numpy passes per column, never a Python step per line or per number. A block this
+the digits are read as 64-bit words (gathered as the 8-byte-aligned words they sit in), eight digits
+per word by three multiply-and-shift steps (the SWAR method), and a few numpy passes per column, never a
+Python step per line or per number. The passes write into work arrays that each parsing thread keeps
+from block to block (`_Scratch`): a block allocates one array, the delimiter search's. A block this
 does not fit (a blank line, quotes, nan, a field that is not a number) goes through one
 `bytes.translate` and a per-token parse, grouped by the tokens' layouts (`_parse_chunk`). Every line
 must have the same number of fields; the first line that does not, or a field that is not a number,
