@@ -13,8 +13,10 @@ search finds every delimiter and line break, and each field's bytes are gathered
 (_Gathered). How a column is read: when all its fields are printed in its first line's form (digits
 after the decimal mark, the exponent's form), by that form (`_templated`); otherwise field by field,
 each in its own form, as numbers printed in their shortest form (%g) come (`_general`). Either way
-the digits are read as 64-bit words, eight digits per word by three multiply-and-shift steps (the SWAR
-method), and a few numpy passes per column, never a Python step per line or per number. A block this
+the digits are read as 64-bit words (gathered as the 8-byte-aligned words they sit in), eight digits
+per word by three multiply-and-shift steps (the SWAR method), and a few numpy passes per column, never a
+Python step per line or per number. The passes write into work arrays that each parsing thread keeps
+from block to block (`_Scratch`): a block allocates one array, the delimiter search's. A block this
 does not fit (a blank line, quotes, nan, a field that is not a number) goes through one
 `bytes.translate` and a per-token parse, grouped by the tokens' layouts (`_parse_chunk`). Every line
 must have the same number of fields; the first line that does not, or a field that is not a number,
@@ -28,8 +30,10 @@ correctly rounded string conversion for the rest (longer mantissas, far exponent
 from __future__ import annotations
 
 import itertools
+import math
 import mmap
 import re
+import threading
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -42,6 +46,7 @@ from benchlog.errors import DataError
 
 CHUNK_BYTES = 1 << 20
 _PAD = 40  # bytes kept before a block, so the words a field is read from can start before it
+_TAIL = 16  # bytes kept after a block, so the aligned words a field's last bytes sit in are all there
 _HEAD_BYTES = 1 << 16
 _NUM = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
 _POW10 = 10.0 ** np.arange(0, 309)
@@ -207,11 +212,11 @@ class _LineError(Exception):
 
 
 def _blocks(path: Path, offset: int, buffers: int):
-    """(buffer, start, stop) of whole lines in file order, about CHUNK_BYTES at a time.
+    """(buffer, start, stop, slot) of whole lines in file order, about CHUNK_BYTES at a time.
 
-    Each block is read into one of `buffers` reused bytearrays (so a block is not copied), with _PAD
-    bytes before `start`; the caller keeps at most `buffers - 1` blocks in use. A last line without a
-    line break gets one."""
+    Each block is read into one of `buffers` reused bytearrays (number `slot`, so a block is not
+    copied), with _PAD bytes before `start`; the caller keeps at most `buffers - 1` blocks in use. A last
+    line without a line break gets one."""
     pool: list[bytearray] = [bytearray() for _ in range(buffers)]
     carry = b""
     k = 0
@@ -224,8 +229,8 @@ def _blocks(path: Path, offset: int, buffers: int):
         while True:
             step = max(CHUNK_BYTES, len(carry))  # a line longer than a chunk: read on in growing steps
             buf = pool[k % buffers]
-            if len(buf) < _PAD + len(carry) + step + 1:
-                buf = pool[k % buffers] = bytearray(_PAD + len(carry) + step + 1)
+            if len(buf) < _PAD + len(carry) + step + 1 + _TAIL:
+                buf = pool[k % buffers] = bytearray(_PAD + len(carry) + step + 1 + _TAIL)
             start = _PAD + len(carry)
             buf[_PAD:start] = carry
             got = f.readinto(memoryview(buf)[start : start + step])
@@ -235,15 +240,15 @@ def _blocks(path: Path, offset: int, buffers: int):
                     if buf[end - 1] != 10:
                         buf[end] = 10
                         end += 1
-                    yield buf, _PAD, end
+                    yield buf, _PAD, end, k % buffers
                 return
             cut = buf.rfind(b"\n", start, end) + 1
             if cut == 0:  # no line ends in this read
                 carry = bytes(buf[_PAD:end])
                 continue
             carry = bytes(buf[cut:end])
+            yield buf, _PAD, cut, k % buffers
             k += 1
-            yield buf, _PAD, cut
 
 
 def _empty(n: int) -> np.ndarray:
@@ -273,12 +278,14 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
     out: list[np.ndarray] = []
     table = _table(layout)
     reader = _Reader(layout, keep)
+    buffers = max(workers, 1) + 2
+    parsed = [_Scratch() for _ in range(buffers)]  # a block's columns, kept with its buffer until placed
     row = 0
     line_no = layout.first_line
     read = 0
 
-    def parse(buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int]:
-        got = reader.parse(buf, start, stop)
+    def parse(buf: bytearray, start: int, stop: int, slot: int) -> tuple[list[np.ndarray], int]:
+        got = reader.parse(buf, start, stop, parsed[slot])
         if got is not None:
             return got
         data = bytes(buf[start:stop]).translate(table)
@@ -296,7 +303,7 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
         n = len(cols[0]) if cols else 0
         read += size
         if not out:  # size the arrays from the first block's bytes per row
-            est = int(remaining / max(size, 1) * n * 1.02) + 1024 if n else bound
+            est = int(remaining / max(size, 1) * n * 1.25) + 1024 if n else bound
             out = [_empty(min(bound, est)) for _ in keep]
         if row + n > len(out[0]):
             if row + n > bound:
@@ -310,16 +317,16 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
         row += n
         line_no += lines
 
-    blocks = _blocks(path, layout.data_offset, max(workers, 1) + 2)
+    blocks = _blocks(path, layout.data_offset, buffers)
     if workers <= 1:
-        for buf, start, stop in blocks:
-            place(lambda b=buf, s=start, e=stop: parse(b, s, e), stop - start)
+        for buf, start, stop, slot in blocks:
+            place(lambda b=buf, s=start, e=stop, k=slot: parse(b, s, e, k), stop - start)
     else:
         with ThreadPoolExecutor(max_workers=workers) as pool:
             pending: deque = deque()
             try:
-                for buf, start, stop in blocks:
-                    pending.append((pool.submit(parse, buf, start, stop), stop - start))
+                for buf, start, stop, slot in blocks:
+                    pending.append((pool.submit(parse, buf, start, stop, slot), stop - start))
                     if len(pending) > workers:
                         place(*pending.popleft())
                 while pending:
@@ -339,6 +346,12 @@ def read_columns(path: Path, layout: Layout, keep: list[int], workers: int = 2) 
 # largest power of ten a double holds exactly; the other factor is 1.0)
 _MUL10 = np.array([10.0 ** max(k - 22, 0) for k in range(45)])
 _DIV10 = np.array([10.0 ** max(22 - k, 0) for k in range(45)])
+# the same factors by 2 * k + (1 if the field is negative): the sign goes in with the one operation that
+# rounds (x / -d is -(x / d) exactly, and 0 / -d is -0.0, as float() gives for '-0')
+_PM = np.array([1.0, -1.0] * 45)
+_MUL_S = np.repeat(_MUL10, 2) * _PM
+_MUL_U = np.repeat(_MUL10, 2)
+_DIV_S = np.repeat(_DIV10, 2) * _PM
 _M64 = (1 << 64) - 1
 _Z3 = np.uint64(0x3030303030303030)  # '0' in every byte: XOR turns digit bytes into 0..9
 _H80 = np.uint64(0x8080808080808080)
@@ -346,17 +359,41 @@ _L7F = np.uint64(0x7F7F7F7F7F7F7F7F)
 _S76 = np.uint64(0x7676767676767676)  # a byte 0..9 plus 0x76 stays below 0x80; 10 and above do not
 # exponents read by table: the letter and its sign as the low 8 or 16 bits give the sign (0: not an
 # exponent); one digit's byte or two digits' bytes (the first the low byte) give their value (< 0: not)
-_EPLAIN = np.zeros(256, np.int32)
+_EPLAIN = np.zeros(256, np.int64)
 _EPLAIN[[69, 101]] = 1
-_ESIGNED = np.zeros(1 << 16, np.int32)
+_ESIGNED = np.zeros(1 << 16, np.int64)
 for _letter in (69, 101):
     _ESIGNED[_letter | 43 << 8], _ESIGNED[_letter | 45 << 8] = 1, -1
-_EDIGIT = np.full(256, -100_000, np.int32)
+_EDIGIT = np.full(256, -100_000, np.int64)
 _EDIGIT[48:58] = np.arange(10)
-_EDIGITS = np.full(1 << 16, -100_000, np.int32)
+_EDIGITS = np.full(1 << 16, -100_000, np.int64)
 _EDIGITS[(48 + np.arange(100) // 10) | (48 + np.arange(100) % 10) << 8] = np.arange(100)
 _KEEP = np.array([(_M64 << (8 * (8 - k))) & _M64 for k in range(9)], np.uint64)  # the last k bytes
 _LOW = np.array([(1 << (8 * k)) - 1 for k in range(9)], np.uint64)  # the first k bytes
+# by a field's byte count (read with mode="clip", so 16 and above are 16): its bytes among the last 8,
+# and among the 8 before them
+_KEEP_LAST = np.array([_KEEP[min(k, 8)] for k in range(17)], np.uint64)
+_KEEP_BEFORE = np.array([_KEEP[max(k - 8, 0)] for k in range(17)], np.uint64)
+
+
+class _Scratch:
+    """Arrays one thread reuses from block to block, by name: a block's temporaries are views of them,
+    grown when a block needs more and never given back, so parsing block after block maps no new memory.
+    (Fresh arrays of a few MB a block were handed back to the kernel on free and faulted in again on the
+    next block, page by page: a third of the reader's time.)"""
+
+    __slots__ = ("_bufs",)
+
+    def __init__(self) -> None:
+        self._bufs: dict[str, np.ndarray] = {}
+
+    def __call__(self, name: str, shape: int | tuple[int, ...], dtype=np.uint64) -> np.ndarray:
+        dt = np.dtype(dtype)
+        size = (shape if isinstance(shape, int) else math.prod(shape)) * dt.itemsize
+        buf = self._bufs.get(name)
+        if buf is None or len(buf) < size:
+            buf = self._bufs[name] = np.empty(size + size // 8 + 64, np.uint8)
+        return buf[:size].view(dt).reshape(shape)
 
 
 def _runs(end: int, count: int) -> list[tuple[int, int]]:
@@ -370,16 +407,16 @@ def _runs(end: int, count: int) -> list[tuple[int, int]]:
     return out
 
 
-def _word_digits(y: np.ndarray) -> np.ndarray | None:
+def _word_digits(y: np.ndarray, t: np.ndarray) -> np.ndarray | None:
     """The integers spelled by words of digit values 0..9 (0 where no digit is; first digit in the lowest
-    byte), or None if a byte is above 9. `y` is overwritten.
+    byte), or None if a byte is above 9. `y` is overwritten and returned; `t` is scratch of its shape.
 
     A multiply adds each byte's neighbour shifted up by one byte (pairs), then each pair's (fours), then
     each four's (eights); a shift and a mask keep the sums. No sum carries out of its lane."""
-    t = y + _S76
-    if (np.bitwise_or.reduce(t, axis=None) | np.bitwise_or.reduce(y, axis=None)) & _H80:
+    np.add(y, _S76, out=t)
+    t |= y
+    if np.bitwise_or.reduce(t, axis=None) & _H80:
         return None
-    del t
     y *= np.uint64(1 + (10 << 8))
     y >>= np.uint64(8)
     y &= np.uint64(0x00FF00FF00FF00FF)
@@ -391,21 +428,27 @@ def _word_digits(y: np.ndarray) -> np.ndarray | None:
     return y
 
 
-def _zero_bytes(z: np.ndarray) -> np.ndarray:
-    """0x80 in each byte of `z` that is zero, 0 in every other (exact: no borrow crosses a byte)."""
-    t = z & _L7F
+def _zero_bytes(z: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """In `t` (returned): 1 at the foot of each byte of `z` that is zero, 0 elsewhere (exact: no borrow
+    crosses a byte)."""
+    np.bitwise_and(z, _L7F, out=t)
     t += _L7F
     t |= z
-    t |= _L7F
-    return np.invert(t, out=t)
+    t >>= np.uint64(7)
+    t &= np.uint64(0x0101010101010101)
+    t ^= np.uint64(0x0101010101010101)
+    return t
 
 
-def _bytes_above(p: np.ndarray) -> np.ndarray:
-    """For words holding one set bit at the foot of byte j (or none): 7 - j (0 when none)."""
-    q = p << np.uint64(8)
+def _bytes_above2(p: np.ndarray, q: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """For words holding one set bit at the foot of byte j (or none): 2 * (7 - j) (0 when none), in
+    `out` (uint8); `q` is scratch."""
+    np.left_shift(p, np.uint64(8), out=q)
     q -= np.uint64(1)
     np.invert(q, out=q)
-    return np.bitwise_count(q) >> np.uint8(3)
+    np.bitwise_count(q, out=out)
+    out >>= np.uint8(2)
+    return out
 
 
 def _template(tok: bytes, mark: int) -> tuple[bool, int, int, bool, int] | None:
@@ -441,11 +484,13 @@ class _Strided:
     at the same place on every line (columns `s` to `e` of each `w`-byte line), so its bytes are strided
     views of the block, with no search and no copy."""
 
-    def __init__(self, buf: bytearray, start: int, rows: int, w: int, s: int, e: int) -> None:
-        self.buf, self.start, self.rows, self.w, self.s, self.e = buf, start, rows, w, s, e
+    def __init__(self, buf: bytearray, start: int, rows: int, w: int, s: int, e: int, sc: _Scratch) -> None:
+        self.buf, self.start, self.rows, self.w, self.s, self.e, self.sc = buf, start, rows, w, s, e, sc
         self.n = rows
+        self.shape: tuple[int, ...] = (rows,)
         self.length = e - s
         self.first = np.ndarray((rows,), np.uint8, buf, start + s, (w,))
+        self.signs: tuple[np.ndarray, np.ndarray] | None = None
 
     def word(self, back: int) -> np.ndarray:
         """The 8 bytes that end `back` bytes before each field's end (a view of the block: never written
@@ -457,8 +502,17 @@ class _Strided:
 
     def word_at(self, back: np.ndarray) -> np.ndarray:
         """The 8 bytes that end `back[i]` bytes before field i's end."""
-        at = np.arange(self.rows) * self.w + (self.start + self.e - 8) - back
-        return np.ndarray((len(self.buf) - 7,), "<u8", self.buf, 0, (1,))[at]
+        at = self.sc("at", self.rows, np.intp)
+        at[:] = self.start + self.e - 8
+        at += self._line_starts()
+        at -= back
+        words = np.ndarray((len(self.buf) - 7,), "<u8", self.buf, 0, (1,))
+        return np.take(words, at, out=self.sc("word_at", self.rows), mode="clip")
+
+    def _line_starts(self) -> np.ndarray:
+        steps = self.sc("line_starts", self.rows, np.intp)
+        np.multiply(_iota(self.rows), self.w, out=steps)
+        return steps
 
     def text(self, at: np.ndarray) -> np.ndarray:
         """Rows of the fields `at` (their bytes, sign included)."""
@@ -466,52 +520,109 @@ class _Strided:
         return m[at, self.s : self.e]
 
 
+_IOTA = np.arange(0, dtype=np.intp)
+
+
+def _iota(n: int) -> np.ndarray:
+    """0 .. n-1, kept (a view of one array grown as needed)."""
+    global _IOTA
+    if len(_IOTA) < n:
+        _IOTA = np.arange(max(n, 2 * len(_IOTA)), dtype=np.intp)
+    return _IOTA[:n]
+
+
 class _Gathered:
     """Fields anywhere in a block: field i runs from `s[i]` to `e[i]` (positions from the block's start,
     `e` the delimiter or line break after it; arrays of any shape, the values come out in that shape);
-    its bytes are gathered. A gather costs about the same for 8 bytes as for 16 (numpy's cost is per
-    element), so the last 16 bytes of every field are gathered once and the words ending up to 8 bytes
-    before its end are cut from them."""
+    its bytes are gathered. The last 16 bytes of every field are gathered once and the words ending up
+    to 8 bytes before its end are cut from them.
 
-    def __init__(self, buf: bytearray, start: int, n: int, s: np.ndarray, e: np.ndarray) -> None:
-        self.buf, self.start, self.s, self.e = buf, start, s, e
+    A gather of 8 bytes from any byte address costs numpy several times what one from an 8-byte-aligned
+    address does, so where the block's buffer allows it (aligned, _TAIL bytes after the block), the
+    bytes are gathered as the aligned words they sit in and shifted into place."""
+
+    def __init__(
+        self, buf: bytearray, start: int, n: int, s: np.ndarray, e: np.ndarray, sc: _Scratch
+    ) -> None:
+        self.buf, self.start, self.s, self.e, self.sc = buf, start, s, e, sc
+        self.shape = e.shape
         self.n = e.size
-        self.length = e - s
+        self.length = np.subtract(e, s, out=sc("length", e.shape, np.intp))
         self.block = np.frombuffer(buf, np.uint8, n, start)
-        self.first = self.block[s]
+        self.first = np.take(self.block, s, out=sc("first", e.shape, np.uint8), mode="clip")
+        self.signs: tuple[np.ndarray, np.ndarray] | None = None
         # item k covers bytes k .. k+7 (k+15) of buf: the one ending at block position p is start + p - 8
         self._words = np.ndarray((start + n - 7,), "<u8", buf, 0, (1,))
         self._pairs = np.ndarray((start + n - 15,), "V16", buf, 0, (1,))
-        self._last16: np.ndarray | None = None
+        aligned = np.frombuffer(buf, np.uint64, len(buf) // 8)
+        self._aligned = aligned if aligned.flags.aligned and len(buf) >= start + n + _TAIL else None
+        self._last16: tuple[np.ndarray, np.ndarray] | None = None
         self._last8: np.ndarray | None = None
 
+    def _at(self, offset: int) -> np.ndarray:
+        return np.add(self.e, self.start + offset, out=self.sc("at", self.shape, np.intp))
+
+    def _from_aligned(self, first: np.ndarray, words: int, name: str = "window") -> list[np.ndarray]:
+        """The `words` 8-byte words from byte `first` of buf on, per field, from aligned words: the
+        aligned word holding a field's first byte shifted down, the next one's bytes shifted up into
+        it, and so on (`first` is overwritten)."""
+        sc, shape, aligned = self.sc, self.shape, self._aligned
+        down = sc("down", shape)
+        np.bitwise_and(first, 7, out=down.view(np.intp))
+        down <<= np.uint64(3)
+        up = np.subtract(64, down, out=sc("up", shape))  # a shift by 64 gives 0 in numpy
+        first >>= 3
+        nxt = np.take(aligned, first, out=sc("aligned", shape), mode="clip")
+        out = []
+        for k in range(words):
+            w = np.right_shift(nxt, down, out=sc(f"{name} {k}", shape))
+            first += 1
+            np.take(aligned, first, out=nxt, mode="clip")
+            w |= np.left_shift(nxt, up, out=sc("word_t", shape))
+            out.append(w)
+        return out
+
     def word(self, back: int) -> np.ndarray:
-        """The 8 bytes that end `back` bytes before each field's end (not to be written to)."""
+        """The 8 bytes that end `back` bytes before each field's end (not to be written to; valid until
+        the next call with another `back`)."""
+        sc, shape = self.sc, self.shape
         if back == 0 and self._last16 is None:
             if self._last8 is None:
-                self._last8 = self._words[self.e + (self.start - 8)]
+                if self._aligned is not None:
+                    (self._last8,) = self._from_aligned(self._at(-8), 1)
+                else:
+                    self._last8 = np.take(self._words, self._at(-8), out=sc("last8", shape), mode="clip")
             return self._last8
         if 0 <= back <= 8:
             if self._last16 is None:
-                got = self._pairs[self.e + (self.start - 16)]
-                self._last16 = got.view(np.uint64).reshape(*got.shape, 2)
-            high, low = self._last16[..., 1], self._last16[..., 0]  # the last 8 bytes, the 8 before
+                if self._aligned is not None:
+                    low, high = self._from_aligned(self._at(-16), 2)
+                    self._last16 = high, low
+                else:
+                    got = np.take(self._pairs, self._at(-16), out=sc("last16", shape, "V16"), mode="clip")
+                    pair = got.view(np.uint64).reshape(*shape, 2)
+                    self._last16 = pair[..., 1], pair[..., 0]
+            high, low = self._last16  # the last 8 bytes, the 8 before
             if back == 0:
                 return high
             if back == 8:
                 return low
-            w = high << np.uint64(8 * back)
-            w |= low >> np.uint64(64 - 8 * back)
+            w = np.left_shift(high, np.uint64(8 * back), out=sc("word", shape))
+            t = np.right_shift(low, np.uint64(64 - 8 * back), out=sc("word_t", shape))
+            w |= t
             return w
-        return self._words[self.e + (self.start - 8 - back)]
+        return np.take(self._words, self._at(-8 - back), out=sc("word", shape), mode="clip")
 
     def byte(self, back: int) -> np.ndarray:
-        return self.block[self.e - (back + 1)]
+        at = self._at(-(back + 1) - self.start)
+        return np.take(self.block, at, out=self.sc("byte", self.shape, np.uint8), mode="clip")
 
     def word_at(self, back: np.ndarray) -> np.ndarray:
-        at = self.e + (self.start - 8)
+        at = self._at(-8)
         at -= back
-        return self._words[at]
+        if self._aligned is not None:
+            return self._from_aligned(at, 1, "word_at")[0]
+        return np.take(self._words, at, out=self.sc("word_at", self.shape), mode="clip")
 
     def text(self, at: np.ndarray) -> np.ndarray:
         s = self.s.reshape(-1)[at]
@@ -524,8 +635,13 @@ class _Gathered:
         return text
 
 
-def _templated(f, form: tuple[bool, int, int, bool, int], mark: int) -> np.ndarray | None:
-    """The values of fields `f` all written as `form` (from `_template`), or None if one is not.
+def _all_equal(x: np.ndarray, value: int, sc: _Scratch) -> bool:
+    return bool(np.equal(x, value, out=sc("flags", x.shape, bool)).all())
+
+
+def _templated(f, form: tuple[bool, int, int, bool, int], mark: int, vals: np.ndarray) -> np.ndarray | None:
+    """The values of fields `f` all written as `form` (from `_template`), in `vals`, or None if one is
+    not.
 
     The form fixes every byte's place counted from the field's end, so only the count of digits before
     the mark varies (at most 8): the mantissa is gathered as one 64-bit word per field (the mark squeezed
@@ -536,58 +652,58 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int) -> np.ndarr
     other values (longer mantissas, far exponents) go to numpy's own string conversion, which is
     correctly rounded too."""
     has_mark, frac, exp_len, exp_signed, exp_digits = form
-    first = f.first
-    neg = first == 45
-    signed = neg | (first == 43)
-    signed |= first == 32  # a blank where a sign is not (the way instruments print)
+    sc, shape = f.sc, f.shape
+    neg, signed = _sign_flags(f)
     tail = (frac + 1 if has_mark else 0) + exp_len
+    digits = None
     if isinstance(f.length, int) and (signed.all() or not signed.any()):  # one digit count for all
-        lo = hi = f.length - int(signed[(0,) * signed.ndim]) + frac - tail
-        digits = np.full(1, lo)
+        lo = hi = f.length - int(signed.flat[0]) + frac - tail
     else:
-        digits = f.length - signed
+        digits = np.subtract(f.length, signed, out=sc("digits", shape, np.intp), dtype=np.intp)
         digits += frac - tail  # the mantissa's digits per field
         lo, hi = int(digits.min()), int(digits.max())
     if lo < max(frac, 1) or hi > 8 + frac or hi > 19:
         return None
+    y, t = sc("y", shape), sc("t", shape)
     if has_mark and hi <= 7:  # the whole mantissa in one word: squeeze the mark out
         m = 8 * (7 - frac)  # the mark's bit offset
-        y = f.word(exp_len) ^ np.uint64(0x3030303030303030 ^ ((mark ^ 0x30) << m))  # digits 0..9, mark 0
-        if (int(np.bitwise_or.reduce(y, axis=None)) >> m) & 0xFF:
+        np.bitwise_xor(f.word(exp_len), np.uint64(0x3030303030303030 ^ ((mark ^ 0x30) << m)), out=y)
+        if (int(np.bitwise_or.reduce(y, axis=None)) >> m) & 0xFF:  # digits 0..9 and the mark 0
             return None
-        low = y & np.uint64((1 << m) - 1)
-        low *= np.uint64(255)
-        y += low  # the bytes below the mark moved up one byte
-        del low
-        y &= _KEEP[lo] if lo == hi else np.take(_KEEP, digits)
-        mant = _word_digits(y)
+        np.bitwise_and(y, np.uint64((1 << m) - 1), out=t)
+        t *= np.uint64(255)
+        y += t  # the bytes below the mark moved up one byte
+        y &= _KEEP[lo] if digits is None else np.take(_KEEP, digits, out=t, mode="clip")
+        mant = _word_digits(y, t)
     else:
         back = exp_len + (frac + 1 if has_mark else 0)
-        if has_mark and not (f.byte(back - 1) == mark).all():
+        if has_mark and not _all_equal(f.byte(back - 1), mark, sc):
             return None
-        y = f.word(back) ^ _Z3
-        y &= _KEEP[lo - frac] if lo == hi else np.take(_KEEP, digits - frac)
-        mant = _word_digits(y)
+        np.bitwise_xor(f.word(back), _Z3, out=y)
+        if digits is None:
+            y &= _KEEP[lo - frac]
+        else:
+            digits -= frac
+            y &= np.take(_KEEP, digits, out=t, mode="clip")
+        mant = _word_digits(y, t)
         for end, count in _runs(-exp_len, frac):
             if mant is None:
                 break
-            y = f.word(-end) ^ _Z3
-            y &= _KEEP[count]
-            part = _word_digits(y)
-            if part is None:
+            part = np.bitwise_xor(f.word(-end), _Z3, out=sc("part", shape))
+            part &= _KEEP[count]
+            if _word_digits(part, t) is None:
                 return None
             mant *= np.uint64(10**count)
             mant += part
     if mant is None:
         return None
-    vals = mant.astype(np.float64)
-    slow = mant > np.uint64(1 << 53) if hi > 15 else None  # beyond an exact double
-    del mant
+    vals[...] = mant
+    slow = np.greater(mant, np.uint64(1 << 53), out=sc("slow", shape, bool)) if hi > 15 else None
     if exp_len:
         # the exponent's text (letter, sign, digits) as the low bytes of one word, read by table
-        h = f.word(0) >> np.uint64(8 * (8 - exp_len))
+        h = np.right_shift(f.word(0), np.uint64(8 * (8 - exp_len)), out=y)
         if h.min() == h.max():  # one exponent for the whole block (a time column within a decade)
-            one = int(h[(0,) * h.ndim])
+            one = int(h.flat[0])
             text = bytes((one >> (8 * i)) & 0xFF for i in range(exp_len)).decode("latin-1")
             if _template(b"1" + text.encode("latin-1"), mark) is None:
                 return None
@@ -597,62 +713,78 @@ def _templated(f, form: tuple[bool, int, int, bool, int], mark: int) -> np.ndarr
                     vals *= _MUL10[22 + p]
                 elif p < 0:
                     vals /= _DIV10[22 + p]
-                return _finish(f, vals, neg, slow, mark)
+                return _finish(f, _signs(vals, neg), slow, mark)
         lead = 2 if exp_signed else 1
         letter = _ESIGNED if exp_signed else _EPLAIN
-        sign = np.take(letter, (h & np.uint64((1 << (8 * lead)) - 1)).view(np.int64))
+        np.bitwise_and(h, np.uint64((1 << (8 * lead)) - 1), out=t)
+        sign = np.take(letter, t.view(np.int64), out=sc("esign", shape, np.int64), mode="clip")
         h >>= np.uint64(8 * lead)
         text = h.view(np.int64)
+        power = sc("power", shape, np.int64)
         if exp_digits == 3:
-            power = np.take(_EDIGIT, text & 0xFF)
+            np.bitwise_and(text, 0xFF, out=t.view(np.int64))
+            np.take(_EDIGIT, t.view(np.int64), out=power, mode="clip")
             power *= 100
             h >>= np.uint64(8)
-            power += np.take(_EDIGITS, text)
+            power += np.take(_EDIGITS, text, out=t.view(np.int64), mode="clip")
         else:
-            power = np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text)
-        if not sign.all() or power.min() < 0:
+            np.take(_EDIGITS if exp_digits == 2 else _EDIGIT, text, out=power, mode="clip")
+        if not sign.all() or int(power.min()) < 0:  # not a letter and sign, or not digits
             return None
         power *= sign
-        power += 22 - frac  # an index into _MUL10 and _DIV10
-        _scale(vals, power, slow)
-        slow = _far(power, slow)
+        index = np.add(neg, 2 * (22 - frac), out=sc("index", shape, np.intp), dtype=np.intp)
+        index += power
+        index += power
+        slow = _signed_scale(f, vals, index, slow)
     elif frac:
         vals /= _DIV10[22 - frac]
-    return _finish(f, vals, neg, slow, mark)
+        _signs(vals, neg)
+    else:
+        _signs(vals, neg)
+    return _finish(f, vals, slow, mark)
 
 
-def _far(power: np.ndarray, slow: np.ndarray | None) -> np.ndarray | None:
-    far = (power < 0) | (power > 44)
-    if not far.any():
-        return slow
-    return far if slow is None else slow | far
+def _sign_flags(f) -> tuple[np.ndarray, np.ndarray]:
+    """(negative, led by a sign or a blank) per field, by comparisons (a table look-up costs more);
+    kept on `f`, as a column read by its form and then field by field asks twice."""
+    if f.signs is None:
+        sc, first = f.sc, f.first
+        neg = np.equal(first, 45, out=sc("negative", f.shape, bool))
+        signed = np.equal(first, 43, out=sc("signed", f.shape, bool))
+        signed |= neg
+        signed |= np.equal(first, 32, out=sc("blank", f.shape, bool))
+        f.signs = neg, signed
+    return f.signs
 
 
-def _scale(vals: np.ndarray, power: np.ndarray, slow) -> None:
-    """vals * 10**(power - 22), one correctly rounded operation (powers beyond +-22: see _far)."""
-    lo, hi = int(power.min()), int(power.max())
-    if lo == hi and 0 <= lo <= 44:
-        vals *= _MUL10[lo]
-        vals /= _DIV10[lo]
-        return
-    if lo < 0 or hi > 44:
-        power = np.clip(power, 0, 44)
-        lo, hi = max(lo, 0), min(hi, 44)
-    if hi > 22:
-        vals *= np.take(_MUL10, power)  # np.take: a gather faster than indexing
-    if lo < 22:
-        vals /= np.take(_DIV10, power)
+def _signs(vals: np.ndarray, neg: np.ndarray) -> np.ndarray:
+    """The fields' signs applied (the values are not negative yet: -0 becomes -0.0, as float() gives)."""
+    return np.negative(vals, out=vals, where=neg)
 
 
-_SIGNS = np.ones(256)
-_SIGNS[45] = -1.0
+def _signed_scale(f, vals: np.ndarray, index: np.ndarray, slow: np.ndarray | None) -> np.ndarray | None:
+    """vals * 10**(p - 22) with each field's sign, for index = 2 * p + (1 if the field is negative): one
+    correctly rounded operation for 0 <= p <= 44. Powers beyond it are marked slow (returned)."""
+    lo, hi = int(index.min()), int(index.max())
+    if lo < 0 or hi > 89:
+        far = (index < 0) | (index > 89)
+        slow = far if slow is None else slow | far
+        np.clip(index, 0, 89, out=index)  # a far value is replaced by its exact conversion
+        lo, hi = max(lo, 0), min(hi, 89)
+    t = f.sc("factor", f.shape, np.float64)
+    if lo < 44:  # some p < 22: a division, and the sign with it
+        if hi >= 46:
+            vals *= np.take(_MUL_U, index, out=t, mode="clip")
+        vals /= np.take(_DIV_S, index, out=t, mode="clip")
+    elif hi >= 46:
+        vals *= np.take(_MUL_S, index, out=t, mode="clip")
+    elif hi == 45:  # all p = 22, some negative
+        vals *= np.take(_PM, index, out=t, mode="clip")
+    return slow
 
 
-def _finish(f, vals: np.ndarray, neg: np.ndarray, slow: np.ndarray | None, mark: int) -> np.ndarray | None:
-    """The signs set and the values beyond one exact operation converted from their text."""
-    first = f.first
-    if neg.any():  # the values are not negative yet: -0 becomes -0.0, as float() gives
-        vals *= np.take(_SIGNS, first)
+def _finish(f, vals: np.ndarray, slow: np.ndarray | None, mark: int) -> np.ndarray | None:
+    """The values beyond one exact operation converted from their text (sign included)."""
     if slow is not None and slow.any():
         at = np.flatnonzero(slow)
         try:
@@ -662,10 +794,11 @@ def _finish(f, vals: np.ndarray, neg: np.ndarray, slow: np.ndarray | None, mark:
     return vals
 
 
-def _general(f, mark: int, exponents: bool = True) -> np.ndarray | None:
+def _general(f, mark: int, exponents: bool, vals: np.ndarray) -> np.ndarray | None:
     """The values of fields `f` each in its own form (a sign or a blank, digits with or without a mark
-    anywhere, an exponent or none: numbers printed in their shortest form), or None where one is not a
-    number of up to 16 mantissa digits. `exponents`: whether the block holds an 'e' or 'E' at all.
+    anywhere, an exponent or none: numbers printed in their shortest form), in `vals`, or None where one
+    is not a number of up to 16 mantissa digits. `exponents`: whether the block holds an 'e' or 'E' at
+    all.
 
     Per field and all vectorised: the exponent letter is found among the last 8 bytes (a zero byte of
     the word XOR 'e', case folded), its sign and up to 3 digits read from the same word; the mantissa
@@ -673,120 +806,137 @@ def _general(f, mark: int, exponents: bool = True) -> np.ndarray | None:
     and squeezed out (the bytes before it move up one byte, across the two words), and the digits become
     integers by the SWAR steps, which check that every other byte is a digit. Values are exact as in
     `_templated`."""
-    length = f.length if isinstance(f.length, np.ndarray) else np.full(f.n, f.length, np.int64)
-    first = f.first
-    neg = first == 45
-    signed = neg | (first == 43)
-    signed |= first == 32
-    ml = length - signed  # the mantissa's bytes, the exponent taken off below
+    sc, shape = f.sc, f.shape
+    neg, signed = _sign_flags(f)
+    ml = np.subtract(f.length, signed, out=sc("ml", shape, np.intp), dtype=np.intp)  # the mantissa's bytes
     if not exponents and int(ml.max()) > 8:
         f.word(8)  # both words in one gather
     x = f.word(0)
-    keep = np.take(_KEEP, np.minimum(ml, 8))  # the field's bytes (sign off) among the last 8
-    power: np.ndarray | None = None
+    t, u = sc("t", shape), sc("u", shape)
+    index = np.add(neg, 44, out=sc("index", shape, np.intp), dtype=np.intp)  # 2 * (power + 22) + negative
     back: np.ndarray | None = None
     hits = None
     if exponents:
-        z = x | np.uint64(0x2020202020202020)
+        keep = np.take(_KEEP_LAST, ml, out=sc("keep", shape), mode="clip")  # the field's last bytes
+        z = np.bitwise_or(x, np.uint64(0x2020202020202020), out=u)
         z ^= np.uint64(0x6565656565656565)  # a zero byte where 'e' or 'E' is
-        hits = _zero_bytes(z)
-        del z
+        hits = _zero_bytes(z, t)
         hits &= keep
         hits &= np.uint64(0x00FFFFFFFFFFFFFF)  # a letter is followed by a digit
         if not hits.any():
             hits = None
     if hits is not None:
-        hits &= ~hits + np.uint64(1)  # the lowest: the text's first letter
+        np.invert(hits, out=u)
+        u += np.uint64(1)
+        hits &= u  # the lowest: the text's first letter
         hits -= np.uint64(1)
-        j = np.bitwise_count(hits).astype(np.int64)
-        del hits
-        j >>= 3  # the letter's byte (8: none)
-        back = 8 - j  # the exponent's length, letter to end (0: none)
-        q = x >> (8 * (j + 1)).astype(np.uint64)  # the bytes after the letter
-        c = q & np.uint64(0xFF)
-        eneg = c == 45
-        esig = eneg | (c == 43)
-        q >>= esig.astype(np.uint64) * np.uint64(8)
-        nd = back - 1 - esig  # the exponent's digits
-        if (nd > 3).any() or ((nd < 1) & (back > 0)).any():
+        j = np.bitwise_count(hits, out=sc("j", shape, np.uint8))
+        j >>= np.uint8(3)  # the letter's byte (8: none): the bits below its foot, over 8
+        back = np.subtract(8, j, out=sc("back", shape, np.intp))  # the exponent's length (0: none)
+        shift = sc("shift", shape)
+        np.add(j, 1, out=shift, casting="unsafe")
+        shift <<= np.uint64(3)
+        q = np.right_shift(x, shift, out=sc("q", shape))  # the bytes after the letter
+        c = np.bitwise_and(q, np.uint64(0xFF), out=t)
+        eneg = np.equal(c, 45, out=sc("eneg", shape, bool))
+        esig = np.equal(c, 43, out=sc("esig", shape, bool))
+        esig |= eneg
+        np.copyto(shift, esig)
+        shift <<= np.uint64(3)
+        q >>= shift
+        nd = np.subtract(back, 1, out=sc("nd", shape, np.intp))
+        nd -= esig  # the exponent's digits (-1 where there is no letter)
+        if int(nd.max()) > 3 or np.equal(nd, 0, out=sc("flags", shape, bool)).any():
             return None
         np.maximum(nd, 0, out=nd)
         q ^= _Z3
-        q &= np.take(_LOW, nd)
-        if (int(np.bitwise_or.reduce((q + _S76) | q, axis=None)) & 0x808080) != 0:
+        q &= np.take(_LOW, nd, out=t, mode="clip")
+        np.add(q, _S76, out=t)
+        t |= q
+        if (int(np.bitwise_or.reduce(t, axis=None)) & 0x808080) != 0:
             return None
-        q <<= (8 * (3 - nd)).astype(np.uint64)  # digits to the top of 3 bytes
-        power = (q & np.uint64(0xFF)).astype(np.int64) * 100
-        power += ((q >> np.uint64(8)) & np.uint64(0xFF)).astype(np.int64) * 10
-        power += (q >> np.uint64(16)).astype(np.int64)
-        np.negative(power, out=power, where=eneg)
+        np.subtract(3, nd, out=shift, casting="unsafe")
+        shift <<= np.uint64(3)
+        q <<= shift  # digits to the top of 3 bytes
+        power = np.bitwise_and(q, np.uint64(0xFF), out=u)
+        power *= np.uint64(100)
+        np.right_shift(q, np.uint64(8), out=t)
+        t &= np.uint64(0xFF)
+        t *= np.uint64(10)
+        power += t
+        q >>= np.uint64(16)
+        power += q
+        p = power.view(np.int64)
+        np.negative(p, out=p, where=eneg)
+        index += p
+        index += p
         ml -= back
-        keep = np.take(_KEEP, np.minimum(ml, 8))
-    if ml.min() < 1:
+    if int(ml.min()) < 1:
         return None
-    long = ml > 16
-    two = int(ml.max()) > 8
+    most = int(ml.max())
+    two = most > 8
     marks = np.uint64(0x0101010101010101 * (mark ^ 0x30))
-    ylo = x if back is None else f.word_at(back)
-    ylo = ylo ^ _Z3
-    ylo &= keep
-    del keep
-    plo = _zero_bytes(ylo ^ marks)  # 0x80 at the mark (bytes outside the field are 0: not a mark)
-    plo >>= np.uint64(7)  # 1 at the foot of the mark's byte
-    count = np.bitwise_count(plo)
+    ylo = np.bitwise_xor(x if back is None else f.word_at(back), _Z3, out=sc("ylo", shape))
+    ylo &= np.take(_KEEP_LAST, ml, out=t, mode="clip")
+    np.bitwise_xor(ylo, marks, out=u)
+    plo = _zero_bytes(u, sc("plo", shape))  # 1 at the mark's foot (bytes outside the field are 0)
+    count = np.bitwise_count(plo, out=sc("count", shape, np.uint8))
     if two:
-        yhi = f.word(8) if back is None else f.word_at(back + 8)
-        yhi = yhi ^ _Z3
-        yhi &= np.take(_KEEP, np.clip(ml - 8, 0, 8))
-        phi = _zero_bytes(yhi ^ marks)
-        phi >>= np.uint64(7)
-        count += np.bitwise_count(phi)
-    nf = None
+        yhi = np.bitwise_xor(f.word(8) if back is None else f.word_at(back + 8), _Z3, out=sc("yhi", shape))
+        yhi &= np.take(_KEEP_BEFORE, ml, out=t, mode="clip")
+        np.bitwise_xor(yhi, marks, out=u)
+        phi = _zero_bytes(u, sc("phi", shape))
+        count += np.bitwise_count(phi, out=sc("count2", shape, np.uint8))
     if count.any():
-        if int(count.max()) > 1 or (ml - count).min() < 1:
+        if int(count.max()) > 1 or int(np.subtract(ml, count, out=sc("left", shape, np.intp)).min()) < 1:
             return None
         # clear the mark, then squeeze the digits before it up one byte
         markx = np.uint64(mark ^ 0x30)
-        ylo ^= plo * markx
-        nf = _bytes_above(plo)
-        inlo = plo != 0
-        below = plo - inlo  # the bytes below the mark (0 when the mark is not in this word)
+        np.multiply(plo, markx, out=t)
+        ylo ^= t
+        nf2 = _bytes_above2(plo, t, sc("nf2", shape, np.uint8))  # 2 * the digits after the mark
+        inlo = np.not_equal(plo, 0, out=sc("inlo", shape, bool))
+        below = np.subtract(plo, inlo, out=u)  # the bytes below the mark (0 when it is not in this word)
         below &= ylo
         below *= np.uint64(255)
         ylo += below
         if two:
-            yhi ^= phi * markx
-            inhi = phi != 0
-            nf += np.where(inhi, 8 + _bytes_above(phi), 0).astype(np.uint8)
+            np.multiply(phi, markx, out=t)
+            yhi ^= t
+            above = _bytes_above2(phi, t, sc("above", shape, np.uint8))
+            inhi = np.not_equal(phi, 0, out=sc("inhi", shape, bool))
+            above += np.uint8(16)
+            above *= inhi
+            nf2 += above
             # a mark in the low word: the high word's last byte moves down into it
-            carry = (yhi >> np.uint64(56)) * inlo
+            carry = np.right_shift(yhi, np.uint64(56), out=t)
+            carry *= inlo
             ylo |= carry
-            yhi <<= inlo.astype(np.uint64) * np.uint64(8)
-            below = phi - inhi
+            np.copyto(u, inlo)
+            u <<= np.uint64(3)
+            yhi <<= u
+            below = np.subtract(phi, inhi, out=u)
             below &= yhi
             below *= np.uint64(255)
             yhi += below
-        del below
-    mant = _word_digits(ylo)
+        index -= nf2
+    mant = _word_digits(ylo, t)
     if mant is None:
         return None
     if two:
-        high = _word_digits(yhi)
+        high = _word_digits(yhi, t)
         if high is None:
             return None
         high *= np.uint64(10**8)
         mant += high
-        del high
-    vals = mant.astype(np.float64)
-    slow = long | (mant > np.uint64(1 << 53)) if two else (long if long.any() else None)
-    del mant
-    if power is not None or nf is not None:
-        p = np.full(vals.shape, 22, np.int64) if power is None else power + 22
-        if nf is not None:
-            p -= nf
-        _scale(vals, p, slow)
-        slow = _far(p, slow)
-    return _finish(f, vals, neg, slow, mark)
+    vals[...] = mant
+    slow = None
+    if two:
+        slow = np.greater(mant, np.uint64(1 << 53), out=sc("slow", shape, bool))
+        if most > 16:
+            slow |= np.greater(ml, 16, out=sc("flags", shape, bool))
+    slow = _signed_scale(f, vals, index, slow)
+    return _finish(f, vals, slow, mark)
 
 
 def _exponents(buf: bytearray, start: int, stop: int) -> bool:
@@ -803,7 +953,11 @@ class _Reader:
     all have its first line's printed form (digits after the mark, the exponent's form) is read by that
     form (`_templated`); a column of numbers in their shortest form, each its own, field by field
     (`_general`). A block this does not fit (a quote, nan, a wrong field count, a field that is not a
-    number) is left to the general parse, which names what is wrong."""
+    number) is left to the general parse, which names what is wrong.
+
+    Each thread parsing blocks keeps its own scratch arrays (`_Scratch`), and the values of a block go
+    into the arrays of `into` (one `_Scratch` per block in flight, reused once the block is placed), so
+    block after block allocates nothing large."""
 
     def __init__(self, layout: Layout, keep: list[int]) -> None:
         self.ncols = layout.columns
@@ -811,17 +965,33 @@ class _Reader:
         self.delim = ord(layout.delimiter) if layout.delimiter in ",;\t" else -1
         self.mark = 44 if layout.decimal_comma else 46
         self._plans: dict[bytes, tuple | None] = {}
+        self._local = threading.local()
 
-    def parse(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
-        """(the columns `keep`, the line count) of buf[start:stop] (whole lines), or None."""
-        got = self._fixed(buf, start, stop)
-        return got if got is not None else self._delimited(buf, start, stop)
+    def _scratch(self) -> _Scratch:
+        sc = getattr(self._local, "scratch", None)
+        if sc is None:
+            sc = self._local.scratch = _Scratch()
+        return sc
 
-    def _values(self, f, form, exponents: bool) -> np.ndarray | None:
-        vals = _templated(f, form, self.mark) if form is not None else None
-        return vals if vals is not None else _general(f, self.mark, exponents)
+    def parse(
+        self, buf: bytearray, start: int, stop: int, into: _Scratch | None = None
+    ) -> tuple[list[np.ndarray], int] | None:
+        """(the columns `keep`, the line count) of buf[start:stop] (whole lines), or None. The columns
+        are views of arrays in `into` (fresh arrays without it)."""
+        got = self._fixed(buf, start, stop, into)
+        return got if got is not None else self._delimited(buf, start, stop, into)
 
-    def _fixed(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
+    def _values(self, f, form, exponents: bool, vals: np.ndarray) -> np.ndarray | None:
+        got = _templated(f, form, self.mark, vals) if form is not None else None
+        return got if got is not None else _general(f, self.mark, exponents, vals)
+
+    @staticmethod
+    def _out(into: _Scratch | None, k: int, shape: tuple[int, ...]) -> np.ndarray:
+        return np.empty(shape) if into is None else into(f"column {k}", shape, np.float64)
+
+    def _fixed(
+        self, buf: bytearray, start: int, stop: int, into: _Scratch | None = None
+    ) -> tuple[list[np.ndarray], int] | None:
         n = stop - start
         w = buf.find(b"\n", start, stop) + 1 - start
         if w < 2 or n % w:
@@ -836,15 +1006,17 @@ class _Reader:
             return None
         fields, fixed = plan
         rows = n // w
+        sc = self._scratch()
         m = np.ndarray((rows, w), np.uint8, buf, start)
         for col, byte in fixed:  # the separators, the blanks before a field, the line end
-            if not (m[:, col] == byte).all():
+            if not _all_equal(m[:, col], byte, sc):
                 return None
         out = []
         exponents = _exponents(buf, start, stop)
         for k in self.keep:
             s, e, form = fields[k]
-            vals = self._values(_Strided(buf, start, rows, w, s, e), form, exponents)
+            f = _Strided(buf, start, rows, w, s, e, sc)
+            vals = self._values(f, form, exponents, self._out(into, k, (rows,)))
             if vals is None:
                 return None
             out.append(vals)
@@ -883,28 +1055,33 @@ class _Reader:
         fixed = [(c, row[c]) for c in range(w) if not inside[c]]
         return fields, fixed
 
-    def _delimited(self, buf: bytearray, start: int, stop: int) -> tuple[list[np.ndarray], int] | None:
+    def _delimited(
+        self, buf: bytearray, start: int, stop: int, into: _Scratch | None = None
+    ) -> tuple[list[np.ndarray], int] | None:
         n = stop - start
         if self.delim < 0 or n < 2:
             return None
+        sc = self._scratch()
         b = np.frombuffer(buf, np.uint8, n, start)
-        sep = b == 10
+        sep = np.equal(b, 10, out=sc("breaks", n, bool))
         lines = int(np.count_nonzero(sep))
-        sep |= b == self.delim
-        ends = np.flatnonzero(sep)
-        del sep
+        sep |= np.equal(b, self.delim, out=sc("delimiters", n, bool))
+        ends = np.flatnonzero(sep)  # the one array a block allocates (numpy's search has no `out`)
         ncols = self.ncols
         rows = len(ends) // ncols
         if rows == 0 or len(ends) % ncols or lines != rows:
             return None
         grid = ends.reshape(rows, ncols)  # positions from `start`
-        if not (b[grid[:, -1]] == 10).all():
+        if not _all_equal(np.take(b, grid[:, -1], out=sc("last", rows, np.uint8), mode="clip"), 10, sc):
             return None
         stops = grid
         if buf.find(b"\r", start, stop) >= 0:  # CR LF line ends: the last field ends before the CR
-            stops = grid.copy()
+            stops = sc("stops", (rows, ncols), np.intp)
+            np.copyto(stops, grid)
             stops[:, -1] -= 1
-            if buf.count(b"\r", start, stop) != rows or not (b[stops[:, -1]] == 13).all():
+            if buf.count(b"\r", start, stop) != rows:
+                return None
+            if not _all_equal(np.take(b, stops[:, -1], out=sc("last", rows, np.uint8), mode="clip"), 13, sc):
                 return None
         forms = {}
         for k in self.keep:
@@ -920,16 +1097,15 @@ class _Reader:
             while k and keep and keep[0] == k + m and forms[keep[0]] == forms[k]:
                 keep.pop(0)
                 m += 1
+            s, e = sc("starts", (rows, m), np.intp), sc("ends", (rows, m), np.intp)
+            np.copyto(e, stops[:, k : k + m])  # contiguous: every step after reads it
             if k:
-                s = grid[:, k - 1 : k + m - 1] + 1  # after the separator before each field
-                e = stops[:, k : k + m]
+                np.add(grid[:, k - 1 : k + m - 1], 1, out=s)  # after the separator before each field
             else:
-                s = np.empty((rows, 1), np.int64)
                 s[0] = 0
-                s[1:, 0] = grid[:-1, -1]
-                s[1:] += 1
-                e = stops[:, :1]
-            vals = self._values(_Gathered(buf, start, n, s, e), forms[k], exponents)
+                np.add(grid[:-1, -1:], 1, out=s[1:])
+            f = _Gathered(buf, start, n, s, e, sc)
+            vals = self._values(f, forms[k], exponents, self._out(into, k, (rows, m)))
             if vals is None:
                 return None
             out += [vals[:, j] for j in range(m)]
