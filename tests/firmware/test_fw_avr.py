@@ -94,29 +94,9 @@ def run_on_pty(
     path = tmp_path / "bounce.txt"
     path.write_text(script)
     log = tmp_path / "actuators.log"
-    proc = subprocess.Popen(
-        [
-            str(blsim),
-            "--elf",
-            str(avr_elf),
-            "--script",
-            str(path),
-            "--pty",
-            "--actuator-log",
-            str(log),
-            *flags,
-        ],
-        stdin=subprocess.PIPE,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-    )
+    proc, pty = _on_pty(blsim, avr_elf, path, "--actuator-log", str(log), *flags)
     try:
-        first = proc.stdout.readline().split()
-        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
-            first = proc.stdout.readline().split()
-        assert first[:1] == ["pty"], first
-        port = serial.serial_for_url(first[1], baudrate=500_000, timeout=0.2)
+        port = serial.serial_for_url(pty, baudrate=500_000, timeout=0.2)
         proc.stdin.write("go\n")
         proc.stdin.flush()
         # the announcement; in the packed form after the 0x00 a fresh packed stream starts with
@@ -284,6 +264,44 @@ def test_edges_at_the_16_bit_timer_wrap_keep_their_high_half(
         assert abs(tick * TICK_NS + timer_start_ns - t) <= ISOLATED_TOLERANCE_NS
 
 
+def _on_pty(blsim: Path, avr_elf: Path, script: Path, *flags: str) -> tuple[subprocess.Popen, str]:
+    """The harness running `script` with its UART on a pty: the process, and the port's path once it
+    has said it (ended here if it does not get that far)."""
+    proc = subprocess.Popen(
+        [str(blsim), "--elf", str(avr_elf), "--script", str(script), "--pty", *flags],
+        stdin=subprocess.PIPE,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    try:
+        first = proc.stdout.readline().split()
+        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
+            first = proc.stdout.readline().split()
+        assert first[:1] == ["pty"], first
+    except BaseException:
+        _end(proc)
+        raise
+    return proc, first[1]
+
+
+def _relay_board(blsim: Path, avr_elf: Path, tmp_path: Path, *flags: str) -> tuple[subprocess.Popen, str]:
+    """The emulated board on a pty with a relay on every channel, running until told on its input
+    (a ceiling of HANG_S otherwise): the harness process and the port's path."""
+    script = tmp_path / "script.txt"
+    script.write_text(f"{int(HANG_S * 1e9)} end\n")  # ended on stdin once the run is recorded
+    return _on_pty(blsim, avr_elf, script, "--relay", "2000", *flags)
+
+
+def _fw_writer(store, channels, n: int, on_us: int, off_us: int):
+    """A run of `n` cycles on relay units at `channels`: (units by channel, the run's writer)."""
+    lot = store.register_lot(store.register_part("FW-RELAY", "test"), "L1")
+    units = {ch: store.register_unit(lot, f"R-{ch}") for ch in channels}
+    profile = {"on_ms": on_us / 1000, "off_ms": off_us / 1000, "cycles": n}
+    bench = store.register_bench("fw bench")
+    return units, store.start_run(bench, units, profile=profile, target_cycles=n)
+
+
 class _Observed:
     """The real feed, with every batch it gives the recorder kept for the test to read afterwards."""
 
@@ -310,32 +328,15 @@ def test_emulated_board_speaks_version_2_to_the_recorder(
     board acknowledges PLAN and GO, numbers every drive 1..N per channel, its beats count the cycles
     the drives completed, and the store's life counts are N exactly, each cycle measured."""
     n, on_us, off_us, channels = 12, 10_000, 10_000, (0, 6)
-    script = tmp_path / "script.txt"
-    script.write_text(f"{int(HANG_S * 1e9)} end\n")  # ended on stdin once the run is recorded
-    flags = ["--packed-strap"] if strap == "packed" else []
-    proc = subprocess.Popen(
-        [str(blsim), "--elf", str(avr_elf), "--script", str(script), "--pty", "--relay", "2000", *flags],
-        stdin=subprocess.PIPE,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-    )
+    proc, port = _relay_board(blsim, avr_elf, tmp_path, *(["--packed-strap"] if strap == "packed" else []))
     stop = threading.Event()
     timer = threading.Timer(HANG_S, stop.set)  # a ceiling only a hang reaches
     try:
-        first = proc.stdout.readline().split()
-        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
-            first = proc.stdout.readline().split()
-        assert first[:1] == ["pty"], first
         with Store.open(str(tmp_path / "fw.sqlite")) as store:
-            lot = store.register_lot(store.register_part("FW-RELAY", "test"), "L1")
-            units = {ch: store.register_unit(lot, f"R-{ch}") for ch in channels}
-            profile = {"on_ms": on_us / 1000, "off_ms": off_us / 1000, "cycles": n}
-            bench = store.register_bench("fw bench")
-            writer = store.start_run(bench, units, profile=profile, target_cycles=n)
+            units, writer = _fw_writer(store, channels, n, on_us, off_us)
             # the relay settles within 0.1 ms of each switching; a cycle is 20 ms
             rec = Recorder(writer, settings=AnalysisSettings(settle_ns=2_000_000))
-            with Feed(first[1], baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
+            with Feed(port, baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
                 feed = _Observed(live)
                 proc.stdin.write("go\n")
                 proc.stdin.flush()
@@ -427,32 +428,15 @@ def test_emulated_board_reset_mid_run_is_planned_again_and_counts_true(
     reset comes in a long off phase, after the host has heard cycle 4's drive-off, so no drive-on is in
     flight when the power goes."""
     n, on_us, off_us, channels, at = 10, 10_000, 200_000, (0, 6), 4
-    script = tmp_path / "script.txt"
-    script.write_text(f"{int(HANG_S * 1e9)} end\n")  # ended on stdin once the run is recorded
     log = tmp_path / "actuators.txt"
-    proc = subprocess.Popen(
-        [str(blsim), "--elf", str(avr_elf), "--script", str(script), "--pty", "--relay", "2000"]
-        + ["--actuator-log", str(log)],
-        stdin=subprocess.PIPE,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-    )
+    proc, port = _relay_board(blsim, avr_elf, tmp_path, "--actuator-log", str(log))
     stop = threading.Event()
     timer = threading.Timer(HANG_S, stop.set)  # a ceiling only a hang reaches
     try:
-        first = proc.stdout.readline().split()
-        while first[:1] == ["Loaded"]:  # libsimavr's own words on loading the image
-            first = proc.stdout.readline().split()
-        assert first[:1] == ["pty"], first
         with Store.open(str(tmp_path / "fw.sqlite")) as store:
-            lot = store.register_lot(store.register_part("FW-RELAY", "test"), "L1")
-            units = {ch: store.register_unit(lot, f"R-{ch}") for ch in channels}
-            profile = {"on_ms": on_us / 1000, "off_ms": off_us / 1000, "cycles": n}
-            bench = store.register_bench("fw bench")
-            writer = store.start_run(bench, units, profile=profile, target_cycles=n)
+            units, writer = _fw_writer(store, channels, n, on_us, off_us)
             rec = Recorder(writer, settings=AnalysisSettings(settle_ns=2_000_000))
-            with Feed(first[1], baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
+            with Feed(port, baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
                 feed = _ResetAt(live, proc, channels, at)
                 proc.stdin.write("go\n")
                 proc.stdin.flush()

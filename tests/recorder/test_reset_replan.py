@@ -16,8 +16,6 @@ pulled from a self-powered board (no reset) must keep the contact's state across
 
 from __future__ import annotations
 
-import re
-
 import numpy as np
 import pytest
 
@@ -28,7 +26,7 @@ from benchlog.recorder import Recorder
 from benchlog.sim import Bench
 from benchlog.store import Store
 from benchlog.wire import Decoder, Go, Plan
-from tests.recorder._helpers import check_cycles_against_truth, demo_config, start_run
+from tests.recorder._helpers import check_cycles_against_truth, demo_config, not_observed_cycles, start_run
 
 MS = 1_000_000
 ON_US = OFF_US = 50_000  # cycle k (1-based) switches on at (k - 1) * 100 ms + 0.1 ms (GO starts 0.1 ms on)
@@ -144,22 +142,6 @@ def _recorded_through_a_power_cut(
     return store, writer.run_id, bench, host, started
 
 
-_SPAN = re.compile(r"\(cycles? ([\d,]+)(?:-([\d,]+))? of the unit's life\)")
-
-
-def _not_observed(store, run_id: int) -> dict[int, list[int]]:
-    """The life cycles each channel's CYCLES_NOT_OBSERVED incidents stand for."""
-    out: dict[int, list[int]] = {}
-    for inc in store.incidents(run_id, kind=CYCLES_NOT_OBSERVED):
-        m = _SPAN.search(inc.detail)
-        assert m is not None, inc.detail
-        lo = int(m.group(1).replace(",", ""))
-        hi = int((m.group(2) or m.group(1)).replace(",", ""))
-        assert hi - lo + 1 == inc.cycles_lost, inc.detail
-        out.setdefault(inc.channel, []).extend(range(lo, hi + 1))
-    return out
-
-
 CASES = {
     # cycle 31 switches on at 3,000.1 ms: its contact makes ~5 ms later, it switches off at 3,050.1 ms
     # and the contact releases ~3-6 ms after that. A cut within the on-phase is the cycle counted yet
@@ -199,7 +181,7 @@ def test_the_plan_sent_again_after_a_reset_ends_each_unit_at_its_target(recordin
     assert sum(isinstance(c, Go) for c in host.sent) == 2 and len(plans) == 2 * len(CHANNELS)
     again = {p.channel: p.cycles for p in plans[len(CHANNELS) :]}
     assert again == {ch: TARGET - started[ch] for ch in CHANNELS}
-    gaps = _not_observed(store, run_id)
+    gaps = not_observed_cycles(store, run_id)
     for ru in store.run_units(run_id):
         ch = ru.channel
         assert truth.cycles[ch] == TARGET, (ch, truth.cycles[ch])
