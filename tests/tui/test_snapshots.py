@@ -110,3 +110,21 @@ def test_help_screen(snap_compare, frozen, size):
         await pilot.pause()
 
     assert snap_compare(app_for(path), terminal_size=size, run_before=before)
+
+
+async def test_the_history_chart_is_drawn_again_when_its_room_changes(frozen):
+    """The chart is drawn for the room it has. The layout can settle after the data is shown (seen as a
+    history screenshot at 80x24 drawn for a shorter chart, once in a suite run): the chart must follow."""
+    path, ids = frozen
+    async with app_for(path).run_test(size=(80, 24)) as pilot:
+        await _units(pilot, ids["run1"])
+        await pilot.press("down", "down", "enter")
+        scr = await settle(pilot, HistoryScreen)
+        trend = scr.query_one("#trend")
+        before = trend.size.height
+        assert str(trend.content).count("\n") + 1 == before  # drawn for its room (a line a row)
+        scr.query_one("#hist").styles.height = 3  # the histogram gives the chart rows
+        for _ in range(3):
+            await pilot.pause()
+        assert trend.size.height > before
+        assert str(trend.content).count("\n") + 1 == trend.size.height

@@ -17,6 +17,20 @@ from ._plots import Level, Series, histogram, histogram_legend, legend, trend_ch
 METRIC_KEYS = list(CHART_METRICS)
 
 
+class _Chart(Static):
+    """A chart drawn for its own size: drawn again when that changes. The layout may settle after the
+    data is shown (the drift line above it appears, the histogram gives up rows), and a chart left at
+    the size it was first drawn for stays wrong until the terminal is resized."""
+
+    drawn_for: tuple[int, int] | None = None
+
+    def on_resize(self, _event) -> None:
+        scr = self.screen
+        if isinstance(scr, HistoryScreen) and isinstance(scr.last_data, History):
+            if self.drawn_for != (self.size.width, self.size.height):
+                scr.show(scr.last_data)
+
+
 class HistoryScreen(DataScreen):
     CSS_PATH = "_history.tcss"
     BINDINGS = [
@@ -41,10 +55,10 @@ class HistoryScreen(DataScreen):
         yield Static(f"Unit {self.unit_id}", id="unit-line")
         yield Static("", id="unit-when")
         yield Static("", id="chart-title")
-        yield Static("", id="trend")
+        yield _Chart("", id="trend")
         yield Static("", id="legend")
         yield Static("", id="hist-title")
-        yield Static("", id="hist")
+        yield _Chart("", id="hist")
         yield Static("", id="hist-key")
         yield StatusLine()
         yield Footer()
@@ -132,9 +146,10 @@ class HistoryScreen(DataScreen):
         elif data.flag is not None:
             title.append("  steady", style=DIM_STYLE)
         self.query_one("#chart-title", Static).update(title)
-        trend = self.query_one("#trend", Static)
+        trend = self.query_one("#trend", _Chart)
         width = max(40, (trend.size.width or self.size.width) - 1)
         height = max(6, trend.size.height or 12)
+        trend.drawn_for = (trend.size.width, trend.size.height)
         trend.update(trend_chart(series, levels, marks, width, height, div))
         self.query_one("#legend", Static).update(legend(series, levels, marks))
         v = data.values
@@ -152,7 +167,8 @@ class HistoryScreen(DataScreen):
         else:
             ht.append("no actuations in this span", style=DIM_STYLE)
         self.query_one("#hist-title", Static).update(ht)
-        hist = self.query_one("#hist", Static)
+        hist = self.query_one("#hist", _Chart)
+        hist.drawn_for = (hist.size.width, hist.size.height)
         hist.update(
             histogram(
                 v,
