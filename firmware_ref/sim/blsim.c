@@ -199,6 +199,13 @@ static void portb_out(struct avr_irq_t *irq, uint32_t value, void *param)
     port_changed((uint8_t)value, &last_portb, 0x0C, 2, 6);
 }
 
+/* Raise a pin's level even where its IRQ already holds it (simavr passes on only a change). */
+static void raise_again(avr_irq_t *irq, uint32_t level)
+{
+    irq->value = !level;
+    avr_raise_irq(irq, level);
+}
+
 /*
  * The board loses its supply and gets it back (a bus-powered board whose cable was pulled): the
  * actuators drop out (logged as switching off; relays follow), bytes not yet through the UART are lost,
@@ -216,16 +223,12 @@ static void power_cycle(void)
     uart_ready = 1;
     set_external();
     /*
-     * The reset cleared the PIN registers, but each pin's IRQ still holds its level, and simavr passes on
-     * only a change: the stored level is flipped first (no notification, so no pin change reaches the
-     * part), then the real one is raised.
+     * The reset cleared the PIN registers, but each pin's IRQ still holds its level: raised again (the
+     * stored level flipped first, with no notification, so no pin change reaches the part).
      */
-    for (int ch = 0; ch < 9; ch++) {
-        avr_irq_t *irq = ch < 8 ? pin_irq[ch] : avr_io_getirq(avr, AVR_IOCTL_IOPORT_GETIRQ('B'), IOPORT_IRQ_PIN4);
-        uint32_t level = ch < 6 ? (ext_d.value >> (ch + 2)) & 1 : (ext_b.value >> (ch < 8 ? ch - 6 : 4)) & 1;
-        irq->value = !level;
-        avr_raise_irq(irq, level);
-    }
+    for (int ch = 0; ch < 8; ch++)
+        raise_again(pin_irq[ch], ch < 6 ? (ext_d.value >> (ch + 2)) & 1 : (ext_b.value >> (ch - 6)) & 1);
+    raise_again(avr_io_getirq(avr, AVR_IOCTL_IOPORT_GETIRQ('B'), IOPORT_IRQ_PIN4), (ext_b.value >> 4) & 1);
 }
 
 /* A contact closes (1) or opens (0): its pull-up pin goes low or high. */

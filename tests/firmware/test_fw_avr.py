@@ -302,6 +302,15 @@ def _fw_writer(store, channels, n: int, on_us: int, off_us: int):
     return units, store.start_run(bench, units, profile=profile, target_cycles=n)
 
 
+def _board_up(proc, rec, feed, timer, stop) -> None:
+    """Start the emulation (and the hang ceiling's timer) and read until the board has announced itself."""
+    proc.stdin.write("go\n")
+    proc.stdin.flush()
+    timer.start()
+    while not any(t.announcements for t in feed.batches) and not stop.is_set():
+        rec.push(feed.poll(0.05))  # the board is up: its announcement is in
+
+
 class _Observed:
     """The real feed, with every batch it gives the recorder kept for the test to read afterwards."""
 
@@ -338,11 +347,7 @@ def test_emulated_board_speaks_version_2_to_the_recorder(
             rec = Recorder(writer, settings=AnalysisSettings(settle_ns=2_000_000))
             with Feed(port, baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
                 feed = _Observed(live)
-                proc.stdin.write("go\n")
-                proc.stdin.flush()
-                timer.start()
-                while not any(t.announcements for t in feed.batches) and not stop.is_set():
-                    rec.push(feed.poll(0.05))  # the board is up: its announcement is in
+                _board_up(proc, rec, feed, timer, stop)
                 feed.start_cycling(rec.plans(on_us, off_us))
                 reason = rec.run(feed, stop, grace_s=0.3)
                 faults = live.counters.decode_faults
@@ -438,11 +443,7 @@ def test_emulated_board_reset_mid_run_is_planned_again_and_counts_true(
             rec = Recorder(writer, settings=AnalysisSettings(settle_ns=2_000_000))
             with Feed(port, baudrate=500_000, wait_s=5.0, backoff_s=(0.01, 0.1)) as live:
                 feed = _ResetAt(live, proc, channels, at)
-                proc.stdin.write("go\n")
-                proc.stdin.flush()
-                timer.start()
-                while not any(t.announcements for t in feed.batches) and not stop.is_set():
-                    rec.push(feed.poll(0.05))  # the board is up: its announcement is in
+                _board_up(proc, rec, feed, timer, stop)
                 rec.start(feed, on_us, off_us)
                 reason = rec.run(feed, stop, grace_s=0.3)
             proc.stdin.write("end\n")  # the run is recorded: stop the emulation
