@@ -70,3 +70,23 @@ def confirm(ks, x, make, brk):
             else:
                 check = k + w
     return out
+
+
+def score_rows(start, end, target, changes, initial):
+    """Per window, straight from the definitions in `_score.py`: `changes[r]` is row r's list of
+    (t, new level) in time order. Returns (changes, false, missed, delay) as nested lists."""
+    out = []
+    for r, ch in enumerate(changes):
+        rows = []
+        for s, e, tg in zip(start, end, target, strict=True):
+            before_s = [v for t, v in ch if t < s]
+            before_e = [v for t, v in ch if t < e]
+            entering = before_s[-1] if before_s else initial[r]
+            leaving = before_e[-1] if before_e else initial[r]
+            inside = [(t, v) for t, v in ch if s <= t < e]
+            good = leaving == tg and entering != tg
+            into = [t for t, v in inside if v == tg]
+            delay = into[0] - s if good and into else None
+            rows.append((len(inside), len(inside) - int(good), leaving != tg, delay))
+        out.append(rows)
+    return out

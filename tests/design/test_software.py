@@ -62,6 +62,33 @@ def test_score_of_an_output_that_never_changed():
     assert np.isnan(s.delay_ns).all()
 
 
+def test_score_matches_the_plain_definition_on_random_outputs():
+    # windows with and without gaps between them, changes before, inside, between and after them
+    from ._reference import score_rows
+
+    rng = np.random.default_rng(7)
+    for _ in range(400):
+        nwin, nrow = int(rng.integers(1, 7)), int(rng.integers(1, 4))
+        start = np.sort(rng.choice(100, nwin, replace=False)).astype(np.int64)
+        end = np.concatenate((start[1:], [start[-1] + 10]))
+        if rng.random() < 0.5:
+            end = np.maximum(np.minimum(end, start + rng.integers(1, 15, nwin)), start + 1)
+        target = rng.integers(0, 2, nwin).astype(np.int8)
+        n = int(rng.integers(0, 12))
+        row, t = rng.integers(0, nrow, n), rng.integers(-5, 130, n)
+        new = rng.integers(0, 2, n).astype(np.int8)
+        init = rng.integers(0, 2, nrow).astype(np.int8)
+        s = score(Windows(start, end, target, np.ones(nwin, bool)), row, t, new, init)
+        order = np.lexsort((t, row))
+        changes = [[(int(t[i]), int(new[i])) for i in order if row[i] == r] for r in range(nrow)]
+        for r, want in enumerate(score_rows(start, end, target, changes, init)):
+            got = [
+                (int(c), int(f), bool(m), None if np.isnan(d) else int(d))
+                for c, f, m, d in zip(s.changes[r], s.false[r], s.missed[r], s.delay_ns[r], strict=True)
+            ]
+            assert got == want
+
+
 @pytest.fixture(scope="module")
 def design():
     # makes: bounce ~ lognormal(median 1 ms, sigma 0.4); breaks: median 2 ms, sigma 0.3
