@@ -95,13 +95,15 @@ def channel_record(
     lv = np.asarray(level, np.int8)
     if len(t) == 0:
         raise DataError(f"channel {channel}: no edges")
-    order = np.argsort(t, kind="stable")
-    t, lv = t[order], lv[order]
+    if (np.diff(t) < 0).any():  # recorded edges come sorted; a file may not
+        order = np.argsort(t, kind="stable")
+        t, lv = t[order], lv[order]
     if actuations is None or len(actuations) == 0:
         acts = group_edges(t, lv, quiet_ns, channel)
     else:
         acts = actuations[(actuations["channel"] == channel) & (actuations["t_first_ns"] >= 0)]
-        acts = acts[np.argsort(acts["t_first_ns"], kind="stable")]
+        if (np.diff(acts["t_first_ns"]) < 0).any():
+            acts = acts[np.argsort(acts["t_first_ns"], kind="stable")]
     if len(acts) == 0:
         raise DataError(f"channel {channel}: no make or break found in {len(t)} edges")
     return ChannelRecord(channel, t, lv, acts, int(1 - lv[0]), t_end_ns)

@@ -44,11 +44,18 @@ def stable(runs: SampledRuns, n: int) -> Transitions:
     return (runs.start[long][change] + n - 1).astype(np.int64), vals[change].astype(np.int8)
 
 
-def compose_clips(d: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Inclusive prefix composition of maps `c -> min(max(c + d, lo), hi)` (Hillis-Steele scan)."""
+def compose_clips(
+    d: np.ndarray, lo: np.ndarray, hi: np.ndarray, reach: int | None = None
+) -> tuple[np.ndarray, ...]:
+    """Inclusive prefix composition of maps `c -> min(max(c + d, lo), hi)` (Hillis-Steele scan).
+
+    `reach`: every map is preceded within `reach` maps (itself included) by one that forgets its input
+    (constant over the values that occur) or by the first map; the passes stop once each composes that
+    far back, which gives the same value at every start value that occurs.
+    """
     d, lo, hi = d.copy(), lo.copy(), hi.copy()
     shift = 1
-    while shift < len(d):
+    while shift < min(len(d), len(d) if reach is None else reach):
         d1, lo1, hi1 = d[:-shift], lo[:-shift], hi[:-shift]  # earlier maps
         d2, lo2, hi2 = d[shift:], lo[shift:], hi[shift:]  # later maps
         new_hi = np.minimum(np.maximum(hi1 + d2, lo2), hi2)
@@ -63,7 +70,13 @@ def integrator(runs: SampledRuns, n: int) -> Transitions:
     n = max(int(n), 1)
     step = np.where(runs.value == 1, runs.length, -runs.length).astype(np.int64)
     zeros = np.zeros(len(runs), np.int64)
-    d, lo, hi = compose_clips(step, zeros, np.full(len(runs), n, np.int64))
+    # a run of n samples or more drives the counter to its end whatever it was: the past is forgotten
+    forget = np.flatnonzero(runs.length >= n)
+    last = np.zeros(len(runs), np.int64)
+    last[forget] = forget
+    np.maximum.accumulate(last, out=last)
+    reach = int((np.arange(len(runs)) - last).max(initial=0)) + 1
+    d, lo, hi = compose_clips(step, zeros, np.full(len(runs), n, np.int64), reach)
     c0 = n if runs.value[0] == 1 else 0
     after = np.minimum(np.maximum(c0 + d, lo), hi)
     before = np.concatenate(([c0], after[:-1]))

@@ -130,7 +130,7 @@ class _Channel:
         self.cuts = np.searchsorted(self.part[self.cols], np.arange(len(edges)))
 
 
-CELLS = 1 << 25  # parameter rows x actuations scored at once (about 50 bytes a cell at the peak)
+CELLS = 1 << 22  # parameter rows x actuations scored at once (about 50 bytes a cell at the peak)
 
 
 @dataclass(frozen=True, slots=True, eq=False)

@@ -55,6 +55,30 @@ def gpd_pwm(y: np.ndarray) -> tuple[float, float]:
     i = np.arange(n, dtype=np.float64)
     b0 = y.mean(axis=-1)
     b1 = (y * (i / max(n - 1, 1))).sum(axis=-1) / n
+    return _pwm(b0, b1)
+
+
+def _boot_pwm(y: np.ndarray, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """`gpd_pwm` of every resample `y[idx[r]]` (rows of indices into sorted `y`), without sorting them:
+    a resample holding `y[j]` `c` times, after `s` smaller draws, puts it at sorted ranks s .. s + c - 1,
+    so its share of b1 is `y[j] * (c * s + c * (c - 1) / 2) / (n - 1)`. Linear in the draws, where
+    sorting each resample cost n log n (a night's fits spent seconds there)."""
+    boots, n = idx.shape
+    b0 = np.empty(boots)
+    b1 = np.empty(boots)
+    step = max(1, (1 << 22) // max(n, 1))
+    for lo in range(0, boots, step):
+        rows = idx[lo : lo + step]
+        k = len(rows)
+        c = np.bincount((rows + (np.arange(k) * n)[:, None]).ravel(), minlength=k * n).reshape(k, n)
+        c = c.astype(np.float64)
+        before = np.cumsum(c, axis=1) - c
+        b0[lo : lo + k] = (c @ y) / n
+        b1[lo : lo + k] = ((c * before + c * (c - 1) / 2) @ y) / (n * max(n - 1, 1))
+    return _pwm(b0, b1)
+
+
+def _pwm(b0, b1):
     a1 = b0 - b1
     denom = b0 - 2.0 * a1
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -130,8 +154,7 @@ def fit_tail(values: np.ndarray, seed: int = 0) -> Tail:
         if len(y) >= 20 and np.ptp(y) > 0:
             xi, sc = gpd_pwm(y)
             frac = len(y) / n
-            idx = np.sort(rng.integers(0, len(y), (_BOOT, len(y))), axis=1)
-            bxi, bsc = gpd_pwm(y[idx])
+            bxi, bsc = _boot_pwm(y, rng.integers(0, len(y), (_BOOT, len(y))))
             bfrac = rng.binomial(n, frac, _BOOT) / n
             boot = np.column_stack((bfrac, bxi, bsc))
             boot = boot[np.isfinite(boot).all(axis=1) & (boot[:, 2] > 0)]

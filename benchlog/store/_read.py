@@ -277,6 +277,16 @@ def _pg_binary_actuations(raw, sql: str, params: dict) -> np.ndarray | None:
     return out
 
 
+def _only(arr: np.ndarray, fields: tuple[str, ...] | None) -> np.ndarray:
+    """`arr` with only `fields` (all when None), packed."""
+    if fields is None or arr.dtype.names == tuple(fields):
+        return arr
+    out = np.empty(len(arr), np.dtype([(n, arr.dtype.fields[n][0]) for n in fields]))
+    for n in fields:
+        out[n] = arr[n]
+    return out
+
+
 class ReadAPI:
     engine: object
     # set for a store whose names are only shown (dashboard, report): serials, lot codes, bench and
@@ -497,10 +507,13 @@ class ReadAPI:
         runs: list[int] | None = None,
         kind: int | str | None = None,
         cycles: tuple[int, int] | None = None,
+        fields: tuple[str, ...] | None = None,
     ) -> np.ndarray:
         """Actuations as a numpy array of STORED_ACTUATION_DTYPE (unit_id, run_id, then every column of
         ACTUATION_DTYPE; NaN where not applicable), ordered by unit, cycle and kind. Filters combine
-        with AND; `cycles` is an inclusive range of life cycles."""
+        with AND; `cycles` is an inclusive range of life cycles. `fields`: only these columns, in this
+        order (a reader of a night's millions of rows that needs a few: SQLite builds a Python tuple
+        of every column of every row)."""
         a = s.Actuation.__table__.c
         cond = []
         if units is not None:
@@ -520,22 +533,29 @@ class ReadAPI:
             cond.append(a.kind == _kind(kind))
         if cycles is not None:
             cond.append(a.cycle.between(int(cycles[0]), int(cycles[1])))
+        if fields is not None:
+            unknown = [f for f in fields if f not in ACT_FIELDS]
+            if unknown or not fields:
+                raise ValueError(f"no actuation column {', '.join(unknown) or '(none given)'}")
         with self._read("actuations") as c:
-            return self._fetch_actuations(c, cond)
+            return self._fetch_actuations(c, cond, fields)
 
-    def _fetch_actuations(self, c, cond) -> np.ndarray:
+    def _fetch_actuations(self, c, cond, fields: tuple[str, ...] | None = None) -> np.ndarray:
         """The query compiled once by SQLAlchemy, then run on the DBAPI cursor of `c` (in its
         transaction): PostgreSQL sends the rows as a binary COPY that numpy reads in one view;
         SQLite's plain tuples go into the structured array in one `np.array` call."""
         a = s.Actuation.__table__.c
-        q = select(*[a[n] for n in ACT_FIELDS]).where(*cond).order_by(a.unit_id, a.cycle, a.kind)
+        pg = c.dialect.name == "postgresql"
+        names = ACT_FIELDS if fields is None or pg else tuple(fields)  # the binary COPY reads them all
+        dtype = np.dtype([(n, STORED_ACTUATION_DTYPE.fields[n][0]) for n in names])
+        q = select(*[a[n] for n in names]).where(*cond).order_by(a.unit_id, a.cycle, a.kind)
         compiled = q.compile(dialect=c.dialect, compile_kwargs={"render_postcompile": True})
         raw = c.connection.driver_connection
-        if c.dialect.name == "postgresql":
+        if pg:
             params = dict(compiled.params)
             arr = _pg_binary_actuations(raw, compiled.string, params)
             if arr is not None:
-                return arr
+                return _only(arr, fields)
             cur = raw.cursor()
             try:
                 cur.execute(compiled.string, params)
@@ -551,8 +571,8 @@ class ReadAPI:
             finally:
                 cur.close()
         if not rows:
-            return np.zeros(0, STORED_ACTUATION_DTYPE)
-        return np.array(rows, dtype=STORED_ACTUATION_DTYPE)
+            return _only(np.zeros(0, dtype), fields)
+        return _only(np.array(rows, dtype=dtype), fields)
 
     def edges(
         self,

@@ -57,3 +57,18 @@ def test_small_samples_fall_back_to_lognormal_then_none():
     none = fit_tail(x[:5])
     assert none.model == "none"
     assert none.sf_upper(100.0) == pytest.approx(zero_event_bound(5))
+
+
+def test_bootstrap_fits_without_sorting_match_the_sorted_resamples():
+    # each resample's PWM fit from draw counts equals gpd_pwm on the same resample sorted
+    # (the definition of probability-weighted moments on order statistics)
+    from benchlog.design._tail import _boot_pwm
+
+    rng = np.random.default_rng(4)
+    for n in (20, 333, 5000):
+        y = np.sort(rng.pareto(3.0, n))
+        idx = rng.integers(0, n, (40, n))
+        xi, sc = _boot_pwm(y, idx)
+        want_xi, want_sc = gpd_pwm(y[np.sort(idx, axis=1)])
+        np.testing.assert_allclose(xi, want_xi, rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(sc, want_sc, rtol=1e-9)

@@ -233,6 +233,24 @@ def _read_capture(path: Path):
     return e, d, incidents, measure(e, d, incidents), max(tl.run_ns, int(e.t_ns.max()))
 
 
+# the columns the designers read (benchlog/design): a night is millions of rows
+_FIELDS = (
+    "unit_id",
+    "run_id",
+    "channel",
+    "kind",
+    "cycle",
+    "t_start_ns",
+    "t_first_ns",
+    "t_settle_ns",
+    "transit_us",
+    "bounce_us",
+    "bounce_count",
+    "transfer_us",
+    "flags",
+)
+
+
 def _read_store(args):
     import numpy as np
 
@@ -257,14 +275,19 @@ def _read_store(args):
             raise UsageError("choose units from the store with --unit, --part or --lot")
         ids = sorted({u.id for u in units})
         serial = {u.id: u.serial for u in units}
-        acts = store.actuations(units=ids, runs=args.run or None)
+        acts = store.actuations(units=ids, runs=args.run or None, fields=_FIELDS)
         if len(acts) == 0:
             raise DataError("the selected units have no recorded actuations")
         recs, names = [], []
-        for uid, rid in sorted(
-            {(int(a), int(b)) for a, b in zip(acts["unit_id"], acts["run_id"], strict=True)}
-        ):
-            sel = acts[(acts["unit_id"] == uid) & (acts["run_id"] == rid)]
+        # one record per (unit, run): rows come by unit and cycle, so each run's rows are together
+        key = acts["unit_id"].astype(np.int64) * (int(acts["run_id"].max()) + 1) + acts["run_id"]
+        if (np.diff(key) < 0).any():
+            order = np.argsort(key, kind="stable")
+            acts, key = acts[order], key[order]
+        cuts = np.concatenate((np.flatnonzero(np.diff(key)) + 1, [len(key)]))
+        for lo, hi in zip(np.concatenate(([0], cuts[:-1])), cuts, strict=True):
+            sel = acts[lo:hi]
+            uid, rid = int(sel["unit_id"][0]), int(sel["run_id"][0])
             rows = np.zeros(len(sel), ACTUATION_DTYPE)
             for f in ACTUATION_DTYPE.names:
                 if f in sel.dtype.names:
