@@ -54,8 +54,8 @@ def compose_clips(
     far back, which gives the same value at every start value that occurs.
     """
     d, lo, hi = d.copy(), lo.copy(), hi.copy()
-    shift = 1
-    while shift < min(len(d), len(d) if reach is None else reach):
+    shift, limit = 1, len(d) if reach is None else min(len(d), reach)
+    while shift < limit:
         d1, lo1, hi1 = d[:-shift], lo[:-shift], hi[:-shift]  # earlier maps
         d2, lo2, hi2 = d[shift:], lo[shift:], hi[shift:]  # later maps
         new_hi = np.minimum(np.maximum(hi1 + d2, lo2), hi2)

@@ -13,6 +13,7 @@ from datetime import UTC, datetime
 from numbers import Integral
 
 import numpy as np
+from numpy.lib.recfunctions import repack_fields
 from sqlalchemy import and_, func, select
 from sqlalchemy.exc import SQLAlchemyError
 
@@ -281,10 +282,7 @@ def _only(arr: np.ndarray, fields: tuple[str, ...] | None) -> np.ndarray:
     """`arr` with only `fields` (all when None), packed."""
     if fields is None or arr.dtype.names == tuple(fields):
         return arr
-    out = np.empty(len(arr), np.dtype([(n, arr.dtype.fields[n][0]) for n in fields]))
-    for n in fields:
-        out[n] = arr[n]
-    return out
+    return repack_fields(arr[list(fields)])
 
 
 class ReadAPI:

@@ -60,8 +60,8 @@ def test_small_samples_fall_back_to_lognormal_then_none():
 
 
 def test_bootstrap_fits_without_sorting_match_the_sorted_resamples():
-    # each resample's PWM fit from draw counts equals gpd_pwm on the same resample sorted
-    # (the definition of probability-weighted moments on order statistics)
+    # each resample's PWM fit from draw counts equals gpd_pwm on the same resample sorted: b1 is
+    # defined on the order statistics (Hosking and Wallis, Technometrics 29(3), 1987)
     from benchlog.design._tail import _boot_pwm
 
     rng = np.random.default_rng(4)
