@@ -44,6 +44,7 @@ from benchlog.wire._framing import DecodeError, cobs_decode, cobs_decode_spans, 
 from benchlog.wire._lineform import (
     CHECK_CRC,
     CHECK_NONE,
+    CHECK_XOR,
     EMPTY,
     MAX_LINE,
     MAX_LINE_V2,
@@ -125,13 +126,13 @@ class _FramePlan:
     dropped: np.ndarray
 
 
-def _v2_checks(a: np.ndarray) -> bool:
-    """Whether any line may end in a version 2 check (`*` and six hex digits): the third byte after
-    some `*` is not the line's end, as it is in a version 1 check (`*hh`). (A numpy pass over the
-    stars, quicker than a regular expression tried at each one.)"""
-    star = np.flatnonzero(a == 0x2A)
-    after = a[star[star + 3 < len(a)] + 3]
-    return not ((after == 0x0A) | (after == 0x0D)).all()
+def _line_lines(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(where each `\\n` is, where each line starts, where each ends without its `\\r\\n`) of whole lines."""
+    nl = np.flatnonzero(a == 0x0A)
+    starts = np.empty_like(nl)
+    starts[0] = 0
+    starts[1:] = nl[:-1] + 1
+    return nl, starts, nl - ((nl > starts) & (a[nl - 1] == 0x0D))
 
 
 def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
@@ -518,48 +519,40 @@ class Decoder:
             return self._hold(buf, MAX_LINE_V2 + 1, b"\n")
         body, tail = buf[: last + 1], buf[last + 1 :]
         while body:
-            cut = self._block_end(body)
-            rest = self._line_block(body[:cut])
+            cut, lines = self._block_end(body)
+            rest = self._line_block(body[:cut], lines)
             if rest is not None:  # back to undecided
                 return rest + body[cut:] + tail
             body = body[cut:]
         return self._hold(tail, MAX_LINE_V2 + 1, b"\n")
 
-    def _block_end(self, body: bytes) -> int:
+    def _block_end(self, body: bytes) -> tuple[int, tuple[np.ndarray, ...] | None]:
         """How many bytes of `body` (whole lines) decode with the context as it is now: up to and
         including the first line that may change it (an announcement, a stronger check than the stream
-        has carried). So results never depend on how the stream was split into reads."""
-        level = self._ctx.check_level
+        has carried). So results never depend on how the stream was split into reads. With it, the
+        block's lines (`_line_lines`) when they were found for it."""
         a = np.frombuffer(body, np.uint8)
-        if body[:1] != b"A" and body.find(b"\nA", 0, len(body) - 1) < 0:  # the usual case
-            if level == CHECK_CRC or (b"*" not in body if level == CHECK_NONE else not _v2_checks(a)):
-                return len(body)
-        nl = np.flatnonzero(a == 0x0A)
-        starts = np.empty_like(nl)
-        starts[0] = 0
-        starts[1:] = nl[:-1] + 1
+        lines = _line_lines(a)
+        nl, starts, ends = lines
+        level = self._ctx.check_level
         changes = a[starts] == 0x41
-        if self._ctx.check_level < CHECK_CRC:
-            ends = nl - ((nl > starts) & (a[nl - 1] == 0x0D))
+        if level == CHECK_XOR:
+            changes |= (ends - starts >= 7) & (a[np.maximum(ends - 7, 0)] == 0x2A)
+        elif level == CHECK_NONE and b"*" in body:
             length = ends - starts
-            v2 = (length >= 7) & (a[np.maximum(ends - 7, 0)] == 0x2A)
-            v1 = (length >= 3) & (a[np.maximum(ends - 3, 0)] == 0x2A)
-            kind = np.where(v2, 2, np.where(v1, 1, 0))
-            changes |= kind > self._ctx.check_level
+            changes |= (length >= 3) & (a[np.maximum(ends - 3, 0)] == 0x2A)
+            changes |= (length >= 7) & (a[np.maximum(ends - 7, 0)] == 0x2A)
         hit = np.flatnonzero(changes[:-1])  # the last line ends the block anyway
-        return int(nl[hit[0]]) + 1 if len(hit) else len(body)
+        if not len(hit):
+            return len(body), lines
+        return int(nl[hit[0]]) + 1, None
 
-    def _line_block(self, body: bytes) -> bytes | None:
+    def _line_block(self, body: bytes, lines: tuple[np.ndarray, ...] | None = None) -> bytes | None:
         """Decode whole lines with one context; the unread rest when a fault run ends the line form."""
         a = np.frombuffer(body, np.uint8)
-        nl = np.flatnonzero(a == 0x0A)
-        starts = np.empty_like(nl)
-        starts[0] = 0
-        starts[1:] = nl[:-1] + 1
-        ends = nl - ((nl > starts) & (a[nl - 1] == 0x0D))
-        line_xor = np.bitwise_xor.reduceat(a, starts)
+        nl, starts, ends = _line_lines(a) if lines is None else lines
         ctx = self._ctx
-        fast, is_drive, channel, level, tick, kind = fast_edge_lines(a, line_xor, starts, ends, nl, ctx)
+        fast, is_drive, channel, level, tick, kind = fast_edge_lines(a, starts, ends, nl, ctx)
         if len(kind):
             ctx.check_level = max(ctx.check_level, int(kind.max()))  # only the block's last line can raise
         n_lines = len(nl)

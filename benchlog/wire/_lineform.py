@@ -233,23 +233,33 @@ def _cycle_counts(words: list[str], channels: int, later: bool) -> tuple[tuple[i
 
 def fast_edge_lines(
     a: np.ndarray,
-    line_xor: np.ndarray,
     starts: np.ndarray,
     ends: np.ndarray,
     newlines: np.ndarray,
     ctx: LineContext,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    *,
+    same_width: bool = True,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Vectorised `E` and version 1 `D` lines (same layout), with any of the three checks.
 
-    `a` is the buffer, `starts`/`ends` bound each line
-    (without `\\r\\n`), `newlines` are the positions of the `\\n`s, `line_xor` the XOR of each whole
-    line (its `\\n` included).
+    `a` is the buffer, `starts`/`ends` bound each line (without `\\r\\n`), `newlines` are the
+    positions of the `\\n`s. `same_width=False` reads each field of each line on its own even when
+    the lines are all one width (tests compare the two ways).
 
     Returns (line indices accepted, is_drive, channel, level, tick, check strength), in line order.
     """
     length = ends - starts
     first = a[starts]
     cand = np.flatnonzero((length >= 7) & (length <= 29) & ((first == 0x45) | (first == 0x44)))
+    if same_width and len(cand) >= 2:
+        widths = length[cand]
+        width = int(widths[0])
+        if (widths == width).all():  # a sampler writes fixed-width ticks: a clean stream's usual case
+            got = _same_width_rows(a, starts[cand], width, first[cand], ctx)
+            if got is not None:
+                ok, is_drive, channel, level, tick, kind = got
+                return cand[ok], is_drive[ok], channel[ok], level[ok], tick[ok], kind[ok]
+    line_xor = np.bitwise_xor.reduceat(a, starts)  # of each whole line, its `\\n` included
     s, e = starts[cand], ends[cand]
     ok = (a[s + 1] == 0x20) & (a[s + 3] == 0x20) & (a[s + 5] == 0x20)
     channel = HEX_VALUE[a[s + 2]]
@@ -304,3 +314,84 @@ def fast_edge_lines(
     if ctx.counter_bits < 64:
         ok &= (tick >> np.uint64(ctx.counter_bits)) == 0
     return cand[ok], first[cand[ok]] == 0x44, channel[ok], level[ok], tick[ok], kind[ok]
+
+
+def _hex_digits(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(value, is a hex digit) of every byte of `t` (ASCII `0-9`, `a-f`, `A-F`), by arithmetic: on
+    contiguous bytes a few passes cost less than a table lookup per byte."""
+    num = t - np.uint8(0x30)
+    letter = (t | np.uint8(0x20)) - np.uint8(0x57)  # 'a' -> 10 (and 'A', folded to lower case)
+    is_num = num < np.uint8(10)
+    # num where is_num, else letter (all bits of the mask set where is_num; np.where is slower)
+    value = letter ^ ((letter ^ num) & (np.uint8(0) - is_num.view(np.uint8)))
+    return value, is_num | (letter - np.uint8(10) < np.uint8(6))
+
+
+def _same_width_rows(
+    a: np.ndarray, s: np.ndarray, width: int, first: np.ndarray, ctx: LineContext
+) -> tuple[np.ndarray, ...] | None:
+    """`fast_edge_lines` for candidate lines that are all `width` bytes long (without `\\r\\n`).
+
+    The lines are copied once into a matrix (a gather of `width`-byte rows through a view of the
+    buffer as overlapping `width`-byte items), turned so that each byte position of the lines is one
+    contiguous row, and every field is read from those rows, where the general path gathers each
+    field of each line from the buffer on its own. The same checks, line by line. Returns (accepted,
+    is_drive, channel, level, tick, check strength) per candidate, or None when the lines do not share
+    one check layout (the general path then reads each line's own)."""
+    n = len(s)
+    rows = np.ndarray((len(a) - width + 1,), np.dtype((np.void, width)), a, 0, (1,))
+    t = np.ascontiguousarray(rows[s].view(np.uint8).reshape(n, width).T)  # t[k]: byte k of every line
+    kind = CHECK_NONE
+    crc_digits = None
+    if width >= 13 and (t[width - 7] == 0x2A).any():
+        crc_digits, is_hex = _hex_digits(t[width - 6 :])
+        has_crc = (t[width - 7] == 0x2A) & is_hex.all(axis=0)
+        if not has_crc.all():
+            if has_crc.any():
+                return None
+            crc_digits = None
+        else:
+            kind = CHECK_CRC
+    if kind == CHECK_NONE and width >= 3:
+        has_xor = t[width - 3] == 0x2A
+        if has_xor.all():
+            kind = CHECK_XOR
+        elif has_xor.any():
+            return None
+    kinds = np.full(n, kind, np.int64)
+    tick_end = width - 7 if kind == CHECK_CRC else width - 3 if kind == CHECK_XOR else width
+    ndig = tick_end - 6
+    if kind < ctx.check_level or not 1 <= ndig <= 16:
+        nothing = np.zeros(n, bool)
+        return nothing, nothing, t[2], t[4], np.zeros(n, np.uint64), kinds
+    ok = (t[1] == 0x20) & (t[3] == 0x20) & (t[5] == 0x20)
+    channel, is_hex = _hex_digits(t[2])
+    ok &= is_hex & (channel < ctx.channels)
+    level = t[4] - np.uint8(0x30)
+    ok &= level <= 1
+    is_drive = first == 0x44
+    if kind == CHECK_CRC or ctx.version >= 2:  # a version 2 drive carries its cycle: not this layout
+        ok &= ~is_drive
+    digits, is_hex = _hex_digits(t[6:tick_end])
+    ok &= is_hex.all(axis=0)
+    # two digits (a byte) at a time; an odd count's first digit alone
+    tick = digits[0].astype(np.uint64) if ndig % 2 else np.zeros(n, np.uint64)
+    for k in range(2 if ndig % 2 else 1, ndig, 2):
+        tick = tick << np.uint64(8) | (digits[k - 1] << np.uint8(4) | digits[k])
+    if kind == CHECK_XOR:
+        xor = np.bitwise_xor.reduce(t[: width - 3], axis=0)
+        said, is_hex = _hex_digits(t[width - 2 :])
+        ok &= is_hex.all(axis=0) & (xor == (said[0] << np.uint8(4) | said[1]))
+    elif kind == CHECK_CRC:
+        said_len = crc_digits[0].astype(np.int64) << 4 | crc_digits[1]
+        said_crc = np.zeros(n, np.uint16)
+        for k in range(2, 6):
+            said_crc = said_crc << np.uint16(4) | crc_digits[k]
+        body_len = width - 7
+        ok &= said_len == body_len
+        rows_ok = np.flatnonzero(ok)
+        good = crc16_spans(a, s[rows_ok], np.full(len(rows_ok), body_len, np.int64)) == said_crc[rows_ok]
+        ok[rows_ok[~good]] = False
+    if ctx.counter_bits < 64:
+        ok &= (tick >> np.uint64(ctx.counter_bits)) == 0
+    return ok, is_drive, channel, level, tick, kinds

@@ -73,6 +73,9 @@ def build_parser(modules: list[ModuleType] | None = None) -> argparse.ArgumentPa
 def main(argv: Sequence[str] | None = None) -> int:
     from benchlog.views.cli._signals import raise_on_stop_signals
 
+    # numpy's BLAS would start a thread per core at import, costing every command CPU at start-up
+    # and a recorder on the same PC its cores; benchlog's linear algebra is a few parameters at a time
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     args_in = sys.argv[1:] if argv is None else list(argv)
     parser = build_parser(_named_command(args_in))
     args = parser.parse_args(args_in)

@@ -1,0 +1,103 @@
+"""Edge and drive lines of one width (a sampler writes fixed-width ticks) are read as a matrix, one byte
+position of every line at a time. Whatever the bytes, that way must accept exactly the lines, and give
+exactly the values, that reading each field of each line on its own gives, and every line it accepts
+must be the record the one-line parser (`parse_line`) makes of it."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from benchlog.wire import Drive, Edges
+from benchlog.wire._decoder import _line_lines
+from benchlog.wire._lineform import (
+    CHECK_CRC,
+    CHECK_NONE,
+    CHECK_XOR,
+    LineContext,
+    fast_edge_lines,
+    line_check,
+    parse_line,
+)
+
+
+def _xor_line(body: bytes) -> bytes:
+    x = 0
+    for b in body:
+        x ^= b
+    return b"%s*%02x" % (body, x)
+
+
+def _block(rng: np.random.Generator, digits: int, check: int, crlf: str, upper: bool) -> bytes:
+    """Edge and drive lines of one width with one check, a few with a byte changed (same width), and
+    beats and notices between them (other widths, not candidates)."""
+    lines = []
+    for _ in range(int(rng.integers(2, 400))):
+        code = b"D" if rng.random() < 0.15 else b"E"
+        tick = int(rng.integers(0, 1 << min(4 * digits, 63)))
+        text = b"%s %x %d %0*x" % (code, int(rng.integers(0, 16)), int(rng.integers(0, 2)), digits, tick)
+        if upper:
+            text = text.upper()
+        if check == CHECK_XOR:
+            line = _xor_line(text)
+        elif check == CHECK_CRC:
+            line = text + line_check(text)
+        else:
+            line = text
+        if rng.random() < 0.08:  # a damaged byte: any value but a line end
+            b = bytearray(line)
+            b[int(rng.integers(len(b)))] = int(rng.choice([v for v in range(256) if v not in (10, 13)]))
+            line = bytes(b)
+        lines.append(line)
+        if rng.random() < 0.02:
+            lines.append(_xor_line(b"B %08x 12 0" % tick))
+        if rng.random() < 0.01:
+            lines.append(b"N hello")
+    end = {"lf": [b"\n"], "crlf": [b"\r\n"], "mixed": [b"\n", b"\r\n"]}[crlf]
+    return b"".join(line + end[int(rng.integers(len(end)))] for line in lines)
+
+
+def _context(rng: np.random.Generator) -> LineContext:
+    ctx = LineContext()
+    ctx.version = int(rng.choice([1, 2, 3]))
+    ctx.channels = int(rng.choice([4, 8, 16]))
+    ctx.counter_bits = int(rng.choice([16, 24, 32, 64]))
+    ctx.check_level = int(rng.choice([CHECK_NONE, CHECK_XOR, CHECK_CRC]))
+    return ctx
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_one_width_lines_read_as_a_matrix_agree_with_each_field_read_alone(seed):
+    rng = np.random.default_rng(seed)
+    seen_same_width = 0
+    accepted = 0
+    for _ in range(250):
+        digits = int(rng.choice([1, 3, 4, 7, 8, 16]))
+        check = int(rng.choice([CHECK_NONE, CHECK_XOR, CHECK_CRC]))
+        body = _block(rng, digits, check, str(rng.choice(["lf", "crlf", "mixed"])), rng.random() < 0.2)
+        ctx = _context(rng)
+        a = np.frombuffer(body, np.uint8)
+        nl, starts, ends = _line_lines(a)
+        got = fast_edge_lines(a, starts, ends, nl, ctx)
+        want = fast_edge_lines(a, starts, ends, nl, ctx, same_width=False)
+        for g, w in zip(got, want, strict=True):
+            np.testing.assert_array_equal(g, w)
+            assert g.dtype == w.dtype
+        widths = (ends - starts)[np.isin(a[starts], (0x44, 0x45))]
+        seen_same_width += bool(len(widths) >= 2 and (widths == widths[0]).all())
+        # every accepted line is what the one-line parser makes of it
+        rows, is_drive, channel, level, tick, kind = got
+        accepted += len(rows)
+        for k, j in enumerate(rows.tolist()):
+            rec, strength = parse_line(body[starts[j] : ends[j]], ctx)
+            assert strength == kind[k]
+            if is_drive[k]:
+                assert rec == Drive(int(channel[k]), int(level[k]), int(tick[k]))
+            else:
+                assert isinstance(rec, Edges)
+                assert (int(rec.channel[0]), int(rec.level[0]), int(rec.tick[0])) == (
+                    int(channel[k]),
+                    int(level[k]),
+                    int(tick[k]),
+                )
+    assert seen_same_width > 100 and accepted > 1000  # the matrix path was exercised, and accepted lines
