@@ -52,6 +52,7 @@ from benchlog.wire._lineform import (
     LineContext,
     fast_edge_lines,
     parse_line,
+    quick_beats,
 )
 from benchlog.wire._records import (
     BLOCK_BEAT,
@@ -588,6 +589,7 @@ class Decoder:
             self._out.append(Block(kinds, chans, levels, ticks, no_cycle[:n_drives], captured, dropped))
             block_from, beats, beat_at = taken, [], []
 
+        quick = quick_beats(body, starts, ends, breaks[:-1].tolist(), ctx)
         for j in breaks.tolist():
             if j > prev:
                 k = j - prev
@@ -599,6 +601,14 @@ class Decoder:
             if j == n_lines:
                 break
             prev = j + 1
+            got = quick.get(j)
+            if got is not None:  # a version 1 beat: into the block, no break in it
+                ctx.check_level = max(ctx.check_level, got[3])
+                self._bad_units = self._bad_bytes = 0
+                c.records += 1
+                beats.append(Beat(got[0], got[1], got[2]))
+                beat_at.append(taken - block_from)
+                continue
             line_start = int(starts[j])
             rec, check = parse_line(body[line_start : int(ends[j])], ctx)
             if isinstance(rec, Beat) and rec.short is None:  # goes into the block: no break in it

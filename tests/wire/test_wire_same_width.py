@@ -1,14 +1,15 @@
 """Edge and drive lines of one width (a sampler writes fixed-width ticks) are read as a matrix, one byte
 position of every line at a time. Whatever the bytes, that way must accept exactly the lines, and give
 exactly the values, that reading each field of each line on its own gives, and every line it accepts
-must be the record the one-line parser (`parse_line`) makes of it."""
+must be the record the one-line parser (`parse_line`) makes of it. Version 1 beats are read by one
+regular expression each: every beat it takes must be `parse_line`'s."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from benchlog.wire import Drive, Edges
+from benchlog.wire import Beat, Drive, Edges
 from benchlog.wire._decoder import _line_lines
 from benchlog.wire._lineform import (
     CHECK_CRC,
@@ -18,6 +19,7 @@ from benchlog.wire._lineform import (
     fast_edge_lines,
     line_check,
     parse_line,
+    quick_beats,
 )
 
 
@@ -101,3 +103,42 @@ def test_one_width_lines_read_as_a_matrix_agree_with_each_field_read_alone(seed)
                     int(tick[k]),
                 )
     assert seen_same_width > 100 and accepted > 1000  # the matrix path was exercised, and accepted lines
+
+
+def _beat_line(rng: np.random.Generator) -> bytes:
+    tick = int(rng.integers(0, 1 << 40)) >> int(rng.integers(0, 40))
+    cap = int(rng.integers(0, 1 << 33)) >> int(rng.integers(0, 33))
+    drop = int(rng.integers(0, 1 << 33)) >> int(rng.integers(0, 33))
+    text = b"B %0*x %d %d" % (int(rng.choice([1, 4, 8, 16, 17])), tick, cap, drop)
+    if rng.random() < 0.1:
+        text += b" 3 1:2"  # a version 2 beat's fields
+    if rng.random() < 0.1:
+        text = text.upper()
+    r = rng.random()
+    line = _xor_line(text) if r < 0.6 else text + line_check(text) if r < 0.8 else text
+    if rng.random() < 0.15:
+        b = bytearray(line)
+        b[int(rng.integers(len(b)))] = int(rng.choice([v for v in range(256) if v not in (10, 13)]))
+        line = bytes(b)
+    return line
+
+
+def test_beats_read_by_one_expression_are_the_one_line_parsers_beats():
+    rng = np.random.default_rng(7)
+    taken = 0
+    for _ in range(300):
+        body = b"".join(_beat_line(rng) + (b"\r\n" if rng.random() < 0.3 else b"\n") for _ in range(40))
+        ctx = _context(rng)
+        a = np.frombuffer(body, np.uint8)
+        _, starts, ends = _line_lines(a)
+        got = quick_beats(body, starts, ends, list(range(len(starts))), ctx)
+        taken += len(got)
+        for j in range(len(starts)):
+            rec, strength = parse_line(body[starts[j] : ends[j]], ctx)
+            if j in got:
+                tick, captured, dropped, kind = got[j]
+                assert rec == Beat(tick, captured, dropped) and strength == kind
+            elif ctx.version == 1 and isinstance(rec, Beat) and b"*" in body[starts[j] : ends[j]]:
+                # only a version 2 check (which parse_line reads) may leave a good beat to it
+                assert strength == CHECK_CRC
+    assert taken > 500
