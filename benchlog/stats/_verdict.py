@@ -404,7 +404,7 @@ def _life_criterion(
         fit = None
         why = str(exc)
     if fit is not None:
-        low, high = fit.bx_bounds(x, conf)
+        low, high = fit.bx_lower_matching(x, conf), fit.bx_bounds(x, conf)[1]
         est = fit.bx(x)
         outcome = decide_at_least(low, high, life_req)
         crit = Criterion(
@@ -418,7 +418,7 @@ def _life_criterion(
             high,
             life_req,
             f"Weibull MLE with suspensions (shape {fit.shape:.3g}, {fit.failures} failures "
-            f"of {fit.units}), likelihood-ratio bounds",
+            f"of {fit.units}), lower bound by the matching prior, upper by likelihood ratio",
         )
         shape = fit.shape
     elif assumed_shape:
@@ -558,8 +558,9 @@ def _fit_dict(fit: WeibullFit, x: float, conf: float) -> dict:
         "scale_bounds": fit.scale_bounds(conf),
         "bx_percent": x,
         "bx": fit.bx(x),
-        "bx_bounds": fit.bx_bounds(x, conf),
-        "bounds": "likelihood ratio, one-sided each at the confidence",
+        "bx_bounds": (fit.bx_lower_matching(x, conf), fit.bx_bounds(x, conf)[1]),
+        "bounds": "Bx: lower by the matching prior 1/b, upper by likelihood ratio; shape and scale: "
+        "likelihood ratio; one-sided each at the confidence",
     }
 
 

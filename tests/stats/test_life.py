@@ -221,3 +221,30 @@ def test_same_life_test():
     _, p_same, dof = same_life_test([fit_weibull(table(1e5, 1)), fit_weibull(table(1e5, 2))])
     _, p_diff, _ = same_life_test([fit_weibull(table(1e5, 3)), fit_weibull(table(3e5, 4))])
     assert dof == 2 and p_same > 0.05 and p_diff < 1e-4
+
+
+def test_matching_prior_bound_leaves_its_share_of_posterior_below():
+    # The lower bound on B10 is the 10 % point of the posterior of ln B10 under the prior 1/b, which
+    # the code integrates on a grid. scipy's dblquad over (ln shape, ln B10) of the same posterior
+    # (likelihood written out here, prior flat in ln shape) must find 10 % of the mass below it.
+    from scipy import integrate
+
+    rng = np.random.default_rng(1)
+    life = 420_000 * rng.weibull(2.4, 16)
+    table = LifeTable.of([(i, min(v, 3e5), bool(v <= 3e5), "x") for i, v in enumerate(life)])
+    fit = fit_weibull(table)
+    k = -math.log(0.9)
+    low = fit.bx_lower_matching(10, 0.9)
+    assert low < fit.bx(10) and low < fit.bx_bounds(10, 0.9)[0]  # wider than the likelihood ratio's here
+    log_t, r, s_f = np.log(table.cycles), fit.failures, np.log(fit.t_fail).sum()
+
+    def density(x, lb):  # in (ln B10, ln shape)
+        b = math.exp(lb)
+        ll = r * lb - r * (b * x - math.log(k)) + (b - 1) * s_f - k * np.exp(b * (log_t - x)).sum()
+        return math.exp(ll - fit.loglik)
+
+    lb0, x0 = math.log(fit.shape), math.log(fit.bx(10))
+    below = integrate.dblquad(density, lb0 - 3, lb0 + 3, x0 - 8, math.log(low), epsrel=1e-7)[0]
+    above = integrate.dblquad(density, lb0 - 3, lb0 + 3, math.log(low), x0 + 4, epsrel=1e-7)[0]
+    assert below / (below + above) == pytest.approx(0.10, abs=5e-4)
+    assert fit.bx_lower_matching(10, 0.95) < low  # lower at a higher confidence

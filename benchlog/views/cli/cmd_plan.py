@@ -167,10 +167,10 @@ def run(args: argparse.Namespace) -> int:
         beta = args.shape
         try:
             fit = fit_weibull(table)
-            lo, _ = fit.bx_bounds(x, conf)
+            lo = fit.bx_lower_matching(x, conf)
             print(
                 f"  Weibull fit: shape {fit.shape:.3g}, scale {fit.scale:,.0f}; B{x:g} lower bound "
-                f"{lo:,.0f} cycles (likelihood ratio)"
+                f"{lo:,.0f} cycles (matching prior)"
             )
             beta = beta or fit.shape
         except DataError as exc:

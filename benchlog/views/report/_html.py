@@ -761,8 +761,10 @@ def render_report(
         "on the favourable side already misses it; not yet decidable: the requirement lies inside "
         "the interval, and more units (or cycles, for life) would settle it.</li>"
         "<li>Life: Weibull maximum likelihood with suspensions; bounds from the likelihood ratio "
-        "(profile likelihood). With too few failures a Weibayes bound with an assumed shape is "
-        "used.</li><li>A limit at percentile 100 applies to every actuation: a unit beyond it fails, "
+        "(profile likelihood); the Bx life's lower bound from the posterior under the prior 1/b "
+        "on log life's scale, which matches confidence exactly for complete data. "
+        "With too few failures a Weibayes bound with an assumed shape is used.</li>"
+        "<li>A limit at percentile 100 applies to every actuation: a unit beyond it fails, "
         "as the spec judges units.</li><li>Ppk = (limit - mean) / 3s; the percentile index is "
         "(limit - median) / (p99.865 - median), the quantile form for skewed bounce data.</li></ul>"
     )
