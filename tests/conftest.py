@@ -20,6 +20,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import tempfile
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
@@ -28,6 +29,24 @@ from pathlib import Path
 import pytest
 
 HANG_S = 180.0  # only a hang takes this long, on any machine however loaded
+
+# A process a test kills with SIGKILL (a recorder with its own simulated sampler, on purpose) cannot
+# remove its temporary files. The processes the tests start write theirs under a directory of this
+# test process's own, removed when its session ends, so a run leaves nothing in the machine's
+# temporary directory. (This process keeps the directory it had: pytest's own temporary paths and
+# their last runs' copies stay where they were.)
+# (Once per process: some tests import this module again as `tests.conftest`.)
+_pid, _, _CHILD_TMP = os.environ.get("BENCHLOG_TESTS_TMP", "").partition(":")
+if _pid != str(os.getpid()):
+    tempfile.gettempdir()
+    _CHILD_TMP = tempfile.mkdtemp(prefix="benchlog-tests-")
+    os.environ["BENCHLOG_TESTS_TMP"] = f"{os.getpid()}:{_CHILD_TMP}"
+    os.environ["TMPDIR"] = _CHILD_TMP
+
+
+def pytest_sessionfinish(session: pytest.Session) -> None:
+    shutil.rmtree(_CHILD_TMP, ignore_errors=True)
+
 
 # Runs the real command with SIGINT set as asked and SIGHUP and SIGTERM at their defaults, so a test
 # does not depend on how the shell that started pytest left them (a background job inherits SIGINT
