@@ -387,7 +387,7 @@ def main() -> int:
         ("benchlog qualify", [*exe, "qualify", *lots], 60.0 if big else 10.0, 400.0),
         (
             "benchlog report",
-            [*exe, "report", *lots, "-o", str(path.with_suffix(".html"))],
+            [*exe, "report", *lots, "-o", str(path.with_suffix(".html")), "--force"],
             None if big else 15.0,
             400.0,
         ),
