@@ -601,16 +601,12 @@ class Decoder:
             if j == n_lines:
                 break
             prev = j + 1
-            got = quick.get(j)
-            if got is not None:  # a version 1 beat: into the block, no break in it
-                ctx.check_level = max(ctx.check_level, got[3])
-                self._bad_units = self._bad_bytes = 0
-                c.records += 1
-                beats.append(Beat(got[0], got[1], got[2]))
-                beat_at.append(taken - block_from)
-                continue
             line_start = int(starts[j])
-            rec, check = parse_line(body[line_start : int(ends[j])], ctx)
+            got = quick.get(j)
+            if got is not None:
+                rec, check = Beat(*got[:3]), got[3]
+            else:
+                rec, check = parse_line(body[line_start : int(ends[j])], ctx)
             if isinstance(rec, Beat) and rec.short is None:  # goes into the block: no break in it
                 ctx.check_level = max(ctx.check_level, check)
                 self._bad_units = self._bad_bytes = 0

@@ -347,13 +347,11 @@ def _same_width_rows(
     if width >= 13 and (t[width - 7] == 0x2A).any():
         crc_digits, is_hex = _hex_digits(t[width - 6 :])
         has_crc = (t[width - 7] == 0x2A) & is_hex.all(axis=0)
-        if not has_crc.all():
-            if has_crc.any():
-                return None
-            crc_digits = None
-        else:
+        if has_crc.all():
             kind = CHECK_CRC
-    if kind == CHECK_NONE and width >= 3:
+        elif has_crc.any():
+            return None
+    if kind == CHECK_NONE:  # (every candidate is at least 7 bytes long)
         has_xor = t[width - 3] == 0x2A
         if has_xor.all():
             kind = CHECK_XOR

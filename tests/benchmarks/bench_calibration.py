@@ -57,13 +57,14 @@ def _line(name: str, value: float, target: str, ok: bool, missed: str = "MISSED"
 
 def _one_sided(name: str, cov: float, nominal: float) -> None:
     """A one-sided bound's coverage against 'within 2.5 points of nominal, never below by more'."""
-    if cov < nominal - 0.025:
-        _line(name, cov, f"{nominal - 0.025:.3f}-{nominal + 0.025:.3f}", False)
-    else:
-        over = cov > nominal + 0.025
-        _line(
-            name, cov, f"{nominal - 0.025:.3f}-{nominal + 0.025:.3f}", not over, "MISSED (over: conservative)"
-        )
+    lo, hi = nominal - 0.025, nominal + 0.025
+    _line(
+        name,
+        cov,
+        f"{lo:.3f}-{hi:.3f}",
+        lo <= cov <= hi,
+        "MISSED" if cov < lo else "MISSED (over: conservative)",
+    )
 
 
 def _drift_unit(seed: int):
@@ -99,9 +100,10 @@ def _coverage_one(args):
         fit = fit_weibull(lot.life)
         for lv in LEVELS:
             c = (1 + lv) / 2
-            out[f"b10 {lv}"] = [(fit.bx_lower_matching(10.0, c), fit.bx_bounds(10.0, c)[1])]
+            lr = fit.bx_bounds(10.0, c)
+            out[f"b10 {lv}"] = [(fit.bx_lower_matching(10.0, c), lr[1])]
             if old:
-                out[f"lr b10 {lv}"] = [fit.bx_bounds(10.0, (1 + lv) / 2)]
+                out[f"lr b10 {lv}"] = [lr]
     except DataError:
         pass
     return units, out, truth_p95, truth_b10
