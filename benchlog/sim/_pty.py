@@ -12,9 +12,12 @@ from __future__ import annotations
 
 import errno
 import os
+import fcntl
 import select
 import shutil
+import struct
 import tempfile
+import termios
 import threading
 import time
 import tty
@@ -33,7 +36,11 @@ UNHEARD_S = 5.0  # an open port took nothing for this long: its reader is stuck,
 # (seconds, not less: a reader on a loaded machine can be starved for most of a second and is not stuck)
 HOLD_NS = 200_000_000  # while no reader has the port open, the sampler keeps only its latest output
 MARKS_KEPT_BYTES = 1 << 22  # output read this long ago is surely out of any port buffer
-SETTLE_S = 0.05  # a reader that just opened the port is left this long to finish configuring it
+# A reader opening the port clears its input as the last step of opening (pyserial's `open` ends with a
+# tcflush), which the sampler sees through the pty's packet mode: it sends nothing before that, as what
+# it sent would be thrown away by the open itself. A reader that never clears (a bare `open`, `cat`) is
+# taken to be listening once it has had the port this long.
+SETTLE_S = 1.0
 
 
 class PtySampler:
@@ -86,6 +93,7 @@ class PtySampler:
         self.bytes_lost_unheard = 0
         self._last_progress = time.monotonic()
         self._listening_since: float | None = None
+        self._host_ready = False  # the reader has finished opening the port (cleared its input)
         self.pulled_at_cycles: list[int] = []  # cycles every planned channel had done at each pull
         self.outages: list[tuple[float, float]] = []  # wall-clock (time.time) start/end of each pull
         # an open port that takes nothing for this long has a stuck reader: its output is discarded
@@ -148,8 +156,11 @@ class PtySampler:
         # opens the port, which is how the sampler knows whether anyone listens (as a USB serial board
         # knows whether the host has opened it).
         os.close(slave)
+        # packet mode: a read on the master says when the reader clears its input (TIOCPKT_FLUSHREAD)
+        fcntl.ioctl(master, termios.TIOCPKT, struct.pack("i", 1))
         self._master, self._slave = master, -1
         self._listening_since = None
+        self._host_ready = False
         tmp = self.path + ".new"
         try:
             if os.path.lexists(tmp):
@@ -235,9 +246,36 @@ class PtySampler:
 
     @property
     def listening(self) -> bool:
-        """A reader has had the port open for a moment."""
+        """A reader has finished opening the port (or, one that never clears its input, has had it open
+        for SETTLE_S)."""
         since = self._listening_since
-        return since is not None and time.monotonic() - since >= SETTLE_S
+        return since is not None and (self._host_ready or time.monotonic() - since >= SETTLE_S)
+
+    def _read_master(self) -> bytes | None:
+        """What the reader wrote (b"" for none yet), None when no reader has the port open. Notes the
+        reader's arrival and, from the packet-mode status byte, the end of its opening."""
+        try:
+            chunk = os.read(self._master, 4097)
+        except (BlockingIOError, InterruptedError):
+            if self._listening_since is None:
+                self._listening_since = time.monotonic()
+            return b""
+        except OSError as exc:
+            if exc.errno == errno.EIO:  # no reader has the port open
+                self._listening_since = None
+                self._host_ready = False
+                return None
+            raise
+        if self._listening_since is None:
+            self._listening_since = time.monotonic()
+        if not chunk:
+            return b""
+        if chunk[0] != termios.TIOCPKT_DATA:  # a status byte alone
+            if chunk[0] & termios.TIOCPKT_FLUSHREAD:
+                self._host_ready = True
+            return b""
+        self._host_ready = True  # a reader that writes has finished opening the port
+        return chunk[1:]
 
     def _wait(self, timeout: float = STEP_WALL_S) -> None:
         """Until a step of sampler time is due: a step per STEP_WALL_S of wall (a board sends in bursts
@@ -317,20 +355,12 @@ class PtySampler:
     def _read_commands(self) -> None:
         if self._master < 0:
             return
-        try:
-            chunk = os.read(self._master, 4096)
-        except (BlockingIOError, InterruptedError):
-            if self._listening_since is None:
-                self._listening_since = time.monotonic()
+        chunk = self._read_master()
+        if chunk is None:
+            self._cmd_buf.clear()
             return
-        except OSError as exc:
-            if exc.errno == errno.EIO:  # no reader has the port open
-                self._listening_since = None
-                self._cmd_buf.clear()
-                return
-            raise
-        if self._listening_since is None:
-            self._listening_since = time.monotonic()
+        if not chunk:
+            return
         if self._pull_on_command and self._pull_request is not None:
             self._command_arrived = bool(chunk)  # lost: the pull comes before anything is obeyed
             return
@@ -377,35 +407,25 @@ class PtySampler:
         while not self._stop.is_set() and time.monotonic() < end_wall:
             run_on()
         self._open_pty()
-        # until the host has the new port open (its reconnect takes a moment), the sampler keeps on
-        # holding what it sends
+        # until the host has finished opening the new port (its reconnect takes a moment), the sampler
+        # keeps on holding what it sends: not on a time (SETTLE_S), as the open's own input clear
+        # would throw away what came before it, however late a loaded host gets to it
         end_wall = time.monotonic() + 60.0
-        while not self._stop.is_set() and not self.listening and time.monotonic() < end_wall:
+        while not self._stop.is_set() and not self._host_ready and time.monotonic() < end_wall:
             self._poll_open()
             run_on()
         self._backlog += kept
+        self._last_progress = time.monotonic()  # a reader stuck since now, not since before the pull
         self.outages.append((start, time.time()))
 
     def _poll_open(self) -> None:
         """Notice the host opening the port (commands it sends then are answered later)."""
-        try:
-            chunk = os.read(self._master, 4096)
-        except (BlockingIOError, InterruptedError):
-            if self._listening_since is None:
-                self._listening_since = time.monotonic()
-            return
-        except OSError:
-            return
-        if self._listening_since is None:
-            self._listening_since = time.monotonic()
-        self._cmd_buf += chunk
+        chunk = self._read_master()
+        if chunk:
+            self._cmd_buf += chunk
 
     def _unread(self) -> int:
         """Bytes written to the port that its reader has not read yet."""
-        import fcntl
-        import struct
-        import termios
-
         try:
             fd = os.open(self.slave_name, os.O_RDONLY | os.O_NOCTTY | os.O_NONBLOCK)
         except OSError:
