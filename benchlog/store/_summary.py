@@ -301,6 +301,11 @@ class SummaryKeeper:
         self._open: dict[tuple[int, str, int], _Open] = {}
         self._dirty: set[tuple[int, str, int]] = set()
         self._known: set[tuple[int, str, int]] = set()  # keys whose stored row was merged in
+        # windows that can have a stored row not in `_open`: up to the run's last stored window when
+        # this keeper began (a resumed run), and those of a unit up to the last it wrote (a window
+        # written and let go); windows past both are new, and no query looks for their rows
+        self._stored_before: int | None = None
+        self._written_upto: dict[int, int] = {}
         self._held = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.float64))
         self._latest: dict[int, int] = {}
 
@@ -355,7 +360,7 @@ class SummaryKeeper:
 
     def write(self, conn, *, final: bool = False) -> int:
         """Store every window touched since the last committed write; returns how many rows were written."""
-        from sqlalchemy import and_, bindparam, delete, insert, select
+        from sqlalchemy import and_, bindparam, delete, func, insert, select
 
         from . import _schema as s
 
@@ -366,9 +371,15 @@ class SummaryKeeper:
         if not self._dirty:
             return 0
         t = s.Summary.__table__.c
+        if self._stored_before is None:
+            last = conn.execute(select(func.max(t.window_no)).where(t.run_id == self.run_id)).scalar()
+            self._stored_before = -1 if last is None else int(last)
         fresh = self._dirty - self._known
-        if fresh:
-            windows = sorted({k[2] for k in fresh})
+        lookup = {
+            k for k in fresh if k[2] <= max(self._stored_before, self._written_upto.get(k[0], -1))
+        }
+        if lookup:
+            windows = sorted({k[2] for k in lookup})
             old = conn.execute(
                 select(
                     t.unit_id, t.series, t.window_no, t.count, t.sum, t.sumsq, t.min, t.max, t.bins, t.counts
@@ -376,12 +387,27 @@ class SummaryKeeper:
             ).all()
             for r in old:
                 key = (int(r.unit_id), r.series, int(r.window_no))
-                if key in fresh:
+                if key in lookup:
                     self._open[key].merge(
                         unpack(r.bins), unpack(r.counts), r.count, r.sum, r.sumsq, r.min, r.max
                     )
-            self._known |= fresh
+        self._known |= fresh
         keys = sorted(self._dirty)
+        for u, _, w in keys:
+            if w > self._written_upto.get(u, -1):
+                self._written_upto[u] = w
+        if conn.dialect.name == "sqlite":
+            # through the driver: a row replaced in one statement, with none of the SQL layer's work
+            # per row (a third of a flush's time went there)
+            conn.connection.driver_connection.cursor().executemany(
+                "INSERT OR REPLACE INTO summaries (run_id, unit_id, series, window_no, count, sum, sumsq,"
+                " min, max, bins, counts) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                [
+                    (self.run_id, u, sr, w, o.count, o.sum, o.sumsq, o.min, o.max, _pack(o.bins), _pack(o.counts))
+                    for (u, sr, w), o in ((key, self._open[key]) for key in keys)
+                ],
+            )
+            return len(keys)
         conn.execute(
             delete(s.Summary).where(
                 and_(
