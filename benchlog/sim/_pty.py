@@ -11,8 +11,8 @@ comes back reset: a new announcement and a counter from zero.
 from __future__ import annotations
 
 import errno
-import os
 import fcntl
+import os
 import select
 import shutil
 import struct

@@ -62,7 +62,8 @@ _SQLITE_ROLLUP_INSERT = (
 )
 CHUNK_MAX_EDGES = 65_536
 PIPE_CHUNK = 4096  # rows turned into Python values and inserted at a time (bounds what is alive at once)
-# rows per INSERT statement (x 20 columns: within SQLite's 999 variables of a statement in any version)
+# rows per INSERT statement: 32 x 18 values a row, within the 999 variables a statement may hold in
+# every SQLite version (sqlite.org/limits.html, SQLITE_MAX_VARIABLE_NUMBER; 32,766 since 3.32.0)
 ROWS_PER_INSERT = 32
 RATE_WINDOW_S = 10.0
 _TIME_FIELDS = tuple(n for n in ("t_start_ns", "t_first_ns", "t_settle_ns", "t_end_ns") if n in ACT_FIELDS)
@@ -164,30 +165,23 @@ def sqlite_actuation_insert(run_id: int, unit_id: int, rows: int = 1) -> str:
     return f"INSERT INTO actuations ({', '.join(cols)}) VALUES {', '.join([row] * rows)}"
 
 
-def statement_rows(acts: np.ndarray, k: int = 0) -> tuple[list[list], list[tuple]]:
-    """SQLite parameters for inserting `acts` (a structured array): those of statements of `k` rows
-    (ROWS_PER_INSERT by default), each row's values one after another, and the rows left over (fewer
-    than `k`) as tuples. Built a column at a time through an object matrix, with no tuple made per
-    row: that is about twice as fast as numpy's `tolist` followed by flattening the tuples."""
-    k = k or ROWS_PER_INSERT
+def insert_rows(cursor, sql_one: str, sql_many: str, acts: np.ndarray) -> None:
+    """SQLite: insert `acts` (a structured array in the statements' column order) through `sql_many`,
+    a statement of ROWS_PER_INSERT rows, and the rows left over through `sql_one`. Each statement
+    executed costs a reset, a step and sqlite3 letting go of the GIL and taking it back: paid once per
+    ROWS_PER_INSERT rows, the rows go in faster (docs/store.md, "Writing"). The values are made a
+    column at a time through an object matrix, with no tuple per row: about twice as fast as numpy's
+    `tolist` of the rows followed by flattening them."""
+    k = ROWS_PER_INSERT
     whole = len(acts) // k * k
-    names = acts.dtype.names
-    matrix = np.empty((whole, len(names)), object)
-    for j, name in enumerate(names):
-        matrix[:, j] = acts[name][:whole].tolist()
-    return matrix.reshape(-1, len(names) * k).tolist(), acts[whole:].tolist()
-
-
-def insert_rows(cursor, sql_one: str, sql_many: str, params: tuple[list[list], list[tuple]]) -> None:
-    """SQLite: insert what `statement_rows` made, through `sql_many` (a statement of ROWS_PER_INSERT
-    rows) and `sql_one`. Each statement executed costs a reset, a step and sqlite3 letting go of the
-    GIL and taking it back: paid once per ROWS_PER_INSERT rows, the rows go in faster (see
-    docs/store.md, "Writing")."""
-    many, rest = params
-    if many:
-        cursor.executemany(sql_many, many)
-    if rest:
-        cursor.executemany(sql_one, rest)
+    if whole:
+        names = acts.dtype.names
+        matrix = np.empty((whole, len(names)), object)
+        for j, name in enumerate(names):
+            matrix[:, j] = acts[name][:whole].tolist()
+        cursor.executemany(sql_many, matrix.reshape(-1, len(names) * k).tolist())
+    if whole < len(acts):
+        cursor.executemany(sql_one, acts[whole:].tolist())
 
 
 def bulk_insert_actuations(conn, rows: Iterable[tuple], sql: str | None = None) -> None:
@@ -661,11 +655,11 @@ class RunWriter:
         ]
         # One piece at a time, in this thread. A helper thread converting the next piece while sqlite3
         # inserted this one was slower (405,000 against 340,000-380,000 actuations/s here): with a
-        # statement a ROWS_PER_INSERT rows, sqlite3 lets go of the GIL too seldom for the two to
+        # statement of ROWS_PER_INSERT rows, sqlite3 lets go of the GIL too seldom for the two to
         # overlap, and they took turns at it.
         cursor = conn.connection.driver_connection.cursor()
         for sql, a, b in pieces:
-            insert_rows(cursor, *sql, statement_rows(acts[a:b]))
+            insert_rows(cursor, *sql, acts[a:b])
 
     def _write_progress(self, conn, now: float, done: int) -> None:
         renewed = conn.execute(
