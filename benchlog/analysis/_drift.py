@@ -499,7 +499,7 @@ DRIFT_METRICS: dict[str, tuple[str, int]] = {
     "operate_time": ("transit_us", MAKE),
     "release_time": ("transit_us", BREAK),
 }
-DRIFT_POINTS = 240  # a longer series is coarsened to this many points (medians of consecutive windows)
+DRIFT_POINTS = 240  # a longer series is coarsened to at most this many points (see coarse_windows)
 DRIFT_MIN_WINDOWS = BASELINE_MIN + 2  # windows with data before a series is judged at all
 
 
@@ -516,6 +516,88 @@ def drift_limit(spec, metric: str) -> tuple[float, str, float] | None:
     return lim.max_value, stat, p
 
 
+# -- coarsening a long series: the remedian (P. J. Rousseeuw and G. W. Bassett, "The remedian: a robust
+# averaging method for large data sets", Journal of the American Statistical Association 85 (1990) 97-104):
+# windows are grouped 3 at a time, each group's statistic the median of its 3 members, and groups of
+# groups the same way, level after level. A group's figures never change once it is complete, so a
+# series fed one window at a time (the recorder) keeps at most DRIFT_POINTS groups and 2 unfinished
+# ones per level, whatever the length of the run, and gives the same points as the whole series at once
+# (the dashboard).
+COARSE_BASE = 3
+
+
+def _median3(v: np.ndarray) -> np.ndarray:
+    """The median of each row of an (m, 3) array with NaN left out (NaN where a row has no value)."""
+    s = np.sort(v, axis=1)  # NaN sorts last
+    c = np.count_nonzero(~np.isnan(v), axis=1)
+    out = np.full(len(v), np.nan)
+    out[c == 3] = s[c == 3, 1]
+    out[c == 2] = (s[c == 2, 0] + s[c == 2, 1]) / 2
+    out[c == 1] = s[c == 1, 0]
+    return out
+
+
+def _coarse_level(n: int, points: int) -> int:
+    """The lowest level whose groups (COARSE_BASE**level windows each) number at most `points`."""
+    level = 0
+    while -(-n // COARSE_BASE**level) > points:
+        level += 1
+    return level
+
+
+def _tail_window(tail: list[tuple]) -> tuple:
+    """The unfinished last group, from its finished parts (lo, hi, count, value) in cycle order: their
+    first cycle, last cycle, total count and the median of their values."""
+    vals = np.array([g[3] for g in tail], np.float64)
+    vals = vals[~np.isnan(vals)]
+    return (
+        tail[0][0],
+        tail[-1][1],
+        sum(g[2] for g in tail),
+        float(np.median(vals)) if len(vals) else math.nan,
+    )
+
+
+def _as_windows(lo, hi, cnt, val, tail: list[tuple]) -> np.ndarray:
+    n = len(lo) + (1 if tail else 0)
+    out = np.zeros(n, WINDOW_DTYPE)
+    out["cycle_start"][: len(lo)] = lo
+    out["cycle_end"][: len(lo)] = np.asarray(hi, np.int64) + 1
+    out["count"][: len(lo)] = cnt
+    out["value"][: len(lo)] = val
+    if tail:
+        t = _tail_window(tail)
+        out[-1] = (t[0], t[1] + 1, t[2], t[3])
+    return out
+
+
+def _coarse_parts(cycle_lo, cycle_hi, count, value, points: int):
+    """(level, the finished groups of that level as arrays (lo, hi, count, value), the unfinished
+    groups of each lower level (a list per level, level 0 first, each group a tuple)) of the windows
+    with data."""
+    ok = np.asarray(count) > 0
+    groups = (
+        np.asarray(cycle_lo, np.int64)[ok],
+        np.asarray(cycle_hi, np.int64)[ok],
+        np.asarray(count, np.int64)[ok],
+        np.asarray(value, np.float64)[ok],
+    )
+    level = _coarse_level(len(groups[0]), points)
+    pending: list[list[tuple]] = []
+    for _ in range(level):
+        lo, hi, cnt, val = groups
+        m = len(lo) // COARSE_BASE
+        k = m * COARSE_BASE
+        pending.append([(int(lo[i]), int(hi[i]), int(cnt[i]), float(val[i])) for i in range(k, len(lo))])
+        groups = (
+            lo[:k:COARSE_BASE],
+            hi[COARSE_BASE - 1 : k : COARSE_BASE],
+            cnt[:k].reshape(m, COARSE_BASE).sum(axis=1),
+            _median3(val[:k].reshape(m, COARSE_BASE)),
+        )
+    return level, groups, pending
+
+
 def coarse_windows(
     cycle_lo: np.ndarray,
     cycle_hi: np.ndarray,
@@ -524,32 +606,85 @@ def coarse_windows(
     points: int = DRIFT_POINTS,
 ) -> np.ndarray:
     """Rollup windows (inclusive cycle spans, counts, one statistic) as WINDOW_DTYPE, windows without
-    data left out, coarsened to at most `points` windows: consecutive windows grouped k at a time, each
-    group's statistic their median."""
-    ok = np.asarray(count) > 0
-    lo, hi = np.asarray(cycle_lo)[ok], np.asarray(cycle_hi)[ok]
-    val, cnt = np.asarray(value, np.float64)[ok], np.asarray(count)[ok]
-    n = len(lo)
-    if n > points:
-        k = math.ceil(n / points)
-        g = math.ceil(n / k)
-        starts = np.arange(g) * k
-        ends = np.minimum(starts + k, n)
-        block = np.full(g * k, np.nan)
-        block[:n] = val
-        block = block.reshape(g, k)
-        # a group of the NaN values only (windows counted with no value) stays NaN, without a warning
-        has = ~np.isnan(block).all(axis=1)
-        med = np.full(g, np.nan)
-        if has.any():
-            med[has] = np.nanmedian(block[has], axis=1)
-        lo, hi, cnt, val = lo[starts], hi[ends - 1], np.add.reduceat(cnt, starts), med
-    out = np.zeros(len(lo), WINDOW_DTYPE)
-    out["cycle_start"] = lo
-    out["cycle_end"] = hi + 1
-    out["count"] = cnt
-    out["value"] = val
-    return out
+    data left out. A series of more than `points` windows is coarsened by the remedian (see above) to
+    groups of 3**level windows, the lowest level that leaves at most `points` groups; an unfinished last
+    group takes the median of its finished parts. Fed window by window, `CoarseSeries` gives the same."""
+    _, (lo, hi, cnt, val), pending = _coarse_parts(cycle_lo, cycle_hi, count, value, points)
+    tail = [g for level in reversed(pending) for g in level]
+    return _as_windows(lo, hi, cnt, val, tail)
+
+
+class CoarseSeries:
+    """One metric's windows fed one at a time, held as `coarse_windows` would coarsen them: at most
+    `points` finished groups plus 2 unfinished ones a level, so its memory stays flat over any run."""
+
+    __slots__ = ("points", "level", "n", "lo", "hi", "count", "value", "pending")
+
+    def __init__(self, points: int = DRIFT_POINTS) -> None:
+        self.points = points
+        self.level = 0
+        self.n = 0  # windows with data fed so far
+        self.lo: list[int] = []
+        self.hi: list[int] = []
+        self.count: list[int] = []
+        self.value: list[float] = []
+        self.pending: list[list[tuple]] = []  # per level below `level`: its finished, ungrouped groups
+
+    @classmethod
+    def of(cls, cycle_lo, cycle_hi, count, value, points: int = DRIFT_POINTS) -> CoarseSeries:
+        """A series that has already been fed these windows (a unit's earlier life)."""
+        self = cls(points)
+        self.level, (lo, hi, cnt, val), self.pending = _coarse_parts(cycle_lo, cycle_hi, count, value, points)
+        self.lo, self.hi, self.count, self.value = lo.tolist(), hi.tolist(), cnt.tolist(), val.tolist()
+        self.n = int(np.count_nonzero(np.asarray(count) > 0))
+        return self
+
+    def add(self, cycle_lo: int, cycle_hi: int, count: int, value: float) -> None:
+        """The next window (a window without data is left out, as `coarse_windows` leaves it out)."""
+        if count <= 0:
+            return
+        self.n += 1
+        group: tuple | None = (int(cycle_lo), int(cycle_hi), int(count), float(value))
+        for parts in self.pending:
+            parts.append(group)
+            if len(parts) < COARSE_BASE:
+                group = None
+                break
+            group = self._merge(parts)
+            parts.clear()
+        if group is not None:
+            self._append(group)
+        if -(-self.n // COARSE_BASE**self.level) > self.points:
+            self._level_up()
+
+    @staticmethod
+    def _merge(parts: list[tuple]) -> tuple:
+        return (
+            parts[0][0],
+            parts[-1][1],
+            sum(p[2] for p in parts),
+            float(_median3(np.array([[p[3] for p in parts]], np.float64))[0]),
+        )
+
+    def _append(self, group: tuple) -> None:
+        self.lo.append(group[0])
+        self.hi.append(group[1])
+        self.count.append(group[2])
+        self.value.append(group[3])
+
+    def _level_up(self) -> None:
+        groups = list(zip(self.lo, self.hi, self.count, self.value, strict=True))
+        k = len(groups) // COARSE_BASE * COARSE_BASE
+        self.lo, self.hi, self.count, self.value = [], [], [], []
+        for i in range(0, k, COARSE_BASE):
+            self._append(self._merge(groups[i : i + COARSE_BASE]))
+        self.pending.append(groups[k:])
+        self.level += 1
+
+    def windows(self) -> np.ndarray:
+        """The series as `coarse_windows` gives it (WINDOW_DTYPE)."""
+        tail = [g for level in reversed(self.pending) for g in level]
+        return _as_windows(self.lo, self.hi, self.count, self.value, tail)
 
 
 def judge_drift(

@@ -2,6 +2,10 @@
 the dashboard judges them (`benchlog.analysis.judge_drift` over the windows' statistic against the
 spec's limit), so the first flag is dated when it is first raised rather than found in the morning.
 
+Each unit's series is held coarsened (`benchlog.analysis.CoarseSeries`: the points the dashboard
+charts, at most DRIFT_POINTS of them and a few unfinished groups), so the watch's memory and each
+judgement's cost stay flat over a run of any length.
+
 Every window is judged as it completes, one at a time, so the flag's cycle does not depend on how the
 host's clock cut the recording into flushes: the same recording dates the same flag. Once a unit is
 flagged, it is judged no more (only the first flag is kept); a failed unit is not judged.
@@ -9,23 +13,12 @@ flagged, it is judged no more (only the first flag is kept); a failed unit is no
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import math
+from dataclasses import dataclass
 
-import numpy as np
-
-from benchlog.analysis import DRIFT_METRICS, coarse_windows, drift_limit, judge_drift
+from benchlog.analysis import DRIFT_METRICS, CoarseSeries, drift_limit, judge_drift
 
 _STAT_COLUMN = {"p50": 8, "p95": 9, "max": 10}  # in a rollup row (see RunWriter.take_rollups)
-
-
-@dataclass(slots=True)
-class _Series:
-    """One metric of one unit, window by window: (cycle_lo, cycle_hi, count, statistic)."""
-
-    lo: list[int] = field(default_factory=list)
-    hi: list[int] = field(default_factory=list)
-    count: list[int] = field(default_factory=list)
-    value: list[float] = field(default_factory=list)
 
 
 @dataclass(frozen=True, slots=True)
@@ -46,7 +39,7 @@ class DriftWatch:
         self._by_key = {(col, kind): metric for metric, (col, kind) in DRIFT_METRICS.items()}
         # per unit: its channel, the limit and statistic of each metric, the spec's required life
         self._units: dict[int, tuple[int, dict[str, tuple[float | None, str]], float | None]] = {}
-        self._series: dict[tuple[int, str], _Series] = {}
+        self._series: dict[tuple[int, str], CoarseSeries] = {}
         for ch, unit in writer.units.items():
             if writer.status.get(unit) != "alive" or unit in writer.drift_flagged:
                 continue
@@ -61,9 +54,7 @@ class DriftWatch:
                 # the windows of the unit's life before this recording (earlier runs, earlier segments)
                 t = writer.store.trend(unit, col, kind=kind)
                 stat = getattr(t, limits[metric][1])
-                self._series[(unit, metric)] = _Series(
-                    t.cycle_lo.tolist(), t.cycle_hi.tolist(), t.count.tolist(), stat.tolist()
-                )
+                self._series[(unit, metric)] = CoarseSeries.of(t.cycle_lo, t.cycle_hi, t.count, stat)
         writer.keep_rollups = bool(self._units)
 
     def push(self, rollups: list[tuple]) -> list[DriftFlagged]:
@@ -86,20 +77,11 @@ class DriftWatch:
             ch, limits, life = self._units[unit]
             limit, stat = limits[metric]
             v = r[_STAT_COLUMN[stat]]
-            series = self._series[(unit, metric)]
-            series.lo.append(int(r[5]))
-            series.hi.append(int(r[6]))
-            series.count.append(int(r[7]))
-            series.value.append(np.nan if v is None else float(v))
             if not r[7]:
                 continue  # a window without data changes nothing the dashboard charts
-            windows = coarse_windows(
-                np.asarray(series.lo, np.int64),
-                np.asarray(series.hi, np.int64),
-                np.asarray(series.count, np.int64),
-                np.asarray(series.value, np.float64),
-            )
-            report = judge_drift(windows, limit, life, quick=True)
+            series = self._series[(unit, metric)]
+            series.add(r[5], r[6], r[7], math.nan if v is None else v)
+            report = judge_drift(series.windows(), limit, life, quick=True)
             if report is not None and report.confirmed:
                 flagged.append(DriftFlagged(ch, unit, metric, int(r[2]), int(r[6])))
                 self._forget(unit)

@@ -375,9 +375,7 @@ class SummaryKeeper:
             last = conn.execute(select(func.max(t.window_no)).where(t.run_id == self.run_id)).scalar()
             self._stored_before = -1 if last is None else int(last)
         fresh = self._dirty - self._known
-        lookup = {
-            k for k in fresh if k[2] <= max(self._stored_before, self._written_upto.get(k[0], -1))
-        }
+        lookup = {k for k in fresh if k[2] <= max(self._stored_before, self._written_upto.get(k[0], -1))}
         if lookup:
             windows = sorted({k[2] for k in lookup})
             old = conn.execute(
@@ -396,7 +394,19 @@ class SummaryKeeper:
         for u, _, w in keys:
             if w > self._written_upto.get(u, -1):
                 self._written_upto[u] = w
-        names = ("run_id", "unit_id", "series", "window_no", "count", "sum", "sumsq", "min", "max", "bins", "counts")
+        names = (
+            "run_id",
+            "unit_id",
+            "series",
+            "window_no",
+            "count",
+            "sum",
+            "sumsq",
+            "min",
+            "max",
+            "bins",
+            "counts",
+        )
         rows = [
             (self.run_id, u, sr, w, o.count, o.sum, o.sumsq, o.min, o.max, _pack(o.bins), _pack(o.counts))
             for (u, sr, w), o in ((key, self._open[key]) for key in keys)
@@ -404,9 +414,9 @@ class SummaryKeeper:
         if conn.dialect.name == "sqlite":
             # through the driver, a row replaced by primary key in one statement: none of the SQL
             # layer's work per row, and no DELETE before it
+            marks = ", ".join("?" * len(names))
             conn.connection.driver_connection.cursor().executemany(
-                f"INSERT OR REPLACE INTO summaries ({', '.join(names)}) VALUES ({', '.join('?' * len(names))})",
-                rows,
+                f"INSERT OR REPLACE INTO summaries ({', '.join(names)}) VALUES ({marks})", rows
             )
             return len(rows)
         conn.execute(

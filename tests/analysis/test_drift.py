@@ -2,13 +2,18 @@
 
 from __future__ import annotations
 
+import math
+import warnings
+
 import numpy as np
 import pytest
 from scipy.stats import theilslopes
 
 from benchlog.analysis import (
     MAKE,
+    CoarseSeries,
     DriftMonitor,
+    coarse_windows,
     cusum,
     drift,
     drift_horizon,
@@ -20,7 +25,6 @@ from benchlog.analysis import (
 
 # Montgomery, Introduction to Statistical Quality Control, tabular CUSUM example (Table 9.1 in the
 # editions I know): 30 observations, the first 20 from N(10, 1), the last 10 after a shift to mean 11.
-# The same data are reproduced in IMSL's documentation of its EWMA chart ("Montgomery 428").
 MONTGOMERY = np.array(
     [9.45, 7.99, 9.29, 11.66, 12.16, 10.18, 8.04, 11.46, 9.20, 10.34,
      9.03, 11.47, 10.51, 9.40, 10.08, 9.37, 10.62, 10.31, 8.52, 10.84,
@@ -225,3 +229,82 @@ def test_trend_test_is_kendalls_tau_as_scipy_computes_it():
         # reference: scipy.stats.kendalltau, one-sided, normal approximation with tie correction
         ref = kendalltau(np.arange(n), y, alternative="greater", method="asymptotic").pvalue
         assert rising_trend_p(y) == pytest.approx(ref, rel=1e-9)
+
+
+def _remedian_reference(lo, hi, cnt, val, points):
+    """The remedian by its definition (Rousseeuw and Bassett, JASA 85, 1990: medians of 3, level upon
+    level), with numpy's nanmedian, for the windows with data: the groups of 3**L windows at the lowest L
+    leaving at most `points` of them, and a last, unfinished group from the medians of its finished
+    parts (benchlog's own rule for the tail)."""
+    keep = cnt > 0
+    lo, hi, cnt, val = lo[keep], hi[keep], cnt[keep], val[keep]
+    n = len(val)
+    level = 0
+    while math.ceil(n / 3**level) > points:
+        level += 1
+
+    def value(i, size):  # the remedian of the group of `size` (a power of 3) windows from window i
+        if size == 1:
+            return val[i]
+        parts = [value(i + j * size // 3, size // 3) for j in range(3)]
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return float(np.nanmedian(parts))
+
+    size = 3**level
+    out = [
+        (lo[i], hi[i + size - 1] + 1, cnt[i : i + size].sum(), value(i, size))
+        for i in range(0, n // size * size, size)
+    ]
+    i = n // size * size
+    if i < n:
+        parts = []
+        for lv in range(level - 1, -1, -1):  # the finished parts of the tail, the largest first
+            while i + 3**lv <= n:
+                parts.append(value(i, 3**lv))
+                i += 3**lv
+        parts = [p for p in parts if not np.isnan(p)]
+        start = n // size * size
+        out.append((lo[start], hi[-1] + 1, cnt[start:].sum(), float(np.median(parts)) if parts else np.nan))
+    return out
+
+
+def test_a_long_series_is_coarsened_by_the_remedian_window_by_window_as_all_at_once():
+    rng = np.random.default_rng(4)
+    n = 700
+    lo = np.arange(n) * 100
+    hi = lo + 99
+    cnt = rng.integers(0, 4, n) * 25  # a quarter of the windows without data, left out
+    val = rng.lognormal(7, 0.3, n)
+    val[rng.random(n) < 0.1] = np.nan  # counted windows without the statistic
+    val[cnt == 0] = np.nan
+    points = 7  # several levels within a short series
+    fed = CoarseSeries(points)
+    resumed = None
+    for end in range(1, n + 1):
+        fed.add(lo[end - 1], hi[end - 1], cnt[end - 1], val[end - 1])
+        whole = coarse_windows(lo[:end], hi[:end], cnt[:end], val[:end], points)
+        ref = _remedian_reference(lo[:end], hi[:end], cnt[:end], val[:end], points)
+        got = fed.windows()
+        assert len(whole) <= points + 1 and len(got) == len(whole) == len(ref), end
+        for w in (whole, got):
+            assert w["cycle_start"].tolist() == [r[0] for r in ref]
+            assert w["cycle_end"].tolist() == [r[1] for r in ref]
+            assert w["count"].tolist() == [r[2] for r in ref]
+            np.testing.assert_array_equal(w["value"], [r[3] for r in ref])
+        if end == 300:  # a unit's earlier life read back from the store, then fed on
+            resumed = CoarseSeries.of(lo[:end], hi[:end], cnt[:end], val[:end], points)
+        elif resumed is not None:
+            resumed.add(lo[end - 1], hi[end - 1], cnt[end - 1], val[end - 1])
+            again = resumed.windows()
+            for field in again.dtype.names:
+                np.testing.assert_array_equal(again[field], got[field])
+    held = len(fed.lo) + sum(len(p) for p in fed.pending)
+    assert held <= points + 2 * fed.level  # what it keeps, whatever the length
+
+
+def test_a_series_within_the_points_is_not_coarsened():
+    lo = np.arange(240) * 100
+    val = np.linspace(1.0, 2.0, 240)
+    w = coarse_windows(lo, lo + 99, np.full(240, 100), val)
+    assert len(w) == 240 and w["value"].tolist() == val.tolist()

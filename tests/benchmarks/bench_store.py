@@ -19,7 +19,8 @@ Run: python tests/benchmarks/bench_store.py [--hours H] [--pg URL] [--skip inges
    and rollups) as fast as it goes, in a process of its own (started first, so no other section's
    memory is in its figures); RSS is sampled every simulated hour. Checks: peak RSS (the process's
    own high-water mark, VmHWM) <= 250 MB, and flat: the least-squares slope of RSS over hours 1 to
-   the end, times the hours, < 25 MB.
+   the end, times the hours, < 5 MB (a store writer whose state grew with the run rose about 1 MB an
+   hour).
 """
 
 from __future__ import annotations
@@ -339,8 +340,8 @@ def bench_recorder(tmp: Path, hours: float, channels: int, rate_cps: float, batc
     line(
         "RSS trend from hour 1 to the end (fitted slope x hours, MB)",
         f"{growth:+.0f}",
-        "< 25",
-        bool(growth < 25),
+        "< 5",
+        bool(growth < 5),
     )
     del start_rss
 

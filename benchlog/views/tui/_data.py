@@ -15,7 +15,7 @@ Statistics made from rollup windows (each window keeps count, p50, p95 and max o
   per-actuation count stands in, a lower bound (exact while at most one actuation of the window
   chattered).
 - **drift**: `benchlog.analysis.drift` over the windows' p95 (coarsened to at most `DRIFT_POINTS`
-  points by taking medians of consecutive windows), baseline from the first windows, projection to
+  points by the remedian, `benchlog.analysis.coarse_windows`), baseline from the first windows, projection to
   the spec limit by Theil-Sen. The baseline is the first quarter of the windows (5 to 20). A unit is
   flagged DRIFT by `DriftReport.confirmed`: a chart signal, a rising trend (Kendall's tau) and a
   crossing within the spec's life (docs/metrics.md gives the flag's measured detection and false
