@@ -16,9 +16,8 @@ from benchlog.stats import (
 )
 
 # Nelson's diesel-generator fan data (Nelson, *Applied Life Data Analysis*, Wiley 1982): 70 fans, hours,
-# 0 = failed, 1 = still running (suspension). Reproduced with its result in the SAS/QC User's Guide,
-# RELIABILITY procedure, example "Analysis of Right-Censored Data from a Single Population", and in
-# scipy's test suite (test_continuous_fit_censored.py::test_weibull_min_sas1).
+# 0 = failed, 1 = still running (suspension). The same data and their two-parameter Weibull ML
+# estimates are held in scipy's own test suite (scipy/stats/tests/test_continuous_fit_censored.py).
 FANS = """
 450 0 460 1 1150 0 1150 0 1560 1 1600 0 1660 1 1850 1 1850 1 1850 1 1850 1 1850 1 2030 1 2030 1
 2030 1 2070 0 2070 0 2080 0 2200 1 3000 1 3000 1 3000 1 3000 1 3100 0 3200 1 3450 0 3750 1 3750 1
@@ -44,7 +43,7 @@ def test_nelson_fans_to_four_significant_figures():
     table = fans()
     assert len(table) == 70 and table.failures == 12  # 58 suspensions kept, none counted as failures
     fit = fit_weibull(table)
-    # SAS/QC RELIABILITY example: shape 1.0584, scale 26.297 (thousand hours)
+    # the ML estimates scipy's test suite holds for these data: shape 1.0584, scale 26.297 (thousand hours)
     assert fit.shape == pytest.approx(1.0584, rel=1e-4)
     assert fit.scale == pytest.approx(26.2968, rel=1e-5)
     assert float(f"{fit.shape:.4g}") == 1.058 and float(f"{fit.scale:.4g}") == 26.30
@@ -66,9 +65,9 @@ def test_mle_agrees_with_direct_maximisation():
     assert fit.loglik == pytest.approx(hand_loglik(fit.shape, fit.scale, t, f), rel=1e-9)
 
 
-def test_lecture_example_small_sample():
-    # 20 survival times, * = right-censored: shape 2.149, scale 28.99 (AMS 588 lecture 3 notes, Stony
-    # Brook; reproduced in scipy's test_continuous_fit_censored.py::test_weibull_censored1)
+def test_a_small_censored_sample_held_in_scipys_tests():
+    # 20 survival times, * = right-censored: shape 2.149, scale 28.99 (the data and estimates of scipy's
+    # test suite, scipy/stats/tests/test_continuous_fit_censored.py)
     s = "3,5,6*,8,10*,11*,15,20*,22,23,27*,29,32,35,40,26,28,33*,21,24*"
     table = LifeTable.of(
         [(i, float(w.rstrip("*")), not w.endswith("*"), "x") for i, w in enumerate(s.split(","))]
