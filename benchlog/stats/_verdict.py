@@ -418,7 +418,8 @@ def _life_criterion(
             high,
             life_req,
             f"Weibull MLE with suspensions (shape {fit.shape:.3g}, {fit.failures} failures "
-            f"of {fit.units}), lower bound by the matching prior, upper by likelihood ratio",
+            f"of {fit.units}), lower bound by the matching prior (read as stopped at the last failure), "
+            "upper by likelihood ratio",
         )
         shape = fit.shape
     elif assumed_shape:
@@ -559,8 +560,8 @@ def _fit_dict(fit: WeibullFit, x: float, conf: float) -> dict:
         "bx_percent": x,
         "bx": fit.bx(x),
         "bx_bounds": (fit.bx_lower_matching(x, conf), fit.bx_bounds(x, conf)[1]),
-        "bounds": "Bx: lower by the matching prior 1/b, upper by likelihood ratio; shape and scale: "
-        "likelihood ratio; one-sided each at the confidence",
+        "bounds": "Bx: lower by the matching prior 1/b (the test read as stopped at its last failure), "
+        "upper by likelihood ratio; shape and scale: likelihood ratio; one-sided each at the confidence",
     }
 
 

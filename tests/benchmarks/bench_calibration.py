@@ -9,9 +9,11 @@ drift, its own wear rate), without the pseudo-terminal. They are judged by the c
 MISSED where one misses.
 
 Run: python tests/benchmarks/bench_calibration.py [--populations N] [--drift-units N] [--jobs 2]
-[--only drift|coverage|oc] [--sizes 8 16 32]
+[--only drift|coverage|life|oc] [--sizes 8 16 32]
 (defaults: 1000 populations per size, 300 of them with a life fit and 200 with the earlier bootstrap,
 150 populations per point of the verdict's curve and 600 at the guarded margin, 60 drift units).
+`--only life --life N --old N`: the B10 bounds alone on N lots a size (with `--old`, the earlier
+likelihood-ratio lower bound beside them), the percentile bounds skipped.
 """
 
 from __future__ import annotations
@@ -74,18 +76,20 @@ def _drift_unit(seed: int):
 
 
 def _coverage_one(args):
-    units, seed, truth_p95, truth_b10, old, life = args
+    units, seed, truth_p95, truth_b10, old, life, percentiles = args
     rng = np.random.default_rng(seed)
     pop = demo_population()
     lot = draw_lot(pop, units, CYCLES, rng, test_end=TEST_END)
     ref = draw_lot(pop, units, CYCLES, rng)
     s, r = lot.samples["make_bounce"], ref.samples["make_bounce"]
     out: dict[str, list[tuple[float, float]]] = {}
+    # with the life figures alone (--only life): the same lots, the percentile bounds skipped
+    levels = LEVELS if percentiles else ()
     # the draws pooled_percentile and percentile_ratio take, shared by the three levels
     m_s, m_r = UnitEffect.of(s), UnitEffect.of(r)
-    d_s = m_s.percentile_draws(95.0, 2000, seed)
-    d_r = m_r.percentile_draws(95.0, 2000, seed + 1)
-    for lv in LEVELS:
+    d_s = m_s.percentile_draws(95.0, 2000, seed) if percentiles else None
+    d_r = m_r.percentile_draws(95.0, 2000, seed + 1) if percentiles else None
+    for lv in levels:
         c = (1 + lv) / 2
         out[f"p95 {lv}"] = [bounds(d_s, c)]
         out[f"ratio {lv}"] = [bounds(d_s / d_r, c)]
@@ -128,7 +132,11 @@ def main() -> None:
     ap.add_argument("--oc-margin", type=int, default=600, help="populations at the guarded margin's point")
     ap.add_argument("--drift-units", type=int, default=60)
     ap.add_argument("--jobs", type=int, default=2)
-    ap.add_argument("--only", choices=("drift", "coverage", "oc"), help="one part alone")
+    ap.add_argument(
+        "--only",
+        choices=("drift", "coverage", "life", "oc"),
+        help="one part alone (life: the coverage part's B10 bounds alone, on --life lots a size)",
+    )
     ap.add_argument("--sizes", type=int, nargs="+", default=list(SIZES), help="units per lot (coverage, oc)")
     a = ap.parse_args()
     t_all = time.perf_counter()
@@ -143,7 +151,7 @@ def main() -> None:
     with Pool(a.jobs) as pool:
         if a.only in (None, "drift"):
             _drift_part(pool, a)
-        if a.only in (None, "coverage"):
+        if a.only in (None, "coverage", "life"):
             _coverage_part(pool, a, truth_p95, truth_b10)
         if a.only in (None, "oc"):
             _oc_part(pool, a)
@@ -184,10 +192,11 @@ def _drift_part(pool, a) -> None:
 
 def _coverage_part(pool, a, truth_p95: float, truth_b10: float) -> None:
     t0 = time.perf_counter()
+    lots = a.life if a.only == "life" else a.populations
     jobs = [
-        (n, 10_000 * n + i, truth_p95, truth_b10, i < a.old, i < a.life)
+        (n, 10_000 * n + i, truth_p95, truth_b10, i < a.old, i < a.life, a.only != "life")
         for n in a.sizes
-        for i in range(a.populations)
+        for i in range(lots)
     ]
     hits: dict[tuple[int, str], list[int]] = {}
     for n, out, tp, tb in pool.imap_unordered(_coverage_one, jobs, chunksize=8):
@@ -197,12 +206,12 @@ def _coverage_part(pool, a, truth_p95: float, truth_b10: float) -> None:
             h[0] += lo <= truth
             h[1] += truth <= hi
             h[2] += 1
-    print(f"\ninterval coverage ({a.populations} populations per size; {time.perf_counter() - t0:.0f} s)")
+    print(f"\ninterval coverage ({lots} populations per size; {time.perf_counter() - t0:.0f} s)")
     print("  target: within 2.5 points of nominal, never below by more; bounds one-sided at (1 + level) / 2")
     for key, label in (
         ("p95", "pooled p95, random unit effect"),
         ("ratio", "p95 ratio, random unit effect (true ratio 1)"),
-        ("b10", "B10 lower bound, matching prior, stopped at 300k"),
+        ("b10", "B10 lower bound, matching prior at the last failure, stopped at 300k"),
         ("lr b10", "B10 lower bound, likelihood ratio (earlier)"),
         ("boot p95", "pooled p95, earlier cluster bootstrap"),
         ("boot ratio", "p95 ratio, earlier cluster bootstrap"),

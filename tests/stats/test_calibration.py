@@ -100,26 +100,24 @@ def test_the_demo_flags_drift_only_where_the_simulator_wears_toward_the_limit():
     assert flagged_worn >= 3  # and the worn units are flagged
 
 
-def test_b10_lower_bound_covers_the_simulators_true_b10():
-    # 150 life tests of 16 units each, lives drawn by the simulator (benchlog.sim's draw_unit, the demo's
-    # AG-MS5 population: Weibull shape 2.4, scale 420,000 cycles), stopped at 300,000 cycles (3 to 10
-    # failures); the truth is the population's B10, eta (-ln 0.9)^(1/beta) (common practice, no source).
-    # A one-sided 90 % lower bound should hold at least 87.5 % of the time (the harness's target;
-    # binomial SD here 2.4 points). The likelihood-ratio bound, which the verdict used before, held
-    # fewer on these same tests.
+def test_b10_lower_bound_covers_the_simulators_true_b10_at_its_level():
+    # 200 life tests of 8 units each, lives drawn by the simulator (benchlog.sim's draw_unit, the demo's
+    # AG-MS5 population: Weibull shape 2.4, scale 420,000 cycles), stopped at 300,000 cycles (2 to 6
+    # failures in the tests that reach a fit); the truth is the population's B10, eta (-ln 0.9)^(1/beta)
+    # (common practice, no source). A one-sided 90 % lower bound should hold within 2.5 points of 90 %
+    # and never further below (the harness's target; binomial SD here 2 points). With the units alive
+    # at the test's end in the posterior, the bound held about 0.98 of such tests: too low a bound,
+    # a life pass refused that the data supported.
     rng = np.random.default_rng(11)
     pop = demo_population()
     truth = true_b10(pop)
-    held = {"matching": 0, "likelihood ratio": 0}
-    lots = 0
-    while lots < 150:
-        life = np.array([draw_unit(rng, 0, f"U{i}", pop).life for i in range(16)])
+    held = lots = 0
+    while lots < 200:
+        life = np.array([draw_unit(rng, 0, f"U{i}", pop).life for i in range(8)])
         table = LifeTable.of([(i, min(v, 3e5), bool(v <= 3e5), "x") for i, v in enumerate(life.tolist())])
         if table.failures < 2:  # no fit: the verdict takes the Weibayes path then
             continue
         fit = fit_weibull(table)
         lots += 1
-        held["matching"] += fit.bx_lower_matching(10.0, 0.9) <= truth
-        held["likelihood ratio"] += fit.bx_bounds(10.0, 0.9)[0] <= truth
-    assert held["matching"] / lots >= 0.875, held
-    assert held["likelihood ratio"] < held["matching"], held
+        held += fit.bx_lower_matching(10.0, 0.9) <= truth
+    assert 0.875 <= held / lots <= 0.95, held

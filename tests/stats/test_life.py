@@ -234,16 +234,34 @@ def test_matching_prior_bound_leaves_its_share_of_posterior_below():
     fit = fit_weibull(table)
     k = -math.log(0.9)
     low = fit.bx_lower_matching(10, 0.9)
-    assert low < fit.bx(10) and low < fit.bx_bounds(10, 0.9)[0]  # wider than the likelihood ratio's here
-    log_t, r, s_f = np.log(table.cycles), fit.failures, np.log(fit.t_fail).sum()
+    assert low < fit.bx(10)
+    # the posterior is that of the test read as stopped at its last failure: the units alive at
+    # 300,000 cycles count as suspended at the last failure's cycles
+    last = fit.t_fail.max()
+    log_t = np.log(np.minimum(table.cycles, last))
+    r, s_f = fit.failures, np.log(fit.t_fail).sum()
 
     def density(x, lb):  # in (ln B10, ln shape)
         b = math.exp(lb)
         ll = r * lb - r * (b * x - math.log(k)) + (b - 1) * s_f - k * np.exp(b * (log_t - x)).sum()
-        return math.exp(ll - fit.loglik)
+        return math.exp(ll - fit.failure_censored().loglik)
 
     lb0, x0 = math.log(fit.shape), math.log(fit.bx(10))
     below = integrate.dblquad(density, lb0 - 3, lb0 + 3, x0 - 8, math.log(low), epsrel=1e-7)[0]
     above = integrate.dblquad(density, lb0 - 3, lb0 + 3, math.log(low), x0 + 4, epsrel=1e-7)[0]
     assert below / (below + above) == pytest.approx(0.10, abs=5e-4)
     assert fit.bx_lower_matching(10, 0.95) < low  # lower at a higher confidence
+
+
+def test_the_failure_censored_reading_moves_only_the_units_that_outlived_the_last_failure():
+    # units 0-3 failed, unit 4 was taken off early (suspended before the last failure), units 5-7 ran to
+    # the end of the test; read as stopped at the last failure (800), only 5-7 move, to 800
+    rows = [(0, 300.0, True), (1, 450.0, True), (2, 600.0, True), (3, 800.0, True), (4, 500.0, False)]
+    rows += [(5, 2000.0, False), (6, 2000.0, False), (7, 2000.0, False)]
+    fit = fit_weibull(LifeTable.of([(u, c, f, "x" if f else "") for u, c, f in rows]))
+    cen = fit.failure_censored()
+    assert sorted(cen.t_susp.tolist()) == [500.0, 800.0, 800.0, 800.0]
+    by_hand = fit_weibull(LifeTable.of([(u, min(c, 800.0), f, "x" if f else "") for u, c, f in rows]))
+    assert (cen.shape, cen.scale) == pytest.approx((by_hand.shape, by_hand.scale), rel=1e-9)
+    assert (fit.shape, fit.scale) != pytest.approx((cen.shape, cen.scale))  # the fit itself is unchanged
+    assert cen.failure_censored() is cen  # nothing ran past its last failure
