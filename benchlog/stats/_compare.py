@@ -490,8 +490,21 @@ class Capability:
 
 
 def capability(
-    sample: UnitSample, upper_limit: float, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+    sample: UnitSample,
+    upper_limit: float,
+    *,
+    confidence: float = 0.9,
+    n_resamples: int = 2000,
+    seed: int = 0,
+    method: str = "auto",
 ) -> Capability:
+    """Ppk and the percentile index of the pooled actuations, with one-sided bounds at `confidence`.
+
+    `method` as for `pooled_percentile`: the bounds come from the random-unit-effect model's generalized
+    pivotal draws (each draw's population mean and sd, `UnitEffect.moments`, and its median and
+    p99.865, `UnitEffect.quantile`) where every unit's median is positive, else from the cluster
+    bootstrap, which falls far short with 8 to 32 units (tests/benchmarks/bench_calibration.py --only
+    info; docs/qualification.md)."""
     _check_units(sample)
     u = sample.n_units
     s1 = sample.unit_sums()
@@ -513,6 +526,23 @@ def capability(
             return (upper_limit - med) / (tail - med)
 
     ones = np.ones(u)
+    model = UnitEffect.of(sample) if method in ("auto", "unit-effect") else None
+    too_few = len(sample) * (1 - PERCENTILE_INDEX_TAIL / 100) < 1
+    if model is not None:
+        mu, sigma = model.draws(n_resamples, np.random.default_rng(seed))
+        mean, sd = model.moments(mu, sigma)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lo, hi = effect_bounds((upper_limit - mean) / (3.0 * sd), confidence)
+            ppk_i = Interval(float(ppk(ones)), lo, hi, confidence, u, EFFECT_METHOD)
+            if too_few:
+                nan = float("nan")
+                pidx = Interval(nan, nan, nan, confidence, u, "too few values to place p99.865")
+            else:
+                med = model.quantile(mu, sigma, 50.0)
+                tail = model.quantile(mu, sigma, PERCENTILE_INDEX_TAIL)
+                lo, hi = effect_bounds((upper_limit - med) / (tail - med), confidence)
+                pidx = Interval(float(pindex(ones)), lo, hi, confidence, u, EFFECT_METHOD)
+        return Capability(upper_limit, ppk_i, pidx)
     method = _METHOD
     lo, hi = _bootstrap(
         (sample,),
@@ -522,7 +552,7 @@ def capability(
         seed,
     )
     ppk_i = Interval(float(ppk(ones)), lo, hi, confidence, u, method)
-    if len(sample) * (1 - PERCENTILE_INDEX_TAIL / 100) < 1:
+    if too_few:
         nan = float("nan")
         pidx = Interval(nan, nan, nan, confidence, u, "too few values to place p99.865")
     else:
@@ -557,14 +587,28 @@ class Share:
 
 
 def share_beyond(
-    sample: UnitSample, limit: float, *, confidence: float = 0.9, n_resamples: int = 2000, seed: int = 0
+    sample: UnitSample,
+    limit: float,
+    *,
+    confidence: float = 0.9,
+    n_resamples: int = 2000,
+    seed: int = 0,
+    method: str = "auto",
 ) -> Share:
+    """The share of actuations beyond `limit`: Clopper-Pearson for these actuations, and bounds for the
+    population from the random-unit-effect model (each pivotal draw's 1 - F(limit),
+    `UnitEffect.share_above`) where every unit's median is positive, else from the cluster bootstrap
+    of the share (which gives [0, 0] whenever no recorded value passed the limit)."""
     if len(sample) == 0:
         raise DataError("no measured values")
     over = sample.values > limit
     k, n = int(round(sample.unit_sums(over.astype(np.float64)).sum())), len(sample)
     ci = stats.binomtest(k, n).proportion_ci(confidence_level=confidence, method="exact")
-    if sample.n_units >= 3:
+    model = UnitEffect.of(sample) if method in ("auto", "unit-effect") and sample.n_units >= 3 else None
+    if model is not None:
+        mu, sigma = model.draws(n_resamples, np.random.default_rng(seed))
+        ulo, uhi = effect_bounds(model.share_above(mu, sigma, limit), confidence)
+    elif sample.n_units >= 3:
         iv = pooled_mean(
             UnitSample(over.astype(np.float64), sample.unit, sample.unit_names, sample.weights),
             confidence=confidence,

@@ -50,6 +50,7 @@ _ITERATIONS = 40  # bisection steps on log x
 _RESIDUAL_POINTS = 256  # the residual distribution as this many of its quantiles
 _SIGMA_GRID = 97  # G(sigma) tabulated at this many sigmas from 0 to the largest drawn
 _MEDIAN_NODES = 128  # the sample median's Beta distribution as this many of its quantiles
+_TAIL_POINTS = 1024  # the residuals for a share beyond a limit: finer, down to a share of 1 in 2,000
 
 METHOD = "random unit effect (log-normal unit medians), generalized pivotal bounds"
 
@@ -76,22 +77,32 @@ class UnitEffect:
         if not (med > 0).all():
             raise ValueError("a unit's median is not positive")
         q = (np.arange(_RESIDUAL_POINTS) + 0.5) / _RESIDUAL_POINTS
+        qt = (np.arange(_TAIL_POINTS) + 0.5) / _TAIL_POINTS
         ratio = values / med[unit]
         if weights is None:
             r = np.quantile(ratio, q)
+            r_fine = np.quantile(ratio, qt)
         else:
             o = np.argsort(ratio, kind="stable")
             r = _repeated_quantiles(ratio[o], np.asarray(weights, np.float64)[o], q)
+            r_fine = _repeated_quantiles(ratio[o], np.asarray(weights, np.float64)[o], qt)
         y = np.log(med)
         spread = float(y.std(ddof=1)) if n_units > 1 else 0.0
         self._set(float(y.mean()), spread, n_units, r, float(median_noise(r, counts).mean()))
+        wr = np.ones(len(ratio)) if weights is None else np.asarray(weights, np.float64)
+        self.r_moments = (float(wr @ ratio) / wr.sum(), float(wr @ (ratio * ratio)) / wr.sum())
+        with np.errstate(divide="ignore"):
+            self._log_r_fine = np.log(r_fine)
 
     @classmethod
     def from_parts(cls, mu: float, sigma: float, n_units: int, residuals: np.ndarray) -> UnitEffect:
         """The model with its parameters given (for planning: residuals known, no sample; `sigma` is the
         unit medians' log-sd, with no sampling noise of the medians in it)."""
         self = cls.__new__(cls)
-        self._set(mu, sigma, n_units, np.sort(np.asarray(residuals, np.float64)), 0.0)
+        r = np.sort(np.asarray(residuals, np.float64))
+        self._set(mu, sigma, n_units, r, 0.0)
+        self.r_moments = (float(r.mean()), float((r * r).mean()))
+        self._log_r_fine = self._log_r
         return self
 
     def _set(self, mu: float, spread: float, n_units: int, r: np.ndarray, noise: float) -> None:
@@ -151,6 +162,32 @@ class UnitEffect:
     def percentile_draws(self, percentile: float, count: int, seed) -> np.ndarray:
         mu, sigma = self.draws(count, np.random.default_rng(seed))
         return self.quantile(mu, sigma, percentile)
+
+    def moments(self, mu: np.ndarray, sigma: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(mean, sd) of the mixture for each (mu, sigma): a value is m r with m = exp(mu + sigma Z)
+        independent of r, and E m^k = exp(k mu + k^2 sigma^2 / 2) (the log-normal's moments), so
+        E X = exp(mu + sigma^2 / 2) E r and E X^2 = exp(2 mu + 2 sigma^2) E r^2 (E r, E r^2 over every
+        recorded value's ratio to its unit's median)."""
+        r1, r2 = self.r_moments
+        mu, v = np.asarray(mu, np.float64), np.square(np.asarray(sigma, np.float64))
+        mean = np.exp(mu + v / 2) * r1
+        second = np.exp(2 * mu + 2 * v) * r2
+        return mean, np.sqrt(np.maximum(second - mean * mean, 0.0))
+
+    def share_above(self, mu: np.ndarray, sigma: np.ndarray, limit: float) -> np.ndarray:
+        """1 - F(limit) of the mixture for each (mu, sigma): the mean over the residuals (as 1,024 of
+        their quantiles: a share of a few in 10,000 lies beyond the 256 the percentiles use) of
+        Phi((log r + mu - log limit) / sigma) (a step where sigma is 0)."""
+        from scipy.special import ndtr
+
+        mu = np.atleast_1d(np.asarray(mu, np.float64))[:, None]
+        sigma = np.atleast_1d(np.asarray(sigma, np.float64))[:, None]
+        log_r = self._log_r_fine[None, :]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = (log_r + mu - math.log(limit)) / sigma
+            step = (log_r + mu > math.log(limit)).astype(np.float64)
+            p = np.where(sigma > 0, ndtr(z), step)
+        return p.mean(axis=1)
 
 
 def pivots(ybar, spread, noise: float, n: int, u: np.ndarray, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -9,11 +9,13 @@ drift, its own wear rate), without the pseudo-terminal. They are judged by the c
 MISSED where one misses.
 
 Run: python tests/benchmarks/bench_calibration.py [--populations N] [--drift-units N] [--jobs 2]
-[--only drift|coverage|life|oc] [--sizes 8 16 32]
+[--only drift|coverage|life|info|oc] [--sizes 8 16 32]
 (defaults: 1000 populations per size, 300 of them with a life fit and 200 with the earlier bootstrap,
 150 populations per point of the verdict's curve and 600 at the guarded margin, 60 drift units).
 `--only life --life N --old N`: the B10 bounds alone on N lots a size (with `--old`, the earlier
-likelihood-ratio lower bound beside them), the percentile bounds skipped.
+likelihood-ratio lower bound beside them), the percentile bounds skipped. `--only info --info N
+--old M`: the bounds shown beside the criteria (pooled p99, Ppk, percentile index, share beyond a
+limit, failure rate), N lots a size, the earlier cluster bootstrap on the first M.
 """
 
 from __future__ import annotations
@@ -37,12 +39,22 @@ from calib import (  # noqa: E402
     drift_figures,
     judge_unit_drift,
     true_b10,
+    true_capability,
+    true_failure_rate,
     true_pooled_p95,
     unit_population,
 )
 
 from benchlog.errors import DataError  # noqa: E402
-from benchlog.stats import decide_at_most, fit_weibull, percentile_ratio, pooled_percentile  # noqa: E402
+from benchlog.stats import (  # noqa: E402
+    capability,
+    decide_at_most,
+    failure_rate,
+    fit_weibull,
+    percentile_ratio,
+    pooled_percentile,
+    share_beyond,
+)
 from benchlog.stats._unit_effect import UnitEffect, bounds  # noqa: E402
 
 SIZES = (8, 16, 32)
@@ -113,6 +125,95 @@ def _coverage_one(args):
     return units, out, truth_p95, truth_b10
 
 
+SHARE_LIMIT_US = 1200.0  # a second limit for the share beyond, where the share is a few % (invented)
+
+
+def _info_one(args):
+    """The bounds `qualify` shows beside the criteria, on one lot: the pooled p99, Ppk and the percentile
+    index against
+    the make bounce limit, the share beyond it (and beyond SHARE_LIMIT_US), by the random unit effect
+    (and, on the first --old lots, the earlier cluster bootstrap) and Clopper-Pearson, and the failure
+    rate per cycle of the life test."""
+    units, seed, boot = args
+    rng = np.random.default_rng(seed)
+    lot = draw_lot(demo_population(), units, CYCLES, rng, test_end=TEST_END)
+    s = lot.samples["make_bounce"]
+    out: dict[str, list[tuple[float, float]]] = {}
+    for lv in LEVELS:
+        c = (1 + lv) / 2  # these bounds are one-sided each at their confidence
+        iv = pooled_percentile(s, 99.0, confidence=c, seed=seed)
+        out[f"p99 {lv}"] = [(iv.low, iv.high)]
+        for how, tag in (("auto", ""), ("bootstrap", " boot")):
+            if tag and not boot:
+                continue
+            cap = capability(s, MAKE_LIMIT_US, confidence=c, seed=seed, method=how)
+            out[f"ppk{tag} {lv}"] = [(cap.ppk.low, cap.ppk.high)]
+            out[f"pindex{tag} {lv}"] = [(cap.percentile_index.low, cap.percentile_index.high)]
+            for name, limit in (("share", MAKE_LIMIT_US), ("share2", SHARE_LIMIT_US)):
+                sh = share_beyond(s, limit, confidence=c, seed=seed, method=how)
+                out[f"{name}{tag} {lv}"] = [(sh.unit_low, sh.unit_high)]
+        for name, limit in (("share", MAKE_LIMIT_US), ("share2", SHARE_LIMIT_US)):
+            # Clopper-Pearson and the failure rate are two-sided at their confidence
+            sh = share_beyond(s, limit, confidence=lv, seed=seed)
+            out[f"{name} cp {lv}"] = [(sh.cp_low, sh.cp_high)]
+        r = failure_rate(lot.life.failures, int(round(lot.life.cycles.sum())), confidence=lv, per=1)
+        out[f"rate {lv}"] = [(r.low, r.high)]
+    return units, out
+
+
+def _info_part(pool, a) -> None:
+    t0 = time.perf_counter()
+    pop = demo_population()
+    truth = true_capability(pop, np.random.default_rng(2), MAKE_LIMIT_US)
+    truth["share2"] = true_capability(pop, np.random.default_rng(2), SHARE_LIMIT_US)["share"]
+    truth["rate"] = true_failure_rate(pop, TEST_END)
+    print(
+        f"\ntruth: p99 {truth['p99']:.1f} us, Ppk {truth['ppk']:.3f}, percentile index {truth['pindex']:.3f} "
+        f"(limit "
+        f"{MAKE_LIMIT_US:,.0f} us), share beyond it {truth['share']:.2e}, beyond {SHARE_LIMIT_US:,.0f} us "
+        f"{truth['share2']:.4f}, failures per cycle of the life test {truth['rate']:.3e}"
+    )
+    jobs = [(n, 20_000 * n + i, i < a.old) for n in a.sizes for i in range(a.info)]
+    hits: dict[tuple[int, str], list[int]] = {}
+    for n, out in pool.imap_unordered(_info_one, jobs, chunksize=8):
+        for key, [(lo, hi)] in out.items():
+            t = truth[key.split(" ")[0]]
+            h = hits.setdefault((n, key), [0, 0, 0])
+            h[0] += lo <= t
+            h[1] += t <= hi
+            h[2] += 1
+    print(f"\nbounds shown beside the criteria ({a.info} lots per size; {time.perf_counter() - t0:.0f} s)")
+    for key, label in (
+        ("p99", "pooled p99, random unit effect"),
+        ("ppk", "Ppk, random unit effect"),
+        ("pindex", "percentile index, random unit effect"),
+        ("share", f"share beyond {MAKE_LIMIT_US:,.0f} us, random unit effect"),
+        ("share2", f"share beyond {SHARE_LIMIT_US:,.0f} us, random unit effect"),
+        ("rate", "failure rate per cycle, Clopper-Pearson"),
+        ("share cp", f"share beyond {MAKE_LIMIT_US:,.0f} us, Clopper-Pearson (these actuations)"),
+        ("share2 cp", f"share beyond {SHARE_LIMIT_US:,.0f} us, Clopper-Pearson (these actuations)"),
+        ("ppk boot", "Ppk, cluster bootstrap (earlier)"),
+        ("pindex boot", "percentile index, cluster bootstrap (earlier)"),
+        ("share boot", f"share beyond {MAKE_LIMIT_US:,.0f} us, cluster bootstrap (earlier)"),
+        ("share2 boot", f"share beyond {SHARE_LIMIT_US:,.0f} us, cluster bootstrap (earlier)"),
+    ):
+        for n in a.sizes:
+            for lv in LEVELS:
+                h = hits.get((n, f"{key} {lv}"))
+                if h and " cp" in key:  # a bound on these units' actuations, not the population's
+                    _line(f"{label}, {n} units, {lv:.0%} (n={h[2]})", (h[0] + h[1] - h[2]) / h[2], "-", True)
+                elif h:
+                    _two_sided(f"{label}, {n} units, {lv:.0%} (n={h[2]})", h, lv)
+
+
+def _two_sided(name: str, h: list[int], lv: float) -> None:
+    """Two-sided coverage against its nominal level, then the worse side alone against (1 + lv) / 2;
+    within 2.5 points of nominal and never further below."""
+    cov, worst = (h[0] + h[1] - h[2]) / h[2], min(h[0], h[1]) / h[2]
+    _one_sided(name, cov, lv)
+    _one_sided(f"    worse side alone ({'lower' if h[0] < h[1] else 'upper'} bound)", worst, (1 + lv) / 2)
+
+
 def _oc_one(args):
     units, ratio, seed, conf = args
     rng = np.random.default_rng(seed)
@@ -131,10 +232,11 @@ def main() -> None:
     ap.add_argument("--oc", type=int, default=150, help="populations per point of the verdict's curve")
     ap.add_argument("--oc-margin", type=int, default=600, help="populations at the guarded margin's point")
     ap.add_argument("--drift-units", type=int, default=60)
+    ap.add_argument("--info", type=int, default=300, help="lots a size for the bounds beside the criteria")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument(
         "--only",
-        choices=("drift", "coverage", "life", "oc"),
+        choices=("drift", "coverage", "life", "info", "oc"),
         help="one part alone (life: the coverage part's B10 bounds alone, on --life lots a size)",
     )
     ap.add_argument("--sizes", type=int, nargs="+", default=list(SIZES), help="units per lot (coverage, oc)")
@@ -153,6 +255,8 @@ def main() -> None:
             _drift_part(pool, a)
         if a.only in (None, "coverage", "life"):
             _coverage_part(pool, a, truth_p95, truth_b10)
+        if a.only in (None, "info"):
+            _info_part(pool, a)
         if a.only in (None, "oc"):
             _oc_part(pool, a)
     print(f"\ntotal {time.perf_counter() - t_all:.0f} s")

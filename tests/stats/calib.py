@@ -166,34 +166,79 @@ def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: fl
     return Population.from_actuations("lot", np.concatenate(rows), np.concatenate(ids), LifeTable.of(life))
 
 
-def true_pooled_p95(pop, rng: np.random.Generator, draws: int = 2_000_000) -> float:
-    """The population's true make bounce p95 (new units): the quantile of the mixture over the unit size
-    f = exp(SIZE_SIGMA Z), integrated exactly over f: P(f X <= x) = E_X[Phi((log x - log X) / SIZE_SIGMA)]
-    (X = 0, a make with no bounce, counts below every x), the expectation over `draws` bounce trains of
-    the physics at size 1 (log X binned 0.001 wide, far finer than SIZE_SIGMA smooths). Drawing 20,000
-    units of 40 trains instead, as this did before, left a Monte Carlo error of about 0.4 % in the p95
-    (its figure, 1554.5 us, was 0.6 % under the 1564 us found here), enough to move the lower bound's
-    coverage at 32 units by 2 to 3 points."""
-    from scipy.special import ndtr
+class _Mixture:
+    """The population's make bounce for new units: the mixture over the unit size f = exp(SIZE_SIGMA Z)
+    of the physics' bounce X at size 1, integrated exactly over f: P(f X <= x) =
+    E_X[Phi((log x - log X) / SIZE_SIGMA)] (X = 0, a make with no bounce, counts below every x), the
+    expectation over `draws` bounce trains (log X binned 0.001 wide, far finer than SIZE_SIGMA smooths).
+    Moments: f and X independent, E f^k = exp(k^2 SIZE_SIGMA^2 / 2) (the log-normal's moments)."""
 
-    counts = np.zeros(0)
-    edges = np.arange(0.0, 12.0, 0.001)  # log us: 1 us to 160 ms
-    zero = 0
-    for k in np.diff(np.linspace(0, draws, 11).astype(int)):
-        off, n, _ = _train(rng, pop.make, np.ones(k), 24, 2.0, ON_NS / 1e3 - pop.operate.median_us)
-        x = off[np.arange(k), 2 * n]
-        zero += int((x <= 0).sum())
-        h, _ = np.histogram(np.log(x[x > 0]), edges)
-        counts = h if len(counts) == 0 else counts + h
-    log_x = 0.5 * (edges[1:] + edges[:-1])
-    used = counts > 0
-    log_x, weight = log_x[used], counts[used] / draws
-    lo, hi = float(log_x[0]) - 8 * SIZE_SIGMA, float(log_x[-1]) + 8 * SIZE_SIGMA
-    for _ in range(50):  # bisection on log x
-        mid = 0.5 * (lo + hi)
-        below = zero / draws + float(weight @ ndtr((mid - log_x) / SIZE_SIGMA)) < 0.95
-        lo, hi = (mid, hi) if below else (lo, mid)
-    return float(np.exp(0.5 * (lo + hi)))
+    def __init__(self, pop, rng: np.random.Generator, draws: int) -> None:
+        counts = np.zeros(0)
+        edges = np.arange(0.0, 12.0, 0.001)  # log us: 1 us to 160 ms
+        zero = 0
+        s1 = s2 = 0.0
+        for k in np.diff(np.linspace(0, draws, 11).astype(int)):
+            off, n, _ = _train(rng, pop.make, np.ones(k), 24, 2.0, ON_NS / 1e3 - pop.operate.median_us)
+            x = off[np.arange(k), 2 * n]
+            zero += int((x <= 0).sum())
+            s1 += float(x.sum())
+            s2 += float((x * x).sum())
+            h, _ = np.histogram(np.log(x[x > 0]), edges)
+            counts = h if len(counts) == 0 else counts + h
+        log_x = 0.5 * (edges[1:] + edges[:-1])
+        used = counts > 0
+        self.zero = zero / draws
+        self.log_x, self.weight = log_x[used], counts[used] / draws
+        v = SIZE_SIGMA**2
+        self.mean = np.exp(v / 2) * s1 / draws
+        self.sd = float(np.sqrt(np.exp(2 * v) * s2 / draws - self.mean**2))
+
+    def cdf(self, x: float) -> float:
+        from scipy.special import ndtr
+
+        return self.zero + float(self.weight @ ndtr((np.log(x) - self.log_x) / SIZE_SIGMA))
+
+    def quantile(self, q: float) -> float:
+        lo, hi = float(self.log_x[0]) - 8 * SIZE_SIGMA, float(self.log_x[-1]) + 8 * SIZE_SIGMA
+        for _ in range(50):  # bisection on log x
+            mid = 0.5 * (lo + hi)
+            lo, hi = (mid, hi) if self.cdf(np.exp(mid)) < q else (lo, mid)
+        return float(np.exp(0.5 * (lo + hi)))
+
+
+def true_pooled_p95(pop, rng: np.random.Generator, draws: int = 2_000_000) -> float:
+    """The population's true make bounce p95 (new units), from `_Mixture`. Drawing 20,000 units of 40
+    trains instead, as this did before, left a Monte Carlo error of about 0.4 % in the p95 (its figure,
+    1554.5 us, was 0.6 % under the 1564 us found here), enough to move the lower bound's coverage at 32
+    units by 2 to 3 points."""
+    return _Mixture(pop, rng, draws).quantile(0.95)
+
+
+def true_capability(pop, rng: np.random.Generator, limit: float, draws: int = 2_000_000) -> dict[str, float]:
+    """The population's true figures behind `benchlog.stats.capability` and `share_beyond` against an
+    upper `limit` (new units): Ppk = (limit - mean) / (3 sd), the percentile index (limit - median) /
+    (p99.865 - median), and the share beyond the limit, 1 - F(limit); and its p99."""
+    m = _Mixture(pop, rng, draws)
+    med, tail = m.quantile(0.5), m.quantile(0.99865)
+    return {
+        "p99": m.quantile(0.99),
+        "ppk": (limit - m.mean) / (3 * m.sd),
+        "pindex": (limit - med) / (tail - med),
+        "share": 1.0 - m.cdf(limit),
+    }
+
+
+def true_failure_rate(pop, test_end: float) -> float:
+    """Failures per cycle the life test expects: F(T) / E[min(L, T)] for Weibull lives L (the units'
+    cycles, failed or suspended at T, are the operations), E[min(L, T)] = integral of S from 0 to T."""
+    from scipy import integrate
+
+    def surv(t):
+        return float(np.exp(-((t / pop.life_scale) ** pop.life_shape)))
+
+    cycles = integrate.quad(surv, 0.0, test_end, epsabs=1e-6, epsrel=1e-10)[0]
+    return (1.0 - surv(test_end)) / cycles
 
 
 def true_b10(pop) -> float:

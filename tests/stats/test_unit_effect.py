@@ -78,3 +78,43 @@ def test_the_medians_sampling_noise_is_not_counted_as_a_unit_effect():
     assert spread == pytest.approx(noise_sd, rel=0.1)  # 400 medians: their sd within ~4 % of its mean
     model = UnitEffect.of(UnitSample.of(values.ravel(), np.repeat(np.arange(units), m)))
     assert model.sigma < 0.5 * noise_sd
+
+
+def test_the_mixtures_mean_sd_and_share_beyond_are_the_log_normals():
+    # With log-normal residuals (log-sd `within`) and log-normal unit medians (log-sd sigma about mu), a
+    # value is log-normal with log-sd hypot(sigma, within) about mu (a sum of independent normals);
+    # its mean, sd and share beyond a limit are scipy's lognorm.mean, .std and .sf there (exact).
+    within = 0.3
+    resid = np.exp(within * stats.norm.ppf((np.arange(20_000) + 0.5) / 20_000))
+    s = UnitSample.of(np.concatenate([resid, 2 * resid]), np.repeat([0, 1], 20_000))
+    model = UnitEffect.of(s)
+    mu, sigma = np.array([0.1, -0.2]), np.array([0.4, 0.15])
+    mean, sd = model.moments(mu, sigma)
+    share = model.share_above(mu, sigma, 2.0)
+    for i in range(2):
+        ref = stats.lognorm(s=math.hypot(sigma[i], within), scale=math.exp(mu[i]))
+        assert mean[i] == pytest.approx(ref.mean(), rel=2e-3)
+        assert sd[i] == pytest.approx(ref.std(), rel=5e-3)
+        # the residuals as 1,024 quantiles: a share of a few in 1,000 within about 1 %
+        assert share[i] == pytest.approx(ref.sf(2.0), rel=0.02)
+
+
+def test_capability_and_share_bounds_come_from_the_unit_effect_draws():
+    # the bounds are quantiles of the pivotal draws of each figure: Ppk = (USL - mean) / (3 sd) and the
+    # share beyond the limit, from the same (mu, sigma) draws; the earlier bootstrap stays selectable
+    from benchlog.stats import capability, share_beyond
+
+    rng = np.random.default_rng(3)
+    n = 12
+    med = np.exp(rng.normal(7.0, 0.25, n))
+    vals = np.concatenate([m * rng.lognormal(0.0, 0.4, 300) for m in med])
+    s = UnitSample.of(vals, np.repeat(np.arange(n), 300))
+    model = UnitEffect.of(s)
+    mu, sigma = model.draws(2000, np.random.default_rng(5))
+    mean, sd = model.moments(mu, sigma)
+    cap = capability(s, 3000.0, confidence=0.9, seed=5)
+    assert cap.ppk.method == METHOD
+    assert (cap.ppk.low, cap.ppk.high) == pytest.approx(bounds((3000.0 - mean) / (3 * sd), 0.9))
+    sh = share_beyond(s, 3000.0, confidence=0.9, seed=5)
+    assert (sh.unit_low, sh.unit_high) == pytest.approx(bounds(model.share_above(mu, sigma, 3000.0), 0.9))
+    assert capability(s, 3000.0, confidence=0.9, seed=5, method="bootstrap").ppk.method != METHOD
