@@ -544,7 +544,7 @@ def _life_summary(pop: Population, req: Requirements, min_failures: int) -> dict
     ops = int(round(table.cycles.sum())) * per_cycle
     if ops > 0:
         out["rate_per_10k"] = asdict(
-            failure_rate(table.failures, ops, confidence=conf, operation=pop.operation)
+            failure_rate(table.failures, ops, confidence=conf, operation=pop.operation, units=len(table))
         )
     return out
 

@@ -156,8 +156,11 @@ def _info_one(args):
             # Clopper-Pearson and the failure rate are two-sided at their confidence
             sh = share_beyond(s, limit, confidence=lv, seed=seed)
             out[f"{name} cp {lv}"] = [(sh.cp_low, sh.cp_high)]
-        r = failure_rate(lot.life.failures, int(round(lot.life.cycles.sum())), confidence=lv, per=1)
+        ops = int(round(lot.life.cycles.sum()))
+        r = failure_rate(lot.life.failures, ops, confidence=lv, per=1, units=len(lot.life))
         out[f"rate {lv}"] = [(r.low, r.high)]
+        r = failure_rate(lot.life.failures, ops, confidence=lv, per=1)
+        out[f"rate ops {lv}"] = [(r.low, r.high)]
     return units, out
 
 
@@ -189,7 +192,8 @@ def _info_part(pool, a) -> None:
         ("pindex", "percentile index, random unit effect"),
         ("share", f"share beyond {MAKE_LIMIT_US:,.0f} us, random unit effect"),
         ("share2", f"share beyond {SHARE_LIMIT_US:,.0f} us, random unit effect"),
-        ("rate", "failure rate per cycle, Clopper-Pearson"),
+        ("rate", "failure rate per cycle, Clopper-Pearson by units"),
+        ("rate ops", "failure rate per cycle, Clopper-Pearson by operations (earlier)"),
         ("share cp", f"share beyond {MAKE_LIMIT_US:,.0f} us, Clopper-Pearson (these actuations)"),
         ("share2 cp", f"share beyond {SHARE_LIMIT_US:,.0f} us, Clopper-Pearson (these actuations)"),
         ("ppk boot", "Ppk, cluster bootstrap (earlier)"),

@@ -196,6 +196,41 @@ def test_failure_rate_clopper_pearson():
         failure_rate(1, 0)
 
 
+def test_a_life_tests_failure_rate_counts_units_as_the_trials():
+    # 3 of 8 units failed over 2,000,000 unit-cycles: the Clopper-Pearson interval on 3 of 8 (scipy's
+    # beta quantiles, as above) times 8 / 2,000,000 operations a unit
+    r = failure_rate(3, 2_000_000, confidence=0.9, units=8, per=1)
+    assert r.low == pytest.approx(stats.beta.ppf(0.05, 3, 6) * 8 / 2e6, rel=1e-6)
+    assert r.high == pytest.approx(stats.beta.ppf(0.95, 4, 5) * 8 / 2e6, rel=1e-6)
+    assert r.rate == pytest.approx(1.5e-6)
+    with pytest.raises(DataError):
+        failure_rate(9, 2_000_000, units=8)
+
+
+def test_a_life_tests_failure_rate_interval_holds_its_level():
+    # 400 life tests of 16 units, Weibull lives (shape 2.4, scale 420,000 cycles: the demo's AG-MS5)
+    # stopped at 300,000 cycles; the truth is the failures per cycle such a test expects,
+    # F(T) / E[min(L, T)], E[min(L, T)] the integral of the survival function (scipy's quad). A
+    # two-sided 90 % interval should hold within 2.5 points of 90 % (binomial SD here 1.5 points);
+    # counting each cycle as a trial it held about 96 %.
+    from scipy import integrate
+
+    shape, scale, end = 2.4, 420_000.0, 300_000.0
+
+    def surv(t):
+        return math.exp(-((t / scale) ** shape))
+
+    truth = (1 - surv(end)) / integrate.quad(surv, 0, end)[0]
+    rng = np.random.default_rng(12)
+    held = 0
+    for _ in range(400):
+        life = scale * rng.weibull(shape, 16)
+        ops = int(round(np.minimum(life, end).sum()))
+        r = failure_rate(int((life <= end).sum()), ops, confidence=0.9, per=1, units=16)
+        held += r.low <= truth <= r.high
+    assert 0.875 <= held / 400 <= 0.925, held
+
+
 def test_scipy_documented_binomial_interval():
     # scipy.stats.binomtest docs example: 3 unsafe of 15, one-sided 95 % lower limit 0.05684686759024681
     res = stats.binomtest(3, n=15, p=0.1, alternative="greater")
