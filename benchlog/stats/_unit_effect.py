@@ -1,4 +1,5 @@
-"""Bounds on a population's pooled percentile from a random-unit-effect model.
+"""Bounds on a population's pooled percentile (and on its mean and sd, Ppk, percentile index and share
+beyond a limit, `benchlog.stats.capability` and `share_beyond`) from a random-unit-effect model.
 
 Each unit scales a common shape: a value of unit u is `m_u * r`, where `m_u` (the unit's median) is
 log-normal across the units of a supplier, and `r` (a value divided by its unit's median) has one
