@@ -184,11 +184,13 @@ class UnitEffect:
         mu = np.atleast_1d(np.asarray(mu, np.float64))[:, None]
         sigma = np.atleast_1d(np.asarray(sigma, np.float64))[:, None]
         log_r = self._log_r_fine[None, :]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            z = (log_r + mu - math.log(limit)) / sigma
-            step = (log_r + mu > math.log(limit)).astype(np.float64)
-            p = np.where(sigma > 0, ndtr(z), step)
-        return p.mean(axis=1)
+        out = np.empty(len(mu))
+        for i in range(0, len(mu), 256):  # 256 draws at a time: a few MB, not the whole matrix
+            m, sd = mu[i : i + 256], sigma[i : i + 256]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                p = np.where(sd > 0, ndtr((log_r + m - math.log(limit)) / sd), log_r + m > math.log(limit))
+            out[i : i + 256] = p.mean(axis=1)
+        return out
 
 
 def pivots(ybar, spread, noise: float, n: int, u: np.ndarray, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
