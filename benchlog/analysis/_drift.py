@@ -654,7 +654,7 @@ class CoarseSeries:
             parts.clear()
         if group is not None:
             self._append(group)
-        if -(-self.n // COARSE_BASE**self.level) > self.points:
+        if _coarse_level(self.n, self.points) > self.level:
             self._level_up()
 
     @staticmethod

@@ -134,6 +134,14 @@ class UnitSample:
             object.__setattr__(self, "_cdf", cdf)
         return cdf
 
+    def unit_effect(self) -> UnitEffect | None:
+        """The random-unit-effect model of this sample (`UnitEffect.of`, built once per sample: the
+        percentiles, their ratio, capability and the share beyond a limit all draw from it), or None
+        where it does not apply."""
+        if "_effect" not in self.__dict__:
+            object.__setattr__(self, "_effect", UnitEffect.of(self))
+        return self.__dict__["_effect"]
+
     def per_unit_mean(self) -> np.ndarray:
         return self.unit_sums() / self.unit_counts()
 
@@ -296,7 +304,7 @@ def pooled_percentile(
     _check_units(sample)
     cdf = sample.pooled_cdf()
     est = float(cdf.quantile(np.ones(sample.n_units), percentile))
-    model = UnitEffect.of(sample) if method in ("auto", "unit-effect") else None
+    model = sample.unit_effect() if method in ("auto", "unit-effect") else None
     if model is not None:
         low, high = effect_bounds(model.percentile_draws(percentile, n_resamples, seed), confidence)
         return Interval(est, low, high, confidence, sample.n_units, EFFECT_METHOD)
@@ -337,7 +345,7 @@ def percentile_ratio(
     0) the cluster bootstrap."""
     _check_units(candidate, reference)
     ca, cb = candidate.pooled_cdf(), reference.pooled_cdf()
-    models = (UnitEffect.of(candidate), UnitEffect.of(reference)) if method != "bootstrap" else (None,)
+    models = (candidate.unit_effect(), reference.unit_effect()) if method != "bootstrap" else (None,)
     if all(m is not None for m in models):
         est = float(ca.quantile(np.ones(candidate.n_units), percentile)) / float(
             cb.quantile(np.ones(reference.n_units), percentile)
@@ -526,7 +534,7 @@ def capability(
             return (upper_limit - med) / (tail - med)
 
     ones = np.ones(u)
-    model = UnitEffect.of(sample) if method in ("auto", "unit-effect") else None
+    model = sample.unit_effect() if method in ("auto", "unit-effect") else None
     too_few = len(sample) * (1 - PERCENTILE_INDEX_TAIL / 100) < 1
     if model is not None:
         mu, sigma = model.draws(n_resamples, np.random.default_rng(seed))
@@ -604,7 +612,7 @@ def share_beyond(
     over = sample.values > limit
     k, n = int(round(sample.unit_sums(over.astype(np.float64)).sum())), len(sample)
     ci = stats.binomtest(k, n).proportion_ci(confidence_level=confidence, method="exact")
-    model = UnitEffect.of(sample) if method in ("auto", "unit-effect") and sample.n_units >= 3 else None
+    model = sample.unit_effect() if method in ("auto", "unit-effect") and sample.n_units >= 3 else None
     if model is not None:
         mu, sigma = model.draws(n_resamples, np.random.default_rng(seed))
         ulo, uhi = effect_bounds(model.share_above(mu, sigma, limit), confidence)

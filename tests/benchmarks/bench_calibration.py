@@ -97,10 +97,9 @@ def _coverage_one(args):
     out: dict[str, list[tuple[float, float]]] = {}
     # with the life figures alone (--only life): the same lots, the percentile bounds skipped
     levels = LEVELS if percentiles else ()
-    # the draws pooled_percentile and percentile_ratio take, shared by the three levels
-    m_s, m_r = UnitEffect.of(s), UnitEffect.of(r)
-    d_s = m_s.percentile_draws(95.0, 2000, seed) if percentiles else None
-    d_r = m_r.percentile_draws(95.0, 2000, seed + 1) if percentiles else None
+    if percentiles:  # the draws pooled_percentile and percentile_ratio take, shared by the three levels
+        d_s = UnitEffect.of(s).percentile_draws(95.0, 2000, seed)
+        d_r = UnitEffect.of(r).percentile_draws(95.0, 2000, seed + 1)
     for lv in levels:
         c = (1 + lv) / 2
         out[f"p95 {lv}"] = [bounds(d_s, c)]
@@ -130,10 +129,9 @@ SHARE_LIMIT_US = 1200.0  # a second limit for the share beyond, where the share 
 
 def _info_one(args):
     """The bounds `qualify` shows beside the criteria, on one lot: the pooled p99, Ppk and the percentile
-    index against
-    the make bounce limit, the share beyond it (and beyond SHARE_LIMIT_US), by the random unit effect
-    (and, on the first --old lots, the earlier cluster bootstrap) and Clopper-Pearson, and the failure
-    rate per cycle of the life test."""
+    index against the make bounce limit, the share beyond it (and beyond SHARE_LIMIT_US), by the random
+    unit effect (and, on the first --old lots, the earlier cluster bootstrap) and Clopper-Pearson, and
+    the failure rate per cycle of the life test."""
     units, seed, boot = args
     rng = np.random.default_rng(seed)
     lot = draw_lot(demo_population(), units, CYCLES, rng, test_end=TEST_END)
@@ -167,14 +165,14 @@ def _info_one(args):
 def _info_part(pool, a) -> None:
     t0 = time.perf_counter()
     pop = demo_population()
-    truth = true_capability(pop, np.random.default_rng(2), MAKE_LIMIT_US)
-    truth["share2"] = true_capability(pop, np.random.default_rng(2), SHARE_LIMIT_US)["share"]
+    truth = true_capability(pop, np.random.default_rng(2), MAKE_LIMIT_US, beyond=(SHARE_LIMIT_US,))
+    truth["share2"] = truth["beyond"][SHARE_LIMIT_US]
     truth["rate"] = true_failure_rate(pop, TEST_END)
     print(
-        f"\ntruth: p99 {truth['p99']:.1f} us, Ppk {truth['ppk']:.3f}, percentile index {truth['pindex']:.3f} "
-        f"(limit "
-        f"{MAKE_LIMIT_US:,.0f} us), share beyond it {truth['share']:.2e}, beyond {SHARE_LIMIT_US:,.0f} us "
-        f"{truth['share2']:.4f}, failures per cycle of the life test {truth['rate']:.3e}"
+        f"\ntruth: p99 {truth['p99']:.1f} us, Ppk {truth['ppk']:.3f}, "
+        f"percentile index {truth['pindex']:.3f} (limit {MAKE_LIMIT_US:,.0f} us), "
+        f"share beyond it {truth['share']:.2e}, beyond {SHARE_LIMIT_US:,.0f} us {truth['share2']:.4f}, "
+        f"failures per cycle of the life test {truth['rate']:.3e}"
     )
     jobs = [(n, 20_000 * n + i, i < a.old) for n in a.sizes for i in range(a.info)]
     hits: dict[tuple[int, str], list[int]] = {}

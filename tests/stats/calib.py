@@ -215,10 +215,13 @@ def true_pooled_p95(pop, rng: np.random.Generator, draws: int = 2_000_000) -> fl
     return _Mixture(pop, rng, draws).quantile(0.95)
 
 
-def true_capability(pop, rng: np.random.Generator, limit: float, draws: int = 2_000_000) -> dict[str, float]:
+def true_capability(
+    pop, rng: np.random.Generator, limit: float, draws: int = 2_000_000, beyond: tuple[float, ...] = ()
+) -> dict:
     """The population's true figures behind `benchlog.stats.capability` and `share_beyond` against an
     upper `limit` (new units): Ppk = (limit - mean) / (3 sd), the percentile index (limit - median) /
-    (p99.865 - median), and the share beyond the limit, 1 - F(limit); and its p99."""
+    (p99.865 - median), and the share beyond the limit, 1 - F(limit); its p99; and under "beyond" the
+    share beyond each further limit in `beyond`, from the same mixture."""
     m = _Mixture(pop, rng, draws)
     med, tail = m.quantile(0.5), m.quantile(0.99865)
     return {
@@ -226,6 +229,7 @@ def true_capability(pop, rng: np.random.Generator, limit: float, draws: int = 2_
         "ppk": (limit - m.mean) / (3 * m.sd),
         "pindex": (limit - med) / (tail - med),
         "share": 1.0 - m.cdf(limit),
+        "beyond": {x: 1.0 - m.cdf(x) for x in beyond},
     }
 
 
