@@ -311,8 +311,10 @@ def parse_spec(doc: dict, name: str = "<spec>") -> PartSpec:
             if k not in life_tbl:
                 raise SpecError(f"{name}: life.{k}: expected a value, but it is missing")
         conf = life_tbl["confidence"]
-        if isinstance(conf, bool) or not isinstance(conf, int | float) or not 0 < conf < 1:
-            raise r.fail("life.confidence", "a fraction > 0 and < 1 (0.90 for 90 %)", conf)
+        if isinstance(conf, bool) or not isinstance(conf, int | float) or not 0.5 < conf < 1:
+            # every bound qualify states is one-sided at this confidence: below 0.5 it would lie on
+            # the wrong side of the estimate
+            raise r.fail("life.confidence", "a fraction > 0.5 and < 1 (0.90 for 90 %)", conf)
         life = LifeRequirement(r.integer(life_tbl, "life", "min_cycles", 1, LIFE_MAX_CYCLES), float(conf))
 
     conditions = r.table(doc, "conditions", set(CONDITION_KEYS)) or {}

@@ -28,6 +28,7 @@ import numpy as np
 from scipy import stats
 
 from benchlog.errors import DataError
+from benchlog.stats._life import exact_binomial_bounds
 from benchlog.stats._unit_effect import METHOD as EFFECT_METHOD
 from benchlog.stats._unit_effect import UnitEffect
 from benchlog.stats._unit_effect import bounds as effect_bounds
@@ -579,7 +580,7 @@ def capability(
 class Share:
     """Share of actuations beyond a limit.
 
-    `cp_low`/`cp_high`: two-sided Clopper-Pearson interval at `confidence` treating the actuations as
+    `cp_low`/`cp_high`: Clopper-Pearson bounds, each one-sided at `confidence`, treating the actuations as
     independent trials (true of *these* units' recorded actuations, too narrow for the population).
     `unit_low`/`unit_high`: one-sided cluster-bootstrap bounds at `confidence`, for the population.
     """
@@ -611,7 +612,7 @@ def share_beyond(
         raise DataError("no measured values")
     over = sample.values > limit
     k, n = int(round(sample.unit_sums(over.astype(np.float64)).sum())), len(sample)
-    ci = stats.binomtest(k, n).proportion_ci(confidence_level=confidence, method="exact")
+    ci = exact_binomial_bounds(k, n, confidence)
     model = sample.unit_effect() if method in ("auto", "unit-effect") and sample.n_units >= 3 else None
     if model is not None:
         mu, sigma = model.draws(n_resamples, np.random.default_rng(seed))

@@ -371,8 +371,9 @@ def failure_rate(
     operation: str = "coil cycle",
     units: int | None = None,
 ) -> RateEstimate:
-    """Failure rate per `per` operations with a two-sided exact (Clopper-Pearson) interval at
-    `confidence` (scipy's `binomtest(...).proportion_ci(method="exact")`).
+    """Failure rate per `per` operations with exact (Clopper-Pearson) bounds, each one-sided at
+    `confidence` as every other bound qualify shows (the pair is the two-sided interval at
+    2 * confidence - 1; scipy's `binomtest(...).proportion_ci(method="exact")`).
 
     With `units` (a life test: each unit fails at most once), the trials are the units: the interval on
     the share of units that failed, times units / operations (the operations a unit ran, on average),
@@ -386,9 +387,7 @@ def failure_rate(
     if not 0 <= failures <= trials:
         what = "operations" if units is None else "units"
         raise DataError(f"{failures} failures in {trials} {what} is impossible")
-    ci = stats.binomtest(int(failures), int(trials)).proportion_ci(
-        confidence_level=confidence, method="exact"
-    )
+    ci = exact_binomial_bounds(int(failures), int(trials), confidence)
     scale = per * trials / operations
     return RateEstimate(
         failures=int(failures),
@@ -400,6 +399,13 @@ def failure_rate(
         confidence=confidence,
         operation=operation,
     )
+
+
+def exact_binomial_bounds(k: int, n: int, confidence: float):
+    """Clopper-Pearson bounds on k of n, each one-sided at `confidence` (> 0.5)."""
+    if not 0.5 < confidence < 1:
+        raise DataError(f"confidence {confidence} is not between 0.5 and 1")
+    return stats.binomtest(k, n).proportion_ci(confidence_level=2 * confidence - 1, method="exact")
 
 
 def same_life_test(fits: list[WeibullFit]) -> tuple[float, float, int]:

@@ -34,12 +34,16 @@ sys.path.insert(0, str(ROOT / "tests" / "stats"))
 
 from calib import (  # noqa: E402
     MAKE_LIMIT_US,
+    chatter_design,
     demo_population,
+    draw_chatter_lot,
     draw_lot,
     drift_figures,
     judge_unit_drift,
     true_b10,
     true_capability,
+    true_chatter_rate,
+    true_chatter_share,
     true_failure_rate,
     true_pooled_p95,
     unit_population,
@@ -47,12 +51,19 @@ from calib import (  # noqa: E402
 
 from benchlog.errors import DataError  # noqa: E402
 from benchlog.stats import (  # noqa: E402
+    PASS,
+    Limit,
+    Population,
+    Requirements,
     capability,
     decide_at_most,
     failure_rate,
     fit_weibull,
+    mean_difference,
     percentile_ratio,
+    pooled_mean,
     pooled_percentile,
+    qualify,
     share_beyond,
 )
 from benchlog.stats._unit_effect import UnitEffect, bounds  # noqa: E402
@@ -151,15 +162,27 @@ def _info_one(args):
                 sh = share_beyond(s, limit, confidence=c, seed=seed, method=how)
                 out[f"{name}{tag} {lv}"] = [(sh.unit_low, sh.unit_high)]
         for name, limit in (("share", MAKE_LIMIT_US), ("share2", SHARE_LIMIT_US)):
-            # Clopper-Pearson and the failure rate are two-sided at their confidence
-            sh = share_beyond(s, limit, confidence=lv, seed=seed)
+            sh = share_beyond(s, limit, confidence=c, seed=seed)
             out[f"{name} cp {lv}"] = [(sh.cp_low, sh.cp_high)]
         ops = int(round(lot.life.cycles.sum()))
-        r = failure_rate(lot.life.failures, ops, confidence=lv, per=1, units=len(lot.life))
+        r = failure_rate(lot.life.failures, ops, confidence=c, per=1, units=len(lot.life))
         out[f"rate {lv}"] = [(r.low, r.high)]
-        r = failure_rate(lot.life.failures, ops, confidence=lv, per=1)
+        r = failure_rate(lot.life.failures, ops, confidence=c, per=1)
         out[f"rate ops {lv}"] = [(r.low, r.high)]
     return units, out
+
+
+def _attainable(units: int, p_fail: float, nominal: float) -> tuple[float, float]:
+    """The one-sided coverages nearest `nominal` from below and from above that any non-randomised
+    upper bound on a count of failures among `units` can have when the true share failing is `p_fail`:
+    such a bound lies above the truth for the counts from some k on, so its coverage is one of the
+    binomial tail sums P(K >= k) (scipy's binom.sf). The lower bound's are P(K <= k), its mirror."""
+    from scipy import stats
+
+    up = [float(stats.binom.sf(k - 1, units, p_fail)) for k in range(units + 2)]
+    below = max((c for c in up if c < nominal), default=0.0)
+    above = min((c for c in up if c >= nominal), default=1.0)
+    return below, above
 
 
 def _info_part(pool, a) -> None:
@@ -168,6 +191,7 @@ def _info_part(pool, a) -> None:
     truth = true_capability(pop, np.random.default_rng(2), MAKE_LIMIT_US, beyond=(SHARE_LIMIT_US,))
     truth["share2"] = truth["beyond"][SHARE_LIMIT_US]
     truth["rate"] = true_failure_rate(pop, TEST_END)
+    p_fail = 1.0 - float(np.exp(-((TEST_END / pop.life_scale) ** pop.life_shape)))
     print(
         f"\ntruth: p99 {truth['p99']:.1f} us, Ppk {truth['ppk']:.3f}, "
         f"percentile index {truth['pindex']:.3f} (limit {MAKE_LIMIT_US:,.0f} us), "
@@ -206,6 +230,96 @@ def _info_part(pool, a) -> None:
                     _line(f"{label}, {n} units, {lv:.0%} (n={h[2]})", (h[0] + h[1] - h[2]) / h[2], "-", True)
                 elif h:
                     _two_sided(f"{label}, {n} units, {lv:.0%} (n={h[2]})", h, lv)
+                if h and key == "rate":
+                    below, above = _attainable(n, p_fail, (1 + lv) / 2)
+                    print(
+                        f"    a count of {n} units allows the upper bound only {below:.3f} or {above:.3f} "
+                        f"near {(1 + lv) / 2:.3f} (P(K >= k), K ~ binomial({n}, F(T) = {p_fail:.3f}))"
+                    )
+
+
+CHATTER_STARTS = chatter_design(TEST_END)  # 30 runs of 4 cycles spread over the life test
+CHATTER_LIMIT = 1 / 1000  # the demo specs' chatter limit: 1 event per 1,000 cycles
+
+
+def _chatter_one(args):
+    """The chatter rate's bounds on one lot recorded over the whole life test (chatter sets in only
+    when a unit's life ends in the chatter mode), and the difference from a second lot of the same
+    population (true difference 0), as qualify states them."""
+    units, seed = args
+    rng = np.random.default_rng(seed)
+    pop = demo_population()
+    cand = draw_chatter_lot(pop, units, rng, CHATTER_STARTS)
+    inc = draw_chatter_lot(pop, units, rng, CHATTER_STARTS)
+    out: dict[str, list[tuple[float, float]]] = {}
+    passes: dict[str, bool] = {}
+    for lv in LEVELS:
+        c = (1 + lv) / 2
+        iv = pooled_mean(cand, confidence=c, seed=seed)
+        out[f"chatter {lv}"] = [(iv.low, iv.high)]
+        passes[f"old {c}"] = decide_at_most(iv.low, iv.high, CHATTER_LIMIT) == PASS
+        iv = mean_difference(cand, inc, confidence=c, seed=seed + 1)
+        out[f"chatter diff {lv}"] = [(iv.low, iv.high)]
+        req = Requirements((Limit("chatter", CHATTER_LIMIT, 100.0),), None, confidence=c)
+        lot = Population("lot", {"chatter": cand})
+        (crit,) = qualify(lot, lot, req, margin=None).criteria
+        out[f"units beyond {lv}"] = [(crit.low, crit.high)]
+        passes[f"new {c}"] = crit.outcome == PASS
+    quiet = int((cand.unit_sums() > 0).sum()) == 0
+    return units, out, quiet, passes
+
+
+def _chatter_part(pool, a) -> None:
+    t0 = time.perf_counter()
+    truth = true_chatter_rate(demo_population(), CHATTER_STARTS, 4, np.random.default_rng(3))
+    share = true_chatter_share(demo_population(), CHATTER_STARTS, 4, CHATTER_LIMIT, np.random.default_rng(4))
+    print(
+        f"\nchatter: {a.chatter} lots a size, 30 runs of 4 cycles a unit spread over the 300,000-cycle test; "
+        f"truth {truth:.4f} chatter openings per cycle, {share:.3f} of units beyond the spec's "
+        f"{CHATTER_LIMIT * 1000:g} per 1,000 cycles"
+    )
+    jobs = [(n, 30_000 * n + i) for n in a.sizes for i in range(a.chatter)]
+    hits: dict[tuple[int, str], list[int]] = {}
+    quiet: dict[int, int] = {}
+    passed: dict[tuple[int, str], int] = {}
+    for n, out, q, passes in pool.imap_unordered(_chatter_one, jobs, chunksize=8):
+        quiet[n] = quiet.get(n, 0) + q
+        for key, ok in passes.items():
+            passed[(n, key)] = passed.get((n, key), 0) + ok
+        for key, [(lo, hi)] in out.items():
+            t = 0.0 if "diff" in key else (share if "beyond" in key else truth)
+            h = hits.setdefault((n, key), [0, 0, 0])
+            h[0] += lo <= t
+            h[1] += t <= hi
+            h[2] += 1
+    print(f"  ({time.perf_counter() - t0:.0f} s)")
+    for n in a.sizes:
+        none = quiet[n] / a.chatter
+        print(f"  {n} units: lots where no unit chattered (the rate's bounds are then 0, 0): {none:.3f}")
+    for key, label in (
+        ("units beyond", "share of units beyond, Clopper-Pearson (the criterion's bounds)"),
+        ("chatter", "mean chatter rate, cluster bootstrap (the earlier criterion)"),
+        ("chatter diff", "chatter rate difference, cluster bootstrap (true 0)"),
+    ):
+        for n in a.sizes:
+            for lv in LEVELS:
+                h = hits[(n, f"{key} {lv}")]
+                _two_sided(f"{label}, {n} units, {lv:.0%} (n={h[2]})", h, lv)
+                if key == "units beyond":
+                    below, above = _attainable(n, share, (1 + lv) / 2)
+                    print(
+                        f"    a count of {n} units allows the upper bound only {below:.3f} or {above:.3f} "
+                        f"near {(1 + lv) / 2:.3f}"
+                    )
+    # the truth is beyond the limit on both readings (the rate 65 times it, 17 % of units beyond
+    # against the 10 % a 90 % reliability allows): a pass is wrong, at most 1 - C of the time
+    print("  chatter criterion: P(pass) where the population fails it; target <= 1 - confidence")
+    for n in a.sizes:
+        for lv in LEVELS:
+            c = (1 + lv) / 2
+            for rule, label in (("new", "units beyond, success run"), ("old", "mean rate (earlier)")):
+                p = passed[(n, f"{rule} {c}")] / a.chatter
+                _line(f"    {label}, {n} units, {c:.1%}", p, f"<= {1 - c:.3f}", p <= 1 - c)
 
 
 def _two_sided(name: str, h: list[int], lv: float) -> None:
@@ -235,10 +349,11 @@ def main() -> None:
     ap.add_argument("--oc-margin", type=int, default=600, help="populations at the guarded margin's point")
     ap.add_argument("--drift-units", type=int, default=60)
     ap.add_argument("--info", type=int, default=300, help="lots a size for the bounds beside the criteria")
+    ap.add_argument("--chatter", type=int, default=300, help="lots a size for the chatter rate's bounds")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument(
         "--only",
-        choices=("drift", "coverage", "life", "info", "oc"),
+        choices=("drift", "coverage", "life", "info", "chatter", "oc"),
         help="one part alone (life: the coverage part's B10 bounds alone, on --life lots a size)",
     )
     ap.add_argument("--sizes", type=int, nargs="+", default=list(SIZES), help="units per lot (coverage, oc)")
@@ -259,6 +374,8 @@ def main() -> None:
             _coverage_part(pool, a, truth_p95, truth_b10)
         if a.only in (None, "info"):
             _info_part(pool, a)
+        if a.only in (None, "chatter"):
+            _chatter_part(pool, a)
         if a.only in (None, "oc"):
             _oc_part(pool, a)
     print(f"\ntotal {time.perf_counter() - t_all:.0f} s")

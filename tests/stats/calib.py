@@ -247,3 +247,83 @@ def true_failure_rate(pop, test_end: float) -> float:
 
 def true_b10(pop) -> float:
     return float(pop.life_scale * (-np.log(0.9)) ** (1.0 / pop.life_shape))
+
+
+def chatter_design(test_end: float, blocks: int = 30, per_block: int = 4) -> np.ndarray:
+    """The cycles a chatter lot records of each unit: `blocks` runs of `per_block` cycles spread evenly
+    over the life test (a stored run's cycles, thinned evenly, as a lab's recorder keeps them all)."""
+    mid = (np.arange(blocks) + 0.5) * test_end / blocks
+    return np.round(mid - per_block / 2).astype(np.int64)
+
+
+def _unit_for_lot(pop, rng: np.random.Generator, serial: str):
+    return draw_unit(rng, 0, serial, unit_population(pop, rng, pop.wear_per_100k, 0.0, SIZE_SIGMA))
+
+
+def draw_chatter_lot(pop, units: int, rng: np.random.Generator, starts: np.ndarray, per_block: int = 4):
+    """`units` units of `pop` recorded at the cycles `chatter_design` gives, through the simulator's
+    physics (a unit whose life ended in the chatter mode chatters on every later cycle); returns the
+    chatter-per-cycle `UnitSample` qualify's chatter criterion judges."""
+    from benchlog.analysis import empty_actuations
+    from benchlog.stats import Population
+
+    rows, ids = [], []
+    for i in range(units):
+        u = _unit_for_lot(pop, rng, f"U{i:03d}")
+        for s in starts:
+            u.cycles_done = int(s)
+            _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, per_block, 24, 2.0)
+            a = empty_actuations(len(truth))
+            for col in ("cycle", "kind", "transit_us", "bounce_us", "bounce_count", "chatter"):
+                a[col] = truth[col]
+            a["drive_level"] = np.where(truth["kind"] == 0, 1, 0)
+            rows.append(a)
+            ids.append(np.full(len(a), u.serial, dtype=object))
+    lot = Population.from_actuations("lot", np.concatenate(rows), np.concatenate(ids))
+    return lot.samples["chatter"]
+
+
+def true_chatter_rate(
+    pop, starts: np.ndarray, per_block: int, rng: np.random.Generator, units_per_block: int = 400
+) -> float:
+    """The population's chatter per recorded cycle under the design: every unit records every design
+    cycle (two rows a cycle, moved or not), and cycle c chatters only for a unit of the chatter mode
+    whose life L <= c, so the rate is P(chatter mode) x mean over c of P(L <= c) x mu(c), mu(c) the mean
+    chatter of a chattering cycle at c (wear and the unit's size set the closed time it falls in).
+    mu(c) by the physics, `units_per_block` chattering units of the lot's spread at each block."""
+    share = pop.failure.get("chatter", 0.0) / sum(pop.failure.values())
+    total = 0.0
+    for s in starts:
+        mus = []
+        for _ in range(units_per_block):
+            u = _unit_for_lot(pop, rng, "T")
+            u.mode, u.life, u.cycles_done = "chatter", 0.0, int(s)
+            _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, per_block, 24, 2.0)
+            mus.append(truth["chatter"].reshape(-1, 2).sum(axis=1))
+        c = int(s) + np.arange(per_block)
+        p_failed = 1.0 - np.exp(-((c / pop.life_scale) ** pop.life_shape))
+        total += float((p_failed * np.mean(mus, axis=0)).sum())
+    return share * total / (len(starts) * per_block)
+
+
+def true_chatter_share(
+    pop, starts: np.ndarray, per_block: int, limit: float, rng: np.random.Generator, units: int = 40_000
+) -> float:
+    """The share of the population's units whose chatter per recorded cycle, under the design, exceeds
+    `limit` (what the spec's per-unit chatter limit judges), from `units` units of the lot's spread. A
+    unit can chatter only on the design cycles at or after its life, and only in the chatter mode, so
+    only those blocks go through the physics."""
+    beyond = 0
+    for _ in range(units):
+        u = _unit_for_lot(pop, rng, "T")
+        if u.mode != "chatter" or u.life > starts[-1] + per_block - 1:
+            continue
+        events = 0
+        for s in starts:
+            if s + per_block - 1 < u.life:
+                continue
+            u.cycles_done = int(s)
+            _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, per_block, 24, 2.0)
+            events += int(truth["chatter"].sum())
+        beyond += events / (len(starts) * per_block) > limit
+    return beyond / units

@@ -145,3 +145,34 @@ def test_capability_and_share_bounds_cover_the_simulators_truth():
         held["pindex"] += cap.percentile_index.low <= truth["pindex"]
         held["share"] += truth["share"] <= share_beyond(s, MAKE_LIMIT_US, confidence=0.9, seed=i).unit_high
     assert min(held.values()) / lots >= 0.84, held
+
+
+def test_the_chatter_criterion_does_not_pass_a_population_that_fails_it():
+    # 60 lots of 8 units, each recorded over the whole 300,000-cycle life test (calib.chatter_design);
+    # the truth from the simulator's physics: units whose life ends in the chatter mode chatter from
+    # then on, about 17 % of units beyond the demo spec's 1 per 1,000 cycles (calib.true_chatter_share,
+    # 8,000 units) where a 90 % reliability allows 10 %, and a mean rate some 65 times the limit. A pass
+    # is wrong, and should come at most 10 % of the time at 90 % confidence: 0.9^8 = 43 % of lots of 8
+    # would show no unit beyond even at a share of 10 %, so 8 units cannot pass at all (the success run
+    # needs 22). The earlier criterion, the mean rate's bootstrap bound, passed 16 of these 60 lots
+    # (lots in which no unit had begun to chatter).
+    from calib import chatter_design, draw_chatter_lot, true_chatter_share
+
+    from benchlog.stats import PASS, Limit, Population, Requirements, decide_at_most, pooled_mean, qualify
+
+    rng = np.random.default_rng(17)
+    pop = demo_population()
+    starts = chatter_design(300_000.0)
+    share = true_chatter_share(pop, starts, 4, 1e-3, rng, units=8000)
+    assert 0.14 < share < 0.20, share
+    req = Requirements((Limit("chatter", 1e-3, 100.0),), None, confidence=0.9)
+    new = old = 0
+    for i in range(60):
+        s = draw_chatter_lot(pop, 8, rng, starts)
+        lot = Population("lot", {"chatter": s})
+        (crit,) = qualify(lot, lot, req, margin=None).criteria
+        new += crit.outcome == PASS
+        iv = pooled_mean(s, confidence=0.9, n_resamples=500, seed=i)
+        old += decide_at_most(iv.low, iv.high, 1e-3) == PASS
+    assert new == 0, new
+    assert old > 0, old  # the lots the earlier criterion passed wrongly are there to be refused

@@ -693,11 +693,12 @@ def render_report(
     h.append("<h2>Verdict</h2>" + _verdict_section(q))  # a long table: rows kept whole, not the table
     h.append(
         '<p class="small">Units, not actuations, are the experimental unit: population percentiles, '
-        "rates and capability carry bounds from a bootstrap that resamples whole units; the "
-        "distribution-free tests compare one summary value per unit. The Clopper-Pearson interval on "
-        "the share beyond a limit treats these units' recorded actuations as independent trials and "
-        "is shown for those actuations only. Metric values are given to three significant figures "
-        "throughout, cycles in whole cycles.</p>"
+        "capability and the share beyond a limit carry bounds from a model with a random unit effect "
+        "(generalized pivotal draws), rates from a bootstrap that resamples whole units; the "
+        "distribution-free tests compare one summary value per unit. The Clopper-Pearson bounds on "
+        "the share beyond a limit treat these units' recorded actuations as independent trials and "
+        "are shown for those actuations only. Every bound is one-sided at the stated confidence. "
+        "Metric values are given to three significant figures throughout, cycles in whole cycles.</p>"
     )
     h.append(
         _keep(
