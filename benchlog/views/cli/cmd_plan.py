@@ -130,6 +130,15 @@ def run(args: argparse.Namespace) -> int:
         + (f" of {life:,.0f} cycles" if life else "")
         + " (n = ln(1 - C) / ln R when no failure is allowed)"
     )
+    if spec is not None:
+        per_unit = _unit_limits(spec)
+        if per_unit:
+            k = success_run_units(conf, rel)
+            print(
+                f"limits on each unit ({', '.join(per_unit)}): {k} units with none beyond for qualify to "
+                f"pass them (the same success run: at most {1 - rel:.0%} of units beyond); fewer leave "
+                "them not yet decidable"
+            )
     if life and args.shape:
         beta = args.shape
         print(
@@ -278,3 +287,17 @@ def _operating_characteristic(args: argparse.Namespace, conf: float) -> None:
             f"(at most {1 - conf:.0%} intended, simulation error about "
             f"{(conf * (1 - conf) / args.populations) ** 0.5:.0%})"
         )
+
+
+def _unit_limits(spec) -> list[str]:
+    """The spec's limits qualify judges on each unit: a limit on every actuation, the chatter limit."""
+    from benchlog.stats import METRICS, Requirements
+
+    out = []
+    for lim in Requirements.from_spec(spec).limits:
+        m = METRICS[lim.metric]
+        if m.kind == "rate":
+            out.append(m.label)
+        elif lim.percentile >= 100.0:
+            out.append(f"{m.label} max")
+    return out
