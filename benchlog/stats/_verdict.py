@@ -359,8 +359,8 @@ def _unit_limit(sample: UnitSample, limit: Limit, req: Requirements) -> Criterio
     share of units beyond (Clopper-Pearson, each bound one-sided at the confidence) against 1 - R.
 
     A population mean chatter rate was judged here before: chatter comes from few units (those whose
-    contacts have begun to fail), and its bootstrap bound held 0.63-0.83 at a nominal 0.90-0.975 on
-    8 units (docs/qualification.md)."""
+    contacts have begun to fail), and its bootstrap's upper bound held 0.67-0.73 of the time at a
+    nominal 0.90-0.975 on 8 units, 0.81-0.91 on 32 (docs/qualification.md)."""
     conf, rel = req.confidence, req.life_reliability
     n = sample.n_units
     if METRICS[limit.metric].kind == "rate":
