@@ -156,12 +156,12 @@ class Analyzer:
         if resets:
             if self.settings.mode != "free":
                 drives = self._power_offs(drives, resets)
-            for c in np.unique(np.concatenate((edges.channel, drives.channel))).tolist():
-                self._chan(int(c))
+            for c in channels_in(np.concatenate((edges.channel, drives.channel))):
+                self._chan(c)
             for ch in self._channels.values():
                 ch.unsure.extend(resets)
         if len(drives):
-            self._drive_sources.update(np.unique(drives.channel).tolist())
+            self._drive_sources.update(channels_in(drives.channel))
         if len(edges):
             order = np.argsort(edges.channel, kind="stable")
             chans = edges.channel[order]
@@ -169,8 +169,7 @@ class Analyzer:
             for part in np.split(order, bounds):
                 self._take_edges(self._chan(int(edges.channel[part[0]])), edges.t_ns[part], edges.level[part])
         if len(drives) and self.settings.mode != "free":
-            for c in np.unique(drives.channel):
-                c = int(c)
+            for c in channels_in(drives.channel):
                 sel = drives.channel == c
                 targets = [c]
                 partner = self.settings.partner(c)
@@ -183,7 +182,7 @@ class Analyzer:
         """`drives` and a drive-off at each reset's power loss for every channel driven before it."""
         t, c = [drives.t_ns], [drives.channel]
         for _, t_off in resets:
-            chans = self._drive_sources | set(np.unique(drives.channel[drives.t_ns < t_off]).tolist())
+            chans = self._drive_sources | set(channels_in(drives.channel[drives.t_ns < t_off]))
             t.append(np.full(len(chans), t_off, np.int64))
             c.append(np.array(sorted(chans), np.uint8))
         t_all, c_all = np.concatenate(t), np.concatenate(c)
@@ -510,6 +509,20 @@ def _transfer(mine: np.ndarray, other: np.ndarray, tol: int) -> None:
     break_settle = np.where(mine["kind"] == BREAK, mine["t_settle_ns"], o["t_settle_ns"])
     ok &= (make_first >= 0) & (break_settle >= 0)
     mine["transfer_us"] = np.where(ok, (make_first - break_settle) / 1e3, mine["transfer_us"])
+
+
+def channels_in(channel: np.ndarray) -> list[int]:
+    """The distinct channel numbers in `channel`, ascending (what `np.unique(channel).tolist()` gives).
+
+    Channel numbers are small (uint8): a table of the 256 values marks those present, a pass where
+    `np.unique` sorts or hashes (its hashing path imports numpy.ma on first use, several ms of a short
+    command's start)."""
+    channel = np.asarray(channel)
+    if channel.dtype != np.uint8:
+        return [int(c) for c in np.unique(channel)]
+    seen = np.zeros(256, bool)
+    seen[channel] = True
+    return np.flatnonzero(seen).tolist()
 
 
 def power_off_ns(reset: Incident) -> int:

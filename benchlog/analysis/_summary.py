@@ -9,12 +9,14 @@ not by how long the recording ran. `summarize(table)` is the same over one table
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from benchlog.analysis._spec import VERDICT_NAMES, PartSpec, UnitFigures, verdict_of
 from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE, STUCK
+
+if TYPE_CHECKING:
+    from benchlog.analysis._spec import PartSpec, UnitFigures
 
 COMPACT_AT = 1 << 12  # values buffered (or as many as there are distinct ones) before they are folded
 
@@ -227,6 +229,8 @@ class Summaries:
                 "transfer_us": ch.values("transfer_us", _ALL).dist(),
             }
             if self.spec is not None:
+                from benchlog.analysis._spec import VERDICT_NAMES, verdict_of
+
                 verdict, reason = verdict_of(self._figures(ch), self.spec)
                 entry["verdict"] = VERDICT_NAMES[verdict]
                 entry["reason"] = reason
@@ -234,6 +238,8 @@ class Summaries:
         return out
 
     def _figures(self, ch: _Channel) -> UnitFigures:
+        from benchlog.analysis._spec import UnitFigures
+
         def stat(column: str, which: str, percentile: float) -> float | None:
             v = ch.values(column, which)
             return v.percentile(percentile) if len(v) else None

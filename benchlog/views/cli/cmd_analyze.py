@@ -234,9 +234,11 @@ def print_table(doc: dict[str, Any], out=None) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from benchlog.analysis import load_spec
+    spec = None
+    if args.spec:
+        from benchlog.analysis import load_spec
 
-    spec = load_spec(args.spec) if args.spec else None
+        spec = load_spec(args.spec)
     settings = _settings(args, spec)
     doc = analyze_file(args.file, settings, spec, args.tick_hz, args.counter_bits)
     if args.json:

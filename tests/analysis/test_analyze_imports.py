@@ -1,0 +1,58 @@
+"""What `benchlog analyze` loads, and the small helpers that keep it short.
+
+`benchlog analyze` is timed against a plain Python loop (tests/benchmarks/bench_scale.py); a module it
+never uses costs every run its import. These tests hold the command to the modules it needs (no timing
+here: whether a module is loaded does not depend on the machine's load)."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+
+import benchlog
+from benchlog.analysis._analyzer import channels_in
+from tests.clock.test_clock_replay import recording
+
+# modules the command does not need without --spec: the spec module (with the TOML parser), the host
+# commands, and numpy.ma (np.unique's hashing path imports it on first use)
+NOT_NEEDED = ("benchlog.analysis._spec", "tomllib", "benchlog.wire._commands", "numpy.ma")
+
+PROBE = """
+import contextlib, io, json, sys
+from benchlog.views.cli import main
+with contextlib.redirect_stdout(io.StringIO()):
+    code = main(["analyze", sys.argv[1], "--json"])
+print(json.dumps([code, sorted(sys.modules)]))
+"""
+
+
+def test_analyze_loads_no_module_it_does_not_use(tmp_path):
+    from benchlog.sim import load_preset
+
+    path = tmp_path / "capture.bin"
+    # a reset mid-run and flipped bits: the reset and fault paths run too
+    path.write_bytes(recording(load_preset("demo").with_faults(reset_at_cycle=8, flip_rate=1e-4), 2.0))
+    # the child imports the benchlog under test, whatever the working directory
+    env = dict(os.environ, PYTHONPATH=str(Path(benchlog.__file__).resolve().parents[1]))
+    cmd = [sys.executable, "-c", PROBE, str(path)]
+    out = subprocess.run(cmd, capture_output=True, text=True, check=True, env=env, cwd=tmp_path)
+    code, modules = json.loads(out.stdout)
+    assert code == 0
+    assert "benchlog.analysis._analyzer" in modules  # the probe did measure
+    assert [m for m in NOT_NEEDED if m in modules] == []
+
+
+def test_channels_in_is_numpys_unique():
+    rng = np.random.default_rng(1)
+    for n in (0, 1, 5, 1000):
+        for hi in (1, 8, 16, 256):
+            channel = rng.integers(0, hi, n).astype(np.uint8)
+            # numpy's own unique as the reference
+            assert channels_in(channel) == np.unique(channel).tolist()
+    wide = np.array([300, 2, 300, 7], np.int64)  # not uint8: the general path
+    assert channels_in(wide) == [2, 7, 300]
