@@ -299,7 +299,7 @@ class Analyzer:
             ch.level_before = 1 if ch.normally_closed else 0
         floor = s.floor
         kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
-        ft, flv = ch.t[kept], ch.lv[kept]
+        ft, flv = _kept(ch, kept)
         if final:
             eff = _FAR
         elif len(ch.t) and horizon - int(ch.t[-1]) < floor:
@@ -320,7 +320,7 @@ class Analyzer:
             ch.done_until = cap
             ch.anchored = True
             kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
-            ft, flv = ch.t[kept], ch.lv[kept]
+            ft, flv = _kept(ch, kept)
         if len(ch.dt):
             rows = self._driven(ch, ft, flv, glitch_t, glitch_n, group_start, eff, horizon, final)
         elif not ch.driven:
@@ -492,6 +492,14 @@ class Analyzer:
                 if (~release).any():
                     self._held[c_mine] = mine[~release]
         return np.concatenate(out)
+
+
+def _kept(ch: _Channel, kept: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The channel's edges at indices `kept` (sorted, distinct): the arrays themselves when that is
+    all of them (no glitch removed, the usual case), not a copy."""
+    if len(kept) == len(ch.t):
+        return ch.t, ch.lv
+    return ch.t[kept], ch.lv[kept]
 
 
 def _transfer(mine: np.ndarray, other: np.ndarray, tol: int) -> None:
