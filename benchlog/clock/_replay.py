@@ -205,12 +205,16 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     if bits < 64:
         raw &= np.uint64((1 << bits) - 1)
     d = signed_deltas(raw, tl._last_raw, bits)
-    rel_approx = tl._last_rel + np.cumsum(d.astype(np.float64))
-    too_far = np.abs(rel_approx) * (NS_PER_S / hz) > EPOCH_LIMIT_NS
-    if too_far.any():
-        d[int(np.argmax(too_far)) :] = 0
-    rel = tl._last_rel + np.cumsum(d)
-    hi = np.maximum.accumulate(np.maximum(rel, tl._hi_rel))
+    too_far = None
+    if not within_epoch_limit(tl._last_rel, n, bits, hz):  # else no row can be placed that far
+        rel_approx = tl._last_rel + np.cumsum(d.astype(np.float64))
+        too_far = np.abs(rel_approx) * (NS_PER_S / hz) > EPOCH_LIMIT_NS
+        if too_far.any():
+            d[int(np.argmax(too_far)) :] = 0
+    rel = np.cumsum(d)
+    rel += tl._last_rel
+    hi = np.maximum.accumulate(rel)
+    np.maximum(hi, tl._hi_rel, out=hi)
     prior_hi = np.empty_like(hi)
     prior_hi[0] = tl._hi_rel
     prior_hi[1:] = hi[:-1]
@@ -220,7 +224,7 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     row_group = _count_before(beat_pos, n, 1)  # beats before each row
     step = tl.replay_step()
     offset = (tl._replay_host + step * (row_group + 1) - tl._epoch_start_host) - t
-    starts = np.flatnonzero(np.diff(row_group, prepend=-1))
+    starts = np.concatenate(([0], beat_pos[beat_pos < n - 1] + 1))  # each group's first row
     group_min = np.full(int(row_group[-1]) + 2, np.iinfo(np.int64).max, np.int64)
     group_min[row_group[starts] + 1] = np.minimum.reduceat(offset, starts)  # shifted: the group before
     least = group_min[row_group]
@@ -229,11 +233,19 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     else:
         least[row_group == 0] = np.iinfo(np.int64).max  # no earlier push: nothing to compare with
     ahead = (least != np.iinfo(np.int64).max) & (offset < least - tl.host_slack_ns)
-    bad = back | ahead | too_far
+    bad = back | ahead if too_far is None else back | ahead | too_far
     if bad.any():
         return int(row_group[int(np.argmax(bad))])
     b.rel, b.hi, b.t, b.row_group, b.offset = rel, hi, t, row_group, offset
     return None
+
+
+def within_epoch_limit(last_rel: int, n: int, bits: int, clock_hz: int) -> bool:
+    """Whether `n` more ticks unwrapped after `last_rel` surely stay (with a margin of two) inside
+    `EPOCH_LIMIT_NS`: each signed delta moves at most half a wrap. Then the float check for garbage
+    ticks beyond any run length can find none, and is skipped."""
+    reach = abs(last_rel) + n * (1 << (bits - 1))
+    return reach * NS_PER_S // clock_hz <= EPOCH_LIMIT_NS // 2
 
 
 def _count_before(pos: np.ndarray, n: int, shift: int) -> np.ndarray:
