@@ -138,9 +138,10 @@ def _line_lines(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
     """Little-endian unsigned integers of `size` bytes at offsets `at` of `d`, as uint64."""
-    # one gather of whole words read as little-endian, not a gather and a shift per byte
-    words = d[at[:, None] + np.arange(size)]
-    return words.view(f"<u{size}").reshape(-1).astype(np.uint64)
+    # one gather of whole words through a view of `d` as overlapping little-endian words (one at each
+    # byte offset), not a gather of each byte
+    words = np.ndarray((len(d) - size + 1,), f"<u{size}", d, 0, (1,))
+    return words[at].astype(np.uint64)
 
 
 def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineContext) -> _FramePlan:
@@ -198,20 +199,24 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     cnt = count[ef]
     first = np.cumsum(cnt) - cnt
     total = int(cnt.sum())
-    within = np.arange(total) - np.repeat(first, cnt)
-    off = np.repeat(dstart[ef] + 12, cnt) + 3 * within
-    chan_level = d[off]
+    # each entry's offset: its frame's first entry's, plus 3 per entry before it in the frame
+    off = np.repeat(dstart[ef] + 12 - 3 * first, cnt)
+    off += 3 * np.arange(total)
+    # an entry's three bytes (channel and level, the delta) read as the low bytes of a 4-byte word
+    entry = np.ndarray((len(d) - 3,), "<u4", d, 0, (1,))[off]
+    chan_level = entry.astype(np.uint8)
     bad_entry = ((chan_level & np.uint8(0x70)) != 0) | ((chan_level & np.uint8(0x0F)) >= ctx.channels)
     bad_frame = np.add.reduceat(bad_entry, first) > 0 if total else np.zeros(0, bool)
     bad_frame |= ~in_range(base[ef])
     is_edges[ef[bad_frame]] = False
-    keep = np.repeat(~bad_frame, cnt)
-    delta = d[off + 1].astype(np.uint64) | (d[off + 2].astype(np.uint64) << np.uint64(8))
+    delta = ((entry >> np.uint32(8)) & np.uint32(0xFFFF)).astype(np.uint64)
     cum = np.cumsum(delta, dtype=np.uint64)
     e_tick = np.repeat(base[ef] - (cum[first] - delta[first]), cnt) + cum if total else cum
     if limit is not None:
         e_tick &= limit
-    chan_level, e_tick = chan_level[keep], e_tick[keep]
+    if bad_frame.any():
+        keep = np.repeat(~bad_frame, cnt)
+        chan_level, e_tick = chan_level[keep], e_tick[keep]
 
     seq_next = np.ones(n_seg, bool)
     seq_next[1:] = seq[1:] == ((seq[:-1] + 1) & 0xFFFF)
@@ -219,15 +224,24 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     rows_per = np.where(is_edges, count, (is_drive | is_beat).astype(np.int64))
     row_start = np.zeros(n_seg + 1, np.int64)
     np.cumsum(rows_per, out=row_start[1:])
-    frame_kind = np.where(is_drive, BLOCK_DRIVE, np.where(is_beat, BLOCK_BEAT, BLOCK_EDGE)).astype(np.uint8)
-    r_kind = np.repeat(frame_kind, rows_per)
-    r_channel = np.repeat(np.where(is_drive, d_channel, 0).astype(np.uint8), rows_per)
-    r_level = np.repeat(np.where(is_drive, d_level, 0).astype(np.uint8), rows_per)
-    r_tick = np.repeat(np.where(is_drive, d_tick, b_tick), rows_per)
-    edge_rows = r_kind == BLOCK_EDGE
+    # rows: an edge frame's entries, a drive's or a beat's one row; the one-row frames are placed by
+    # index, the edge entries fill the rest in order
+    n_rows = int(row_start[-1])
+    one = np.flatnonzero(is_drive | is_beat)
+    at_one, one_drive = row_start[one], is_drive[one]
+    r_kind = np.full(n_rows, BLOCK_EDGE, np.uint8)
+    r_kind[at_one] = np.where(one_drive, BLOCK_DRIVE, BLOCK_BEAT)
+    edge_rows = np.ones(n_rows, bool)
+    edge_rows[at_one] = False
+    r_channel = np.empty(n_rows, np.uint8)
+    r_level = np.empty(n_rows, np.uint8)
+    r_tick = np.empty(n_rows, np.uint64)
     r_channel[edge_rows] = chan_level & np.uint8(0x0F)
     r_level[edge_rows] = chan_level >> np.uint8(7)
     r_tick[edge_rows] = e_tick
+    r_channel[at_one] = np.where(one_drive, d_channel[one], 0)
+    r_level[at_one] = np.where(one_drive, d_level[one], 0)
+    r_tick[at_one] = np.where(one_drive, d_tick[one], b_tick[one])
     drive_start = np.zeros(n_seg + 1, np.int64)
     np.cumsum(is_drive.astype(np.int64), out=drive_start[1:])
     beat_start = np.zeros(n_seg + 1, np.int64)
