@@ -144,7 +144,7 @@ def measure_windows(
 
     # time away from the expected state after each edge, with a 0 after the last (for reduceat)
     padded = np.zeros(n_edges + 1, np.int64)
-    np.copyto(padded[:n_edges], dwell, where=away)
+    np.multiply(dwell, away, out=padded[:n_edges])
     away_cum = np.empty(n_edges + 1, np.int64)
     away_cum[0] = 0
     np.cumsum(padded[:n_edges], out=away_cum[1:])
