@@ -213,8 +213,11 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
             d[int(np.argmax(too_far)) :] = 0
     rel = np.cumsum(d)
     rel += tl._last_rel
-    hi = np.maximum.accumulate(rel)
-    np.maximum(hi, tl._hi_rel, out=hi)
+    if (d[1:] >= 0).all():  # no row steps back (the usual order): the running maximum is the row itself
+        hi = np.maximum(rel, tl._hi_rel)
+    else:
+        hi = np.maximum.accumulate(rel)
+        np.maximum(hi, tl._hi_rel, out=hi)
     prior_hi = np.empty_like(hi)
     prior_hi[0] = tl._hi_rel
     prior_hi[1:] = hi[:-1]

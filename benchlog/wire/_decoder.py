@@ -606,6 +606,9 @@ class Decoder:
             block_from, beats, beat_at = taken, [], []
 
         quick = quick_beats(body, starts, ends, breaks[:-1].tolist(), ctx)
+        if len(quick) == len(breaks) - 1:  # every other line a version 1 beat (a clean stream): at once
+            self._fast_and_beats(quick, breaks, row_kind, channel, level, tick, no_cycle)
+            return None
         for j in breaks.tolist():
             if j > prev:
                 k = j - prev
@@ -642,6 +645,37 @@ class Decoder:
                 self._good(rec)
         emit()
         return None
+
+    def _fast_and_beats(
+        self,
+        quick: dict[int, tuple[int, int, int, int]],
+        breaks: np.ndarray,
+        kinds: np.ndarray,
+        chans: np.ndarray,
+        levels: np.ndarray,
+        ticks: np.ndarray,
+        no_cycle: np.ndarray,
+    ) -> None:
+        """`_line_block` where every line is a fast edge or drive line or a version 1 beat (`quick`, by
+        line, in line order): what its loop gives, as one block (the beats where they came)."""
+        n_fast = len(ticks)
+        if not n_fast and not quick:
+            return
+        c = self.counters
+        self._bad_units = self._bad_bytes = 0
+        c.records += n_fast + len(quick)
+        c.edges += n_fast - len(no_cycle)
+        beats = list(quick.values())
+        if beats:
+            self._ctx.check_level = max(self._ctx.check_level, max(b[3] for b in beats))
+            at = breaks[:-1] - np.arange(len(beats))  # fast rows before each beat
+            kinds = np.insert(kinds, at, BLOCK_BEAT)
+            chans = np.insert(chans, at, 0)
+            levels = np.insert(levels, at, 0)
+            ticks = np.insert(ticks, at, np.array([b[0] for b in beats], np.uint64))
+        captured = np.array([b[1] for b in beats], np.int64)
+        dropped = np.array([b[2] for b in beats], np.int64)
+        self._out.append(Block(kinds, chans, levels, ticks, no_cycle, captured, dropped))
 
     def _hold(self, tail: bytes, limit: int, terminator: bytes) -> bytes:
         """Keep an unfinished unit, or start skipping it when it is already too long."""

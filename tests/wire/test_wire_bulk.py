@@ -168,3 +168,27 @@ def test_large_reads_give_the_records_small_reads_give(form, rate):
         blocks, _ = decode(data, read, blocks=True)
         assert any(isinstance(r, Block) for r in blocks)
         assert joined(blocks) == want
+
+
+def test_version_1_lines_with_beats_decode_to_the_records_sent():
+    # a clean version 1 line stream (edges, drives, beats): every line a fast edge or drive line or a
+    # beat, read as one block per read; the records sent are the reference
+    rng = np.random.default_rng(8)
+    enc = LineEncoder(8, 32)
+    sent: list = [Announce(1, 1_000_000, 32, 8, "BEATS-V1")]
+    tick = 0
+    for i in range(400):
+        n = int(rng.integers(1, 40))
+        ticks = tick + np.cumsum(rng.integers(1, 3000, n))
+        tick = int(ticks[-1])
+        edges = Edges(rng.integers(0, 8, n).astype(np.uint8), rng.integers(0, 2, n).astype(np.uint8), ticks)
+        sent += [edges, Drive(int(rng.integers(0, 8)), i % 2, tick + 5)]
+        tick += 10
+        if i % 3 == 0:
+            sent.append(Beat(tick, i * 10, i // 50))
+    data = b"".join(enc.encode(r) for r in sent)
+    for read in (len(data), 65_537, 4_099):
+        blocks, counts = decode(data, read, blocks=True)
+        assert any(isinstance(r, Block) and len(r.captured) for r in blocks)
+        assert joined(blocks) == joined(sent)
+        assert counts.records == len(data.splitlines()) and counts.faults == 0
