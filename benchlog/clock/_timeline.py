@@ -872,16 +872,18 @@ class Timeline:
             self._e_ch.append(channel[a:b])
             self._e_lv.append(level[a:b])
         else:
-            self._e_t.append(t[is_edge])
-            self._e_ch.append(channel[a:b][is_edge])
-            self._e_lv.append(level[a:b][is_edge])
-            is_drive = k == _DRIVE
-            if is_drive.any():
-                self._d_t.append(t[is_drive])
-                self._d_ch.append(channel[a:b][is_drive])
-                self._d_lv.append(level[a:b][is_drive])
+            # one index array taken from each column: several times quicker than the mask on each
+            rows = np.flatnonzero(is_edge)
+            self._e_t.append(t.take(rows))
+            self._e_ch.append(channel[a:b].take(rows))
+            self._e_lv.append(level[a:b].take(rows))
+            drive_rows = np.flatnonzero(k == _DRIVE)
+            if len(drive_rows):
+                self._d_t.append(t.take(drive_rows))
+                self._d_ch.append(channel[a:b].take(drive_rows))
+                self._d_lv.append(level[a:b].take(drive_rows))
                 first = int(np.count_nonzero(kind[:a] == _DRIVE))
-                self._d_cy.append(cycles[first : first + int(np.count_nonzero(is_drive))])
+                self._d_cy.append(cycles[first : first + len(drive_rows)])
         pos, captured, dropped = beats
         m0, m1 = int(np.searchsorted(pos, a)), int(np.searchsorted(pos, b))
         if m1 == m0:

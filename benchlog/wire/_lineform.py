@@ -259,7 +259,15 @@ def fast_edge_lines(
             got = _same_width_rows(a, starts[cand], width, first[cand], ctx)
             if got is not None:
                 ok, is_drive, channel, level, tick, kind = got
-                return cand[ok], is_drive[ok], channel[ok], level[ok], tick[ok], kind[ok]
+                rows = np.flatnonzero(ok)  # one index array for every column: quicker than the mask
+                return (
+                    cand.take(rows),
+                    is_drive.take(rows),
+                    channel.take(rows),
+                    level.take(rows),
+                    tick.take(rows),
+                    kind.take(rows),
+                )
     line_xor = np.bitwise_xor.reduceat(a, starts)  # of each whole line, its `\\n` included
     s, e = starts[cand], ends[cand]
     ok = (a[s + 1] == 0x20) & (a[s + 3] == 0x20) & (a[s + 5] == 0x20)
