@@ -169,14 +169,17 @@ class Analyzer:
             for part in np.split(order, bounds):
                 self._take_edges(self._chan(int(edges.channel[part[0]])), edges.t_ns[part], edges.level[part])
         if len(drives) and self.settings.mode != "free":
-            for c in channels_in(drives.channel):
-                sel = drives.channel == c
+            order = np.argsort(drives.channel, kind="stable")
+            bounds = np.flatnonzero(np.diff(drives.channel[order])) + 1
+            for part in np.split(order, bounds):  # channel by channel, ascending
+                c = int(drives.channel[part[0]])
+                t, lv = drives.t_ns[part], drives.level[part]
                 targets = [c]
                 partner = self.settings.partner(c)
                 if partner is not None:
                     targets.append(partner)
                 for target in targets:
-                    self._take_drives(self._chan(target), drives.t_ns[sel], drives.level[sel])
+                    self._take_drives(self._chan(target), t, lv)
 
     def _power_offs(self, drives: TimedDrives, resets: list[tuple[int, int]]) -> TimedDrives:
         """`drives` and a drive-off at each reset's power loss for every channel driven before it."""
@@ -243,7 +246,8 @@ class Analyzer:
         t = t.astype(np.int64, copy=False)
         lv = (lv != 0).astype(np.uint8)
         keep = t >= ch.done_until
-        t, lv = t[keep], lv[keep]
+        if not keep.all():
+            t, lv = t[keep], lv[keep]
         if not len(t):
             return
         t_all = np.concatenate((ch.dt, t))
@@ -256,7 +260,9 @@ class Analyzer:
         prev[0] = 255 if ch.last_drive_level is None else ch.last_drive_level
         prev[1:] = lv_all[:-1]
         keep = lv_all != prev
-        ch.dt, ch.dl = t_all[keep], lv_all[keep]
+        if not keep.all():
+            t_all, lv_all = t_all[keep], lv_all[keep]
+        ch.dt, ch.dl = t_all, lv_all
         ch.driven = ch.driven or bool(len(ch.dt))
 
     # -- emission -----------------------------------------------------------------------------------
