@@ -381,10 +381,15 @@ def _same_width_rows(
         ok &= ~is_drive
     digits, is_hex = _hex_digits(t[6:tick_end])
     ok &= is_hex.all(axis=0)
-    # two digits (a byte) at a time; an odd count's first digit alone
-    tick = digits[0].astype(np.uint64) if ndig % 2 else np.zeros(n, np.uint64)
-    for k in range(2 if ndig % 2 else 1, ndig, 2):
-        tick = tick << np.uint64(8) | (digits[k - 1] << np.uint8(4) | digits[k])
+    # the tick's bytes, most significant first (two digits a byte; an odd count's first digit alone),
+    # laid side by side and read as one big-endian word per line
+    pairs = [digits[0]] if ndig % 2 else []
+    pairs += [digits[k - 1] << np.uint8(4) | digits[k] for k in range(2 if ndig % 2 else 1, ndig, 2)]
+    size = next(w for w in (1, 2, 4, 8) if w >= len(pairs))
+    word = np.zeros((n, size), np.uint8)
+    for i, byte in enumerate(pairs, size - len(pairs)):
+        word[:, i] = byte
+    tick = word.view(f">u{size}").reshape(n).astype(np.uint64)
     if kind == CHECK_XOR:
         xor = np.bitwise_xor.reduce(t[: width - 3], axis=0)
         said, is_hex = _hex_digits(t[width - 2 :])
