@@ -419,12 +419,11 @@ def quick_beats(
     if ctx.version != 1 or not rows:
         return {}
     found = []
-    for j in rows:
-        s = int(starts[j])
+    match = _BEAT_V1.fullmatch
+    for j, s, e in zip(rows, starts[rows].tolist(), ends[rows].tolist(), strict=True):
         if body[s] != 0x42:  # "B"
             continue
-        e = int(ends[j])
-        m = _BEAT_V1.fullmatch(body, s, e)
+        m = match(body, s, e)
         if m is not None:
             found.append((j, s, e, m.groups()))
     if not found:
@@ -432,9 +431,13 @@ def quick_beats(
     checked = [f for f in found if f[3][3] is not None]
     xors: list[int] = []
     if checked:
+        # each line's bytes before its `*`, gathered side by side, then XORed line by line
         a = np.frombuffer(body, np.uint8)
-        cut = np.array([(s, e - 3) for _, s, e, _ in checked], np.int64).reshape(-1)
-        xors = np.bitwise_xor.reduceat(a, cut)[0::2].tolist()  # each line's bytes before its `*`
+        first = np.array([s for _, s, _, _ in checked], np.int64)
+        size = np.array([e - 3 - s for _, s, e, _ in checked], np.int64)
+        at = np.cumsum(size) - size
+        joined = a[np.repeat(first - at, size) + np.arange(int(size.sum()))]
+        xors = np.bitwise_xor.reduceat(joined, at).tolist()
     xor_of = dict(zip((f[0] for f in checked), xors, strict=True))
     out = {}
     bits, level = ctx.counter_bits, ctx.check_level
