@@ -93,11 +93,13 @@ def cobs_decode_spans(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tu
         if live.all():
             p = nxt
         else:
-            done = ~live
-            ok[idx[done]] = nxt[done] == end[done]
-            p, end, idx = nxt[live], end[live], idx[live]
+            # index arrays taken from each column (quicker than the masks on each)
+            done = np.flatnonzero(~live)
+            ok[idx.take(done)] = nxt.take(done) == end.take(done)
+            keep = np.flatnonzero(live)
+            p, end, idx = nxt.take(keep), end.take(keep), idx.take(keep)
             if long_spans:
-                code = code[live]
+                code = code.take(keep)
         if long_spans:
             prev_full = code == 0xFF
     values = a.copy()
@@ -143,8 +145,7 @@ def crc32_all_valid(frames: np.ndarray, lengths: np.ndarray) -> bool:
     if not _CRC_OF_ZEROS:
         _CRC_OF_ZEROS.extend(zlib.crc32(bytes(k)) for k in range(2048))
     ref = np.zeros(len(frames), np.uint8)
-    crcs = np.asarray(_CRC_OF_ZEROS, np.uint32)[lengths - 4].astype("<u4").view(np.uint8).reshape(-1, 4)
+    crcs = np.asarray(_CRC_OF_ZEROS, np.uint32)[lengths - 4].astype("<u4").view(np.uint8)
     tails = np.cumsum(lengths) - 4
-    for k in range(4):
-        ref[tails + k] = crcs[:, k]
+    ref[(tails[:, None] + np.arange(4)).reshape(-1)] = crcs  # each frame's last four bytes, in order
     return zlib.crc32(frames) == zlib.crc32(ref)
