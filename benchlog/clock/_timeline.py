@@ -903,7 +903,7 @@ class Timeline:
         bound[0] = self._beat.rel if self._beat is not None else np.iinfo(np.int64).min
         bound[1:] = rel[j]
         hit = is_edge & (rel <= bound[after])
-        late = np.bincount(after[hit], minlength=nb + 1)
+        late = np.bincount(after.take(np.flatnonzero(hit)), minlength=nb + 1)
         edges_before = np.cumsum(is_edge)
         before = self._received + np.where(j > 0, edges_before[np.maximum(j - 1, 0)], 0)
         tb = t[j]
