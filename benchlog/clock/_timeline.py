@@ -328,7 +328,7 @@ class _Segment:
             z = np.zeros(0, np.uint8)
             chunk = (np.zeros(0, np.uint64), z, z, z)
         else:
-            tick = np.concatenate(self.ticks).astype(np.uint64)  # a copy: it is masked in place
+            tick = np.concatenate(self.ticks).astype(np.uint64, copy=False)  # new: it is masked in place
             if self.has_kinds:
                 kinds = [
                     np.zeros(len(t), np.uint8) if k is None else k
