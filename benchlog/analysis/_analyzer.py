@@ -163,17 +163,11 @@ class Analyzer:
         if len(drives):
             self._drive_sources.update(channels_in(drives.channel))
         if len(edges):
-            order = np.argsort(edges.channel, kind="stable")
-            chans = edges.channel[order]
-            bounds = np.flatnonzero(np.diff(chans)) + 1
-            for part in np.split(order, bounds):
-                self._take_edges(self._chan(int(edges.channel[part[0]])), edges.t_ns[part], edges.level[part])
+            for c, rows in _by_channel(edges.channel):
+                self._take_edges(self._chan(c), edges.t_ns.take(rows), edges.level.take(rows))
         if len(drives) and self.settings.mode != "free":
-            order = np.argsort(drives.channel, kind="stable")
-            bounds = np.flatnonzero(np.diff(drives.channel[order])) + 1
-            for part in np.split(order, bounds):  # channel by channel, ascending
-                c = int(drives.channel[part[0]])
-                t, lv = drives.t_ns[part], drives.level[part]
+            for c, rows in _by_channel(drives.channel):
+                t, lv = drives.t_ns.take(rows), drives.level.take(rows)
                 targets = [c]
                 partner = self.settings.partner(c)
                 if partner is not None:
@@ -537,6 +531,12 @@ def channels_in(channel: np.ndarray) -> list[int]:
     seen = np.zeros(256, bool)
     seen[channel] = True
     return np.flatnonzero(seen).tolist()
+
+
+def _by_channel(channel: np.ndarray) -> list[tuple[int, np.ndarray]]:
+    """(channel, its rows in order) for each channel present, ascending: a pass per channel (at most
+    16), quicker than a stable sort of the rows by channel."""
+    return [(c, np.flatnonzero(channel == c)) for c in channels_in(channel)]
 
 
 def power_off_ns(reset: Incident) -> int:

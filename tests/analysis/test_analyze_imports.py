@@ -92,3 +92,17 @@ def test_freed_batch_memory_is_reused_not_faulted_in_again(tmp_path):
     # again (a 4 KiB page each), about the first round's 4,000 when it is kept (page counts, not times)
     assert default > 40_000
     assert kept < default / 5
+
+
+def test_rows_by_channel_are_a_stable_sorts_groups():
+    from benchlog.analysis._analyzer import _by_channel
+
+    rng = np.random.default_rng(5)
+    for n in (1, 7, 5000):
+        channel = rng.integers(0, 16, n).astype(np.uint8)
+        # numpy's stable argsort as the reference: each channel's rows in order, channels ascending
+        order = np.argsort(channel, kind="stable")
+        want = [(int(c), order[channel[order] == c]) for c in np.unique(channel)]
+        got = _by_channel(channel)
+        assert [c for c, _ in got] == [c for c, _ in want]
+        assert all(np.array_equal(g, w) for (_, g), (_, w) in zip(got, want, strict=True))
