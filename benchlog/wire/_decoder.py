@@ -154,10 +154,14 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     one-at-a-time path would turn into those records with nothing else said."""
     n_seg = len(seg_s)
     fits = (seg_e - seg_s) <= MAX_ENCODED
-    ok = np.zeros(n_seg, bool)
-    dstart = np.zeros(n_seg, np.int64)
-    dlen = np.zeros(n_seg, np.int64)
-    ok[fits], dec, dstart[fits], dlen[fits] = cobs_decode_spans(a, seg_s[fits], seg_e[fits])
+    if fits.all():
+        ok, dec, dstart, dlen = cobs_decode_spans(a, seg_s, seg_e)
+        dstart, dlen = dstart.astype(np.int64, copy=False), dlen.astype(np.int64, copy=False)
+    else:
+        ok = np.zeros(n_seg, bool)
+        dstart = np.zeros(n_seg, np.int64)
+        dlen = np.zeros(n_seg, np.int64)
+        ok[fits], dec, dstart[fits], dlen[fits] = cobs_decode_spans(a, seg_s[fits], seg_e[fits])
     ok &= (dlen >= 7) & (dlen <= MAX_FRAME)
     good = np.flatnonzero(ok)
     if len(good):
@@ -188,7 +192,10 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     is_drive = (kind == TYPE_DRIVE) & ((n == 17) | (n == 21))
     d_channel, d_level, d_tick = d[at + 3], d[at + 4], _le(d, at + 5, 8)
     is_drive &= (d_channel < ctx.channels) & (d_level <= 1) & in_range(d_tick)
-    d_cycle = np.where(n == 21, _le(d, at + 13, 4).astype(np.int64), -1)
+    with_cycle = n == 21  # a version 2 drive's cycle (a version 1 stream has none: nothing to read)
+    d_cycle = np.full(len(n), -1, np.int64)
+    if with_cycle.any():
+        d_cycle = np.where(with_cycle, _le(d, at + 13, 4).astype(np.int64), d_cycle)
     is_beat = (kind == TYPE_BEAT) & (n == 23)
     b_tick = _le(d, at + 3, 8)  # a beat's tick, or an edge frame's base tick: the same bytes
     is_beat &= in_range(b_tick)
@@ -206,7 +213,10 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     off += 3 * np.arange(total)
     chan_level = d[off]
     bad_entry = ((chan_level & np.uint8(0x70)) != 0) | ((chan_level & np.uint8(0x0F)) >= ctx.channels)
-    bad_frame = np.add.reduceat(bad_entry, first) > 0 if total else np.zeros(0, bool)
+    if total and bad_entry.any():
+        bad_frame = np.add.reduceat(bad_entry, first) > 0
+    else:
+        bad_frame = np.zeros(len(ef), bool)
     bad_frame |= ~in_range(base[ef])
     is_edges[ef[bad_frame]] = False
     # the delta: the little-endian 2-byte word after it (two byte gathers: quicker than `_le` for
