@@ -205,7 +205,7 @@ class Analyzer:
             ch.level_before = 1 - int(lv[0]) if not len(ch.t) else ch.level_before
         t_all = np.concatenate((ch.t, t))
         lv_all = np.concatenate((ch.lv, lv))
-        if len(t_all) > 1 and (np.diff(t_all) < 0).any():
+        if len(t_all) > 1 and (t_all[1:] < t_all[:-1]).any():
             order = np.argsort(t_all, kind="stable")
             t_all, lv_all = t_all[order], lv_all[order]
             ch.level_before = 1 - int(lv_all[0]) if ch.done_until == -_FAR else ch.level_before
@@ -246,14 +246,13 @@ class Analyzer:
             return
         t_all = np.concatenate((ch.dt, t))
         lv_all = np.concatenate((ch.dl, lv))
-        if len(t_all) > 1 and (np.diff(t_all) < 0).any():
+        if len(t_all) > 1 and (t_all[1:] < t_all[:-1]).any():
             order = np.argsort(t_all, kind="stable")
             t_all, lv_all = t_all[order], lv_all[order]
         # A drive repeating the previous drive's level switches nothing: it neither ends nor starts one.
-        prev = np.empty_like(lv_all)
-        prev[0] = 255 if ch.last_drive_level is None else ch.last_drive_level
-        prev[1:] = lv_all[:-1]
-        keep = lv_all != prev
+        keep = np.empty(len(lv_all), bool)
+        keep[0] = ch.last_drive_level is None or lv_all[0] != ch.last_drive_level
+        np.not_equal(lv_all[1:], lv_all[:-1], out=keep[1:])
         if not keep.all():
             t_all, lv_all = t_all[keep], lv_all[keep]
         ch.dt, ch.dl = t_all, lv_all

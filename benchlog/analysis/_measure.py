@@ -40,10 +40,9 @@ def dedupe(t: np.ndarray, lv: np.ndarray, level_before: int) -> tuple[np.ndarray
     """Drop edges that repeat the level before them (binary levels: a run-length compression)."""
     if len(t) == 0:
         return t, lv
-    prev = np.empty_like(lv)
-    prev[0] = level_before
-    prev[1:] = lv[:-1]
-    keep = lv != prev
+    keep = np.empty(len(lv), bool)
+    keep[0] = lv[0] != level_before
+    np.not_equal(lv[1:], lv[:-1], out=keep[1:])
     if keep.all():
         return t, lv
     return t[keep], lv[keep]
