@@ -228,17 +228,21 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     step = tl.replay_step()
     offset = (tl._replay_host + step * (row_group + 1) - tl._epoch_start_host) - t
     starts = np.concatenate(([0], beat_pos[beat_pos < n - 1] + 1))  # each group's first row
-    group_min = np.full(int(row_group[-1]) + 2, np.iinfo(np.int64).max, np.int64)
+    far = np.iinfo(np.int64).max
+    group_min = np.full(int(row_group[-1]) + 2, far, np.int64)
     group_min[row_group[starts] + 1] = np.minimum.reduceat(offset, starts)  # shifted: the group before
-    least = group_min[row_group]
+    # A row is ahead when its offset is under the least of the groups before (`least`) by more than the
+    # slack; a group holds such a row exactly when its own least offset is: judged group by group.
+    least = group_min[:-1]
     if tl._min_offset is not None:
-        least = np.minimum(least, tl._min_offset)
-    else:
-        least[row_group == 0] = np.iinfo(np.int64).max  # no earlier push: nothing to compare with
-    ahead = (least != np.iinfo(np.int64).max) & (offset < least - tl.host_slack_ns)
-    bad = back | ahead if too_far is None else back | ahead | too_far
+        least = np.minimum(least, tl._min_offset)  # (else the first group has nothing to compare with)
+    ahead = np.flatnonzero((least != far) & (group_min[1:] < least - tl.host_slack_ns))
+    bad = back if too_far is None else back | too_far
+    first_bad = [int(ahead[0])] if len(ahead) else []
     if bad.any():
-        return int(row_group[int(np.argmax(bad))])
+        first_bad.append(int(row_group[int(np.argmax(bad))]))
+    if first_bad:
+        return min(first_bad)  # the group of the first row taken for a restarted counter
     b.rel, b.hi, b.t, b.row_group, b.offset = rel, hi, t, row_group, offset
     return None
 
