@@ -135,7 +135,10 @@ def _line_lines(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     starts = np.empty_like(nl)
     starts[0] = 0
     starts[1:] = nl[:-1] + 1
-    return nl, starts, nl - ((nl > starts) & (a[nl - 1] == 0x0D))
+    cr = a[nl - 1] == 0x0D
+    if not cr.any():  # `\n` alone ends every line: the ends are the newlines
+        return nl, starts, nl
+    return nl, starts, nl - ((nl > starts) & cr)
 
 
 def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
