@@ -13,20 +13,6 @@ Definitions of every metric: docs/metrics.md; the spec file format: docs/spec.md
 
 from benchlog.analysis._analyzer import Analyzer, AnalyzerCounters, blank_incomplete, measure, power_off_ns
 from benchlog.analysis._settings import DEFAULT_CHATTER_THRESHOLD_NS, AnalysisSettings, load_settings
-from benchlog.analysis._spec import (
-    METRICS,
-    VERDICT_NAMES,
-    ChatterLimit,
-    LifeRequirement,
-    Limit,
-    PartSpec,
-    judge,
-    load_spec,
-    parse_spec,
-    shipped_specs,
-    unit_verdict,
-    unit_verdicts,
-)
 from benchlog.analysis._summary import Summaries, summarize
 from benchlog.analysis._types import (
     ACTUATION_DTYPE,
@@ -49,7 +35,24 @@ from benchlog.analysis._types import (
 
 Segmenter = Analyzer  # the same object: it segments and measures in one pass
 
-# drift names load on first use: a command that only measures (`analyze`) does not pay for the module
+# names of the spec and drift modules load on first use: a command that only measures (`analyze` without
+# a spec) pays for neither module (nor for the TOML parser the spec module brings)
+_SPEC_NAMES = frozenset(
+    (
+        "METRICS",
+        "VERDICT_NAMES",
+        "ChatterLimit",
+        "LifeRequirement",
+        "Limit",
+        "PartSpec",
+        "judge",
+        "load_spec",
+        "parse_spec",
+        "shipped_specs",
+        "unit_verdict",
+        "unit_verdicts",
+    )
+)
 _DRIFT_NAMES = frozenset(
     (
         "DRIFT_METRICS",
@@ -75,13 +78,15 @@ _DRIFT_NAMES = frozenset(
 
 
 def __getattr__(name: str):
-    if name in _DRIFT_NAMES:
-        from benchlog.analysis import _drift
-
-        value = getattr(_drift, name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    if name in _SPEC_NAMES:
+        from benchlog.analysis import _spec as module
+    elif name in _DRIFT_NAMES:
+        from benchlog.analysis import _drift as module
+    else:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(module, name)
+    globals()[name] = value
+    return value
 
 
 __all__ = [

@@ -156,34 +156,30 @@ class Analyzer:
         if resets:
             if self.settings.mode != "free":
                 drives = self._power_offs(drives, resets)
-            for c in np.unique(np.concatenate((edges.channel, drives.channel))).tolist():
-                self._chan(int(c))
+            for c in channels_in(np.concatenate((edges.channel, drives.channel))):
+                self._chan(c)
             for ch in self._channels.values():
                 ch.unsure.extend(resets)
         if len(drives):
-            self._drive_sources.update(np.unique(drives.channel).tolist())
+            self._drive_sources.update(channels_in(drives.channel))
         if len(edges):
-            order = np.argsort(edges.channel, kind="stable")
-            chans = edges.channel[order]
-            bounds = np.flatnonzero(np.diff(chans)) + 1
-            for part in np.split(order, bounds):
-                self._take_edges(self._chan(int(edges.channel[part[0]])), edges.t_ns[part], edges.level[part])
+            for c, rows in _by_channel(edges.channel):
+                self._take_edges(self._chan(c), edges.t_ns.take(rows), edges.level.take(rows))
         if len(drives) and self.settings.mode != "free":
-            for c in np.unique(drives.channel):
-                c = int(c)
-                sel = drives.channel == c
+            for c, rows in _by_channel(drives.channel):
+                t, lv = drives.t_ns.take(rows), drives.level.take(rows)
                 targets = [c]
                 partner = self.settings.partner(c)
                 if partner is not None:
                     targets.append(partner)
                 for target in targets:
-                    self._take_drives(self._chan(target), drives.t_ns[sel], drives.level[sel])
+                    self._take_drives(self._chan(target), t, lv)
 
     def _power_offs(self, drives: TimedDrives, resets: list[tuple[int, int]]) -> TimedDrives:
         """`drives` and a drive-off at each reset's power loss for every channel driven before it."""
         t, c = [drives.t_ns], [drives.channel]
         for _, t_off in resets:
-            chans = self._drive_sources | set(np.unique(drives.channel[drives.t_ns < t_off]).tolist())
+            chans = self._drive_sources | set(channels_in(drives.channel[drives.t_ns < t_off]))
             t.append(np.full(len(chans), t_off, np.int64))
             c.append(np.array(sorted(chans), np.uint8))
         t_all, c_all = np.concatenate(t), np.concatenate(c)
@@ -209,7 +205,7 @@ class Analyzer:
             ch.level_before = 1 - int(lv[0]) if not len(ch.t) else ch.level_before
         t_all = np.concatenate((ch.t, t))
         lv_all = np.concatenate((ch.lv, lv))
-        if len(t_all) > 1 and (np.diff(t_all) < 0).any():
+        if len(t_all) > 1 and (t_all[1:] < t_all[:-1]).any():
             order = np.argsort(t_all, kind="stable")
             t_all, lv_all = t_all[order], lv_all[order]
             ch.level_before = 1 - int(lv_all[0]) if ch.done_until == -_FAR else ch.level_before
@@ -244,20 +240,22 @@ class Analyzer:
         t = t.astype(np.int64, copy=False)
         lv = (lv != 0).astype(np.uint8)
         keep = t >= ch.done_until
-        t, lv = t[keep], lv[keep]
+        if not keep.all():
+            t, lv = t[keep], lv[keep]
         if not len(t):
             return
         t_all = np.concatenate((ch.dt, t))
         lv_all = np.concatenate((ch.dl, lv))
-        if len(t_all) > 1 and (np.diff(t_all) < 0).any():
+        if len(t_all) > 1 and (t_all[1:] < t_all[:-1]).any():
             order = np.argsort(t_all, kind="stable")
             t_all, lv_all = t_all[order], lv_all[order]
         # A drive repeating the previous drive's level switches nothing: it neither ends nor starts one.
-        prev = np.empty_like(lv_all)
-        prev[0] = 255 if ch.last_drive_level is None else ch.last_drive_level
-        prev[1:] = lv_all[:-1]
-        keep = lv_all != prev
-        ch.dt, ch.dl = t_all[keep], lv_all[keep]
+        keep = np.empty(len(lv_all), bool)
+        keep[0] = ch.last_drive_level is None or lv_all[0] != ch.last_drive_level
+        np.not_equal(lv_all[1:], lv_all[:-1], out=keep[1:])
+        if not keep.all():
+            t_all, lv_all = t_all[keep], lv_all[keep]
+        ch.dt, ch.dl = t_all, lv_all
         ch.driven = ch.driven or bool(len(ch.dt))
 
     # -- emission -----------------------------------------------------------------------------------
@@ -300,7 +298,7 @@ class Analyzer:
             ch.level_before = 1 if ch.normally_closed else 0
         floor = s.floor
         kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
-        ft, flv = ch.t[kept], ch.lv[kept]
+        ft, flv = _kept(ch, kept)
         if final:
             eff = _FAR
         elif len(ch.t) and horizon - int(ch.t[-1]) < floor:
@@ -321,7 +319,7 @@ class Analyzer:
             ch.done_until = cap
             ch.anchored = True
             kept, group_start, glitch_t, glitch_n = filter_glitches(ch.t, floor)
-            ft, flv = ch.t[kept], ch.lv[kept]
+            ft, flv = _kept(ch, kept)
         if len(ch.dt):
             rows = self._driven(ch, ft, flv, glitch_t, glitch_n, group_start, eff, horizon, final)
         elif not ch.driven:
@@ -495,6 +493,14 @@ class Analyzer:
         return np.concatenate(out)
 
 
+def _kept(ch: _Channel, kept: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The channel's edges at indices `kept` (sorted, distinct): the arrays themselves when that is
+    all of them (no glitch removed, the usual case), not a copy."""
+    if len(kept) == len(ch.t):
+        return ch.t, ch.lv
+    return ch.t[kept], ch.lv[kept]
+
+
 def _transfer(mine: np.ndarray, other: np.ndarray, tol: int) -> None:
     """Fill `transfer_us` of `mine` from the nearest opposite actuation of the other contact."""
     if not len(mine) or not len(other):
@@ -510,6 +516,26 @@ def _transfer(mine: np.ndarray, other: np.ndarray, tol: int) -> None:
     break_settle = np.where(mine["kind"] == BREAK, mine["t_settle_ns"], o["t_settle_ns"])
     ok &= (make_first >= 0) & (break_settle >= 0)
     mine["transfer_us"] = np.where(ok, (make_first - break_settle) / 1e3, mine["transfer_us"])
+
+
+def channels_in(channel: np.ndarray) -> list[int]:
+    """The distinct channel numbers in `channel`, ascending (what `np.unique(channel).tolist()` gives).
+
+    Channel numbers are small (uint8): a table of the 256 values marks those present, a pass where
+    `np.unique` sorts or hashes (its hashing path imports numpy.ma on first use, several ms of a short
+    command's start)."""
+    channel = np.asarray(channel)
+    if channel.dtype != np.uint8:
+        return [int(c) for c in np.unique(channel)]
+    seen = np.zeros(256, bool)
+    seen[channel] = True
+    return np.flatnonzero(seen).tolist()
+
+
+def _by_channel(channel: np.ndarray) -> list[tuple[int, np.ndarray]]:
+    """(channel, its rows in order) for each channel present, ascending: a pass per channel (at most
+    16), quicker than a stable sort of the rows by channel."""
+    return [(c, np.flatnonzero(channel == c)) for c in channels_in(channel)]
 
 
 def power_off_ns(reset: Incident) -> int:

@@ -40,10 +40,9 @@ def dedupe(t: np.ndarray, lv: np.ndarray, level_before: int) -> tuple[np.ndarray
     """Drop edges that repeat the level before them (binary levels: a run-length compression)."""
     if len(t) == 0:
         return t, lv
-    prev = np.empty_like(lv)
-    prev[0] = level_before
-    prev[1:] = lv[:-1]
-    keep = lv != prev
+    keep = np.empty(len(lv), bool)
+    keep[0] = lv[0] != level_before
+    np.not_equal(lv[1:], lv[:-1], out=keep[1:])
     if keep.all():
         return t, lv
     return t[keep], lv[keep]
@@ -101,16 +100,26 @@ def measure_windows(
     expected = np.asarray(expected, np.uint8)
     n_edges = len(t)
     a = np.searchsorted(t, w_start, "left")
-    b = np.searchsorted(t, w_end, "left")
-    t_pad = np.append(t, -1)  # index n_edges reads -1: "no such edge"
-    lv_pad = np.append(lv, level_before).astype(np.uint8)
-    level_at_start = np.where(a > 0, lv_pad[a - 1], level_before)
+    if k > 1 and (w_end[:-1] == w_start[1:]).all():  # windows end where the next starts (drive to drive)
+        b = np.empty(k, np.intp)
+        b[:-1] = a[1:]
+        b[-1] = np.searchsorted(t, w_end[-1], "left")
+    else:
+        b = np.searchsorted(t, w_end, "left")
+    last = max(n_edges - 1, 0)  # reads below are masked where they would fall past the last edge
+    if n_edges:
+        level_at_start = np.where(a > 0, lv[np.maximum(a - 1, 0)], level_before)
+    else:
+        level_at_start = np.full(k, level_before)
     moved = level_at_start != expected
     count = b - a
 
     # Per-edge quantities. Edges outside every window get values too, but every query below stays
-    # inside one window's index range [a, b), so they never count.
-    win = np.maximum(np.searchsorted(w_start, t, "right") - 1, 0)
+    # inside one window's index range [a, b), so they never count. The window of an edge: the last
+    # window starting at or before it, counted from the windows' first edges `a` (t is sorted, so
+    # w_start[i] <= t[e] exactly when a[i] <= e), one pass where a search per edge costs a log.
+    starts_before = np.cumsum(np.bincount(a, minlength=n_edges + 1)[:n_edges])
+    win = np.maximum(starts_before - 1, 0)
     e_edge = expected[win]
     we_edge = w_end[win]
     nxt = np.empty(n_edges, np.int64)
@@ -118,7 +127,8 @@ def measure_windows(
         nxt[:-1] = t[1:]
         nxt[-1] = np.iinfo(np.int64).max
     last_in_window = nxt >= we_edge
-    dwell = np.minimum(nxt, we_edge) - t
+    dwell = np.minimum(nxt, we_edge, out=nxt)
+    dwell -= t
     away = lv != e_edge
     cand = ~away & ((dwell >= settle_ns) | last_in_window)
 
@@ -131,26 +141,32 @@ def measure_windows(
     has_edges = count > 0
     settled = moved & has_edges & (j >= 0) & (j < b)
 
-    away_dwell = np.where(away, dwell, 0)
-    away_cum = np.concatenate(([0], np.cumsum(away_dwell)))
-    chat = (away & (dwell >= chatter_ns)).astype(np.int64)
-    chat_cum = np.concatenate(([0], np.cumsum(chat)))
+    # time away from the expected state after each edge, with a 0 after the last (for reduceat)
+    padded = np.zeros(n_edges + 1, np.int64)
+    np.multiply(dwell, away, out=padded[:n_edges])
+    away_cum = np.empty(n_edges + 1, np.int64)
+    away_cum[0] = 0
+    np.cumsum(padded[:n_edges], out=away_cum[1:])
+    chat_cum = np.empty(n_edges + 1, np.int64)
+    chat_cum[0] = 0
+    np.cumsum(away & (dwell >= chatter_ns), dtype=np.int64, out=chat_cum[1:])
 
     # Bounce spans [a, end_b): to the settle point when settled, else to the window end.
     end_b = np.where(settled, j, b)
     end_b = np.where(moved, end_b, a)
-    padded = np.append(away_dwell, 0)
     idx = np.empty(2 * k, np.int64)
     idx[0::2] = np.minimum(a, n_edges)
     idx[1::2] = np.minimum(end_b, n_edges)
     longest = np.maximum.reduceat(padded, idx)[0::2] if n_edges else np.zeros(k, np.int64)
     longest = np.where(end_b > a, longest, 0)
+    t_first = np.where(moved & has_edges, t[np.minimum(a, last)], -1) if n_edges else np.full(k, -1)
+    t_settle = np.where(settled, t[np.clip(j, 0, last)], -1) if n_edges else np.full(k, -1)
 
     out["kind"] = np.where(expected == 1, MAKE, BREAK)
     out["t_start_ns"] = w_start
     out["t_end_ns"] = w_end
-    out["t_first_ns"] = np.where(moved & has_edges, t_pad[a], -1)
-    out["t_settle_ns"] = np.where(settled, t_pad[j], -1)
+    out["t_first_ns"] = t_first
+    out["t_settle_ns"] = t_settle
     out["transit_us"] = np.nan
     out["bounce_us"] = np.where(settled, (out["t_settle_ns"] - out["t_first_ns"]) / _NS_PER_US, np.nan)
     # levels alternate and the first edge goes toward the expected state: every second one is away

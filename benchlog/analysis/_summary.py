@@ -9,12 +9,14 @@ not by how long the recording ran. `summarize(table)` is the same over one table
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from benchlog.analysis._spec import VERDICT_NAMES, PartSpec, UnitFigures, verdict_of
 from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE, STUCK
+
+if TYPE_CHECKING:
+    from benchlog.analysis._spec import PartSpec, UnitFigures
 
 COMPACT_AT = 1 << 12  # values buffered (or as many as there are distinct ones) before they are folded
 
@@ -45,9 +47,15 @@ class ValueCounts:
         new, counts = np.unique(np.concatenate(self._buffer), return_counts=True)
         self._buffer, self._buffered = [], 0
         if len(self.values):
+            # two sorted runs of distinct values: a stable sort merges them in one pass (timsort)
             both = np.concatenate((self.values, new))
-            new, where = np.unique(both, return_inverse=True)
-            counts = np.bincount(where, weights=np.concatenate((self.counts, counts))).astype(np.int64)
+            order = np.argsort(both, kind="stable")
+            both = both[order]
+            weights = np.concatenate((self.counts, counts))[order]
+            first = np.ones(len(both), bool)
+            np.not_equal(both[1:], both[:-1], out=first[1:])
+            at = np.flatnonzero(first)
+            new, counts = both[at], np.add.reduceat(weights, at)
         self.values, self.counts = new, counts
 
     def __len__(self) -> int:
@@ -152,9 +160,10 @@ class Summaries:
         names = {"channel", "kind", "flags", "cycle", "glitches", "chatter", "drive_level"}
         names.update(column for column, _, _ in self._wanted)
         channels = actuations["channel"]
-        if (channels[1:] == channels[:-1]).all():
+        runs = [0, *(np.flatnonzero(channels[1:] != channels[:-1]) + 1).tolist()]
+        if len(runs) == len(set(channels[runs].tolist())):  # each channel's rows together already
             cols = {name: actuations[name] for name in names}
-            bounds = [0, len(actuations)]
+            bounds = [*runs, len(actuations)]
         else:
             order = np.argsort(channels, kind="stable")
             cols = {name: actuations[name][order] for name in names}
@@ -194,11 +203,16 @@ class Summaries:
             first = int(np.argmax(failed))
             ch.first_missed = (bool(good["flags"][first] & STUCK), int(good["cycle"][first]))
         ch.missed_good += n_failed
+        selected: dict[tuple[str, bool], np.ndarray] = {}  # each selection made once
         for column, which, drop_missed in self._wanted:
-            sel = _select(good, which)
-            if drop_missed:
-                sel &= ~failed
-            ch.values(column, which, drop_missed).add(good[column][sel].astype(np.float64))
+            sel = selected.get((which, drop_missed))
+            if sel is None:
+                sel = selected.get((which, False))
+                if sel is None:
+                    sel = selected[which, False] = _select(good, which)
+                if drop_missed:
+                    sel = selected[which, True] = sel & ~failed
+            ch.values(column, which, drop_missed).add(good[column][sel].astype(np.float64, copy=False))
 
     def result(self) -> list[dict[str, Any]]:
         """One dict per channel: counts, p50/p95/max (us) of bounce and transit times, and the verdict."""
@@ -227,6 +241,8 @@ class Summaries:
                 "transfer_us": ch.values("transfer_us", _ALL).dist(),
             }
             if self.spec is not None:
+                from benchlog.analysis._spec import VERDICT_NAMES, verdict_of
+
                 verdict, reason = verdict_of(self._figures(ch), self.spec)
                 entry["verdict"] = VERDICT_NAMES[verdict]
                 entry["reason"] = reason
@@ -234,6 +250,8 @@ class Summaries:
         return out
 
     def _figures(self, ch: _Channel) -> UnitFigures:
+        from benchlog.analysis._spec import UnitFigures
+
         def stat(column: str, which: str, percentile: float) -> float | None:
             v = ch.values(column, which)
             return v.percentile(percentile) if len(v) else None

@@ -18,6 +18,10 @@ def ticks_to_ns_array(ticks: np.ndarray, clock_hz: int) -> np.ndarray:
     Split ticks = q * clock_hz + r (0 <= r < clock_hz < 2**32): then the result is q * 1e9 + floor(r * 1e9 /
     clock_hz), and r * 1e9 < 4.3e18 stays inside int64. Floor division keeps negative ticks exact too.
     """
+    if NS_PER_S % clock_hz == 0:
+        # a clock of a whole number of ns per tick (1 MHz, 10 MHz, ...): the same, by one product
+        # (q * hz + r) * m, equal to the general form below even where int64 wraps
+        return ticks.astype(np.int64, copy=False) * np.int64(NS_PER_S // clock_hz)
     hz = np.int64(clock_hz)
     q, r = np.divmod(ticks.astype(np.int64, copy=False), hz)
     return q * np.int64(NS_PER_S) + (r * np.int64(NS_PER_S)) // hz

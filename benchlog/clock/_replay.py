@@ -205,12 +205,19 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     if bits < 64:
         raw &= np.uint64((1 << bits) - 1)
     d = signed_deltas(raw, tl._last_raw, bits)
-    rel_approx = tl._last_rel + np.cumsum(d.astype(np.float64))
-    too_far = np.abs(rel_approx) * (NS_PER_S / hz) > EPOCH_LIMIT_NS
-    if too_far.any():
-        d[int(np.argmax(too_far)) :] = 0
-    rel = tl._last_rel + np.cumsum(d)
-    hi = np.maximum.accumulate(np.maximum(rel, tl._hi_rel))
+    too_far = None
+    if not within_epoch_limit(tl._last_rel, n, bits, hz):  # else no row can be placed that far
+        rel_approx = tl._last_rel + np.cumsum(d.astype(np.float64))
+        too_far = np.abs(rel_approx) * (NS_PER_S / hz) > EPOCH_LIMIT_NS
+        if too_far.any():
+            d[int(np.argmax(too_far)) :] = 0
+    rel = np.cumsum(d)
+    rel += tl._last_rel
+    if (d[1:] >= 0).all():  # no row steps back (the usual order): the running maximum is the row itself
+        hi = np.maximum(rel, tl._hi_rel)
+    else:
+        hi = np.maximum.accumulate(rel)
+        np.maximum(hi, tl._hi_rel, out=hi)
     prior_hi = np.empty_like(hi)
     prior_hi[0] = tl._hi_rel
     prior_hi[1:] = hi[:-1]
@@ -220,20 +227,32 @@ def _check(tl: Timeline, b: _Batch) -> int | None:
     row_group = _count_before(beat_pos, n, 1)  # beats before each row
     step = tl.replay_step()
     offset = (tl._replay_host + step * (row_group + 1) - tl._epoch_start_host) - t
-    starts = np.flatnonzero(np.diff(row_group, prepend=-1))
-    group_min = np.full(int(row_group[-1]) + 2, np.iinfo(np.int64).max, np.int64)
+    starts = np.concatenate(([0], beat_pos[beat_pos < n - 1] + 1))  # each group's first row
+    far = np.iinfo(np.int64).max
+    group_min = np.full(int(row_group[-1]) + 2, far, np.int64)
     group_min[row_group[starts] + 1] = np.minimum.reduceat(offset, starts)  # shifted: the group before
-    least = group_min[row_group]
+    # A row is ahead when its offset is under the least of the groups before (`least`) by more than the
+    # slack; a group holds such a row exactly when its own least offset is: judged group by group.
+    least = group_min[:-1]
     if tl._min_offset is not None:
-        least = np.minimum(least, tl._min_offset)
-    else:
-        least[row_group == 0] = np.iinfo(np.int64).max  # no earlier push: nothing to compare with
-    ahead = (least != np.iinfo(np.int64).max) & (offset < least - tl.host_slack_ns)
-    bad = back | ahead | too_far
+        least = np.minimum(least, tl._min_offset)  # (else the first group has nothing to compare with)
+    ahead = np.flatnonzero((least != far) & (group_min[1:] < least - tl.host_slack_ns))
+    bad = back if too_far is None else back | too_far
+    first_bad = [int(ahead[0])] if len(ahead) else []
     if bad.any():
-        return int(row_group[int(np.argmax(bad))])
+        first_bad.append(int(row_group[int(np.argmax(bad))]))
+    if first_bad:
+        return min(first_bad)  # the group of the first row taken for a restarted counter
     b.rel, b.hi, b.t, b.row_group, b.offset = rel, hi, t, row_group, offset
     return None
+
+
+def within_epoch_limit(last_rel: int, n: int, bits: int, clock_hz: int) -> bool:
+    """Whether `n` more ticks unwrapped after `last_rel` surely stay (with a margin of two) inside
+    `EPOCH_LIMIT_NS`: each signed delta moves at most half a wrap. Then the float check for garbage
+    ticks beyond any run length can find none, and is skipped."""
+    reach = abs(last_rel) + n * (1 << (bits - 1))
+    return reach * NS_PER_S // clock_hz <= EPOCH_LIMIT_NS // 2
 
 
 def _count_before(pos: np.ndarray, n: int, shift: int) -> np.ndarray:

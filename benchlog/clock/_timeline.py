@@ -328,7 +328,7 @@ class _Segment:
             z = np.zeros(0, np.uint8)
             chunk = (np.zeros(0, np.uint64), z, z, z)
         else:
-            tick = np.concatenate(self.ticks).astype(np.uint64)  # a copy: it is masked in place
+            tick = np.concatenate(self.ticks).astype(np.uint64, copy=False)  # new: it is masked in place
             if self.has_kinds:
                 kinds = [
                     np.zeros(len(t), np.uint8) if k is None else k
@@ -872,16 +872,18 @@ class Timeline:
             self._e_ch.append(channel[a:b])
             self._e_lv.append(level[a:b])
         else:
-            self._e_t.append(t[is_edge])
-            self._e_ch.append(channel[a:b][is_edge])
-            self._e_lv.append(level[a:b][is_edge])
-            is_drive = k == _DRIVE
-            if is_drive.any():
-                self._d_t.append(t[is_drive])
-                self._d_ch.append(channel[a:b][is_drive])
-                self._d_lv.append(level[a:b][is_drive])
+            # one index array taken from each column: several times quicker than the mask on each
+            rows = np.flatnonzero(is_edge)
+            self._e_t.append(t.take(rows))
+            self._e_ch.append(channel[a:b].take(rows))
+            self._e_lv.append(level[a:b].take(rows))
+            drive_rows = np.flatnonzero(k == _DRIVE)
+            if len(drive_rows):
+                self._d_t.append(t.take(drive_rows))
+                self._d_ch.append(channel[a:b].take(drive_rows))
+                self._d_lv.append(level[a:b].take(drive_rows))
                 first = int(np.count_nonzero(kind[:a] == _DRIVE))
-                self._d_cy.append(cycles[first : first + int(np.count_nonzero(is_drive))])
+                self._d_cy.append(cycles[first : first + len(drive_rows)])
         pos, captured, dropped = beats
         m0, m1 = int(np.searchsorted(pos, a)), int(np.searchsorted(pos, b))
         if m1 == m0:
@@ -901,7 +903,7 @@ class Timeline:
         bound[0] = self._beat.rel if self._beat is not None else np.iinfo(np.int64).min
         bound[1:] = rel[j]
         hit = is_edge & (rel <= bound[after])
-        late = np.bincount(after[hit], minlength=nb + 1)
+        late = np.bincount(after.take(np.flatnonzero(hit)), minlength=nb + 1)
         edges_before = np.cumsum(is_edge)
         before = self._received + np.where(j > 0, edges_before[np.maximum(j - 1, 0)], 0)
         tb = t[j]

@@ -3,17 +3,6 @@
 Nothing here does I/O or imports pyserial. See docs/protocol.md for the contract.
 """
 
-from benchlog.wire._commands import (
-    Command,
-    Go,
-    Halt,
-    Ping,
-    Plan,
-    SetForm,
-    Who,
-    encode_command,
-    parse_command,
-)
 from benchlog.wire._decoder import MAX_FRAME, MAX_LINE, Decoder
 from benchlog.wire._encoders import LineEncoder, PackedEncoder
 from benchlog.wire._framing import DecodeError, cobs_decode, cobs_encode, crc16, crc32
@@ -38,6 +27,22 @@ from benchlog.wire._records import (
     SequenceGap,
     Unknown,
 )
+
+# host commands load on first use: reading a recording (`benchlog analyze`) sends none
+_COMMAND_NAMES = frozenset(
+    ("Command", "Go", "Halt", "Ping", "Plan", "SetForm", "Who", "encode_command", "parse_command")
+)
+
+
+def __getattr__(name: str):
+    if name not in _COMMAND_NAMES:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    from benchlog.wire import _commands
+
+    value = getattr(_commands, name)
+    globals()[name] = value
+    return value
+
 
 __all__ = [
     "PROTOCOL_VERSION",

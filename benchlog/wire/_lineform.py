@@ -259,7 +259,15 @@ def fast_edge_lines(
             got = _same_width_rows(a, starts[cand], width, first[cand], ctx)
             if got is not None:
                 ok, is_drive, channel, level, tick, kind = got
-                return cand[ok], is_drive[ok], channel[ok], level[ok], tick[ok], kind[ok]
+                rows = np.flatnonzero(ok)  # one index array for every column: quicker than the mask
+                return (
+                    cand.take(rows),
+                    is_drive.take(rows),
+                    channel.take(rows),
+                    level.take(rows),
+                    tick.take(rows),
+                    kind.take(rows),
+                )
     line_xor = np.bitwise_xor.reduceat(a, starts)  # of each whole line, its `\\n` included
     s, e = starts[cand], ends[cand]
     ok = (a[s + 1] == 0x20) & (a[s + 3] == 0x20) & (a[s + 5] == 0x20)
@@ -373,10 +381,15 @@ def _same_width_rows(
         ok &= ~is_drive
     digits, is_hex = _hex_digits(t[6:tick_end])
     ok &= is_hex.all(axis=0)
-    # two digits (a byte) at a time; an odd count's first digit alone
-    tick = digits[0].astype(np.uint64) if ndig % 2 else np.zeros(n, np.uint64)
-    for k in range(2 if ndig % 2 else 1, ndig, 2):
-        tick = tick << np.uint64(8) | (digits[k - 1] << np.uint8(4) | digits[k])
+    # the tick's bytes, most significant first (two digits a byte; an odd count's first digit alone),
+    # laid side by side and read as one big-endian word per line
+    pairs = [digits[0]] if ndig % 2 else []
+    pairs += [digits[k - 1] << np.uint8(4) | digits[k] for k in range(2 if ndig % 2 else 1, ndig, 2)]
+    size = next(w for w in (1, 2, 4, 8) if w >= len(pairs))
+    word = np.zeros((n, size), np.uint8)
+    for i, byte in enumerate(pairs, size - len(pairs)):
+        word[:, i] = byte
+    tick = word.view(f">u{size}").reshape(n).astype(np.uint64)
     if kind == CHECK_XOR:
         xor = np.bitwise_xor.reduce(t[: width - 3], axis=0)
         said, is_hex = _hex_digits(t[width - 2 :])
@@ -406,12 +419,11 @@ def quick_beats(
     if ctx.version != 1 or not rows:
         return {}
     found = []
-    for j in rows:
-        s = int(starts[j])
+    match = _BEAT_V1.fullmatch
+    for j, s, e in zip(rows, starts[rows].tolist(), ends[rows].tolist(), strict=True):
         if body[s] != 0x42:  # "B"
             continue
-        e = int(ends[j])
-        m = _BEAT_V1.fullmatch(body, s, e)
+        m = match(body, s, e)
         if m is not None:
             found.append((j, s, e, m.groups()))
     if not found:
@@ -419,9 +431,13 @@ def quick_beats(
     checked = [f for f in found if f[3][3] is not None]
     xors: list[int] = []
     if checked:
+        # each line's bytes before its `*`, gathered side by side, then XORed line by line
         a = np.frombuffer(body, np.uint8)
-        cut = np.array([(s, e - 3) for _, s, e, _ in checked], np.int64).reshape(-1)
-        xors = np.bitwise_xor.reduceat(a, cut)[0::2].tolist()  # each line's bytes before its `*`
+        first = np.array([s for _, s, _, _ in checked], np.int64)
+        size = np.array([e - 3 - s for _, s, e, _ in checked], np.int64)
+        at = np.cumsum(size) - size
+        joined = a[np.repeat(first - at, size) + np.arange(int(size.sum()))]
+        xors = np.bitwise_xor.reduceat(joined, at).tolist()
     xor_of = dict(zip((f[0] for f in checked), xors, strict=True))
     out = {}
     bits, level = ctx.counter_bits, ctx.check_level

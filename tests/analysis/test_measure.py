@@ -310,3 +310,42 @@ def test_endless_chatter_is_closed_early_to_bound_memory():
     )
     measured = out[out["t_start_ns"] == 300 * MS][0]
     assert measured["bounce_us"] == 600.0 and measured["flags"] == 0
+
+
+def test_windows_measured_together_or_one_at_a_time_agree():
+    # measure_windows takes windows that end where the next starts (drive to drive) by one search for
+    # their starts; each window measured alone takes the general search: the rows must be the same
+    from benchlog.analysis._measure import measure_windows
+
+    rng = np.random.default_rng(4)
+    for _ in range(300):
+        n = int(rng.integers(0, 30))
+        t = np.sort(rng.integers(0, 2000, n)).astype(np.int64)
+        before = int(rng.integers(0, 2))
+        lv = ((np.arange(n) + 1 + before) % 2).astype(np.uint8)
+        k = int(rng.integers(1, 6))
+        w_start = np.sort(rng.choice(np.arange(-100, 2100), k, replace=False)).astype(np.int64)
+        w_end = np.append(w_start[1:], w_start[-1] + int(rng.integers(1, 500)))
+        expected = rng.integers(0, 2, k).astype(np.uint8)
+        settle, chatter = int(rng.integers(1, 300)), int(rng.integers(1, 100))
+        together = measure_windows(t, lv, before, w_start, w_end, expected, settle, chatter)
+        for i in range(k):
+            # the level before window i: the last edge before it, else the level before all
+            prior = lv[t < w_start[i]]
+            level = int(prior[-1]) if len(prior) else before
+            inside = (t >= w_start[i]) & (t < w_end[i])
+            alone = measure_windows(
+                t[inside], lv[inside], level, w_start[i : i + 1], w_end[i : i + 1], expected[i : i + 1],
+                settle, chatter,
+            )  # fmt: skip
+            assert_rows_equal(together[i : i + 1], alone)
+
+
+def test_unfiltered_edges_are_used_as_they_are():
+    from benchlog.analysis._analyzer import _Channel, _kept
+
+    ch = _Channel(0, False, t=np.array([5, 9, 20], np.int64), lv=np.array([1, 0, 1], np.uint8))
+    t, lv = _kept(ch, np.arange(3))
+    assert t is ch.t and lv is ch.lv  # nothing removed: no copy
+    t, lv = _kept(ch, np.array([0, 2]))
+    assert t.tolist() == [5, 20] and lv.tolist() == [1, 1]

@@ -36,3 +36,13 @@ def test_signed_delta_wraps():
     assert signed_delta(0xFFF0, 0x0005, 16) == -0x15
     assert signed_delta(3, 2**64 - 2, 64) == 5
     assert signed_delta(0x8000, 0, 16) == 0x8000  # exactly half a wrap counts forwards
+
+
+def test_whole_nanosecond_clocks_are_exact_floor():
+    # reference: Python's fractions.Fraction; clocks with a whole number of ns per tick take a product
+    rng = np.random.default_rng(3)
+    for hz in (1, 8, 1_000, 1_000_000, 8_000_000, 10_000_000, 125_000_000, 1_000_000_000, 16_000_000):
+        top = min(2**45, 2**62 * hz // 10**9)  # int64 ns, as above
+        ticks = np.concatenate((rng.integers(-top, top, 500), [0, 1, -1, top, -top]))
+        got = ticks_to_ns_array(ticks.astype(np.int64), hz).tolist()
+        assert got == [int(Fraction(int(t) * 10**9, hz).__floor__()) for t in ticks], hz

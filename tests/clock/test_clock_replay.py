@@ -84,3 +84,47 @@ def test_replay_in_batches_places_records_as_beat_groups_do(case):
         assert_same(want, replayed(data, read))
     if "reset" in case:
         assert any(i.kind == RESET for i in want.incidents)
+
+
+def test_a_garbage_tick_far_beyond_any_run_is_placed_as_beat_groups_place_it():
+    # a 64-bit counter reading 2**62 ticks at 1 MHz (146,000 years): the batch path's float check for
+    # ticks beyond any run length runs (it is skipped only where no tick can get that far)
+    from benchlog.wire import Announce, Edges, LineEncoder
+
+    enc = LineEncoder(8, 64)
+    records = [Announce(1, 1_000_000, 64, 2, "GARBAGE-64")]
+    tick = 0
+    for k in range(40):
+        ticks = tick + np.arange(1, 11) * 1000
+        if k == 25:
+            ticks[4] = 1 << 62
+        records.append(
+            Edges(np.zeros(10, np.uint8), (np.arange(10) % 2).astype(np.uint8), ticks.astype(np.uint64))
+        )
+        tick += 10_000
+        records.append(Beat(tick, 10 * (k + 1), 0))
+    data = b"".join(enc.encode(r) for r in records)
+    want = by_groups(data)
+    assert any(i.kind == RESET for i in want.incidents)  # the garbage tick starts an epoch
+    for read in (len(data), 997):
+        assert_same(want, replayed(data, read))
+
+
+def test_the_float_check_is_skipped_only_where_no_tick_can_reach_the_limit():
+    from fractions import Fraction
+
+    from benchlog.clock._replay import within_epoch_limit
+    from benchlog.clock._timeline import EPOCH_LIMIT_NS
+
+    rng = np.random.default_rng(2)
+    for _ in range(2000):
+        bits = int(rng.choice([16, 24, 32, 48, 64]))
+        hz = int(rng.integers(1, 2**32))
+        n = int(rng.integers(1, 1 << 22))
+        last = int(rng.integers(-(2**40), 2**40))
+        # the farthest n deltas of at most half a wrap each can reach, in exact rational ns
+        far = Fraction((abs(last) + n * 2 ** (bits - 1)) * 10**9, hz)
+        assert within_epoch_limit(last, n, bits, hz) == (far.__floor__() <= EPOCH_LIMIT_NS // 2)
+    # a day of a 32-bit, 1 MHz counter and a 1 MiB read's rows: skipped; any 64-bit counter: not
+    assert within_epoch_limit(86_400 * 10**6, 150_000, 32, 1_000_000)
+    assert not within_epoch_limit(0, 1, 64, 1_000_000)
