@@ -134,11 +134,21 @@ def drift_figures(results: list[UnitDrift]) -> dict[str, float]:
 SIZE_SIGMA = 0.25  # log-sd of a unit's bounce size about its supplier's (invented for the harness)
 
 
+def _actuations(truth: np.ndarray) -> np.ndarray:
+    """The physics' truth rows as measured actuations (make rows driven on, break rows off)."""
+    from benchlog.analysis import empty_actuations
+
+    a = empty_actuations(len(truth))
+    for col in ("cycle", "kind", "transit_us", "bounce_us", "bounce_count", "chatter"):
+        a[col] = truth[col]
+    a["drive_level"] = np.where(truth["kind"] == 0, 1, 0)
+    return a
+
+
 def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: float = 1.0, test_end=None):
     """`units` units of `pop` (each with its own bounce size; `scale` multiplies every unit's bounce),
     `n_cycles` cycles each (fewer when it fails first), through the simulator's physics. Returns a
     `benchlog.stats.Population` whose life table suspends the units alive at `test_end`."""
-    from benchlog.analysis import empty_actuations
     from benchlog.stats import LifeTable, Population
 
     rows, ids, life = [], [], []
@@ -153,11 +163,7 @@ def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: fl
         serial = f"U{i:03d}"
         u = draw_unit(rng, 0, serial, up)
         n = int(max(1, min(n_cycles, np.floor(u.life))))
-        _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, n, 24, 2.0)
-        a = empty_actuations(len(truth))
-        for col in ("cycle", "kind", "transit_us", "bounce_us", "bounce_count", "chatter"):
-            a[col] = truth[col]
-        a["drive_level"] = np.where(truth["kind"] == 0, 1, 0)
+        a = _actuations(cycles(rng, u, 0, ON_NS, OFF_NS, n, 24, 2.0)[1])
         rows.append(a)
         ids.append(np.full(len(a), serial, dtype=object))
         end = np.inf if test_end is None else test_end
@@ -264,7 +270,6 @@ def draw_chatter_lot(pop, units: int, rng: np.random.Generator, starts: np.ndarr
     """`units` units of `pop` recorded at the cycles `chatter_design` gives, through the simulator's
     physics (a unit whose life ended in the chatter mode chatters on every later cycle); returns the
     chatter-per-cycle `UnitSample` qualify's chatter criterion judges."""
-    from benchlog.analysis import empty_actuations
     from benchlog.stats import Population
 
     rows, ids = [], []
@@ -272,11 +277,7 @@ def draw_chatter_lot(pop, units: int, rng: np.random.Generator, starts: np.ndarr
         u = _unit_for_lot(pop, rng, f"U{i:03d}")
         for s in starts:
             u.cycles_done = int(s)
-            _, truth = cycles(rng, u, 0, ON_NS, OFF_NS, per_block, 24, 2.0)
-            a = empty_actuations(len(truth))
-            for col in ("cycle", "kind", "transit_us", "bounce_us", "bounce_count", "chatter"):
-                a[col] = truth[col]
-            a["drive_level"] = np.where(truth["kind"] == 0, 1, 0)
+            a = _actuations(cycles(rng, u, 0, ON_NS, OFF_NS, per_block, 24, 2.0)[1])
             rows.append(a)
             ids.append(np.full(len(a), u.serial, dtype=object))
     lot = Population.from_actuations("lot", np.concatenate(rows), np.concatenate(ids))
