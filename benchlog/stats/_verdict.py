@@ -259,6 +259,14 @@ def _ratio(a: UnitSample, b: UnitSample, limit: Limit, conf: float, n_resamples:
     return percentile_ratio(a, b, limit.percentile, confidence=conf, n_resamples=n_resamples, seed=seed)
 
 
+# A difference in chatter rates comes from the few units that chatter at all: with 8 units a lot its
+# cluster bootstrap covered 0.89 / 0.95 / 0.98 at a nominal 0.80 / 0.90 / 0.95 (two-sided), with 16 and
+# 32 units within 2.5 points of nominal (tests/benchmarks/bench_calibration.py --only chatter, on the
+# demo population, 17.7 % of whose units chatter; docs/qualification.md). Below this many units a lot
+# the comparison is left not yet decidable rather than stated at a confidence it does not have.
+RATE_COMPARE_UNITS = 16
+
+
 def _metric_criteria(
     inc: Population,
     cand: Population,
@@ -330,6 +338,16 @@ def _metric_criteria(
                 fewest = min(a.n_units, b.n_units)
                 units = "1 unit" if fewest == 1 else f"{fewest} units"
                 raise DataError(f"{units} in a lot; a comparison needs {min_units}")
+            if rate and min(a.n_units, b.n_units) < RATE_COMPARE_UNITS:
+                fewest = min(a.n_units, b.n_units)
+                crit = Criterion(rname, "-", req_txt, conf, UNDECIDED)
+                crit.note = (
+                    f"{fewest} units in a lot: the bootstrap of a difference in rates does not hold its "
+                    f"confidence below {RATE_COMPARE_UNITS} units a lot"
+                )
+                crit.to_settle = f"{RATE_COMPARE_UNITS} units in each lot (now {fewest})"
+                out.append(crit)
+                return out
             if rate:
                 iv = mean_difference(a, b, confidence=conf, n_resamples=n_resamples, seed=seed + 1)
                 shown = _fmt_interval(limit.metric, iv.estimate, iv.low, iv.high)
