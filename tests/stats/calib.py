@@ -145,10 +145,19 @@ def _actuations(truth: np.ndarray) -> np.ndarray:
     return a
 
 
-def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: float = 1.0, test_end=None):
+def draw_lot(
+    pop,
+    units: int,
+    n_cycles: int,
+    rng: np.random.Generator,
+    scale: float = 1.0,
+    test_end=None,
+    sizes: dict[str, float] | None = None,
+):
     """`units` units of `pop` (each with its own bounce size; `scale` multiplies every unit's bounce),
     `n_cycles` cycles each (fewer when it fails first), through the simulator's physics. Returns a
-    `benchlog.stats.Population` whose life table suspends the units alive at `test_end`."""
+    `benchlog.stats.Population` whose life table suspends the units alive at `test_end`. `sizes`, when
+    given, receives each unit's bounce size (its serial: the factor on the population's make bounce)."""
     from benchlog.stats import LifeTable, Population
 
     rows, ids, life = [], [], []
@@ -161,6 +170,8 @@ def draw_lot(pop, units: int, n_cycles: int, rng: np.random.Generator, scale: fl
             ),
         )
         serial = f"U{i:03d}"
+        if sizes is not None:
+            sizes[serial] = up.make.first_gap_us / pop.make.first_gap_us
         u = draw_unit(rng, 0, serial, up)
         n = int(max(1, min(n_cycles, np.floor(u.life))))
         a = _actuations(cycles(rng, u, 0, ON_NS, OFF_NS, n, 24, 2.0)[1])
@@ -205,6 +216,10 @@ class _Mixture:
 
         return self.zero + float(self.weight @ ndtr((np.log(x) - self.log_x) / SIZE_SIGMA))
 
+    def unit_share_above(self, x: float, size: float) -> float:
+        """P(size X > x): the share of one unit's makes beyond `x`, for a unit of bounce `size`."""
+        return 1.0 - self.zero - float(self.weight[self.log_x <= np.log(x / size)].sum())
+
     def quantile(self, q: float) -> float:
         lo, hi = float(self.log_x[0]) - 8 * SIZE_SIGMA, float(self.log_x[-1]) + 8 * SIZE_SIGMA
         for _ in range(50):  # bisection on log x
@@ -236,6 +251,7 @@ def true_capability(
         "pindex": (limit - med) / (tail - med),
         "share": 1.0 - m.cdf(limit),
         "beyond": {x: 1.0 - m.cdf(x) for x in beyond},
+        "mixture": m,
     }
 
 
