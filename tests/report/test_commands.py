@@ -136,6 +136,9 @@ def test_plan(small_db, capsys):
     # the spec's limits on each unit (operate time on every actuation, chatter) need the success run's
     # 22 units at 90 % / 90 % (ln 0.1 / ln 0.9 = 21.9; common practice, benchlog/stats/_planning.py)
     assert "limits on each unit (operate time max, chatter rate): 22 units with none beyond" in text
+    # a chatter comparison's bootstrap holds its level from 16 units a lot (bench_calibration.py
+    # --only chatter, against the simulator's truth)
+    assert "comparison with the incumbent (chatter rate, candidate - incumbent): 16 units in each lot" in text
     assert main(["plan", "--spec", "VS-505", "--shape", "2", "--lot", "VS-505:L1", "--db", small_db]) == 0
     text = capsys.readouterr().out
     assert "running test VS-505 (lot L1): 3 units" in text

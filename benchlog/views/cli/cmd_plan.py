@@ -139,6 +139,14 @@ def run(args: argparse.Namespace) -> int:
                 f"pass them (the same success run: at most {1 - rel:.0%} of units beyond); fewer leave "
                 "them not yet decidable"
             )
+        rates = _rate_limits(spec)
+        if rates:
+            from benchlog.stats._verdict import RATE_COMPARE_UNITS
+
+            print(
+                f"comparison with the incumbent ({', '.join(rates)}, candidate - incumbent): "
+                f"{RATE_COMPARE_UNITS} units in each lot; fewer leave it not yet decidable"
+            )
     if life and args.shape:
         beta = args.shape
         print(
@@ -301,3 +309,14 @@ def _unit_limits(spec) -> list[str]:
         elif lim.percentile >= 100.0:
             out.append(f"{m.label} max")
     return out
+
+
+def _rate_limits(spec) -> list[str]:
+    """The spec's limits on a rate (chatter), which qualify compares with the incumbent as a difference."""
+    from benchlog.stats import METRICS, Requirements
+
+    return [
+        METRICS[lim.metric].label
+        for lim in Requirements.from_spec(spec).limits
+        if METRICS[lim.metric].kind == "rate"
+    ]
