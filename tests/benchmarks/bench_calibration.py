@@ -101,16 +101,20 @@ def _drift_unit(seed: int):
     return judge_unit_drift(unit, 200_000, 1000, 2, MAKE_LIMIT_US, 100_000, rng)
 
 
-def _steady_unit(seed: int):
+def _kept_unit(args):
     """A unit drawn as `_drift_unit` draws them, kept only when its truth (the physics' p95 over the
-    test) stays below 80 % of the limit: the units the false-alarm figure is about, without simulating
-    the others."""
+    test) is of the kind asked: "steady" (below 80 % of the limit throughout: the units the false-alarm
+    figure is about) or "crossing" (below the limit at the start, at or above it by the end: the units
+    the detection figures are about), without simulating the others."""
+    seed, kind = args
     rng = np.random.default_rng(seed)
     grid = np.linspace(0, 200_000, 41)
     while True:
         unit = unit_population(demo_population(), rng, 0.6, 0.7, 0.1)
         truth = true_p95(unit, 1.0 + unit.wear_per_100k * grid / 1e5, 4000, rng)
-        if truth.max() < 0.8 * MAKE_LIMIT_US:
+        steady = truth.max() < 0.8 * MAKE_LIMIT_US
+        crossing = truth[0] < MAKE_LIMIT_US <= truth.max()
+        if (kind == "steady" and steady) or (kind == "crossing" and crossing):
             return judge_unit_drift(unit, 200_000, 1000, 2, MAKE_LIMIT_US, 100_000, rng)
 
 
@@ -415,6 +419,12 @@ def main() -> None:
     ap.add_argument(
         "--steady-units", type=int, default=0, help="more units for the false-alarm figure, steady ones only"
     )
+    ap.add_argument(
+        "--crossing-units",
+        type=int,
+        default=0,
+        help="more units for the detection figures, crossing ones only",
+    )
     ap.add_argument("--info", type=int, default=300, help="lots a size for the bounds beside the criteria")
     ap.add_argument("--chatter", type=int, default=300, help="lots a size for the chatter rate's bounds")
     ap.add_argument("--jobs", type=int, default=2)
@@ -470,23 +480,6 @@ def _drift_part(pool, a) -> None:
         f["median_lead"] >= 0.2,
     )
     _line("steady units ever flagged", f["false_alarm"], "<= 0.02", f["false_alarm"] <= 0.02)
-    if a.steady_units:
-        t1 = time.perf_counter()
-        res = [
-            r for r in pool.map(_steady_unit, range(5000, 5000 + a.steady_units)) if r.true_max_share < 0.8
-        ]
-        flagged = sum(r.first_flag is not None for r in res)
-        from scipy import stats
-
-        # Clopper-Pearson upper bound on the false-alarm share (one-sided 95 %; scipy's beta)
-        upper = float(stats.beta.ppf(0.95, flagged + 1, len(res) - flagged))
-        print(
-            f"  steady units alone (drawn until steady, {len(res)} units; {time.perf_counter() - t1:.0f} s): "
-            f"{flagged} flagged"
-        )
-        _line("  steady units ever flagged", flagged / len(res), "<= 0.02", flagged / len(res) <= 0.02)
-        _line("  its 95 % upper bound (Clopper-Pearson)", upper, "for information", True)
-        _line("  (charts alone, for comparison)", sum(r.chart_only for r in res) / len(res), "-", True)
     _line("  (charts alone, for comparison)", f["chart_only_false_alarm"], "-", True)
     _line("  (the earlier flag: chart + 90 % slope interval)", f["old_flag_false_alarm"], "-", True)
     _line(
@@ -495,6 +488,34 @@ def _drift_part(pool, a) -> None:
         "reported",
         True,
     )
+    from scipy import stats  # Clopper-Pearson bounds on the shares below (one-sided 95 %; beta quantiles)
+
+    if a.steady_units:
+        t1 = time.perf_counter()
+        res = pool.map(_kept_unit, [(seed, "steady") for seed in range(5000, 5000 + a.steady_units)])
+        res = [r for r in res if r.true_max_share < 0.8]  # (by the judged truth: its own draws)
+        k, n = sum(r.first_flag is not None for r in res), len(res)
+        print(f"\nsteady units alone (drawn until steady: {n} units; {time.perf_counter() - t1:.0f} s)")
+        _line("steady units ever flagged", k / n, "<= 0.02", k / n <= 0.02)
+        _line(
+            "  its 95 % upper bound (Clopper-Pearson)", float(stats.beta.ppf(0.95, k + 1, n - k)), "-", True
+        )
+        _line("  (charts alone, for comparison)", sum(r.chart_only for r in res) / n, "-", True)
+    if a.crossing_units:
+        t1 = time.perf_counter()
+        res = pool.map(_kept_unit, [(seed, "crossing") for seed in range(9000, 9000 + a.crossing_units)])
+        g = drift_figures(res)  # (a unit crossing at cycle 0 by the judged truth's own draws: left out)
+        n = g["crossing_units"]
+        k = round(g["detected_before"] * n)
+        low = float(stats.beta.ppf(0.05, k, n - k + 1)) if k else 0.0
+        print(f"\ncrossing units alone (drawn until crossing: {n} units; {time.perf_counter() - t1:.0f} s)")
+        _line(
+            "crossing units flagged before the true crossing", g["detected_before"], ">= 0.90", k / n >= 0.9
+        )
+        _line("  its 95 % lower bound (Clopper-Pearson)", low, "-", True)
+        lead = g["median_lead"]
+        _line("median lead, share of the cycles to the crossing", lead, ">= 0.20", lead >= 0.2)
+        _line("median abs error of the projected crossing", g["projection_error"], "reported", True)
 
 
 def _coverage_part(pool, a, truth_p95: float, truth_b10: float) -> None:
