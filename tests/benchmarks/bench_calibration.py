@@ -9,13 +9,16 @@ drift, its own wear rate), without the pseudo-terminal. They are judged by the c
 MISSED where one misses.
 
 Run: python tests/benchmarks/bench_calibration.py [--populations N] [--drift-units N] [--jobs 2]
-[--only drift|coverage|life|info|oc] [--sizes 8 16 32]
+[--only drift|coverage|life|info|chatter|oc] [--sizes 8 16 32] [--steady-units N] [--crossing-units N]
 (defaults: 1000 populations per size, 300 of them with a life fit and 200 with the earlier bootstrap,
 150 populations per point of the verdict's curve and 600 at the guarded margin, 60 drift units).
 `--only life --life N --old N`: the B10 bounds alone on N lots a size (with `--old`, the earlier
 likelihood-ratio lower bound beside them), the percentile bounds skipped. `--only info --info N
 --old M`: the bounds shown beside the criteria (pooled p99, Ppk, percentile index, share beyond a
-limit, failure rate), N lots a size, the earlier cluster bootstrap on the first M.
+limit, failure rate), N lots a size, the earlier cluster bootstrap on the first M. `--only chatter
+--chatter N`: the chatter criterion and the chatter comparison, N lots a size recorded over the whole
+life test. `--steady-units N` / `--crossing-units N`: after the drift figures, N more units drawn
+until steady (for the false-alarm share) or until they cross within the test (for detection and lead).
 """
 
 from __future__ import annotations
