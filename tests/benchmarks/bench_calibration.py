@@ -297,6 +297,8 @@ def _info_part(pool, a) -> None:
         for n in a.sizes:
             for lv in LEVELS:
                 h = hits.get((n, f"{key} {lv}"))
+                if key == "rate ops" and not a.old:  # the earlier interval: shown with --old only
+                    continue
                 if h and " cp" in key:  # a bound on these units' share, not the population's
                     _these_sides(f"{label}, {n} units, {lv:.0%} (n={h[2]})", h, lv)
                 elif h and key == "rate":  # a count of failed units; F(T) the share failing by the end
