@@ -73,8 +73,8 @@ def drift_horizon(last_cycle: float, life_cycles: float | None = None) -> float:
     (and a steady unit's slow creep must not raise a flag). A unit that crosses after the life is
     flagged with a fifth of its cycles to the crossing as warning, on the harness's target for the
     median lead. Half again was tried: a third as lead, but on the demo it flagged units whose truth
-    reaches only 0.946-0.985 of the limit by then (the straight-line projection runs ahead of a bounce
-    curve that bends over near the limit); docs/metrics.md."""
+    crosses just after that horizon (0.946-0.985 of the limit by then), by their projections' error;
+    docs/metrics.md."""
     return max(float(life_cycles or 0.0), HORIZON_AHEAD * float(last_cycle))
 
 
