@@ -75,6 +75,25 @@ class Limit:
         if self.metric not in METRICS:
             raise DataError(f"unknown metric {self.metric!r}; known: {', '.join(METRICS)}")
 
+    @property
+    def is_rate(self) -> bool:
+        """A limit on a rate (chatter events per cycle), not on a distribution of values."""
+        return METRICS[self.metric].kind == "rate"
+
+    @property
+    def on_each_unit(self) -> bool:
+        """The spec applies it to each unit: a rate limit (each unit's chatter) or a limit on every
+        actuation (percentile 100); qualify judges these on units."""
+        return self.is_rate or self.percentile >= 100.0
+
+    @property
+    def name(self) -> str:
+        """The statistic the limit is on, in words: "chatter rate", "operate time max", "... p95"."""
+        m = METRICS[self.metric]
+        if self.is_rate:
+            return m.label
+        return f"{m.label} max" if self.percentile >= 100 else f"{m.label} p{self.percentile:g}"
+
 
 @dataclass(frozen=True)
 class Requirements:
@@ -242,15 +261,8 @@ def _fmt_cycles(value: float) -> str:
     return f"{value:,.0f} cycles"
 
 
-def _stat_name(limit: Limit) -> str:
-    m = METRICS[limit.metric]
-    if m.kind == "rate":
-        return m.label
-    return f"{m.label} max" if limit.percentile >= 100 else f"{m.label} p{limit.percentile:g}"
-
-
 def _pooled(sample: UnitSample, limit: Limit, conf: float, n_resamples: int, seed: int) -> Interval:
-    if METRICS[limit.metric].kind == "rate":
+    if limit.is_rate:
         return pooled_mean(sample, confidence=conf, n_resamples=n_resamples, seed=seed)
     return pooled_percentile(sample, limit.percentile, confidence=conf, n_resamples=n_resamples, seed=seed)
 
@@ -278,19 +290,19 @@ def _metric_criteria(
     min_units: int,
 ) -> list[Criterion]:
     conf = req.confidence
-    name = _stat_name(limit)
+    name = limit.name
     out: list[Criterion] = []
     sample = cand.samples.get(limit.metric)
     required = f"<= {_fmt(limit.metric, limit.value)}"
-    rate = METRICS[limit.metric].kind == "rate"
-    every = not rate and limit.percentile >= 100.0
+    rate = limit.is_rate
+    every = limit.on_each_unit and not rate
     try:
         if sample is None or len(sample) == 0:
             raise DataError("not measured")
         if sample.n_units < min_units:
             units = "1 unit" if sample.n_units == 1 else f"{sample.n_units} units"
             raise DataError(f"{units} measured; a population claim needs {min_units}")
-        if every or rate:  # limits the spec applies to each unit
+        if limit.on_each_unit:
             out.append(_unit_limit(sample, limit, req))
         else:
             iv = _pooled(sample, limit, conf, n_resamples, seed)
@@ -324,29 +336,33 @@ def _metric_criteria(
         cmp_limit = limit if not every else Limit(limit.metric, limit.value, 99.0)
         if rate:  # rates may be zero: compare the difference, in units of the spec's limit
             bound = margin * limit.value
-            rname = f"{_stat_name(cmp_limit)}: candidate - incumbent"
+            rname = f"{cmp_limit.name}: candidate - incumbent"
             req_txt = f"<= {_fmt(limit.metric, bound)} ({margin:.0%} of the limit)"
         else:
             bound = 1.0 + margin
-            rname = f"{_stat_name(cmp_limit)}: candidate / incumbent"
+            rname = f"{cmp_limit.name}: candidate / incumbent"
             req_txt = f"<= {bound:.2f} (at most {margin:.0%} worse)"
         try:
             a, b = cand.samples.get(limit.metric), inc.samples.get(limit.metric)
             if a is None or b is None or not len(a) or not len(b):
                 raise DataError("not measured in both lots")
-            if min(a.n_units, b.n_units) < min_units:
-                fewest = min(a.n_units, b.n_units)
+            fewest = min(a.n_units, b.n_units)
+            if fewest < min_units:
                 units = "1 unit" if fewest == 1 else f"{fewest} units"
                 raise DataError(f"{units} in a lot; a comparison needs {min_units}")
-            if rate and min(a.n_units, b.n_units) < RATE_COMPARE_UNITS:
-                fewest = min(a.n_units, b.n_units)
-                crit = Criterion(rname, "-", req_txt, conf, UNDECIDED)
-                crit.note = (
-                    f"{fewest} units in a lot: the bootstrap of a difference in rates does not hold its "
-                    f"confidence below {RATE_COMPARE_UNITS} units a lot"
+            if rate and fewest < RATE_COMPARE_UNITS:
+                out.append(
+                    Criterion(
+                        rname,
+                        "-",
+                        req_txt,
+                        conf,
+                        UNDECIDED,
+                        note=f"{fewest} units in a lot: the bootstrap of a difference in rates does not "
+                        f"hold its confidence below {RATE_COMPARE_UNITS} units a lot",
+                        to_settle=f"{RATE_COMPARE_UNITS} units in each lot (now {fewest})",
+                    )
                 )
-                crit.to_settle = f"{RATE_COMPARE_UNITS} units in each lot (now {fewest})"
-                out.append(crit)
                 return out
             if rate:
                 iv = mean_difference(a, b, confidence=conf, n_resamples=n_resamples, seed=seed + 1)
@@ -381,7 +397,7 @@ def _unit_limit(sample: UnitSample, limit: Limit, req: Requirements) -> Criterio
     nominal 0.90-0.975 on 8 units, 0.81-0.91 on 32 (docs/qualification.md)."""
     conf, rel = req.confidence, req.life_reliability
     n = sample.n_units
-    if METRICS[limit.metric].kind == "rate":
+    if limit.is_rate:
         per_unit = sample.unit_sums() / sample.unit_counts()
         over = per_unit > limit.value
         worst = float(per_unit.max())
@@ -395,9 +411,9 @@ def _unit_limit(sample: UnitSample, limit: Limit, req: Requirements) -> Criterio
     low, high = float(ci.low), float(ci.high)
     allowed = 1.0 - rel
     needed = success_run_units(conf, rel)
-    worst_txt = _fmt(limit.metric, worst) + (" (worst unit)" if METRICS[limit.metric].kind == "rate" else "")
+    worst_txt = _fmt(limit.metric, worst) + (" (worst unit)" if limit.is_rate else "")
     crit = Criterion(
-        f"{_stat_name(limit)} (candidate)",
+        f"{limit.name} (candidate)",
         f"{worst_txt}; {k} of {n} units beyond",
         required,
         conf,

@@ -299,24 +299,13 @@ def _operating_characteristic(args: argparse.Namespace, conf: float) -> None:
 
 def _unit_limits(spec) -> list[str]:
     """The spec's limits qualify judges on each unit: a limit on every actuation, the chatter limit."""
-    from benchlog.stats import METRICS, Requirements
+    from benchlog.stats import Requirements
 
-    out = []
-    for lim in Requirements.from_spec(spec).limits:
-        m = METRICS[lim.metric]
-        if m.kind == "rate":
-            out.append(m.label)
-        elif lim.percentile >= 100.0:
-            out.append(f"{m.label} max")
-    return out
+    return [lim.name for lim in Requirements.from_spec(spec).limits if lim.on_each_unit]
 
 
 def _rate_limits(spec) -> list[str]:
     """The spec's limits on a rate (chatter), which qualify compares with the incumbent as a difference."""
-    from benchlog.stats import METRICS, Requirements
+    from benchlog.stats import Requirements
 
-    return [
-        METRICS[lim.metric].label
-        for lim in Requirements.from_spec(spec).limits
-        if METRICS[lim.metric].kind == "rate"
-    ]
+    return [lim.name for lim in Requirements.from_spec(spec).limits if lim.is_rate]
