@@ -274,10 +274,7 @@ def _info_part(pool, a) -> None:
         }
         for key, [(lo, hi)] in out.items():
             t = mine[key.split(" ")[0]] if " cp " in key else truth[key.split(" ")[0]]
-            h = hits.setdefault((n, key), [0, 0, 0])
-            h[0] += lo <= t
-            h[1] += t <= hi
-            h[2] += 1
+            _tally(hits, (n, key), lo, hi, t)
     print(f"\nbounds shown beside the criteria ({a.info} lots per size; {time.perf_counter() - t0:.0f} s)")
     for key, label in (
         ("p99", "pooled p99, random unit effect"),
@@ -359,10 +356,7 @@ def _chatter_part(pool, a) -> None:
             passed[(n, key)] = passed.get((n, key), 0) + ok
         for key, [(lo, hi)] in out.items():
             t = 0.0 if "diff" in key else (share if "beyond" in key else truth)
-            h = hits.setdefault((n, key), [0, 0, 0])
-            h[0] += lo <= t
-            h[1] += t <= hi
-            h[2] += 1
+            _tally(hits, (n, key), lo, hi, t)
     print(f"  ({time.perf_counter() - t0:.0f} s)")
     for n in a.sizes:
         none = quiet[n] / a.chatter
@@ -398,6 +392,14 @@ def _chatter_part(pool, a) -> None:
             for rule, label in rules if a.old else rules[:1]:
                 p = passed[(n, f"{rule} {c}")] / a.chatter
                 _line(f"    {label}, {n} units, {c:.1%}", p, f"<= {1 - c:.3f}", p <= 1 - c)
+
+
+def _tally(hits: dict, key, lo: float, hi: float, truth: float) -> None:
+    """Count one bound pair: [lower bound held, upper bound held, pairs]."""
+    h = hits.setdefault(key, [0, 0, 0])
+    h[0] += lo <= truth
+    h[1] += truth <= hi
+    h[2] += 1
 
 
 def _two_sided(name: str, h: list[int], lv: float) -> None:
@@ -543,10 +545,7 @@ def _coverage_part(pool, a, truth_p95: float, truth_b10: float) -> None:
     for n, out, tp, tb in pool.imap_unordered(_coverage_one, jobs, chunksize=8):
         for key, [(lo, hi)] in out.items():
             truth = tb if "b10" in key else (1.0 if "ratio" in key else tp)
-            h = hits.setdefault((n, key), [0, 0, 0])
-            h[0] += lo <= truth
-            h[1] += truth <= hi
-            h[2] += 1
+            _tally(hits, (n, key), lo, hi, truth)
     print(f"\ninterval coverage ({lots} populations per size; {time.perf_counter() - t0:.0f} s)")
     print("  target: within 2.5 points of nominal, never below by more; bounds one-sided at (1 + level) / 2")
     for key, label in (
