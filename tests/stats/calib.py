@@ -81,14 +81,28 @@ class UnitDrift:
     old_flag: bool  # the earlier flag (a chart signal and the 90 % slope interval above zero) at some point
 
 
+def drift_truth_grid(n_cycles: int) -> np.ndarray:
+    """The cycles at which a drift unit's truth is taken: 41 points over the test."""
+    return np.linspace(0, n_cycles, 41)
+
+
 def judge_unit_drift(
-    pop, n_cycles: int, window: int, every: int, limit: float, life: float, rng: np.random.Generator
+    pop,
+    n_cycles: int,
+    window: int,
+    every: int,
+    limit: float,
+    life: float,
+    rng: np.random.Generator,
+    truth: np.ndarray | None = None,
 ) -> UnitDrift:
     """Simulate one unit, re-judge its drift every `every` windows as the dashboard would (baseline the
-    first quarter, horizon from the spec's `life`), and compare with its truth."""
+    first quarter, horizon from the spec's `life`), and compare with its truth: its true p95 at
+    `drift_truth_grid(n_cycles)`, computed here unless given (by a caller that chose the unit by it)."""
     ws = measured_windows(pop, n_cycles, window, rng)
-    grid = np.linspace(0, n_cycles, 41)
-    truth = true_p95(pop, 1.0 + pop.wear_per_100k * grid / 1e5, 4000, rng)
+    grid = drift_truth_grid(n_cycles)
+    if truth is None:
+        truth = true_p95(pop, 1.0 + pop.wear_per_100k * grid / 1e5, 4000, rng)
     above = np.flatnonzero(truth >= limit)
     cross = None
     if len(above):
