@@ -36,7 +36,7 @@ quotes the figures.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -221,8 +221,10 @@ class Projection:
     intercept: float
     limit: float
     crossing_cycle: float | None
-    crossing_low: float | None  # earliest (from the steepest slope in the interval)
-    crossing_high: float | None  # latest (None: the shallowest slope never reaches it)
+    # earliest and latest: from the steepest and shallowest slopes in the interval (in a drift report's
+    # trend, widened to take in the latest half of the windows' own range; _with_recent_range)
+    crossing_low: float | None
+    crossing_high: float | None  # None: the shallowest slope never reaches it
     confidence: float
 
 
@@ -246,6 +248,27 @@ def project(
         return (limit - b) / s
 
     return Projection(slope, lo, hi, intercept, float(limit), cross(slope), cross(hi), cross(lo), confidence)
+
+
+def _with_recent_range(p: Projection | None, cycles: np.ndarray, values: np.ndarray, confidence: float):
+    """`p` with its crossing range widened to take in the range the latest half of the windows gives.
+
+    The whole trend's range is the slope's interval alone, on a straight line; wear bends the
+    statistic a little (the simulator's make bounce p95 rises a few per cent slower late in life than
+    early), so a straight line through the whole life reaches the limit early, and its range alone held
+    the simulator's true crossing at 0.78 of first flags (nominal 0.90). The latest half's own line,
+    with its wider interval, holds what the bend moves; the range stated is the union of the two where
+    the latest half bounds a crossing of its own (its whole slope interval above zero), and the whole
+    trend's otherwise (measured by tests/benchmarks/bench_calibration.py, docs/metrics.md)."""
+    if p is None or math.isinf(p.limit) or len(cycles) < 8:
+        return p
+    half = len(cycles) // 2
+    r = project(cycles[half:], values[half:], p.limit, confidence)
+    if r is None or r.crossing_high is None or r.crossing_low is None:
+        return p  # too few or too flat windows to bound a crossing of their own: the whole trend's stands
+    low = r.crossing_low if p.crossing_low is None else min(p.crossing_low, r.crossing_low)
+    high = None if p.crossing_high is None else max(p.crossing_high, r.crossing_high)
+    return replace(p, crossing_low=low, crossing_high=high)
 
 
 @dataclass(frozen=True, slots=True)
@@ -413,6 +436,7 @@ def drift(
     after = (np.arange(len(values)) >= base.windows) & has
     if after.sum() >= 3 and (not quick or e_sig.any() or c_sig.any()):
         trend = project(mid[after], values[after], math.inf if limit is None else limit, confidence)
+        trend = _with_recent_range(trend, mid[after], values[after], confidence)
         if np.ptp(values[after]) > 0 and (e_sig.any() or c_sig.any()):  # a flag needs a signal anyway
             trend_p = rising_trend_p(values[after])
     over = None if limit is None else over_since(windows, limit)

@@ -223,10 +223,31 @@ def test_a_unit_crossing_after_its_life_is_flagged_with_over_a_quarter_of_its_cy
     first = next(r for r in reps if r.confirmed)
     flagged_at = int(first.windows["cycle_end"][-1])
     assert (cross - flagged_at) / cross >= 0.25, flagged_at
-    # and the range it states holds the true crossing, within 2 %: the range is the 90 % interval
-    # of the slope alone (the intercept held at its median), here 6,017-6,193 about a true 6,000
-    p = first.projection
-    assert 0.98 * p.crossing_low <= cross <= 1.02 * p.crossing_high
+    p = first.projection  # and the range it states holds the true crossing
+    assert p.crossing_low <= cross <= p.crossing_high
+
+
+def test_the_stated_crossing_range_holds_the_true_crossing_of_a_bending_trend():
+    # Wear bends the statistic over a little (the simulator's make bounce p95 rises a few per cent
+    # slower late in life), so a straight line through the whole life reaches the limit early, and its
+    # slope's 90 % interval alone held the true crossing at 0.78 of first flags on the simulator (issue
+    # 14's harness). Here the line bends by 2 % of its rise per 3,000 cycles squared; truth as above
+    # (log-normal 95th percentile, common practice, no source). A 90 % range should hold it in about
+    # 18 of 20 series; the slope's interval alone held 14 (the union below, 19).
+    n, sigma, cross = 6_000, 0.05, 6_000
+
+    def line(c):
+        return 1 + c / 3_000 - 0.02 * (c / 3_000) ** 2
+
+    limit = 1000.0 * line(cross) * math.exp(1.645 * sigma)
+    held = 0
+    for seed in range(20):
+        rng = np.random.default_rng(100 + seed)
+        vals = 1000.0 * line(np.arange(n)) * rng.lognormal(0, sigma, n)
+        reps = _rejudged(window_stats(actuations(n, vals), 100), limit, life=1_000, every=1)
+        p = next(r for r in reps if r.confirmed).projection
+        held += (p.crossing_low or 0) <= cross <= (p.crossing_high or math.inf)
+    assert held >= 16, held
 
 
 def test_a_slow_creep_that_stays_below_the_limit_within_the_life_is_no_flag():
