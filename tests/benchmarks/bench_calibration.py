@@ -75,6 +75,7 @@ from benchlog.stats import (  # noqa: E402
     qualify,
     share_beyond,
 )
+from benchlog.stats._life import exact_binomial_bounds  # noqa: E402
 from benchlog.stats._unit_effect import UnitEffect, bounds  # noqa: E402
 from benchlog.stats._verdict import RATE_COMPARE_UNITS  # noqa: E402
 
@@ -94,11 +95,11 @@ def _range_line(held: float, n: int) -> None:
     """The share of first flags whose stated crossing range (a 90 % range) holds the true crossing, with
     its two-sided 95 % Clopper-Pearson bounds. MISSED when even the upper bound is below 0.875 (nominal
     less 2.5 points): a hundred units cannot place a share within 2.5 points (binomial SD 3 points)."""
-    from scipy import stats
-
-    k = round(held * n)
-    lo = float(stats.beta.ppf(0.025, k, n - k + 1)) if k else 0.0
-    hi = float(stats.beta.ppf(0.975, k + 1, n - k)) if k < n else 1.0
+    if not n:
+        print("  stated crossing range: no unit flagged before a crossing to judge it on")
+        return
+    ci = exact_binomial_bounds(round(held * n), n, 0.975)
+    lo, hi = float(ci.low), float(ci.high)
     _line("stated crossing range (90 %) holds the true crossing", held, "0.90 nominal", True)
     _line("  its lower bound (Clopper-Pearson, two-sided 95 %)", lo, "-", True)
     _line("  its upper bound (Clopper-Pearson, two-sided 95 %)", hi, ">= 0.875", hi >= 0.875)
@@ -533,17 +534,14 @@ def _drift_part(pool, a) -> None:
         True,
     )
     _range_line(f["range_holds"], f["range_judged"])
-    from scipy import stats  # Clopper-Pearson bounds on the shares below (one-sided 95 %; beta quantiles)
-
     if a.steady_units:
         t1 = time.perf_counter()
         res = pool.map(_kept_unit, [(seed, "steady") for seed in range(5000, 5000 + a.steady_units)])
         k, n = sum(r.first_flag is not None for r in res), len(res)
         print(f"\nsteady units alone (drawn until steady: {n} units; {time.perf_counter() - t1:.0f} s)")
         _line("steady units ever flagged", k / n, "<= 0.02", k / n <= 0.02)
-        _line(
-            "  its 95 % upper bound (Clopper-Pearson)", float(stats.beta.ppf(0.95, k + 1, n - k)), "-", True
-        )
+        upper = float(exact_binomial_bounds(k, n, 0.95).high)
+        _line("  its 95 % upper bound (Clopper-Pearson)", upper, "-", True)
         _line("  (charts alone, for comparison)", sum(r.chart_only for r in res) / n, "-", True)
     if a.crossing_units:
         t1 = time.perf_counter()
@@ -551,7 +549,7 @@ def _drift_part(pool, a) -> None:
         g = drift_figures(res)
         n = g["crossing_units"]
         k = round(g["detected_before"] * n)
-        low = float(stats.beta.ppf(0.05, k, n - k + 1)) if k else 0.0
+        low = float(exact_binomial_bounds(k, n, 0.95).low)
         print(f"\ncrossing units alone (drawn until crossing: {n} units; {time.perf_counter() - t1:.0f} s)")
         _line(
             "crossing units flagged before the true crossing", g["detected_before"], ">= 0.90", k / n >= 0.9

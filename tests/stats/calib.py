@@ -12,6 +12,7 @@ invented for the harness (the demo scenario's populations are the centre), never
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -141,10 +142,9 @@ def drift_figures(results: list[UnitDrift]) -> dict[str, float]:
     ]
     # the stated range (earliest to latest; latest None: never) holds the true crossing
     held = [
-        (lo is None or lo <= r.true_cross) and (hi is None or r.true_cross <= hi)
+        (r.range_at_flag[0] or 0.0) <= r.true_cross <= (r.range_at_flag[1] or math.inf)
         for r in before
         if r.range_at_flag is not None
-        for lo, hi in [r.range_at_flag]
     ]
     nan = float("nan")
     return {
