@@ -160,14 +160,14 @@ class Analyzer:
                 self._chan(c)
             for ch in self._channels.values():
                 ch.unsure.extend(resets)
-        if len(drives):
-            self._drive_sources.update(channels_in(drives.channel))
         if len(edges):
-            for c, rows in _by_channel(edges.channel):
-                self._take_edges(self._chan(c), edges.t_ns.take(rows), edges.level.take(rows))
+            for c, (t, lv) in _by_channel(edges.channel, edges.t_ns, edges.level):
+                self._take_edges(self._chan(c), t, lv)
+        if len(drives):
+            by_channel = _by_channel(drives.channel, drives.t_ns, drives.level)
+            self._drive_sources.update(c for c, _ in by_channel)
         if len(drives) and self.settings.mode != "free":
-            for c, rows in _by_channel(drives.channel):
-                t, lv = drives.t_ns.take(rows), drives.level.take(rows)
+            for c, (t, lv) in by_channel:
                 targets = [c]
                 partner = self.settings.partner(c)
                 if partner is not None:
@@ -532,10 +532,29 @@ def channels_in(channel: np.ndarray) -> list[int]:
     return np.flatnonzero(seen).tolist()
 
 
-def _by_channel(channel: np.ndarray) -> list[tuple[int, np.ndarray]]:
-    """(channel, its rows in order) for each channel present, ascending: a pass per channel (at most
-    16), quicker than a stable sort of the rows by channel."""
-    return [(c, np.flatnonzero(channel == c)) for c in channels_in(channel)]
+def _by_channel(channel: np.ndarray, *columns: np.ndarray) -> list[tuple[int, list[np.ndarray]]]:
+    """(channel, [each of `columns` at its rows, in order]) for each channel present, ascending.
+
+    One stable sort of the rows by channel (numpy sorts small integers by radix, one pass) and one
+    gather per column; each channel's rows are then a slice of the gathered columns. Quicker than a
+    comparison, an index search and a gather per channel per column (1.3 ms against 2.2 ms for 262,144
+    rows of 8 channels and two columns, this machine, minimum of 7)."""
+    channel = np.asarray(channel)
+    if channel.dtype != np.uint8:
+        channel = channel.astype(np.int64)
+    counts = np.bincount(channel)
+    present = np.flatnonzero(counts)
+    if len(present) == 1:  # one channel: its rows are all of them, in order
+        return [(int(present[0]), list(columns))]
+    order = np.argsort(channel, kind="stable")
+    gathered = [col.take(order) for col in columns]
+    ends = np.cumsum(counts[present]).tolist()
+    out = []
+    start = 0
+    for c, end in zip(present.tolist(), ends, strict=True):
+        out.append((c, [g[start:end] for g in gathered]))
+        start = end
+    return out
 
 
 def power_off_ns(reset: Incident) -> int:

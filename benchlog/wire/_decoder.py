@@ -141,6 +141,34 @@ def _line_lines(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return nl, starts, nl - ((nl > starts) & cr)
 
 
+def _with_beats(
+    at: np.ndarray,
+    beat_ticks: list[int],
+    kinds: np.ndarray,
+    chans: np.ndarray,
+    levels: np.ndarray,
+    ticks: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The block's rows with a beat row (channel and level 0) before row `at[i]` for each beat (`at`
+    ascending; `len(ticks)` for after the last): what `np.insert` gives each column, with the rows'
+    new places worked out once for all four."""
+    n = len(ticks) + len(at)
+    beat_rows = at + np.arange(len(at))
+    old = np.ones(n, bool)
+    old[beat_rows] = False
+    out = []
+    for col, beat_value in ((kinds, BLOCK_BEAT), (chans, 0), (levels, 0)):
+        new = np.zeros(n, col.dtype)
+        new[old] = col
+        if beat_value:
+            new[beat_rows] = beat_value
+        out.append(new)
+    new_ticks = np.empty(n, ticks.dtype)
+    new_ticks[old] = ticks
+    new_ticks[beat_rows] = beat_ticks
+    return out[0], out[1], out[2], new_ticks
+
+
 def _le(d: np.ndarray, at: np.ndarray, size: int) -> np.ndarray:
     """Little-endian unsigned integers of `size` bytes at offsets `at` of `d`, as uint64."""
     # one gather of whole words through a view of `d` as overlapping `size`-byte items (one at each byte
@@ -610,11 +638,9 @@ class Decoder:
             n_drives = int(drives_before[taken] - drives_before[block_from])
             kinds, chans, levels, ticks = row_kind[r], channel[r], level[r], tick[r]
             if beats:  # the beats as rows of the block, where they came, as the packed form gives them
-                at = np.asarray(beat_at, np.intp)
-                kinds = np.insert(kinds, at, BLOCK_BEAT)
-                chans = np.insert(chans, at, 0)
-                levels = np.insert(levels, at, 0)
-                ticks = np.insert(ticks, at, np.array([b.tick for b in beats], np.uint64))
+                kinds, chans, levels, ticks = _with_beats(
+                    np.asarray(beat_at, np.intp), [b.tick for b in beats], kinds, chans, levels, ticks
+                )
             captured = np.array([b.captured for b in beats], np.int64)
             dropped = np.array([b.dropped for b in beats], np.int64)
             self._out.append(Block(kinds, chans, levels, ticks, no_cycle[:n_drives], captured, dropped))
@@ -684,10 +710,7 @@ class Decoder:
         if beats:
             self._ctx.check_level = max(self._ctx.check_level, max(b[3] for b in beats))
             at = breaks[:-1] - np.arange(len(beats))  # fast rows before each beat
-            kinds = np.insert(kinds, at, BLOCK_BEAT)
-            chans = np.insert(chans, at, 0)
-            levels = np.insert(levels, at, 0)
-            ticks = np.insert(ticks, at, np.array([b[0] for b in beats], np.uint64))
+            kinds, chans, levels, ticks = _with_beats(at, [b[0] for b in beats], kinds, chans, levels, ticks)
         captured = np.array([b[1] for b in beats], np.int64)
         dropped = np.array([b[2] for b in beats], np.int64)
         self._out.append(Block(kinds, chans, levels, ticks, no_cycle, captured, dropped))

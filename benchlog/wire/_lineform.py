@@ -414,10 +414,17 @@ def quick_beats(
 ) -> dict[int, tuple[int, int, int, int]]:
     """Version 1 beat lines among lines `rows` of `body` (a sampler sends one every few hundred edges):
     {row: (tick, captured, dropped, check strength)} for each line `parse_line` would turn into a
-    `Beat` with that strength. One regular expression per line and one numpy pass for all their `*hh`
-    checks, where `parse_line` goes field by field; any other line is left out, for `parse_line`."""
+    `Beat` with that strength. The beats sharing the most common layout (a sampler writes its ticks at
+    one width, and its counts change width rarely) are read column by column with numpy
+    (`_same_layout_beats`); the rest, one regular expression per line and one numpy pass for all their
+    `*hh` checks, where `parse_line` goes field by field; any other line is left out, for `parse_line`."""
     if ctx.version != 1 or not rows:
         return {}
+    out: dict[int, tuple[int, int, int, int]] = {}
+    if len(rows) >= _LAYOUT_MIN:
+        rows = _same_layout_beats(body, starts, ends, rows, ctx, out)
+        if not rows:
+            return out
     found = []
     match = _BEAT_V1.fullmatch
     for j, s, e in zip(rows, starts[rows].tolist(), ends[rows].tolist(), strict=True):
@@ -427,7 +434,8 @@ def quick_beats(
         if m is not None:
             found.append((j, s, e, m.groups()))
     if not found:
-        return {}
+        return out
+    by_columns = bool(out)  # some beats were read column by column: the dict is put back in line order
     checked = [f for f in found if f[3][3] is not None]
     xors: list[int] = []
     if checked:
@@ -439,7 +447,6 @@ def quick_beats(
         joined = a[np.repeat(first - at, size) + np.arange(int(size.sum()))]
         xors = np.bitwise_xor.reduceat(joined, at).tolist()
     xor_of = dict(zip((f[0] for f in checked), xors, strict=True))
-    out = {}
     bits, level = ctx.counter_bits, ctx.check_level
     for j, _, _, (tk, cap, drop, check) in found:
         if check is None:
@@ -452,4 +459,108 @@ def quick_beats(
         if kind < level or tick >> bits or captured >= _U32 or dropped >= _U32:
             continue
         out[j] = (tick, captured, dropped, kind)
-    return out
+    return dict(sorted(out.items())) if by_columns else out
+
+
+_BEAT_V1_LONGEST = 43  # "B", 16 hex digits, two counts of 10 digits, three spaces and "*hh"
+_LAYOUT_MIN = 8  # beat lines in a block before the column-wise reading pays for its fixed cost
+# what each byte of a version 1 beat may be: its letter, a space, a hex or decimal digit, the `*`
+_B, _SPACE, _HEXDIGIT, _DECDIGIT, _STAR = range(5)
+
+
+def _beat_layout(line: bytes) -> list[int] | None:
+    """The byte classes of a version 1 beat line laid out as `line` is (`_BEAT_V1`: `B`, a space, 1-16
+    hex digits, a space, 1-10 decimal digits, a space, 1-10 decimal digits, optionally `*` and two hex
+    digits), or None when `line` is not one."""
+    m = _BEAT_V1.fullmatch(line)
+    if m is None:
+        return None
+    tick, cap, drop, check = (len(g) if g is not None else 0 for g in m.groups())
+    out = [_B, _SPACE] + [_HEXDIGIT] * tick + [_SPACE] + [_DECDIGIT] * cap + [_SPACE] + [_DECDIGIT] * drop
+    return out + ([_STAR, _HEXDIGIT, _HEXDIGIT] if check else [])
+
+
+def _same_layout_beats(
+    body: bytes,
+    starts: np.ndarray,
+    ends: np.ndarray,
+    rows: list[int],
+    ctx: LineContext,
+    out: dict[int, tuple[int, int, int, int]],
+) -> list[int]:
+    """The beat lines among `rows` laid out as the first one of the most common length, read column by
+    column into `out` (what the one-line-at-a-time reading gives them); returns the rows left for it.
+
+    A line is taken only when every byte is of its column's class (so the expression would match it,
+    with these field widths), its `*hh` check holds, the stream's check level allows it and the values
+    are in range; any other line is left, and the one-line reading decides it as before."""
+    r = np.asarray(rows, np.intp)
+    s, e = starts[r], ends[r]
+    a = np.frombuffer(body, np.uint8)
+    length = e - s
+    is_beat = (a[s] == 0x42) & (length <= _BEAT_V1_LONGEST)
+    if np.count_nonzero(is_beat) < _LAYOUT_MIN:
+        return rows
+    width = int(np.bincount(length[is_beat]).argmax())
+    pick = np.flatnonzero(is_beat & (length == width))
+    layout = None
+    for first in s[pick[:3]].tolist():  # the layout of the first whole beat of this length
+        layout = _beat_layout(body[first : first + width])
+        if layout is not None:
+            break
+    if layout is None or len(pick) < _LAYOUT_MIN:
+        return rows
+    cls = np.array(layout, np.uint8)
+    lines = np.ndarray((len(a) - width + 1,), np.dtype((np.void, width)), a, 0, (1,))
+    m = lines[s[pick]].view(np.uint8).reshape(len(pick), width)
+    digit = HEX_VALUE[m]  # 255 where not a hex digit
+    want = np.full(m.shape, 0xFF, np.uint8)  # the byte each column must be, where it is one byte
+    want[:, cls == _B] = 0x42
+    want[:, cls == _SPACE] = 0x20
+    want[:, cls == _STAR] = 0x2A
+    fixed = (cls == _B) | (cls == _SPACE) | (cls == _STAR)
+    ok = (m[:, fixed] == want[:, fixed]).all(axis=1)
+    ok &= (digit[:, cls == _HEXDIGIT] < 16).all(axis=1)
+    ok &= (digit[:, cls == _DECDIGIT] < 10).all(axis=1)
+    spaces = np.flatnonzero(cls == _SPACE).tolist()
+    star = width - 3 if layout[-3] == _STAR else width
+    tick = np.zeros(len(pick), np.uint64)
+    for col in range(spaces[0] + 1, spaces[1]):
+        tick = (tick << np.uint64(4)) | digit[:, col].astype(np.uint64)
+    counts = []
+    for lo, hi in ((spaces[1] + 1, spaces[2]), (spaces[2] + 1, star)):
+        v = np.zeros(len(pick), np.int64)
+        for col in range(lo, hi):
+            v = v * 10 + digit[:, col]
+        counts.append(v)
+    captured, dropped = counts
+    if star < width:
+        kind = CHECK_XOR
+        said = (digit[:, width - 2].astype(np.int64) << 4) | digit[:, width - 1]
+        ok &= np.bitwise_xor.reduce(m[:, :star], axis=1) == said
+    else:
+        kind = CHECK_NONE
+    if kind < ctx.check_level:
+        return rows
+    if ctx.counter_bits < 64:
+        ok &= (tick >> np.uint64(ctx.counter_bits)) == 0
+    ok &= (captured < _U32) & (dropped < _U32)
+    taken = pick[ok]
+    out.update(
+        zip(
+            r[taken].tolist(),
+            zip(
+                tick[ok].tolist(),
+                captured[ok].tolist(),
+                dropped[ok].tolist(),
+                [kind] * len(taken),
+                strict=True,
+            ),
+            strict=True,
+        )
+    )
+    if len(taken) == len(r):
+        return []
+    left = np.ones(len(r), bool)
+    left[taken] = False
+    return r[left].tolist()

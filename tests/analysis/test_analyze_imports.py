@@ -103,6 +103,7 @@ def test_rows_by_channel_are_a_stable_sorts_groups():
         # numpy's stable argsort as the reference: each channel's rows in order, channels ascending
         order = np.argsort(channel, kind="stable")
         want = [(int(c), order[channel[order] == c]) for c in np.unique(channel)]
-        got = _by_channel(channel)
+        got = _by_channel(channel, np.arange(n), channel)  # the rows themselves, and the channel column
         assert [c for c, _ in got] == [c for c, _ in want]
-        assert all(np.array_equal(g, w) for (_, g), (_, w) in zip(got, want, strict=True))
+        assert all(np.array_equal(g, w) for (_, (g, _)), (_, w) in zip(got, want, strict=True))
+        assert all((cols[1] == c).all() for c, cols in got)

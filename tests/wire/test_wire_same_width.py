@@ -16,6 +16,7 @@ from benchlog.wire._lineform import (
     CHECK_NONE,
     CHECK_XOR,
     LineContext,
+    _same_layout_beats,
     fast_edge_lines,
     line_check,
     parse_line,
@@ -142,3 +143,56 @@ def test_beats_read_by_one_expression_are_the_one_line_parsers_beats():
                 # only a version 2 check (which parse_line reads) may leave a good beat to it
                 assert strength == CHECK_CRC
     assert taken > 500
+
+
+def _same_layout_beats_block(rng: np.random.Generator) -> bytes:
+    """Beats as one sampler writes them (one tick width, counts mostly of one width, one check), some
+    with a byte changed, a field widened or the check dropped, and edge lines between them."""
+    tick_digits = int(rng.choice([1, 4, 8, 16]))
+    checked = rng.random() < 0.7
+    upper = rng.random() < 0.2
+    lines = []
+    for _ in range(int(rng.integers(1, 120))):
+        if rng.random() < 0.3:
+            lines.append(_xor_line(b"E 1 0 %0*x" % (tick_digits, int(rng.integers(0, 1 << 16)))))
+            continue
+        tick = int(rng.integers(0, 1 << min(4 * tick_digits, 63)))
+        cap = int(rng.integers(10**5, 10**6)) if rng.random() < 0.9 else int(rng.integers(0, 1 << 33))
+        drop = 0 if rng.random() < 0.9 else int(rng.integers(0, 1 << 33))
+        text = b"B %0*x %d %d" % (tick_digits, tick, cap, drop)
+        text = text.upper() if upper else text
+        line = _xor_line(text) if checked ^ (rng.random() < 0.05) else text
+        if rng.random() < 0.1:
+            b = bytearray(line)
+            b[int(rng.integers(len(b)))] = int(rng.choice([v for v in range(256) if v not in (10, 13)]))
+            line = bytes(b)
+        lines.append(line)
+    return b"".join(line + b"\n" for line in lines)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_beats_read_column_by_column_are_the_one_line_parsers_beats_in_line_order(seed):
+    # the reference is parse_line, one line at a time; the column-wise reading takes the beats that share
+    # the most common layout, the rest go through the regular expression
+    rng = np.random.default_rng(100 + seed)
+    taken = 0
+    for _ in range(150):
+        body = _same_layout_beats_block(rng)
+        ctx = _context(rng)
+        ctx.version = 1
+        a = np.frombuffer(body, np.uint8)
+        _, starts, ends = _line_lines(a)
+        got = quick_beats(body, starts, ends, list(range(len(starts))), ctx)
+        assert list(got) == sorted(got)  # line order: the caller lays the beats out in it
+        by_columns: dict = {}
+        _same_layout_beats(body, starts, ends, list(range(len(starts))), ctx, by_columns)
+        assert by_columns.items() <= got.items()
+        taken += len(by_columns)
+        for j in range(len(starts)):
+            rec, strength = parse_line(body[starts[j] : ends[j]], ctx)
+            if j in got:
+                tick, captured, dropped, kind = got[j]
+                assert rec == Beat(tick, captured, dropped) and strength == kind
+            else:
+                assert not isinstance(rec, Beat)
+    assert taken > 1000  # the column-wise reading took most of the beats
