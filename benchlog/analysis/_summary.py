@@ -18,7 +18,10 @@ from benchlog.analysis._types import BREAK, INCOMPLETE, MAKE, MISSED, NO_CHANGE,
 if TYPE_CHECKING:
     from benchlog.analysis._spec import PartSpec, UnitFigures
 
-COMPACT_AT = 1 << 12  # values buffered (or as many as there are distinct ones) before they are folded
+# values buffered (or as many as there are distinct ones) before they are folded: sorting them is most of
+# a summary's cost, and fewer, larger folds sort less often (21 ms against 25 ms for 1 M edges' 143,000
+# actuations at 1 << 14 against 1 << 12; at most 128 KiB a series)
+COMPACT_AT = 1 << 14
 
 
 class ValueCounts:
