@@ -24,7 +24,7 @@ from benchlog.wire import (
     PackedEncoder,
 )
 from benchlog.wire._decoder import BULK_BYTES
-from benchlog.wire._framing import cobs_decode_spans, crc32_all_valid
+from benchlog.wire._framing import _decode_joined, cobs_decode_spans, crc32_all_valid
 
 
 @pytest.mark.parametrize("longest", [700, 250], ids=["long frames", "frames under 254 bytes"])
@@ -59,6 +59,42 @@ def test_cobs_spans_agree_with_the_cobs_package(longest):
                 assert not ok[k]
                 continue
             assert ok[k] and bytes(decoded[first[k] : first[k] + length[k]]) == want
+
+
+def test_spans_decoded_joined_are_the_cobs_packages_frames_and_any_bad_one_is_left_to_the_chains():
+    # the cobs package, frame by frame, is the reference; frames under 254 bytes (no 0xFF block), and
+    # damage that is never 0xFF, so the joined decoding applies exactly when every frame decodes alone
+    rng = np.random.default_rng(3)
+    joined = 0
+    for trial in range(400):
+        segments = []
+        for _ in range(int(rng.integers(1, 40))):
+            raw = bytes(
+                rng.integers(0, 3 if rng.random() < 0.5 else 256, int(rng.integers(0, 250)), np.uint8)
+            )
+            segments.append(bytearray(cobs.encode(raw)))
+        if trial % 2:  # one damaged byte in one frame: a code byte moved, or a data byte changed
+            f = segments[int(rng.integers(len(segments)))]
+            f[int(rng.integers(len(f)))] = int(rng.integers(1, 255))
+        buf = b"\0".join(bytes(f) for f in segments) + b"\0"
+        a = np.frombuffer(buf, np.uint8)
+        z = np.flatnonzero(a == 0)
+        starts, ends = np.r_[0, z[:-1] + 1], z
+        want = []
+        for s, e in zip(starts.tolist(), ends.tolist(), strict=True):
+            try:
+                want.append(cobs.decode(buf[s:e]))
+            except cobs.DecodeError:
+                want.append(None)
+        got = _decode_joined(a, starts, ends)
+        assert (got is None) == (None in want)
+        if got is None:
+            continue
+        joined += 1
+        ok, decoded, first, length = got
+        assert ok.all()
+        assert [bytes(decoded[f : f + n]) for f, n in zip(first, length, strict=True)] == want
+    assert joined > 200
 
 
 def test_one_crc_over_many_frames_agrees_with_a_crc_per_frame():
