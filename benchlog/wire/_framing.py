@@ -175,8 +175,9 @@ def crc32_all_valid(frames: np.ndarray, lengths: np.ndarray) -> bool:
     """
     if not len(lengths):
         return True
-    if not _CRC_OF_ZEROS:
-        _CRC_OF_ZEROS.extend(zlib.crc32(bytes(k)) for k in range(2048))
+    longest = int(lengths.max())
+    if len(_CRC_OF_ZEROS) < longest - 3:  # the CRC of k zeros, for every k up to the longest frame's
+        _CRC_OF_ZEROS.extend(zlib.crc32(bytes(k)) for k in range(len(_CRC_OF_ZEROS), longest - 3))
     ref = np.zeros(len(frames), np.uint8)
     crcs = np.asarray(_CRC_OF_ZEROS, np.uint32)[lengths - 4].astype("<u4").view(np.uint8)
     tails = np.cumsum(lengths) - 4
