@@ -27,6 +27,15 @@ from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 
 import pytest
+from hypothesis import settings as hypothesis_settings
+
+# Property tests draw the same examples on every run (each test's examples follow from its own name), so
+# a run's result never depends on the luck of the draw: a counterexample a search finds becomes an
+# `@example` beside its test. `HYPOTHESIS_PROFILE=search pytest ...` draws fresh examples to look for
+# more, and keeps what it finds in .hypothesis/.
+hypothesis_settings.register_profile("suite", derandomize=True, database=None)
+hypothesis_settings.register_profile("search", derandomize=False)
+hypothesis_settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "suite"))
 
 HANG_S = 180.0  # only a hang takes this long, on any machine however loaded
 
