@@ -11,9 +11,9 @@ these shapes. Times are integer nanoseconds:
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
+
+from benchlog._slotted import Slotted
 
 # Incident kinds (docs/protocol.md and DESIGN: disconnect, reset, decode fault, sequence gap, overflow).
 DISCONNECT = "disconnect"
@@ -40,13 +40,19 @@ INCIDENT_KINDS = (
 )
 
 
-@dataclass(frozen=True, slots=True, eq=False)
-class TimedEdges:
+class TimedEdges(Slotted, frozen=True, eq=False):
     """Edges in run time. `t_ns` int64 (non-decreasing per channel), `channel` uint8, `level` uint8."""
 
+    __slots__ = ("t_ns", "channel", "level")
     t_ns: np.ndarray
     channel: np.ndarray
     level: np.ndarray
+
+    def __init__(self, t_ns: np.ndarray, channel: np.ndarray, level: np.ndarray) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "channel", channel)
+        _set(self, "level", level)
 
     def __len__(self) -> int:
         return len(self.t_ns)
@@ -77,16 +83,25 @@ class TimedEdges:
         )
 
 
-@dataclass(frozen=True, slots=True, eq=False)
-class TimedDrives:
+class TimedDrives(Slotted, frozen=True, eq=False):
     """Actuator switchings in run time: `t_ns` int64, `channel` uint8, `level` uint8 (1 = energised);
     `cycle` int64: the cycle of the channel's plan as the sampler counts it (protocol version 2), -1
     where the sampler did not say (None: nowhere)."""
 
+    __slots__ = ("t_ns", "channel", "level", "cycle")
     t_ns: np.ndarray
     channel: np.ndarray
     level: np.ndarray
-    cycle: np.ndarray | None = None
+    cycle: np.ndarray | None
+
+    def __init__(
+        self, t_ns: np.ndarray, channel: np.ndarray, level: np.ndarray, cycle: np.ndarray | None = None
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "channel", channel)
+        _set(self, "level", level)
+        _set(self, "cycle", cycle)
 
     def __len__(self) -> int:
         return len(self.t_ns)
@@ -104,8 +119,7 @@ class TimedDrives:
         return cls(np.asarray(t, np.int64), np.asarray(ch, np.uint8), np.asarray(lv, np.uint8))
 
 
-@dataclass(frozen=True, slots=True)
-class Incident:
+class Incident(Slotted, frozen=True):
     """Something that happened to the data rather than to the parts.
 
     `t_start_ns`/`t_end_ns` bound, in run time, the stretch whose data is missing or doubtful (equal
@@ -114,15 +128,49 @@ class Incident:
     of the channel's unit the sampler did that the host has no measurement of.
     """
 
+    __slots__ = (
+        "kind",
+        "t_start_ns",
+        "t_end_ns",
+        "host_start_ns",
+        "host_end_ns",
+        "edges_lost",
+        "channel",
+        "detail",
+        "cycles_lost",
+    )
     kind: str
     t_start_ns: int
     t_end_ns: int
     host_start_ns: int
     host_end_ns: int
-    edges_lost: int | None = None
-    channel: int | None = None
-    detail: str = ""
-    cycles_lost: int | None = None
+    edges_lost: int | None
+    channel: int | None
+    detail: str
+    cycles_lost: int | None
+
+    def __init__(
+        self,
+        kind: str,
+        t_start_ns: int,
+        t_end_ns: int,
+        host_start_ns: int,
+        host_end_ns: int,
+        edges_lost: int | None = None,
+        channel: int | None = None,
+        detail: str = "",
+        cycles_lost: int | None = None,
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "kind", kind)
+        _set(self, "t_start_ns", t_start_ns)
+        _set(self, "t_end_ns", t_end_ns)
+        _set(self, "host_start_ns", host_start_ns)
+        _set(self, "host_end_ns", host_end_ns)
+        _set(self, "edges_lost", edges_lost)
+        _set(self, "channel", channel)
+        _set(self, "detail", detail)
+        _set(self, "cycles_lost", cycles_lost)
 
 
 __all__ = [

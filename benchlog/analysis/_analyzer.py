@@ -25,10 +25,10 @@ DISCONNECT, no reset) keeps the contact's level: edges lost in it show as repeat
 from __future__ import annotations
 
 from collections.abc import Iterable
-from dataclasses import dataclass, field
 
 import numpy as np
 
+from benchlog._slotted import Slotted
 from benchlog.analysis._measure import dedupe, filter_glitches, measure_windows
 from benchlog.analysis._settings import AnalysisSettings
 from benchlog.analysis._types import (
@@ -48,35 +48,105 @@ _I64 = np.zeros(0, np.int64)
 _U8 = np.zeros(0, np.uint8)
 
 
-@dataclass(slots=True)
-class _Channel:
+class _Channel(Slotted):
+    """One channel's pending state. `driven`: a drive record was ever seen (drive-anchored from the
+    first drive on); `anchored`: the free-running stretch before the first drive is done;
+    `done_until`: every actuation starting before this has been emitted; `unsure`: resets whose first
+    edge after them has not arrived (last run time before, power off)."""
+
+    __slots__ = (
+        "channel",
+        "normally_closed",
+        "t",
+        "lv",
+        "level_before",
+        "dt",
+        "dl",
+        "last_drive_level",
+        "driven",
+        "anchored",
+        "cycle_base",
+        "done_until",
+        "late_edges",
+        "unsure",
+    )
     channel: int
     normally_closed: bool
-    t: np.ndarray = field(default_factory=lambda: _I64)
-    lv: np.ndarray = field(default_factory=lambda: _U8)
-    level_before: int | None = None
-    dt: np.ndarray = field(default_factory=lambda: _I64)
-    dl: np.ndarray = field(default_factory=lambda: _U8)
-    last_drive_level: int | None = None
-    driven: bool = False  # a drive record was ever seen: drive-anchored from the first drive on
-    anchored: bool = False  # the free-running stretch before the first drive is done
-    cycle_base: int = 0
-    done_until: int = -_FAR  # every actuation starting before this has been emitted
-    late_edges: int = 0
-    # resets whose first edge after them has not arrived: (last run time before, power off)
-    unsure: list[tuple[int, int]] = field(default_factory=list)
+    t: np.ndarray
+    lv: np.ndarray
+    level_before: int | None
+    dt: np.ndarray
+    dl: np.ndarray
+    last_drive_level: int | None
+    driven: bool
+    anchored: bool
+    cycle_base: int
+    done_until: int
+    late_edges: int
+    unsure: list[tuple[int, int]]
+
+    def __init__(
+        self,
+        channel: int,
+        normally_closed: bool,
+        t: np.ndarray = _I64,
+        lv: np.ndarray = _U8,
+        level_before: int | None = None,
+        dt: np.ndarray = _I64,
+        dl: np.ndarray = _U8,
+        last_drive_level: int | None = None,
+        driven: bool = False,
+        anchored: bool = False,
+        cycle_base: int = 0,
+        done_until: int = -_FAR,
+        late_edges: int = 0,
+        unsure: list[tuple[int, int]] | None = None,
+    ) -> None:
+        self.channel = channel
+        self.normally_closed = normally_closed
+        self.t = t
+        self.lv = lv
+        self.level_before = level_before
+        self.dt = dt
+        self.dl = dl
+        self.last_drive_level = last_drive_level
+        self.driven = driven
+        self.anchored = anchored
+        self.cycle_base = cycle_base
+        self.done_until = done_until
+        self.late_edges = late_edges
+        self.unsure = [] if unsure is None else unsure
 
 
-@dataclass(slots=True)
-class AnalyzerCounters:
-    """What the analyzer saw besides actuations (for the run log)."""
+class AnalyzerCounters(Slotted):
+    """What the analyzer saw besides actuations (for the run log). `repeated_levels`: edges that did
+    not change the level (lost edges upstream); `late_edges`: arrived after their stretch was already
+    measured, not used; `stray_pulses`: free-running disturbances before any actuation of their
+    channel; `closed_early`: unfinished actuations closed because they held too many edges."""
 
-    edges_in: int = 0
-    drives_in: int = 0
-    repeated_levels: int = 0  # edges that did not change the level (lost edges upstream)
-    late_edges: int = 0  # arrived after their stretch was already measured; not used
-    stray_pulses: int = 0  # free-running disturbances before any actuation of their channel
-    closed_early: int = 0  # unfinished actuations closed because they held too many edges
+    __slots__ = ("edges_in", "drives_in", "repeated_levels", "late_edges", "stray_pulses", "closed_early")
+    edges_in: int
+    drives_in: int
+    repeated_levels: int
+    late_edges: int
+    stray_pulses: int
+    closed_early: int
+
+    def __init__(
+        self,
+        edges_in: int = 0,
+        drives_in: int = 0,
+        repeated_levels: int = 0,
+        late_edges: int = 0,
+        stray_pulses: int = 0,
+        closed_early: int = 0,
+    ) -> None:
+        self.edges_in = edges_in
+        self.drives_in = drives_in
+        self.repeated_levels = repeated_levels
+        self.late_edges = late_edges
+        self.stray_pulses = stray_pulses
+        self.closed_early = closed_early
 
 
 class Analyzer:

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
-from dataclasses import dataclass, field, replace
 
+from benchlog._slotted import Slotted
 from benchlog.errors import ConfigError
 
 MODES = ("auto", "drive", "free")
@@ -15,8 +15,7 @@ MODES = ("auto", "drive", "free")
 DEFAULT_CHATTER_THRESHOLD_NS = 10_000
 
 
-@dataclass(frozen=True, slots=True)
-class AnalysisSettings:
+class AnalysisSettings(Slotted, frozen=True):
     """Everything that decides how edges become actuations. Times are integer nanoseconds.
 
     - `settle_ns`: a contact that stays in the new state this long has settled; excursions after that
@@ -39,20 +38,56 @@ class AnalysisSettings:
       bounded.
     """
 
-    settle_ns: int = 10_000_000
-    quiet_ns: int | None = None
-    chatter_threshold_ns: int = DEFAULT_CHATTER_THRESHOLD_NS
-    glitch_floor_ns: int = 0
-    resolution_ns: int = 1
-    normally_closed: frozenset[int] = field(default_factory=frozenset)
-    form_c: tuple[tuple[int, int], ...] = ()
-    mode: str = "auto"
-    lateness_ns: int = 200_000_000
-    max_pending_edges: int = 1_000_000
+    __slots__ = (
+        "settle_ns",
+        "quiet_ns",
+        "chatter_threshold_ns",
+        "glitch_floor_ns",
+        "resolution_ns",
+        "normally_closed",
+        "form_c",
+        "mode",
+        "lateness_ns",
+        "max_pending_edges",
+    )
+    settle_ns: int
+    quiet_ns: int | None
+    chatter_threshold_ns: int
+    glitch_floor_ns: int
+    resolution_ns: int
+    normally_closed: frozenset[int]
+    form_c: tuple[tuple[int, int], ...]
+    mode: str
+    lateness_ns: int
+    max_pending_edges: int
 
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "normally_closed", frozenset(int(c) for c in self.normally_closed))
-        object.__setattr__(self, "form_c", tuple((int(a), int(b)) for a, b in self.form_c))
+    def __init__(
+        self,
+        settle_ns: int = 10_000_000,
+        quiet_ns: int | None = None,
+        chatter_threshold_ns: int = DEFAULT_CHATTER_THRESHOLD_NS,
+        glitch_floor_ns: int = 0,
+        resolution_ns: int = 1,
+        normally_closed: Iterable[int] = frozenset(),
+        form_c: Iterable[tuple[int, int]] = (),
+        mode: str = "auto",
+        lateness_ns: int = 200_000_000,
+        max_pending_edges: int = 1_000_000,
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "settle_ns", settle_ns)
+        _set(self, "quiet_ns", quiet_ns)
+        _set(self, "chatter_threshold_ns", chatter_threshold_ns)
+        _set(self, "glitch_floor_ns", glitch_floor_ns)
+        _set(self, "resolution_ns", resolution_ns)
+        _set(self, "normally_closed", frozenset(int(c) for c in normally_closed))
+        _set(self, "form_c", tuple((int(a), int(b)) for a, b in form_c))
+        _set(self, "mode", mode)
+        _set(self, "lateness_ns", lateness_ns)
+        _set(self, "max_pending_edges", max_pending_edges)
+        self._check()
+
+    def _check(self) -> None:
         for name in ("settle_ns", "chatter_threshold_ns", "resolution_ns"):
             if int(getattr(self, name)) <= 0:
                 raise ConfigError(f"analysis setting {name} must be > 0, got {getattr(self, name)}")
@@ -99,7 +134,7 @@ class AnalysisSettings:
         return None
 
     def with_(self, **changes: object) -> AnalysisSettings:
-        return replace(self, **changes)
+        return self._replace(**changes)
 
     @classmethod
     def from_us(

@@ -36,10 +36,9 @@ joined mid-run); after a reset the counts start from zero.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-
 import numpy as np
 
+from benchlog._slotted import Slotted
 from benchlog.clock._convert import NS_PER_S, signed_deltas, ticks_to_ns, ticks_to_ns_array
 from benchlog.clock._drift import DriftEstimator
 from benchlog.errors import ConfigError
@@ -83,14 +82,23 @@ EPOCH_LIMIT_NS = 1 << 60  # 36 years: no counter epoch is longer; beyond it a ti
 RUN_LIMIT_NS = 1 << 61  # run time stays far inside int64
 
 
-@dataclass(frozen=True, slots=True, eq=False)
-class TimedBeats:
+class TimedBeats(Slotted, frozen=True, eq=False):
     """Beats in run time: `t_ns`, `host_ns`, `captured`, `dropped` (all int64 arrays)."""
 
+    __slots__ = ("t_ns", "host_ns", "captured", "dropped")
     t_ns: np.ndarray
     host_ns: np.ndarray
     captured: np.ndarray
     dropped: np.ndarray
+
+    def __init__(
+        self, t_ns: np.ndarray, host_ns: np.ndarray, captured: np.ndarray, dropped: np.ndarray
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "host_ns", host_ns)
+        _set(self, "captured", captured)
+        _set(self, "dropped", dropped)
 
     def __len__(self) -> int:
         return len(self.t_ns)
@@ -101,53 +109,112 @@ class TimedBeats:
         return cls(a[:, 0].copy(), a[:, 1].copy(), a[:, 2].copy(), a[:, 3].copy())
 
 
-@dataclass(frozen=True, slots=True)
-class TimedNotice:
+class TimedNotice(Slotted, frozen=True):
+    __slots__ = ("t_ns", "host_ns", "text")
     t_ns: int
     host_ns: int
     text: str
 
+    def __init__(self, t_ns: int, host_ns: int, text: str) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "host_ns", host_ns)
+        _set(self, "text", text)
 
-@dataclass(frozen=True, slots=True)
-class TimedPong:
+
+class TimedPong(Slotted, frozen=True):
+    __slots__ = ("t_ns", "host_ns", "token")
     t_ns: int
     host_ns: int
     token: int
 
+    def __init__(self, t_ns: int, host_ns: int, token: int) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "host_ns", host_ns)
+        _set(self, "token", token)
 
-@dataclass(frozen=True, slots=True, eq=False)
-class Timed:
-    """What one `Timeline.push` made of its records."""
 
+class Timed(Slotted, frozen=True, eq=False):
+    """What one `Timeline.push` made of its records. `counts`: protocol version 2 beats' counts;
+    `accepted`: PLAN and GO acknowledged (version 2)."""
+
+    __slots__ = (
+        "edges",
+        "drives",
+        "incidents",
+        "announcements",
+        "beats",
+        "notices",
+        "pongs",
+        "counts",
+        "accepted",
+    )
     edges: TimedEdges
     drives: TimedDrives
     incidents: list[Incident]
     announcements: list[Announce]
     beats: TimedBeats
-    notices: list[TimedNotice] = field(default_factory=list)
-    pongs: list[TimedPong] = field(default_factory=list)
-    counts: list[TimedCounts] = field(default_factory=list)  # protocol version 2 beats' counts
-    accepted: list[TimedAccepted] = field(default_factory=list)  # PLAN and GO acknowledged (v2)
+    notices: list[TimedNotice]
+    pongs: list[TimedPong]
+    counts: list[TimedCounts]
+    accepted: list[TimedAccepted]
+
+    def __init__(
+        self,
+        edges: TimedEdges,
+        drives: TimedDrives,
+        incidents: list[Incident],
+        announcements: list[Announce],
+        beats: TimedBeats,
+        notices: list[TimedNotice] | None = None,
+        pongs: list[TimedPong] | None = None,
+        counts: list[TimedCounts] | None = None,
+        accepted: list[TimedAccepted] | None = None,
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "edges", edges)
+        _set(self, "drives", drives)
+        _set(self, "incidents", incidents)
+        _set(self, "announcements", announcements)
+        _set(self, "beats", beats)
+        _set(self, "notices", [] if notices is None else notices)
+        _set(self, "pongs", [] if pongs is None else pongs)
+        _set(self, "counts", [] if counts is None else counts)
+        _set(self, "accepted", [] if accepted is None else accepted)
 
 
-@dataclass(frozen=True, slots=True)
-class TimedCounts:
+class TimedCounts(Slotted, frozen=True):
     """A version 2 beat's counts: (channel, cycles completed since its plan started) pairs, and pulses
     too short to resolve since the sampler's reset."""
 
+    __slots__ = ("t_ns", "host_ns", "cycles", "short")
     t_ns: int
     host_ns: int
     cycles: tuple[tuple[int, int], ...]
     short: int
 
+    def __init__(self, t_ns: int, host_ns: int, cycles: tuple[tuple[int, int], ...], short: int) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "host_ns", host_ns)
+        _set(self, "cycles", cycles)
+        _set(self, "short", short)
 
-@dataclass(frozen=True, slots=True)
-class TimedAccepted:
+
+class TimedAccepted(Slotted, frozen=True):
     """A `PlanAccepted` or `GoAccepted` record, placed in run time."""
 
+    __slots__ = ("t_ns", "host_ns", "record")
     t_ns: int
     host_ns: int
     record: PlanAccepted | GoAccepted
+
+    def __init__(self, t_ns: int, host_ns: int, record: PlanAccepted | GoAccepted) -> None:
+        _set = object.__setattr__
+        _set(self, "t_ns", t_ns)
+        _set(self, "host_ns", host_ns)
+        _set(self, "record", record)
 
 
 _EDGE, _DRIVE, _BEAT = 0, 1, 2
@@ -363,15 +430,33 @@ def _join(parts: list) -> np.ndarray:
     return arrays[0] if len(arrays) == 1 else np.concatenate(arrays)
 
 
-@dataclass(slots=True)
-class _PendingBeat:
+class _PendingBeat(Slotted):
+    __slots__ = ("rel", "t_ns", "host_ns", "captured", "dropped", "received_before", "late")
     rel: int
     t_ns: int
     host_ns: int
     captured: int
     dropped: int
     received_before: int
-    late: int = 0
+    late: int
+
+    def __init__(
+        self,
+        rel: int,
+        t_ns: int,
+        host_ns: int,
+        captured: int,
+        dropped: int,
+        received_before: int,
+        late: int = 0,
+    ) -> None:
+        self.rel = rel
+        self.t_ns = t_ns
+        self.host_ns = host_ns
+        self.captured = captured
+        self.dropped = dropped
+        self.received_before = received_before
+        self.late = late
 
 
 class Timeline:

@@ -136,8 +136,7 @@ class Feed:
         if self.speed == 1.0:
             return timed
         incidents = [
-            replace(
-                i,
+            i._replace(
                 host_start_ns=self._from_clock(i.host_start_ns),
                 host_end_ns=self._from_clock(i.host_end_ns),
             )
@@ -145,12 +144,11 @@ class Feed:
         ]
         b = timed.beats
         host = self._host0 + ((b.host_ns - self._host0) / self.speed).astype(np.int64)
-        return replace(
-            timed,
+        return timed._replace(
             incidents=incidents,
             beats=TimedBeats(b.t_ns, host, b.captured, b.dropped),
-            notices=[replace(n, host_ns=self._from_clock(n.host_ns)) for n in timed.notices],
-            pongs=[replace(p, host_ns=self._from_clock(p.host_ns)) for p in timed.pongs],
+            notices=[n._replace(host_ns=self._from_clock(n.host_ns)) for n in timed.notices],
+            pongs=[p._replace(host_ns=self._from_clock(p.host_ns)) for p in timed.pongs],
         )
 
     # -- reading -----------------------------------------------------------------------------------

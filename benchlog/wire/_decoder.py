@@ -22,10 +22,10 @@ from __future__ import annotations
 import bisect
 import re
 import zlib
-from dataclasses import dataclass
 
 import numpy as np
 
+from benchlog._slotted import Slotted
 from benchlog.wire._encoders import (
     MAX_BOARD_ID,
     MAX_EDGES_PER_FRAME,
@@ -109,24 +109,53 @@ def _edges_empty() -> Edges:
     return Edges(np.zeros(0, np.uint8), np.zeros(0, np.uint8), np.zeros(0, np.uint64))
 
 
-@dataclass(slots=True)
-class _FramePlan:
+class _FramePlan(Slotted, eq=False):
     """What `_scan_frames` found in a run of frames: per frame whether it is plain (`simple`) and its
     sequence number; the rows of every plain frame laid out in frame order, with where each frame's
     rows, drive rows and beat rows start."""
 
-    simple: np.ndarray
-    seq: np.ndarray
-    row_start: np.ndarray
-    drive_start: np.ndarray
-    beat_start: np.ndarray
-    kind: np.ndarray
-    channel: np.ndarray
-    level: np.ndarray
-    tick: np.ndarray
-    cycle: np.ndarray
-    captured: np.ndarray
-    dropped: np.ndarray
+    __slots__ = (
+        "simple",
+        "seq",
+        "row_start",
+        "drive_start",
+        "beat_start",
+        "kind",
+        "channel",
+        "level",
+        "tick",
+        "cycle",
+        "captured",
+        "dropped",
+    )
+
+    def __init__(
+        self,
+        simple: np.ndarray,
+        seq: np.ndarray,
+        row_start: np.ndarray,
+        drive_start: np.ndarray,
+        beat_start: np.ndarray,
+        kind: np.ndarray,
+        channel: np.ndarray,
+        level: np.ndarray,
+        tick: np.ndarray,
+        cycle: np.ndarray,
+        captured: np.ndarray,
+        dropped: np.ndarray,
+    ) -> None:
+        self.simple = simple
+        self.seq = seq
+        self.row_start = row_start
+        self.drive_start = drive_start
+        self.beat_start = beat_start
+        self.kind = kind
+        self.channel = channel
+        self.level = level
+        self.tick = tick
+        self.cycle = cycle
+        self.captured = captured
+        self.dropped = dropped
 
 
 def _line_lines(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -2,33 +2,47 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-
 import numpy as np
+
+from benchlog._slotted import Slotted
 
 PROTOCOL_VERSION = 2
 KNOWN_VERSIONS = (1, 2)
 
 
-@dataclass(frozen=True, slots=True)
-class Announce:
+class Announce(Slotted, frozen=True):
+    __slots__ = ("version", "clock_hz", "counter_bits", "channels", "board_id")
     version: int
     clock_hz: int
     counter_bits: int
     channels: int
     board_id: str
 
+    def __init__(self, version: int, clock_hz: int, counter_bits: int, channels: int, board_id: str) -> None:
+        _set = object.__setattr__
+        _set(self, "version", version)
+        _set(self, "clock_hz", clock_hz)
+        _set(self, "counter_bits", counter_bits)
+        _set(self, "channels", channels)
+        _set(self, "board_id", board_id)
 
-@dataclass(frozen=True, slots=True, eq=False)
-class Edges:
+
+class Edges(Slotted, frozen=True):
     """A batch of edges in stream order. Ticks are raw counter values (modulo 2**counter_bits).
 
     `channel` uint8, `level` uint8 (1 = contact closed), `tick` uint64, all the same length.
     """
 
+    __slots__ = ("channel", "level", "tick")
     channel: np.ndarray
     level: np.ndarray
     tick: np.ndarray
+
+    def __init__(self, channel: np.ndarray, level: np.ndarray, tick: np.ndarray) -> None:
+        _set = object.__setattr__
+        _set(self, "channel", channel)
+        _set(self, "level", level)
+        _set(self, "tick", tick)
 
     def __len__(self) -> int:
         return len(self.tick)
@@ -51,36 +65,57 @@ class Edges:
         return cls(np.asarray(ch, np.uint8), np.asarray(lv, np.uint8), np.asarray(tk, np.uint64))
 
 
-@dataclass(frozen=True, slots=True)
-class Drive:
+class Drive(Slotted, frozen=True):
     """The sampler switched channel `channel`'s actuator. `cycle` (version 2) is the cycle of the
     channel's plan this switching belongs to, as the sampler counts it (1 = the first cycle after GO);
     None from a version 1 sampler."""
 
+    __slots__ = ("channel", "level", "tick", "cycle")
     channel: int
     level: int
     tick: int
-    cycle: int | None = None
+    cycle: int | None
+
+    def __init__(self, channel: int, level: int, tick: int, cycle: int | None = None) -> None:
+        _set = object.__setattr__
+        _set(self, "channel", channel)
+        _set(self, "level", level)
+        _set(self, "tick", tick)
+        _set(self, "cycle", cycle)
 
 
-@dataclass(frozen=True, slots=True)
-class Beat:
+class Beat(Slotted, frozen=True):
     """`captured`/`dropped`: edges since reset. Version 2 adds `short` (pulses too short to resolve,
     since reset) and `cycles`: (channel, cycles completed since its plan started) for every channel with
     a plan since the last reset, in channel order. Counts are modulo 2**32."""
 
+    __slots__ = ("tick", "captured", "dropped", "short", "cycles")
     tick: int
     captured: int
     dropped: int
-    short: int | None = None
-    cycles: tuple[tuple[int, int], ...] = ()
+    short: int | None
+    cycles: tuple[tuple[int, int], ...]
+
+    def __init__(
+        self,
+        tick: int,
+        captured: int,
+        dropped: int,
+        short: int | None = None,
+        cycles: tuple[tuple[int, int], ...] = (),
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "tick", tick)
+        _set(self, "captured", captured)
+        _set(self, "dropped", dropped)
+        _set(self, "short", short)
+        _set(self, "cycles", cycles)
 
 
 BLOCK_EDGE, BLOCK_DRIVE, BLOCK_BEAT = 0, 1, 2
 
 
-@dataclass(frozen=True, slots=True, eq=False)
-class Block:
+class Block(Slotted, frozen=True, eq=False):
     """Consecutive edge, drive and (version 1) beat records in stream order, as columns: what
     `Decoder.feed(data, blocks=True)` gives instead of one object per drive and beat, for readers
     that take millions of records at once (a capture file). `expand` gives the records themselves.
@@ -90,6 +125,7 @@ class Block:
     `dropped` int64 per beat row in order.
     """
 
+    __slots__ = ("kind", "channel", "level", "tick", "cycle", "captured", "dropped")
     kind: np.ndarray
     channel: np.ndarray
     level: np.ndarray
@@ -97,6 +133,25 @@ class Block:
     cycle: np.ndarray
     captured: np.ndarray
     dropped: np.ndarray
+
+    def __init__(
+        self,
+        kind: np.ndarray,
+        channel: np.ndarray,
+        level: np.ndarray,
+        tick: np.ndarray,
+        cycle: np.ndarray,
+        captured: np.ndarray,
+        dropped: np.ndarray,
+    ) -> None:
+        _set = object.__setattr__
+        _set(self, "kind", kind)
+        _set(self, "channel", channel)
+        _set(self, "level", level)
+        _set(self, "tick", tick)
+        _set(self, "cycle", cycle)
+        _set(self, "captured", captured)
+        _set(self, "dropped", dropped)
 
     def __len__(self) -> int:
         return len(self.tick)
@@ -154,57 +209,90 @@ class Block:
         return head, tail
 
 
-@dataclass(frozen=True, slots=True)
-class PlanAccepted:
+class PlanAccepted(Slotted, frozen=True):
     """Version 2: the sampler took `PLAN` as these values (the cycle count it will run, 0 = no end)."""
 
+    __slots__ = ("channel", "on_us", "off_us", "cycles")
     channel: int
     on_us: int
     off_us: int
     cycles: int
 
+    def __init__(self, channel: int, on_us: int, off_us: int, cycles: int) -> None:
+        _set = object.__setattr__
+        _set(self, "channel", channel)
+        _set(self, "on_us", on_us)
+        _set(self, "off_us", off_us)
+        _set(self, "cycles", cycles)
 
-@dataclass(frozen=True, slots=True)
-class GoAccepted:
+
+class GoAccepted(Slotted, frozen=True):
     """Version 2: `GO` started these channels (those with a plan, not already cycling) at `tick`."""
 
+    __slots__ = ("channels", "tick")
     channels: tuple[int, ...]
     tick: int
 
+    def __init__(self, channels: tuple[int, ...], tick: int) -> None:
+        object.__setattr__(self, "channels", channels)
+        object.__setattr__(self, "tick", tick)
 
-@dataclass(frozen=True, slots=True)
-class Notice:
+
+class Notice(Slotted, frozen=True):
+    __slots__ = ("text",)
     text: str
 
+    def __init__(self, text: str) -> None:
+        object.__setattr__(self, "text", text)
 
-@dataclass(frozen=True, slots=True)
-class Pong:
+
+class Pong(Slotted, frozen=True):
+    __slots__ = ("token",)
     token: int
 
+    def __init__(self, token: int) -> None:
+        object.__setattr__(self, "token", token)
 
-@dataclass(frozen=True, slots=True)
-class Unknown:
+
+class Unknown(Slotted, frozen=True):
     """A well-formed record of a type this host does not know (skipped and counted)."""
 
+    __slots__ = ("type_code",)
     type_code: str
 
+    def __init__(self, type_code: str) -> None:
+        object.__setattr__(self, "type_code", type_code)
 
-@dataclass(frozen=True, slots=True)
-class Fault:
-    """Damaged input: `count` bytes or records that could not be decoded, and why."""
 
+class Fault(Slotted, frozen=True):
+    """Damaged input: `count` bytes or records that could not be decoded, and why. `units`: how many
+    lines or frames (consecutive faults of one reason are merged)."""
+
+    __slots__ = ("reason", "nbytes", "units")
     reason: str
-    nbytes: int = 0
-    units: int = 1  # how many lines or frames (consecutive faults of one reason are merged)
+    nbytes: int
+    units: int
+
+    def __init__(self, reason: str, nbytes: int = 0, units: int = 1) -> None:
+        _set = object.__setattr__
+        _set(self, "reason", reason)
+        _set(self, "nbytes", nbytes)
+        _set(self, "units", units)
 
 
-@dataclass(frozen=True, slots=True)
-class SequenceGap:
+class SequenceGap(Slotted, frozen=True):
     """Packed form only: `frames_lost` frames never arrived between two good frames."""
 
+    __slots__ = ("expected", "received", "frames_lost")
     expected: int
     received: int
     frames_lost: int
+
+    def __init__(self, expected: int, received: int, frames_lost: int) -> None:
+        _set = object.__setattr__
+        _set(self, "expected", expected)
+        _set(self, "received", received)
+        _set(self, "frames_lost", frames_lost)
 
 
 Record = (
@@ -223,15 +311,44 @@ Record = (
 )
 
 
-@dataclass(slots=True)
-class DecodeCounters:
+class DecodeCounters(Slotted):
     """Running totals a decoder keeps; never reset by the decoder itself."""
 
-    bytes_in: int = 0
-    records: int = 0
-    edges: int = 0
-    faults: int = 0
-    fault_bytes: int = 0
-    unknown: int = 0
-    frames_lost: int = 0
-    by_reason: dict[str, int] = field(default_factory=dict)
+    __slots__ = (
+        "bytes_in",
+        "records",
+        "edges",
+        "faults",
+        "fault_bytes",
+        "unknown",
+        "frames_lost",
+        "by_reason",
+    )
+    bytes_in: int
+    records: int
+    edges: int
+    faults: int
+    fault_bytes: int
+    unknown: int
+    frames_lost: int
+    by_reason: dict[str, int]
+
+    def __init__(
+        self,
+        bytes_in: int = 0,
+        records: int = 0,
+        edges: int = 0,
+        faults: int = 0,
+        fault_bytes: int = 0,
+        unknown: int = 0,
+        frames_lost: int = 0,
+        by_reason: dict[str, int] | None = None,
+    ) -> None:
+        self.bytes_in = bytes_in
+        self.records = records
+        self.edges = edges
+        self.faults = faults
+        self.fault_bytes = fault_bytes
+        self.unknown = unknown
+        self.frames_lost = frames_lost
+        self.by_reason = {} if by_reason is None else by_reason
