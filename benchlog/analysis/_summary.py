@@ -62,35 +62,68 @@ class ValueCounts:
         self.values, self.counts = new, counts
 
     def __len__(self) -> int:
-        self._compact()
-        return int(self.counts.sum())
+        return int(self.counts.sum()) + self._buffered
+
+    def _unfolded(self) -> np.ndarray | None:
+        """Every value, as one array, while none has been folded yet (a short recording's case), else
+        None: its order statistics come from a partition, not a sort."""
+        if len(self.values) or not self._buffer:
+            return None
+        if len(self._buffer) > 1:
+            self._buffer = [np.concatenate(self._buffer)]
+        return self._buffer[0]
 
     def percentile(self, q: float) -> float:
         """`numpy.percentile(all values, q)`, exactly: the same index arithmetic and interpolation
         (numpy's 'linear' method: virtual index (n - 1) * q / 100, then a lerp of its two neighbours)."""
-        self._compact()
-        cum = np.cumsum(self.counts)
-        n = int(cum[-1])
-        virtual = (n - 1) * np.true_divide(q, 100)
-        below = np.floor(virtual)
-        if virtual >= n - 1:
-            lo = hi = n - 1
-        elif virtual < 0:
-            lo = hi = 0
+        return self._percentiles([q])[0]
+
+    def _percentiles(self, qs: list[float]) -> list[float]:
+        whole = self._unfolded()
+        if whole is None:
+            self._compact()
+            cum = np.cumsum(self.counts)
+            n = int(cum[-1])
         else:
-            lo, hi = int(below), int(below) + 1
-        gamma = virtual - below
-        a, b = self.values[np.searchsorted(cum, [lo, hi], "right")]
-        diff = b - a
-        if gamma >= 0.5:
-            return float(b - diff * (1 - gamma))
-        return float(a + diff * gamma)
+            n = len(whole)
+        at = [_neighbours(n, q) for q in qs]
+        ranks = [r for lo, hi, _ in at for r in (lo, hi)]
+        if whole is None:
+            ranked = self.values[np.searchsorted(cum, ranks, "right")]
+        else:  # the values of those ranks, by one partition (numpy.percentile's own way)
+            ranked = np.partition(whole, sorted(set(ranks)))[ranks]
+        return [_lerp(ranked[2 * i], ranked[2 * i + 1], gamma) for i, (_, _, gamma) in enumerate(at)]
 
     def dist(self) -> dict[str, float | None]:
         n = len(self)
         if not n:
             return {"n": 0, "p50": None, "p95": None, "max": None}
-        return {"n": n, "p50": self.percentile(50), "p95": self.percentile(95), "max": float(self.values[-1])}
+        p50, p95 = self._percentiles([50, 95])
+        whole = self._unfolded()
+        top = float(self.values[-1]) if whole is None else float(whole.max())
+        return {"n": n, "p50": p50, "p95": p95, "max": top}
+
+
+def _neighbours(n: int, q: float) -> tuple[int, int, float]:
+    """numpy's 'linear' percentile of n values: the ranks of the two values it interpolates and the
+    weight of the upper one (virtual index (n - 1) * q / 100)."""
+    virtual = (n - 1) * np.true_divide(q, 100)
+    below = np.floor(virtual)
+    if virtual >= n - 1:
+        lo = hi = n - 1
+    elif virtual < 0:
+        lo = hi = 0
+    else:
+        lo, hi = int(below), int(below) + 1
+    return lo, hi, virtual - below
+
+
+def _lerp(a: float, b: float, gamma: float) -> float:
+    """numpy's interpolation between neighbours (from the upper one when gamma >= 0.5)."""
+    diff = b - a
+    if gamma >= 0.5:
+        return float(b - diff * (1 - gamma))
+    return float(a + diff * gamma)
 
 
 # (column, rows, leave out missed/stuck): the quantities a summary or a verdict needs

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from benchlog.analysis import Summaries, load_spec, summarize
-from benchlog.analysis._summary import ValueCounts
+from benchlog.analysis._summary import COMPACT_AT, ValueCounts
 from benchlog.sim import load_preset
 from benchlog.views.cli.cmd_analyze import analyze_file
 from tests.clock.test_clock_replay import recording
@@ -56,10 +56,13 @@ def test_read_and_batch_sizes_change_no_measurement(tmp_path, cfg):
     assert big_doc["channels"] == summarize(big, spec)
 
 
-def test_value_counts_percentiles_are_numpys():
+@pytest.mark.parametrize("longest", [300, 60_000], ids=["never folded", "folded"])
+def test_value_counts_percentiles_are_numpys(longest):
+    # a short recording's values are all kept until the end; a long one's are folded into distinct
+    # values and counts as they come (COMPACT_AT): both give numpy's percentiles
     rng = np.random.default_rng(0)
-    for trial in range(400):
-        n = int(rng.integers(1, 300))
+    for trial in range(400 if longest < COMPACT_AT else 40):
+        n = int(rng.integers(1, longest))
         pool = rng.normal(0, 1000, int(rng.integers(1, 40))) if trial % 2 else np.arange(25.0)
         values = rng.choice(pool, n)
         values[rng.random(n) < 0.1] = np.nan
@@ -71,6 +74,9 @@ def test_value_counts_percentiles_are_numpys():
         for q in (0, 50, 95, 99.9, 100, float(rng.uniform(0, 100))):
             if len(finite):
                 assert vc.percentile(q) == np.percentile(finite, q)  # numpy as the reference, exactly
+        if len(finite):
+            p50, p95 = np.percentile(finite, [50, 95])
+            assert vc.dist() == {"n": len(finite), "p50": p50, "p95": p95, "max": finite.max()}
 
 
 def test_summaries_in_pieces_equal_the_whole(tmp_path):
