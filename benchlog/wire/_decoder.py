@@ -226,12 +226,12 @@ def _scan_frames(a: np.ndarray, seg_s: np.ndarray, seg_e: np.ndarray, ctx: LineC
     good = np.flatnonzero(ok)
     if len(good):
         if len(good) == n_seg:
-            frames = dec
+            frames, starts = dec, dstart
         else:
             lens = dlen[good]
-            first = np.cumsum(lens) - lens
-            frames = dec[np.repeat(dstart[good] - first, lens) + np.arange(int(lens.sum()))]
-        if not crc32_all_valid(frames, dlen[good]):
+            starts = np.cumsum(lens) - lens
+            frames = dec[np.repeat(dstart[good] - starts, lens) + np.arange(int(lens.sum()))]
+        if not crc32_all_valid(frames, dlen[good], starts):
             crc, whole = zlib.crc32, dec.tobytes()
             bad = [
                 crc(whole[s : s + n - 4]) != int.from_bytes(whole[s + n - 4 : s + n], "little")

@@ -68,7 +68,8 @@ def cobs_decode_spans(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tu
     The code bytes of a span form a chain (each one says how far the next one is); the chain is followed
     for all spans together, one numpy step per link, so the loop runs as many times as the longest chain,
     not once per byte or frame. Returns (ok, decoded, dstarts, dlens): `ok` where `cobs_decode` would
-    succeed, the decoded bytes of all spans back to back, and where each span's bytes start and how many.
+    succeed, the decoded bytes of all spans in span order, and where each span's bytes start and how many.
+    Between two spans' bytes there is nothing or one byte 0x00 (intact spans tiling `a`, decoded joined).
     """
     n = len(a)
     if len(starts) and starts[0] == 0 and ends[-1] == n - 1 and (starts[1:] == ends[:-1] + 1).all():
@@ -141,7 +142,8 @@ def _decode_joined(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tuple
     is zero exactly where a code byte was (a span holds no 0x00). So every span is intact when the output
     has that length and a zero in front of every span but the first: each span's chain of codes then
     runs from its first byte exactly to its end, and the last one's too, or the decoder raises. Then each
-    span's bytes are the output's between those zeros. Anything else (a damaged frame anywhere in the
+    span's bytes are the output's between those zeros (left in place: one 0x00 between two spans' bytes).
+    Anything else (a damaged frame anywhere in the
     read, a span of 255 bytes or more) returns None: the chains are followed span by span instead."""
     joined = a.tobytes().replace(b"\0", b"")
     try:
@@ -154,18 +156,17 @@ def _decode_joined(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tuple
     zeros_at = np.cumsum(lens[:-1]) - 1  # the zero written for each span's first code byte but the first
     if len(zeros_at) and (out.take(zeros_at) != 0).any():
         return None
-    keep = np.ones(len(out), bool)
-    keep[zeros_at] = False
-    lens -= 1
-    return np.ones(len(starts), bool), out[keep], np.cumsum(lens) - lens, lens
+    # span i's bytes start where its first code byte stood in the joined input, less the first
+    return np.ones(len(starts), bool), out, np.cumsum(lens) - lens, lens - 1
 
 
 _CRC_OF_ZEROS: list[int] = []
 
 
-def crc32_all_valid(frames: np.ndarray, lengths: np.ndarray) -> bool:
-    """Whether every frame (laid back to back in `frames`, each ending in the CRC-32 of the rest,
-    little-endian) is intact, with two zlib calls instead of one per frame.
+def crc32_all_valid(frames: np.ndarray, lengths: np.ndarray, starts: np.ndarray | None = None) -> bool:
+    """Whether every frame (in order in `frames`, back to back or at `starts`, each ending in the CRC-32
+    of the rest, little-endian) is intact, with two zlib calls instead of one per frame. Bytes of `frames`
+    between frames must be 0x00: they are then the same in both runs compared.
 
     A CRC is linear: over frames that each end in their own CRC, the CRC of the whole run depends only
     on the frames' lengths, so it equals that of frames of zeros with the same lengths. A damaged frame
@@ -180,6 +181,6 @@ def crc32_all_valid(frames: np.ndarray, lengths: np.ndarray) -> bool:
         _CRC_OF_ZEROS.extend(zlib.crc32(bytes(k)) for k in range(len(_CRC_OF_ZEROS), longest - 3))
     ref = np.zeros(len(frames), np.uint8)
     crcs = np.asarray(_CRC_OF_ZEROS, np.uint32)[lengths - 4].astype("<u4").view(np.uint8)
-    tails = np.cumsum(lengths) - 4
+    tails = (np.cumsum(lengths) if starts is None else starts + lengths) - 4
     ref[(tails[:, None] + np.arange(4)).reshape(-1)] = crcs  # each frame's last four bytes, in order
     return zlib.crc32(frames) == zlib.crc32(ref)

@@ -288,16 +288,18 @@ def bench_captures(sizes: list[int], repeat: int, keep: str | None = None) -> No
                     check=True,
                 )
                 warm = True
-            plain = [
-                timed([sys.executable, __file__, "--plain-only", str(paths["line"])], env)
-                for _ in range(repeat)
-            ]
-            plain_cpu = statistics.median(r[3] for r in plain)
+            # the plain loop and both forms take turns, round by round, so a machine whose speed drifts
+            # during the run (other work, frequency) moves all three alike, not the one timed last
+            commands = {"plain": [sys.executable, __file__, "--plain-only", str(paths["line"])]}
             for form in ("line", "packed"):
-                runs = [
-                    timed([sys.executable, "-m", "benchlog", "analyze", str(paths[form]), "--json"], env)
-                    for _ in range(repeat)
-                ]
+                commands[form] = [sys.executable, "-m", "benchlog", "analyze", str(paths[form]), "--json"]
+            timings: dict[str, list] = {k: [] for k in commands}
+            for _ in range(repeat):
+                for k, cmd in commands.items():
+                    timings[k].append(timed(cmd, env))
+            plain_cpu = statistics.median(r[3] for r in timings["plain"])
+            for form in ("line", "packed"):
+                runs = timings[form]
                 if {r[2] for r in runs} != {0}:
                     print(f"  analyze {form}: exit codes {sorted({r[2] for r in runs})}   MISSED (failed)")
                 wall = statistics.median(r[0] for r in runs)

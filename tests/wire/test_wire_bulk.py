@@ -109,8 +109,12 @@ def test_one_crc_over_many_frames_agrees_with_a_crc_per_frame():
             f[int(rng.integers(len(f)))] ^= int(rng.integers(1, 256))
         # zlib as the reference: every frame checked on its own
         each = all(zlib.crc32(f[:-4]) == int.from_bytes(f[-4:], "little") for f in frames)
+        lengths = np.array([len(f) for f in frames])
         joined = np.frombuffer(b"".join(frames), np.uint8)
-        assert crc32_all_valid(joined, np.array([len(f) for f in frames])) == each
+        assert crc32_all_valid(joined, lengths) == each
+        # one 0x00 between frames (as the joined COBS decoding leaves them), frames found at their starts
+        spaced = np.frombuffer(b"\0".join(frames), np.uint8)
+        assert crc32_all_valid(spaced, lengths, np.cumsum(lengths + 1) - (lengths + 1)) == each
 
 
 def stream(form: str, seed: int) -> bytes:
