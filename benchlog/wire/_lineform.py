@@ -259,6 +259,8 @@ def fast_edge_lines(
             got = _same_width_rows(a, starts[cand], width, first[cand], ctx)
             if got is not None:
                 ok, is_drive, channel, level, tick, kind = got
+                if ok.all():  # a clean stream: every candidate line is taken
+                    return cand, is_drive, channel, level, tick, kind
                 rows = np.flatnonzero(ok)  # one index array for every column: quicker than the mask
                 return (
                     cand.take(rows),
