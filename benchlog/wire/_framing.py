@@ -145,7 +145,8 @@ def _decode_joined(a: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> tuple
     span's bytes are the output's between those zeros (left in place: one 0x00 between two spans' bytes).
     Anything else (a damaged frame anywhere in the
     read, a span of 255 bytes or more) returns None: the chains are followed span by span instead."""
-    joined = a.tobytes().replace(b"\0", b"")
+    whole = a.base if type(a.base) is bytes and len(a.base) == len(a) else a.tobytes()  # (no copy of a read)
+    joined = whole.replace(b"\0", b"")
     try:
         out = np.frombuffer(_cobs.decode(joined), np.uint8)
     except DecodeError:
