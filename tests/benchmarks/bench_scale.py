@@ -254,11 +254,37 @@ def line(label: str, value: str, target: str, ok: bool | None) -> None:
     print(f"  {label:<58} {value:>22}   target {target}{'' if ok is None or ok else '   MISSED'}")
 
 
+FIRST_TOUCH = """
+import mmap, time
+size = 64 << 20
+m = mmap.mmap(-1, size)
+def walk():
+    t0 = time.perf_counter()
+    for at in range(0, size, 4096):
+        m[at] = 1
+    return time.perf_counter() - t0
+first = walk()
+print((first - walk()) / (size // 4096) * 1e6)
+"""
+
+
+def first_touch_us() -> float:
+    """Microseconds the kernel takes to give a process a page of memory it touches for the first time
+    (64 MiB in a child of its own, the second walk over the same pages subtracted). A 1 M edge run of
+    `benchlog analyze` touches 10,000-12,000 pages (4 KiB), the plain loop about 2,500, so this is part
+    of the ratio: 2.6-3.1 us here when the machine had run for a while, several times more just after
+    this virtual machine started (its host backs memory the first time the guest uses it)."""
+    out = subprocess.run([sys.executable, "-c", FIRST_TOUCH], capture_output=True, text=True, check=True)
+    return float(out.stdout)
+
+
 def bench_captures(sizes: list[int], repeat: int, keep: str | None = None) -> None:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     # as on a lab's PC after the first run: Python keeps the compiled modules (an environment that
     # forbids writing them would charge every timed run the compiling)
     env.pop("PYTHONDONTWRITEBYTECODE", None)
+    touch = statistics.median(first_touch_us() for _ in range(3))
+    line("a page's first touch on this machine (median of 3)", f"{touch:.1f} us", "for information", None)
     warm = False
     peaks: dict[str, list[float]] = {"line": [], "packed": []}
     with tempfile.TemporaryDirectory(prefix="bench-capture-") as tmp:

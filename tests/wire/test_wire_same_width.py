@@ -130,19 +130,32 @@ def test_beats_read_by_one_expression_are_the_one_line_parsers_beats():
     for _ in range(300):
         body = b"".join(_beat_line(rng) + (b"\r\n" if rng.random() < 0.3 else b"\n") for _ in range(40))
         ctx = _context(rng)
-        a = np.frombuffer(body, np.uint8)
-        _, starts, ends = _line_lines(a)
-        got = quick_beats(body, starts, ends, list(range(len(starts))), ctx)
+        got, _, _, rest = _quick_beats_checked(body, ctx)
         taken += len(got)
-        for j in range(len(starts)):
-            rec, strength = parse_line(body[starts[j] : ends[j]], ctx)
-            if j in got:
-                tick, captured, dropped, kind = got[j]
-                assert rec == Beat(tick, captured, dropped) and strength == kind
-            elif ctx.version == 1 and isinstance(rec, Beat) and b"*" in body[starts[j] : ends[j]]:
+        for rec, strength, line in rest:
+            if ctx.version == 1 and isinstance(rec, Beat) and b"*" in line:
                 # only a version 2 check (which parse_line reads) may leave a good beat to it
                 assert strength == CHECK_CRC
     assert taken > 500
+
+
+def _quick_beats_checked(body: bytes, ctx: LineContext):
+    """`quick_beats` over every line of `body`, each beat it takes checked against `parse_line` (the
+    one-line reader, the reference); returns its beats, the lines' bounds, and (record, check strength,
+    line) as `parse_line` reads each line it left."""
+    a = np.frombuffer(body, np.uint8)
+    _, starts, ends = _line_lines(a)
+    got = quick_beats(body, starts, ends, list(range(len(starts))), ctx)
+    rest = []
+    for j in range(len(starts)):
+        line = body[starts[j] : ends[j]]
+        rec, strength = parse_line(line, ctx)
+        if j in got:
+            tick, captured, dropped, kind = got[j]
+            assert rec == Beat(tick, captured, dropped) and strength == kind
+        else:
+            rest.append((rec, strength, line))
+    return got, starts, ends, rest
 
 
 def _same_layout_beats_block(rng: np.random.Generator) -> bytes:
@@ -180,19 +193,11 @@ def test_beats_read_column_by_column_are_the_one_line_parsers_beats_in_line_orde
         body = _same_layout_beats_block(rng)
         ctx = _context(rng)
         ctx.version = 1
-        a = np.frombuffer(body, np.uint8)
-        _, starts, ends = _line_lines(a)
-        got = quick_beats(body, starts, ends, list(range(len(starts))), ctx)
+        got, starts, ends, rest = _quick_beats_checked(body, ctx)
         assert list(got) == sorted(got)  # line order: the caller lays the beats out in it
+        assert not any(isinstance(rec, Beat) for rec, _, _ in rest)
         by_columns: dict = {}
         _same_layout_beats(body, starts, ends, list(range(len(starts))), ctx, by_columns)
         assert by_columns.items() <= got.items()
         taken += len(by_columns)
-        for j in range(len(starts)):
-            rec, strength = parse_line(body[starts[j] : ends[j]], ctx)
-            if j in got:
-                tick, captured, dropped, kind = got[j]
-                assert rec == Beat(tick, captured, dropped) and strength == kind
-            else:
-                assert not isinstance(rec, Beat)
     assert taken > 1000  # the column-wise reading took most of the beats
