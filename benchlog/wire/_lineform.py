@@ -516,12 +516,12 @@ def _same_layout_beats(
     lines = np.ndarray((len(a) - width + 1,), np.dtype((np.void, width)), a, 0, (1,))
     m = lines[s[pick]].view(np.uint8).reshape(len(pick), width)
     digit = HEX_VALUE[m]  # 255 where not a hex digit
-    want = np.full(m.shape, 0xFF, np.uint8)  # the byte each column must be, where it is one byte
-    want[:, cls == _B] = 0x42
-    want[:, cls == _SPACE] = 0x20
-    want[:, cls == _STAR] = 0x2A
+    want = np.zeros(width, np.uint8)  # the byte each column must be, where it is one byte
+    want[cls == _B] = 0x42
+    want[cls == _SPACE] = 0x20
+    want[cls == _STAR] = 0x2A
     fixed = (cls == _B) | (cls == _SPACE) | (cls == _STAR)
-    ok = (m[:, fixed] == want[:, fixed]).all(axis=1)
+    ok = (m[:, fixed] == want[fixed]).all(axis=1)
     ok &= (digit[:, cls == _HEXDIGIT] < 16).all(axis=1)
     ok &= (digit[:, cls == _DECDIGIT] < 10).all(axis=1)
     spaces = np.flatnonzero(cls == _SPACE).tolist()
